@@ -1,0 +1,34 @@
+"""Atomic writes: write to a temporary file beside the target, then rename."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import pathlib
+import tempfile
+
+
+@contextlib.contextmanager
+def atomic_path(path):
+    """Yield a temporary path in the target's folder; rename it over ``path`` on success."""
+    path = pathlib.Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    try:
+        yield pathlib.Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def write_text(path, text: str) -> None:
+    with atomic_path(path) as tmp:
+        tmp.write_text(text)
+
+
+def write_json(path, obj) -> None:
+    write_text(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")

@@ -1,0 +1,57 @@
+"""The ``decomp`` command line.
+
+Each module in :mod:`decomp.commands` defines ``register(subparsers)``, which
+adds its subcommand with ``set_defaults(func=...)``; ``func(args)`` returns the
+exit code. Exit codes: 0 ok, 2 bad input, 1 anything else (including a solve
+that did not reach an optimal, certified answer).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import pkgutil
+import sys
+
+from . import commands
+from .errors import ConfigError, InstanceError, UnknownMethodError
+
+EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT = 0, 1, 2
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="decomp",
+        description="Network bid prices: DLP and PNLP models, direct solvers and "
+                    "Lagrangian decomposition, with certificates, benchmarks and production runs.")
+    parser.add_argument("-v", "--verbose", action="store_true", help="log progress to stderr")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda m: m.name):
+        if info.name.startswith("_"):
+            continue
+        module = importlib.import_module(f"{commands.__name__}.{info.name}")
+        module.register(sub)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_BAD_INPUT
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
+                        format="%(levelname)s %(name)s: %(message)s")
+    try:
+        return int(args.func(args) or 0)
+    except (InstanceError, UnknownMethodError, ConfigError) as exc:
+        print(f"decomp {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print(f"decomp {args.command}: interrupted", file=sys.stderr)
+        return EXIT_FAIL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

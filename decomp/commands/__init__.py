@@ -1,0 +1,1 @@
+"""Subcommands of ``decomp``: one module each, discovered by decomp.cli."""

@@ -1,0 +1,58 @@
+"""The Lagrangian dual of the PNLP's leg capacities.
+
+Relaxing A x <= c with bid prices pi >= 0 splits the PNLP into one problem per
+product, max_{x_j >= 0} f_j S_j(x_j) - a_j x_j with a_j = (A^T pi)_j, solved in
+closed form (the newsvendor fractile). The dual function
+
+    q(pi) = sum_j [f_j S_j(x_j(pi)) - a_j x_j(pi)] + c . pi
+
+is convex, an upper bound on the PNLP optimum for every pi >= 0, with gradient
+c - A x(pi) and Hessian A diag(-dx_j/da_j) A^T.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from . import normal
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class DualPoint:
+    """q(pi) and what came with it; arrays are per product or per leg."""
+
+    pi: np.ndarray          # per leg
+    value: float            # q(pi)
+    gradient: np.ndarray    # per leg: c - A x
+    x: np.ndarray           # per product: subproblem solutions
+    dxda: np.ndarray        # per product: dx_j/da_j (<= 0)
+    a: np.ndarray           # per product: sum of its legs' bid prices
+    revenue: float          # sum_j f_j S_j(x_j)
+
+
+def subproblems(instance, a):
+    """Per-product solutions x_j(a_j) and dx_j/da_j, by each product's distribution."""
+    from . import distributions  # noqa: F401  (other distributions, if present)
+
+    return distributions.subproblems(instance, a)
+
+
+def evaluate(instance, pi) -> DualPoint:
+    """The dual function, its gradient and the subproblem solutions at ``pi``."""
+    from . import distributions
+
+    pi = np.asarray(pi, dtype=np.float64)
+    a = instance.leg_sum(pi)
+    x, dxda = distributions.subproblems(instance, a)
+    revenue_terms = instance.fare * distributions.expected_sales(instance, x)
+    value = float(np.sum(revenue_terms - a * x) + instance.capacity @ pi)
+    gradient = instance.capacity - instance.leg_load(x)
+    return DualPoint(pi=pi, value=value, gradient=gradient, x=x, dxda=dxda, a=a,
+                     revenue=float(np.sum(revenue_terms)))
+
+
+def dual_value(instance, pi) -> float:
+    """q(pi): an upper bound on the PNLP optimum for any pi >= 0."""
+    return evaluate(instance, pi).value

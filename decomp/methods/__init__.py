@@ -1,0 +1,1 @@
+"""Solution methods. Each module registers its classes with decomp.registry."""

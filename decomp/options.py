@@ -1,0 +1,63 @@
+"""Solver options: one frozen, validated config for every method.
+
+Per-call changes go through :func:`dataclasses.replace`; a caller's dict is
+never mutated. ``solver_options`` passes solver-specific settings through
+(Ipopt or HiGHS option names) and is copied on construction.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from types import MappingProxyType
+from typing import Any, Mapping
+
+from .errors import ConfigError
+
+
+@dataclasses.dataclass(frozen=True)
+class SolverOptions:
+    """Options common to every method.
+
+    tol:            target relative optimality tolerance (certified gap for the
+                    Lagrangian method; passed as the solver's tolerance otherwise).
+    time_limit:     wall-clock seconds for the solve, or None for no limit.
+    iteration_limit: iterations, or None for the method's default.
+    threads:        solver threads (HiGHS), or None for the solver's default.
+    segments:       pieces per product in the piecewise-linear PNLP model.
+    dual_method:    Lagrangian dual minimizer: 'newton', 'lbfgsb' or 'subgradient'.
+    verbose:        let the solver print its log.
+    solver_options: passthrough of solver-specific options.
+    """
+
+    tol: float = 1e-9
+    time_limit: float | None = None
+    iteration_limit: int | None = None
+    threads: int | None = None
+    segments: int = 16
+    dual_method: str = "newton"
+    verbose: bool = False
+    solver_options: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+
+    def __post_init__(self):
+        if not (isinstance(self.tol, (int, float)) and math.isfinite(self.tol) and 0 < self.tol < 1):
+            raise ConfigError(f"tol must be a number in (0, 1), got {self.tol!r}")
+        if self.time_limit is not None and not (self.time_limit > 0):
+            raise ConfigError(f"time_limit must be positive seconds or None, got {self.time_limit!r}")
+        if self.iteration_limit is not None and (int(self.iteration_limit) != self.iteration_limit or self.iteration_limit < 1):
+            raise ConfigError(f"iteration_limit must be a positive integer or None, got {self.iteration_limit!r}")
+        if self.threads is not None and (int(self.threads) != self.threads or self.threads < 1):
+            raise ConfigError(f"threads must be a positive integer or None, got {self.threads!r}")
+        if int(self.segments) != self.segments or self.segments < 1:
+            raise ConfigError(f"segments must be a positive integer, got {self.segments!r}")
+        if self.dual_method not in ("newton", "lbfgsb", "subgradient"):
+            raise ConfigError(f"dual_method must be 'newton', 'lbfgsb' or 'subgradient', got {self.dual_method!r}")
+        object.__setattr__(self, "solver_options", MappingProxyType(dict(self.solver_options)))
+
+    def replace(self, **changes) -> "SolverOptions":
+        return dataclasses.replace(self, **changes)
+
+    def to_dict(self) -> dict:
+        d = dataclasses.asdict(self)
+        d["solver_options"] = dict(self.solver_options)
+        return d

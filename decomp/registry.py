@@ -1,0 +1,81 @@
+"""Method registry: name -> class, filled by the :func:`register` decorator.
+
+A method class has ``name``, the ``models`` it solves, ``available()``
+returning (bool, reason) checked lazily, and ``solve(instance, model,
+options, warm_start)`` returning a :class:`~decomp.result.SolveResult`.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+from .errors import SolverUnavailableError, UnknownMethodError
+
+MODELS = ("dlp", "pnlp", "pwl")
+
+_METHODS: dict = {}
+
+# Modules whose import registers the built-in methods (imported on first use).
+_BUILTIN_MODULES = (
+    "decomp.methods.highs",
+    "decomp.methods.pyomo_highs",
+    "decomp.methods.ipopt",
+    "decomp.methods.pyomo_ipopt",
+    "decomp.methods.lagrangian",
+)
+
+
+def register(cls):
+    """Class decorator: add a method class to the registry under ``cls.name``."""
+    if cls.name in _METHODS and _METHODS[cls.name] is not cls:
+        raise ValueError(f"method name {cls.name!r} registered twice")
+    _METHODS[cls.name] = cls
+    return cls
+
+
+def _load_builtins():
+    for mod in _BUILTIN_MODULES:
+        importlib.import_module(mod)
+
+
+def method_names() -> list:
+    _load_builtins()
+    return sorted(_METHODS)
+
+
+def pairs() -> list:
+    """Every valid (model, method) pair."""
+    _load_builtins()
+    return sorted((m, name) for name, cls in _METHODS.items() for m in cls.models)
+
+
+def get_method(name: str, model: str):
+    """The method class for ``name``, checked against ``model``."""
+    _load_builtins()
+    if model not in MODELS:
+        raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")
+    if name not in _METHODS:
+        raise UnknownMethodError(f"unknown method {name!r}; valid methods: {', '.join(sorted(_METHODS))}")
+    cls = _METHODS[name]
+    if model not in cls.models:
+        ok = [n for n, c in sorted(_METHODS.items()) if model in c.models]
+        raise UnknownMethodError(
+            f"method {name!r} does not solve model {model!r} (it solves {', '.join(cls.models)}); "
+            f"methods for {model!r}: {', '.join(ok)}")
+    return cls
+
+
+def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=None, warm_start=None):
+    """Solve ``instance`` with the named model and method; see :class:`SolveResult`.
+
+    ``warm_start``: bid prices to start from, as a dict by leg id or an array
+    aligned with ``instance.leg_ids`` (used by methods that can; others ignore it).
+    """
+    from .options import SolverOptions
+
+    cls = get_method(method, model)
+    ok, reason = cls.available()
+    if not ok:
+        raise SolverUnavailableError(f"method {method!r} is not available: {reason}")
+    options = SolverOptions() if options is None else options
+    return cls().solve(instance, model, options, warm_start=warm_start)

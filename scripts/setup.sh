@@ -1,0 +1,43 @@
+#!/usr/bin/env bash
+# Set up everything decomp needs on a Debian machine: system packages, the
+# virtual environment, the project, and PyNumero's ASL library for Pyomo's
+# cyipopt interface. Safe to run again; steps already done are skipped.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+PY=${PY:-python3}
+VENV=.venv
+
+need_apt=()
+[ -f /usr/include/ampl-netlib-solvers/asl.h ] || need_apt+=(libamplsolver-dev)
+command -v cmake >/dev/null || need_apt+=(cmake)
+command -v g++ >/dev/null || need_apt+=(g++)
+command -v make >/dev/null || need_apt+=(make)
+if [ ${#need_apt[@]} -gt 0 ]; then
+    echo "setup: installing Debian packages: ${need_apt[*]}"
+    SUDO=""
+    [ "$(id -u)" = 0 ] || SUDO=sudo
+    $SUDO apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq "${need_apt[@]}"
+fi
+
+[ -x "$VENV/bin/python" ] || "$PY" -m venv "$VENV"
+"$VENV/bin/python" -m pip install -q --upgrade pip
+"$VENV/bin/python" -m pip install -q -e '.[test]'
+
+# PyNumero's ASL interface, built from the sources shipped in the Pyomo wheel.
+"$VENV/bin/python" scripts/build_pynumero.py
+
+# Both solvers must be usable through Pyomo before anything else runs.
+"$VENV/bin/python" - <<'PYEOF'
+import pyomo.environ as pyo
+ipopt = pyo.SolverFactory("cyipopt")
+highs = pyo.SolverFactory("appsi_highs")
+problems = []
+if not ipopt.available(exception_flag=False):
+    problems.append("Pyomo's 'cyipopt' solver is not available")
+if not highs.available(exception_flag=False):
+    problems.append("Pyomo's 'appsi_highs' solver is not available")
+if problems:
+    raise SystemExit("setup: " + "; ".join(problems))
+print("setup: cyipopt and appsi_highs are available through Pyomo")
+PYEOF
