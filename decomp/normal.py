@@ -20,6 +20,12 @@ _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 _SQRT_HALF = np.sqrt(0.5)
 
 
+def _as_arrays(*values):
+    """Broadcast to writable float arrays of at least one dimension."""
+    return [np.array(v, dtype=np.float64) for v in
+            np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, dtype=np.float64)) for v in values))]
+
+
 def pdf(z):
     return _INV_SQRT_2PI * np.exp(-0.5 * np.square(z))
 
@@ -31,7 +37,8 @@ def upper_tail(z):
 
 def loss(z):
     """Standard normal loss G(z) = E[(Z - z)^+] = phi(z) - z (1 - Phi(z))."""
-    z = np.asarray(z, dtype=np.float64)
+    scalar = np.ndim(z) == 0
+    z = np.atleast_1d(np.asarray(z, dtype=np.float64))
     # For z > 0 write both terms with the scaled complementary error function
     # so that phi and the tail share the factor exp(-z^2/2) (no underflow to
     # 0 - 0 before the true value does).
@@ -41,20 +48,18 @@ def loss(z):
     out[pos] = np.exp(-0.5 * zp * zp) * (_INV_SQRT_2PI - 0.5 * zp * special.erfcx(zp * _SQRT_HALF))
     zn = z[~pos]
     out[~pos] = pdf(zn) - zn * special.ndtr(-zn)
-    return np.maximum(out, 0.0) if out.ndim else max(float(out), 0.0)
+    out = np.maximum(out, 0.0)
+    return float(out[0]) if scalar else out
 
 
 def expected_sales(x, mean, std):
     """S(x) = E[min(max(D, 0), x)] for D ~ N(mean, std^2), x >= 0."""
-    x, mean, std = np.broadcast_arrays(*(np.asarray(v, dtype=np.float64) for v in (x, mean, std)))
+    x, mean, std = _as_arrays(x, mean, std)
     out = np.minimum(x, np.maximum(mean, 0.0))
     s = std > 0
     if np.any(s):
         sd = std[s]
-        z0 = -mean[s] / sd
-        z = (x[s] - mean[s]) / sd
-        out = out.astype(np.float64, copy=True)
-        out[s] = sd * (loss(z0) - loss(z))
+        out[s] = sd * (loss(-mean[s] / sd) - loss((x[s] - mean[s]) / sd))
     return out
 
 
@@ -72,7 +77,7 @@ def expected_spill(x, mean, std):
 
 def marginal_sales(x, mean, std):
     """S'(x) = P(D > x) for x >= 0 (std = 0: 1 below the mean, 0 above)."""
-    x, mean, std = np.broadcast_arrays(*(np.asarray(v, dtype=np.float64) for v in (x, mean, std)))
+    x, mean, std = _as_arrays(x, mean, std)
     out = (x < mean).astype(np.float64)
     s = std > 0
     if np.any(s):

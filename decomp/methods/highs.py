@@ -1,0 +1,1 @@
+"""Methods of the highs family (registered with decomp.registry on import)."""

@@ -1,0 +1,1 @@
+"""Methods of the ipopt family (registered with decomp.registry on import)."""

@@ -1,0 +1,1 @@
+"""Methods of the lagrangian family (registered with decomp.registry on import)."""
