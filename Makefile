@@ -1,17 +1,13 @@
 # Two entry points do all set-up: `make demo` (the main job on the default
-# instance ladder) and `make test` (the test suite). Both are idempotent.
+# instance ladder) and `make test` (the test suite). Both are idempotent and
+# a second run skips what is already in place.
 PY ?= python3
-VENV := .venv
-BIN := $(VENV)/bin
-STAMP := $(VENV)/.decomp-ready
+BIN := .venv/bin
 
-.PHONY: demo test setup bench bench-full clean-venv
+.PHONY: demo test setup bench-full clean-venv
 
-setup: $(STAMP)
-
-$(STAMP): pyproject.toml scripts/setup.sh
-	PY=$(PY) bash scripts/setup.sh
-	touch $(STAMP)
+setup:
+	@PY=$(PY) bash scripts/setup.sh
 
 demo: setup
 	$(BIN)/decomp demo
@@ -19,11 +15,8 @@ demo: setup
 test: setup
 	$(BIN)/python -m pytest -q tests
 
-bench: setup
-	$(BIN)/decomp bench --suite quick --out bench/results/quick
-
 bench-full: setup
 	$(BIN)/decomp bench --suite full --out bench/results/full
 
 clean-venv:
-	rm -rf $(VENV)
+	rm -rf .venv

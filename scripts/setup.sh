@@ -21,8 +21,13 @@ if [ ${#need_apt[@]} -gt 0 ]; then
 fi
 
 [ -x "$VENV/bin/python" ] || "$PY" -m venv "$VENV"
-"$VENV/bin/python" -m pip install -q --upgrade pip
-"$VENV/bin/python" -m pip install -q -e '.[test]'
+# The project is (re)installed when pyproject.toml changed since the last set-up.
+STAMP="$VENV/.decomp-installed"
+if [ ! -f "$STAMP" ] || [ pyproject.toml -nt "$STAMP" ]; then
+    "$VENV/bin/python" -m pip install -q --upgrade pip
+    "$VENV/bin/python" -m pip install -q -e '.[test]'
+    touch "$STAMP"
+fi
 
 # PyNumero's ASL interface, built from the sources shipped in the Pyomo wheel.
 "$VENV/bin/python" scripts/build_pynumero.py
