@@ -1,0 +1,394 @@
+"""Synthetic hub-and-spoke networks of a fictional carrier.
+
+The network: ``hubs`` hub stations, ``spokes`` spoke stations (each attached
+to one home hub, round robin), and ``banks`` departure banks a day. Every bank
+has a leg from each spoke to its hub and back, and a leg between every ordered
+pair of hubs, so there are ``banks * (2 * spokes + hubs * (hubs - 1))`` legs.
+
+Itineraries (paths of legs, each leg departing in the same bank as the one
+before it or the next bank):
+
+* local: one leg (spoke-hub, hub-spoke, hub-hub);
+* one-stop: spoke-hub-spoke through the common home hub, spoke-hub-hub and
+  hub-hub-spoke;
+* two-stop (``two_stop``): spoke-hub-hub-spoke over two hubs.
+
+Each itinerary is sold in ``fare_classes`` fare classes with a fare ladder:
+class ``k`` (``k = 0`` the highest) costs ``top * fare_ratio**k``, where the top
+fare grows with the straight-line distance of the market. Lower classes get
+more demand (``class_growth``). Demand means come from invented station sizes,
+standard deviations from a coefficient of variation drawn in ``cv``, and each
+leg's capacity is set so that mean demand over capacity (the demand factor)
+is a draw in ``demand_factor``.
+
+Every local itinerary is sold, so every leg is used whenever there are at
+least as many itineraries as legs; connections are then picked at random
+(two-stops less often) until there are exactly ``n_products`` products.
+
+Station codes are invented: a consonant, a vowel and a digit ("KA3", "BO7"),
+or two letters and a digit for very large networks. They are not checked
+against any list; they cannot be IATA airport codes, which (as common
+practice has it, quoted from memory) use letters only. Leg ids are
+``<flight>-<origin>-<destination>`` ("K0101-KA3-BO7") and product ids
+``<flights joined by '.'>-<fare class letter>`` ("K0101.K0245-B").
+
+Everything is numpy over arrays: the cost is a few passes over the products.
+Same parameters and seed give the same instance, and so byte-identical files.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import math
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from .errors import ConfigError
+from .instance import Instance
+
+log = logging.getLogger(__name__)
+
+GENERATOR_NAME = "decomp.generator/1"
+
+_CONSONANTS = "BDFGHJKLMNPRSTVWZ"
+_VOWELS = "AEIOU"
+_CLASS_LETTERS = "ABCDEFGHJKLMNPQRSTUVWXYZ"
+
+
+@dataclasses.dataclass(frozen=True)
+class GeneratorParams:
+    """Parameters of :func:`generate`. ``None`` means: chosen from the size.
+
+    hubs, spokes, banks, fare_classes: network shape (see the module docstring).
+    two_stop: sell spoke-hub-hub-spoke itineraries (default: when hubs >= 2).
+    demand_factor: (low, high) range of the per-leg target mean demand over capacity.
+    cv: (low, high) range of the per-product coefficient of variation std/mean.
+    fare_ratio: fare of class k+1 over fare of class k (the ladder step), in (0, 1).
+    class_growth: demand of class k+1 over demand of class k (> 0).
+    seats: median mean demand per leg, in seats, before the demand factor.
+    two_stop_weight, one_stop_weight: relative chance that a connection of
+        that kind is picked, against each other.
+    carrier: the flight number prefix (one or two letters).
+    """
+
+    hubs: int | None = None
+    spokes: int | None = None
+    banks: int | None = None
+    fare_classes: int | None = None
+    two_stop: bool | None = None
+    demand_factor: tuple[float, float] = (0.8, 1.4)
+    cv: tuple[float, float] = (0.25, 0.6)
+    fare_ratio: float = 0.72
+    class_growth: float = 1.35
+    seats: float = 150.0
+    one_stop_weight: float = 1.0
+    two_stop_weight: float = 0.3
+    carrier: str = "K"
+
+    def validated(self) -> "GeneratorParams":
+        def rng_pair(name, lo_min, strict_lo=False):
+            lo, hi = (float(v) for v in getattr(self, name))
+            bad = lo < lo_min or (strict_lo and lo <= lo_min) or hi < lo or not math.isfinite(hi)
+            if bad:
+                raise ConfigError(f"generator: {name} must be a range (low, high) with "
+                                  f"{'>' if strict_lo else '>='} {lo_min} <= low <= high, got {(lo, hi)}")
+            return (lo, hi)
+
+        for name, lo in (("hubs", 1), ("spokes", 2), ("banks", 1), ("fare_classes", 1)):
+            v = getattr(self, name)
+            if v is not None and (int(v) != v or v < lo):
+                raise ConfigError(f"generator: {name} must be an integer >= {lo}, got {v!r}")
+        if self.fare_classes is not None and self.fare_classes > len(_CLASS_LETTERS):
+            raise ConfigError(f"generator: at most {len(_CLASS_LETTERS)} fare classes, got {self.fare_classes}")
+        if not 0 < self.fare_ratio < 1:
+            raise ConfigError(f"generator: fare_ratio must be in (0, 1), got {self.fare_ratio}")
+        for name in ("class_growth", "seats", "one_stop_weight", "two_stop_weight"):
+            v = getattr(self, name)
+            if not (math.isfinite(v) and v > 0):
+                raise ConfigError(f"generator: {name} must be > 0, got {v!r}")
+        if not (isinstance(self.carrier, str) and 1 <= len(self.carrier) <= 2 and self.carrier.isalpha()):
+            raise ConfigError(f"generator: carrier must be one or two letters, got {self.carrier!r}")
+        return dataclasses.replace(
+            self, demand_factor=rng_pair("demand_factor", 0.0, strict_lo=True),
+            cv=rng_pair("cv", 0.0))
+
+    def to_dict(self) -> dict:
+        d = dataclasses.asdict(self)
+        d["demand_factor"] = list(self.demand_factor)
+        d["cv"] = list(self.cv)
+        return d
+
+
+def _auto_shape(n: int, p: GeneratorParams):
+    """Hubs, banks, fare classes, two-stop flag and a target leg count for ``n`` products.
+
+    The leg target grows like n**0.56: about 150 legs at 10,000 products and
+    about 2,000 at 1,000,000.
+    """
+    hubs = p.hubs if p.hubs is not None else (1 if n < 200 else 2 if n < 2000 else 3 if n < 50_000 else 4)
+    banks = p.banks if p.banks is not None else (1 if n < 1000 else 2 if n < 20_000 else 3 if n < 200_000 else 4)
+    classes = p.fare_classes if p.fare_classes is not None else (
+        2 if n < 50 else 3 if n < 500 else 4 if n < 20_000 else 5)
+    two_stop = p.two_stop if p.two_stop is not None else hubs >= 2
+    leg_target = 150.0 * (n / 1e4) ** 0.56
+    return int(hubs), int(banks), int(classes), bool(two_stop), leg_target
+
+
+def _station_codes(n: int, rng) -> np.ndarray:
+    if n <= len(_CONSONANTS) * len(_VOWELS) * 10 // 2:
+        pool = [c + v + d for c in _CONSONANTS for v in _VOWELS for d in "0123456789"]
+    else:
+        letters = "ABCDEFGHIJKLMNOPQRSTUVWXYZ"
+        pool = [a + b + d for a in letters for b in letters for d in "0123456789"]
+    if n > len(pool):
+        raise ConfigError(f"generator: at most {len(pool)} stations, asked for {n}")
+    return np.array(pool, dtype=object)[rng.choice(len(pool), size=n, replace=False)]
+
+
+class _Network:
+    """Stations and legs of one network shape (small: a few thousand legs)."""
+
+    def __init__(self, hubs: int, spokes: int, banks: int):
+        self.H, self.S, self.B = hubs, spokes, banks
+        H, S, B = hubs, spokes, banks
+        self.home = np.arange(S) % H                      # home hub of each spoke
+        # per bank: S spoke->hub legs, S hub->spoke legs, H(H-1) hub->hub legs
+        per_bank = 2 * S + H * (H - 1)
+        self.per_bank = per_bank
+        self.n_legs = B * per_bank
+        hh_o, hh_d = np.nonzero(~np.eye(H, dtype=bool))   # ordered hub pairs, row-major
+        self._hh_pos = np.full((H, H), -1, dtype=np.int64)
+        self._hh_pos[hh_o, hh_d] = np.arange(len(hh_o))
+        spoke_st = H + np.arange(S)
+        o_bank = np.concatenate([spoke_st, self.home, hh_o])
+        d_bank = np.concatenate([self.home, spoke_st, hh_d])
+        self.leg_origin = np.tile(o_bank, B)
+        self.leg_destination = np.tile(d_bank, B)
+        self.leg_bank = np.repeat(np.arange(B), per_bank)
+
+    def out_leg(self, s, b):
+        return b * self.per_bank + s
+
+    def in_leg(self, s, b):
+        return b * self.per_bank + self.S + s
+
+    def hh_leg(self, h1, h2, b):
+        return b * self.per_bank + 2 * self.S + self._hh_pos[h1, h2]
+
+
+def _bank_paths(B: int, n_legs: int) -> np.ndarray:
+    """All bank sequences of ``n_legs`` legs, each step staying or moving one bank later."""
+    seqs = np.zeros((B, 1), dtype=np.int64) + np.arange(B)[:, None]
+    for _ in range(n_legs - 1):
+        stay = seqs
+        move = seqs[seqs[:, -1] + 1 < B]
+        seqs = np.vstack([np.hstack([stay, stay[:, -1:]]), np.hstack([move, move[:, -1:] + 1])])
+    return seqs
+
+
+def _cross(a: np.ndarray, b: np.ndarray):
+    """Row-wise cartesian product of two index arrays (a major)."""
+    return np.repeat(a, len(b), axis=0), np.tile(b, (len(a),) + (1,) * (b.ndim - 1))
+
+
+def _itineraries(net: _Network, two_stop: bool):
+    """All itineraries: (legs (n, 3) padded with -1, kind 0/1/2 = stops, origin, destination station)."""
+    H, S, B = net.H, net.S, net.B
+    parts, kinds = [], []
+    # local: every leg
+    loc = np.full((net.n_legs, 3), -1, dtype=np.int64)
+    loc[:, 0] = np.arange(net.n_legs)
+    parts.append(loc)
+    kinds.append(np.zeros(net.n_legs, dtype=np.int8))
+    b2 = _bank_paths(B, 2)
+    # spoke -> hub -> spoke, same home hub
+    sa, sb = _cross(np.arange(S), np.arange(S))
+    keep = (net.home[sa] == net.home[sb]) & (sa != sb)
+    sa, sb = sa[keep], sb[keep]
+    pair, bk = _cross(np.stack([sa, sb], 1), b2)
+    one = np.full((len(pair), 3), -1, dtype=np.int64)
+    one[:, 0] = net.out_leg(pair[:, 0], bk[:, 0])
+    one[:, 1] = net.in_leg(pair[:, 1], bk[:, 1])
+    parts.append(one)
+    if H >= 2:
+        # spoke -> hub -> other hub, and other hub -> hub -> spoke
+        s, h2 = _cross(np.arange(S), np.arange(H))
+        keep = net.home[s] != h2
+        s, h2 = s[keep], h2[keep]
+        pair, bk = _cross(np.stack([s, h2], 1), b2)
+        a = np.full((len(pair), 3), -1, dtype=np.int64)
+        a[:, 0] = net.out_leg(pair[:, 0], bk[:, 0])
+        a[:, 1] = net.hh_leg(net.home[pair[:, 0]], pair[:, 1], bk[:, 1])
+        c = np.full((len(pair), 3), -1, dtype=np.int64)
+        c[:, 0] = net.hh_leg(pair[:, 1], net.home[pair[:, 0]], bk[:, 0])
+        c[:, 1] = net.in_leg(pair[:, 0], bk[:, 1])
+        parts += [a, c]
+    n_one = sum(len(x) for x in parts[1:])
+    kinds.append(np.ones(n_one, dtype=np.int8))
+    if two_stop and H >= 2:
+        sa, sb = _cross(np.arange(S), np.arange(S))
+        keep = net.home[sa] != net.home[sb]
+        sa, sb = sa[keep], sb[keep]
+        b3 = _bank_paths(B, 3)
+        pair, bk = _cross(np.stack([sa, sb], 1), b3)
+        two = np.empty((len(pair), 3), dtype=np.int64)
+        two[:, 0] = net.out_leg(pair[:, 0], bk[:, 0])
+        two[:, 1] = net.hh_leg(net.home[pair[:, 0]], net.home[pair[:, 1]], bk[:, 1])
+        two[:, 2] = net.in_leg(pair[:, 1], bk[:, 2])
+        parts.append(two)
+        kinds.append(np.full(len(two), 2, dtype=np.int8))
+    legs = np.vstack(parts)
+    kind = np.concatenate(kinds)
+    last = np.where(legs[:, 2] >= 0, legs[:, 2], np.where(legs[:, 1] >= 0, legs[:, 1], legs[:, 0]))
+    return legs, kind, net.leg_origin[legs[:, 0]], net.leg_destination[last]
+
+
+def _pool_size(hubs, spokes, banks, two_stop) -> int:
+    net = _Network(hubs, spokes, banks)
+    return len(_itineraries(net, two_stop)[0])
+
+
+def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = None, **overrides) -> Instance:
+    """A hub-and-spoke instance with exactly ``n_products`` products.
+
+    ``params`` (a :class:`GeneratorParams`) and/or keyword overrides of its
+    fields set the shape; the rest is chosen from the size. Deterministic in
+    (``n_products``, ``seed``, parameters). ``meta`` records the generator,
+    seed and the resolved parameters, so :func:`generate` with
+    ``**meta["params"]`` gives the same instance again.
+    """
+    if int(n_products) != n_products or n_products < 1:
+        raise ConfigError(f"generator: n_products must be a positive integer, got {n_products!r}")
+    if int(seed) != seed or seed < 0:
+        raise ConfigError(f"generator: seed must be a non-negative integer, got {seed!r}")
+    n, seed = int(n_products), int(seed)
+    p = params if params is not None else GeneratorParams()
+    unknown = set(overrides) - {f.name for f in dataclasses.fields(GeneratorParams)}
+    if unknown:
+        raise ConfigError(f"generator: unknown parameter(s) {sorted(unknown)}; "
+                          f"valid: {[f.name for f in dataclasses.fields(GeneratorParams)]}")
+    for k in ("demand_factor", "cv"):
+        if k in overrides:
+            overrides[k] = tuple(overrides[k])
+    p = dataclasses.replace(p, **overrides).validated()
+    rng = np.random.default_rng(seed)
+
+    H, B, C, two_stop, leg_target = _auto_shape(n, p)
+    need = -(-n // C)                                   # itineraries to sell
+    if p.spokes is not None:
+        S = int(p.spokes)
+    else:
+        S = max(2, int(round((leg_target / B - H * (H - 1)) / 2)))
+        while _pool_size(H, S, B, two_stop) < need:
+            S = max(S + 1, int(S * 1.1))
+    net = _Network(H, S, B)
+    legs3, kind, it_o, it_d = _itineraries(net, two_stop)
+    if len(legs3) < need:
+        raise ConfigError(
+            f"generator: the network (hubs={H}, spokes={S}, banks={B}, two_stop={two_stop}) has only "
+            f"{len(legs3)} itineraries, {need} needed for {n} products in {C} fare classes; "
+            "raise spokes, banks or fare_classes")
+    resolved = dataclasses.replace(p, hubs=H, spokes=S, banks=B, fare_classes=C, two_stop=two_stop)
+
+    # --- stations: codes, positions (km on a plane), sizes -----------------
+    n_st = H + S
+    codes = _station_codes(n_st, rng)
+    ang = rng.uniform(0, 2 * np.pi, n_st)
+    rad = np.where(np.arange(n_st) < H, rng.uniform(0, 300, n_st), rng.uniform(300, 2500, n_st))
+    xy = np.stack([rad * np.cos(ang), rad * np.sin(ang)], 1)
+    size = rng.lognormal(0.0, 0.6, n_st)
+    size[:H] *= 4.0
+
+    # --- pick itineraries: all locals first, then weighted connections -----
+    n_loc = int((kind == 0).sum())
+    if need <= n_loc:
+        chosen = np.sort(rng.choice(n_loc, size=need, replace=False))
+        if need < net.n_legs:
+            log.warning("generator: %d legs but only %d itineraries; some legs carry no product",
+                        net.n_legs, need)
+    else:
+        w = np.where(kind[n_loc:] == 1, p.one_stop_weight, p.two_stop_weight)
+        keys = np.log(rng.uniform(1e-300, 1.0, len(w))) / w   # Efraimidis-Spirakis keys
+        k = need - n_loc
+        top = np.argpartition(-keys, k - 1)[:k] if k < len(w) else np.arange(len(w))
+        chosen = np.concatenate([np.arange(n_loc), n_loc + np.sort(top)])
+    legs3, kind, it_o, it_d = legs3[chosen], kind[chosen], it_o[chosen], it_d[chosen]
+    n_it = len(chosen)
+
+    # --- products: itinerary-major, class-minor, first n -------------------
+    it_of = np.repeat(np.arange(n_it), C)[:n]
+    cls = np.tile(np.arange(C), n_it)[:n]
+    nleg_it = (legs3 >= 0).sum(1)
+    nleg = nleg_it[it_of]
+    leg_ptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(nleg, out=leg_ptr[1:])
+    leg_index = legs3[it_of][legs3[it_of] >= 0]        # row-major keeps travel order
+
+    # fares: top fare from market distance, ladder down by fare_ratio
+    dist = np.hypot(*(xy[it_o] - xy[it_d]).T)
+    top = (60.0 + 0.22 * dist) * np.array([1.0, 0.92, 0.85])[kind] * rng.uniform(0.9, 1.1, n_it)
+    jitter = rng.uniform(0.96, 1.04, n)
+    fare = np.maximum(1.0, np.round(top[it_of] * p.fare_ratio ** cls * jitter))
+
+    # demand: gravity-like market weight, lower classes get more
+    bank_pref = rng.uniform(0.6, 1.4, B)
+    first_bank = net.leg_bank[legs3[:, 0]]
+    market = (size[it_o] * size[it_d] / np.sqrt(50.0 + dist) * np.array([1.0, 0.5, 0.25])[kind]
+              * bank_pref[first_bank] * rng.lognormal(0.0, 0.4, n_it))
+    raw = market[it_of] * p.class_growth ** cls * rng.uniform(0.7, 1.3, n)
+    raw_load = np.bincount(leg_index, weights=np.repeat(raw, nleg), minlength=net.n_legs)
+    used = raw_load > 0
+    scale = p.seats / np.median(raw_load[used]) if used.any() else 1.0
+    mean = np.maximum(np.round(raw * scale, 4), 1e-4)
+    cv = rng.uniform(p.cv[0], p.cv[1], n)
+    std = np.round(mean * cv, 4)
+    load = np.bincount(leg_index, weights=np.repeat(mean, nleg), minlength=net.n_legs)
+    target_df = rng.uniform(p.demand_factor[0], p.demand_factor[1], net.n_legs)
+    capacity = np.maximum(1.0, np.round(load / target_df))
+
+    # --- ids -----------------------------------------------------------------
+    width = max(4, len(str(100 + net.n_legs)))
+    flights = np.array([f"{p.carrier}{100 + i + 1:0{width}d}" for i in range(net.n_legs)], dtype=object)
+    leg_ids = np.array([f"{f}-{codes[o]}-{codes[d]}" for f, o, d in
+                        zip(flights, net.leg_origin, net.leg_destination)], dtype=object)
+    fl = pa.array(flights.tolist(), pa.string())
+    cols = [pc.take(fl, pa.array(np.where(legs3[:, k] >= 0, legs3[:, k], 0),
+                                 mask=legs3[:, k] < 0)) for k in range(3)]
+    itin_id = pc.binary_join_element_wise(*cols, ".", null_handling="skip")
+    letters = pa.array(list(_CLASS_LETTERS[:C]), pa.string())
+    prod_id = pc.binary_join_element_wise(pc.take(itin_id, pa.array(it_of)),
+                                          pc.take(letters, pa.array(cls)), "-")
+    code_arr = pa.array(codes.tolist(), pa.string())
+
+    def strings(arr):
+        return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
+
+    meta = {
+        "name": f"hub{H}x{S}-p{n}-s{seed}",
+        "generator": GENERATOR_NAME,
+        "seed": seed,
+        "n_products": n,
+        "params": resolved.to_dict(),
+    }
+    return Instance(
+        leg_ids=leg_ids,
+        leg_origin=codes[net.leg_origin],
+        leg_destination=codes[net.leg_destination],
+        capacity=capacity,
+        product_ids=strings(prod_id),
+        leg_ptr=leg_ptr,
+        leg_index=leg_index,
+        fare=fare,
+        mean=mean,
+        std=std,
+        leg_extra={"bank": net.leg_bank + 1},
+        product_extra={
+            "origin": strings(pc.take(code_arr, pa.array(it_o[it_of]))),
+            "destination": strings(pc.take(code_arr, pa.array(it_d[it_of]))),
+            "fare_class": strings(pc.take(letters, pa.array(cls))),
+        },
+        meta=meta,
+    )
