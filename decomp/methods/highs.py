@@ -1,1 +1,206 @@
-"""Methods of the highs family (registered with decomp.registry on import)."""
+"""Method ``highs``: the DLP and the piecewise-linear PNLP straight from the arrays with highspy.
+
+The LP is passed to HiGHS in one ``passModel`` call, column-wise, built from
+the instance's CSR incidence without Python loops over products:
+
+* DLP: max f.x  s.t.  A x <= c,  0 <= x <= mean;
+* PWL: max sum_jk f_j s_jk y_jk  s.t.  sum_j A_ij sum_k y_jk <= c_i,
+  0 <= y_jk <= w_jk (segments from :func:`models.pwl.segments`; zero-width
+  segments are left out).
+
+Bid prices are the capacity rows' duals. HiGHS reports ``row_dual`` of a
+maximization with the sign that makes binding ``<=`` rows >= 0, which is our
+convention; tiny negative values from round-off are kept in the result (the
+certificate projects and reports the smallest).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import time
+
+import numpy as np
+import scipy.sparse as sp
+
+from .. import certify as _certify
+from ..errors import ConfigError, SolverUnavailableError
+from ..registry import register
+from ..result import SolutionStatus, SolveResult, Termination
+
+log = logging.getLogger(__name__)
+
+#: HiGHS model status (``highspy.HighsModelStatus`` member name) -> Termination.
+#: A test checks that every member of the enum is listed.
+STATUS = {
+    "kNotset": Termination.ERROR,                 # no solve happened
+    "kLoadError": Termination.ERROR,
+    "kModelError": Termination.ERROR,
+    "kPresolveError": Termination.ERROR,
+    "kSolveError": Termination.NUMERICAL_ERROR,
+    "kPostsolveError": Termination.NUMERICAL_ERROR,
+    "kModelEmpty": Termination.OPTIMAL,           # no columns: x = () is optimal
+    "kOptimal": Termination.OPTIMAL,
+    "kInfeasible": Termination.INFEASIBLE,
+    # our LPs are bounded (0 <= x <= bound), so "unbounded or infeasible" means infeasible
+    "kUnboundedOrInfeasible": Termination.INFEASIBLE,
+    "kUnbounded": Termination.UNBOUNDED,
+    "kObjectiveBound": Termination.ERROR,         # objective bound / target / solution limit:
+    "kObjectiveTarget": Termination.ERROR,        # limits decomp never sets
+    "kSolutionLimit": Termination.ERROR,
+    "kTimeLimit": Termination.TIME_LIMIT,
+    "kIterationLimit": Termination.ITERATION_LIMIT,
+    "kUnknown": Termination.UNKNOWN,
+    "kInterrupt": Termination.ERROR,
+    "kHighsInterrupt": Termination.ERROR,
+    "kMemoryLimit": Termination.ERROR,
+}
+
+
+def termination(model_status) -> Termination:
+    """Map a HiGHS model status (enum member or its name) to a Termination."""
+    name = getattr(model_status, "name", str(model_status))
+    if name not in STATUS:
+        log.warning("HiGHS model status %r has no mapping; reported as unknown", name)
+        return Termination.UNKNOWN
+    return STATUS[name]
+
+
+def lp_arrays(instance, model: str, segments: int):
+    """The LP as arrays: (cost, upper, csc matrix L x n, column -> product index).
+
+    Lower bounds are 0, rows are A(.) <= c. For the DLP the columns are the
+    products; for the PWL they are the nonzero-width segments.
+    """
+    A = instance.A.tocsc()
+    if model == "dlp":
+        cols = np.arange(instance.n_products, dtype=np.int64)
+        return instance.fare.copy(), np.maximum(instance.mean, 0.0), A, cols
+    from models import pwl
+
+    _, width, slope = pwl.segments(instance, segments)
+    keep = width > 0
+    cols = np.nonzero(keep)[0]                              # product of each kept segment
+    cost = (instance.fare[:, None] * slope)[keep]
+    upper = width[keep]
+    return cost, upper, A[:, cols], cols
+
+
+def _set(h, name, value):
+    import highspy
+
+    status = h.setOptionValue(name, value)
+    if status != highspy.HighsStatus.kOk:
+        raise ConfigError(f"HiGHS rejected option {name}={value!r} ({status.name})")
+
+
+def options_record(options) -> dict:
+    """The options as a plain dict for the result (``SolverOptions.to_dict`` cannot deep-copy
+    its mappingproxy on this Python)."""
+    d = {f.name: getattr(options, f.name) for f in dataclasses.fields(options)}
+    d["solver_options"] = dict(options.solver_options)
+    return d
+
+
+def highs_version() -> str:
+    import highspy
+
+    return f"HiGHS {highspy.HIGHS_VERSION_MAJOR}.{highspy.HIGHS_VERSION_MINOR}.{highspy.HIGHS_VERSION_PATCH}"
+
+
+def apply_options(h, options):
+    """Options common to both HiGHS paths (highspy object ``h``)."""
+    _set(h, "output_flag", bool(options.verbose))
+    if options.time_limit is not None:
+        _set(h, "time_limit", float(options.time_limit))
+    if options.iteration_limit is not None:
+        _set(h, "simplex_iteration_limit", int(options.iteration_limit))
+        _set(h, "ipm_iteration_limit", int(options.iteration_limit))
+    if options.threads is not None:
+        _set(h, "threads", int(options.threads))
+    # HiGHS' feasibility tolerances accept [1e-10, ...]; never looser than its 1e-7 default.
+    ftol = float(min(1e-7, max(1e-10, options.tol)))
+    _set(h, "primal_feasibility_tolerance", ftol)
+    _set(h, "dual_feasibility_tolerance", ftol)
+    for k, v in dict(options.solver_options).items():
+        _set(h, k, v)
+
+
+@register
+class HighsArrays:
+    """DLP or PWL from the sparse arrays, one ``passModel``, duals from ``row_dual``."""
+
+    name = "highs"
+    models = ("dlp", "pwl")
+
+    @classmethod
+    def available(cls):
+        try:
+            import highspy  # noqa: F401
+        except ImportError as exc:
+            return False, f"highspy is not installed ({exc}); pip install highspy"
+        return True, ""
+
+    def solve(self, instance, model, options, warm_start=None):
+        try:
+            import highspy
+        except ImportError as exc:
+            raise SolverUnavailableError("highspy is not installed; pip install highspy") from exc
+        if model not in self.models:
+            raise ConfigError(f"method 'highs' solves {self.models}, not {model!r}")
+        t0 = time.perf_counter()
+        cost, upper, M, cols = lp_arrays(instance, model, options.segments)
+        L, n = M.shape
+        lp = highspy.HighsLp()
+        lp.num_col_ = int(n)
+        lp.num_row_ = int(L)
+        lp.col_cost_ = cost
+        lp.col_lower_ = np.zeros(n)
+        lp.col_upper_ = upper
+        lp.row_lower_ = np.full(L, -highspy.kHighsInf)
+        lp.row_upper_ = instance.capacity.copy()
+        lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+        lp.a_matrix_.start_ = M.indptr.astype(np.int32)
+        lp.a_matrix_.index_ = M.indices.astype(np.int32)
+        lp.a_matrix_.value_ = M.data.astype(np.float64)
+        lp.sense_ = highspy.ObjSense.kMaximize
+        h = highspy.Highs()
+        apply_options(h, options)
+        status = h.passModel(lp)
+        if status == highspy.HighsStatus.kError:
+            raise ConfigError(f"HiGHS rejected the {model} LP of {instance.name} ({status.name})")
+        t1 = time.perf_counter()
+        h.run()
+        t2 = time.perf_counter()
+        ms = h.getModelStatus()
+        term = termination(ms)
+        info = h.getInfo()
+        iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
+        sol = h.getSolution()
+        x, pi, cert = None, None, None
+        if sol.value_valid and n == len(sol.col_value):
+            y = np.asarray(sol.col_value, dtype=np.float64)
+            x = np.bincount(cols, weights=y, minlength=instance.n_products) if model == "pwl" else y
+        if sol.dual_valid and L == len(sol.row_dual):
+            pi = np.asarray(sol.row_dual, dtype=np.float64)
+        elif L == 0:
+            pi = np.zeros(0)
+        if x is not None:
+            cert = _certify.certify(instance, model, x, np.zeros(L) if pi is None else pi,
+                                    segments=options.segments)
+        t3 = time.perf_counter()
+        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
+                                           have_solution=x is not None)
+        if pi is None and sstatus is SolutionStatus.OPTIMAL:
+            sstatus = SolutionStatus.FEASIBLE      # no duals: the bound is not the solver's
+        return SolveResult(
+            model=model, method=self.name, termination=term, solution_status=sstatus,
+            objective=None if cert is None else cert.primal_value,
+            bound=None if cert is None or pi is None else cert.dual_value,
+            gap=None if cert is None or pi is None else cert.gap,
+            leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
+            allocation=x, iterations=iters,
+            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
+            solver="highspy", solver_version=highs_version(),
+            raw_status=ms.name, message=h.modelStatusToString(ms),
+            certificate=cert, options=options_record(options))

@@ -1,0 +1,117 @@
+"""The piecewise-linear PNLP: expected sales replaced by K chords, an LP.
+
+For each product ``j`` the concave expected-sales curve S_j(x) =
+E[min(max(D_j, 0), x)] is interpolated between breakpoints at demand quantiles
+
+    b_0 = 0,  b_k = max(0, mean_j + std_j * Phi^{-1}(k / (K + 1))),  k = 1..K,
+
+and the allocation is split into segment variables ``y[j, k]`` in [0, w_jk]
+(w_jk = b_k - b_{k-1}) with slopes s_jk = (S_j(b_k) - S_j(b_{k-1})) / w_jk.
+S_j is concave, so the slopes decrease and the LP fills the segments in order
+without binary variables: sum_k s_jk y_jk is the interpolant at x_j = sum_k
+y_jk. The interpolant lies below S_j (chords of a concave curve) and stops at
+b_K, so the PWL optimum is at most the PNLP optimum and approaches it as K
+grows. Products with std = 0 get one segment [0, mean] of slope 1 (their
+other segments have width 0).
+
+:func:`segments` is the numpy table that the array method
+(:mod:`decomp.methods.highs`) and the certificate use; :func:`build` is the
+Pyomo model on top of it.
+"""
+
+from __future__ import annotations
+
+import gc
+
+import numpy as np
+from scipy import special
+
+from decomp import distributions
+
+
+def segments(instance, K: int):
+    """Breakpoints (P x (K+1)), widths and slopes (P x K) of the PWL model."""
+    K = int(K)
+    if K < 1:
+        raise ValueError(f"segments must be >= 1, got {K}")
+    levels = np.arange(1, K + 1, dtype=np.float64) / (K + 1)
+    z = special.ndtri(levels)                                   # (K,)
+    mean = instance.mean[:, None]
+    std = instance.std[:, None]
+    b = np.empty((instance.n_products, K + 1))
+    b[:, 0] = 0.0
+    b[:, 1:] = np.maximum(0.0, mean + std * z[None, :])
+    det = instance.std <= 0
+    b[det, 1:] = np.maximum(instance.mean[det], 0.0)[:, None]
+    width = np.diff(b, axis=1)
+    S = np.empty_like(b)
+    for k in range(K + 1):                                     # a loop over segments, not products
+        S[:, k] = distributions.expected_sales(instance, b[:, k])
+    dS = np.diff(S, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = np.where(width > 0, dS / np.where(width > 0, width, 1.0), 0.0)
+    # zero-width segments (quantiles below zero, std = 0) get slope 0: they hold no seats
+    slope = np.clip(slope, 0.0, 1.0)
+    return b, width, slope
+
+
+def value(width, slope, x):
+    """The interpolant sum_k s_k clip(x - b_{k-1}, 0, w_k) at x (per product)."""
+    b0 = np.concatenate([np.zeros((width.shape[0], 1)), np.cumsum(width, axis=1)[:, :-1]], axis=1)
+    fill = np.clip(np.asarray(x, dtype=np.float64)[:, None] - b0, 0.0, width)
+    return np.sum(slope * fill, axis=1)
+
+
+def build(instance, K: int = 16):
+    """The PWL PNLP as a Pyomo ConcreteModel.
+
+    Components: ``LEGS``, ``PRODUCTS``, ``SEGMENTS``; variables ``y[j, k]``
+    (seats allocated to product j on segment k, bounded by the segment width);
+    Expressions ``allocation[j]`` = sum_k y[j, k] and ``expected_sales[j]`` =
+    sum_k slope * y[j, k]; constraints ``capacity[leg]``; objective ``revenue``.
+    """
+    import pyomo.environ as pyo
+
+    from .dlp import _leg_products
+
+    _, width, slope = segments(instance, K)
+    pids = instance.product_ids.tolist()
+    lids = instance.leg_ids.tolist()
+    fare = instance.fare.tolist()
+    w = width.tolist()
+    s = slope.tolist()
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        m = pyo.ConcreteModel(name=f"pwl[{instance.name}, K={K}]")
+        m.LEGS = pyo.Set(initialize=lids, ordered=True)
+        m.PRODUCTS = pyo.Set(initialize=pids, ordered=True)
+        m.SEGMENTS = pyo.RangeSet(1, K)
+        pos = {p: i for i, p in enumerate(pids)}
+        m.fare = pyo.Param(m.PRODUCTS, initialize=dict(zip(pids, fare)))
+        m.width = pyo.Param(m.PRODUCTS, m.SEGMENTS,
+                            initialize=lambda m, j, k: w[pos[j]][k - 1])
+        m.slope = pyo.Param(m.PRODUCTS, m.SEGMENTS,
+                            initialize=lambda m, j, k: s[pos[j]][k - 1])
+        m.capacity_seats = pyo.Param(m.LEGS, initialize=dict(zip(lids, instance.capacity.tolist())))
+        m.y = pyo.Var(m.PRODUCTS, m.SEGMENTS, bounds=lambda m, j, k: (0.0, m.width[j, k]))
+        m.allocation = pyo.Expression(m.PRODUCTS, rule=lambda m, j: sum(m.y[j, k] for k in m.SEGMENTS))
+        m.expected_sales = pyo.Expression(
+            m.PRODUCTS, rule=lambda m, j: sum(m.slope[j, k] * m.y[j, k] for k in m.SEGMENTS))
+        on_leg = _leg_products(instance)
+        m.capacity = pyo.Constraint(
+            m.LEGS, rule=lambda m, i: (sum(m.allocation[j] for j in on_leg[i]) <= m.capacity_seats[i])
+            if on_leg[i] else pyo.Constraint.Skip)
+        m.revenue = pyo.Objective(expr=sum(m.fare[j] * m.expected_sales[j] for j in m.PRODUCTS),
+                                  sense=pyo.maximize)
+    finally:
+        if enabled:
+            gc.enable()
+    return m
+
+
+def allocation(m, instance) -> np.ndarray:
+    """The allocation per product (aligned with ``instance.product_ids``) from a solved model."""
+    import pyomo.environ as pyo
+
+    return np.array([pyo.value(m.allocation[j]) for j in instance.product_ids.tolist()], dtype=np.float64)
