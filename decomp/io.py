@@ -242,6 +242,10 @@ def _extra(arr: pa.Array, path, column) -> np.ndarray:
         if arr.null_count == 0:
             return arr.to_numpy(zero_copy_only=False)
     txt = _text(arr, path, column)
+    try:                                   # cheap look at one value before casting them all
+        float(txt[0].as_py())
+    except ValueError:
+        return np.asarray(txt.to_numpy(zero_copy_only=False), dtype=object)
     for typ in (pa.int64(), pa.float64()):
         try:
             num = pc.cast(txt, typ)
@@ -491,6 +495,7 @@ def write_instance(inst: Instance, path, format: str = "csv") -> pathlib.Path:
     legs, products = _tables(inst)
     tmp = pathlib.Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent))
     try:
+        os.chmod(tmp, 0o755)               # mkdtemp makes it private; an instance folder is not
         if format == "csv":
             (tmp / "legs.csv").write_bytes(_csv_bytes(legs))
             (tmp / "products.csv").write_bytes(_csv_bytes(products))
