@@ -1,0 +1,87 @@
+"""``decomp inspect``: what is in an instance.
+
+Counts, the legs-per-product histogram, the demand factor per leg (mean demand
+of the products using the leg over its capacity), the most loaded legs, and the
+fare and demand ranges.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+
+def register(sub):
+    p = sub.add_parser("inspect", help="summarize an instance: counts, legs per product, demand factors, fares",
+                       description=__doc__)
+    p.add_argument("instance", metavar="INSTANCE", help="instance folder")
+    p.add_argument("--top", type=int, default=10, metavar="K", help="how many of the most loaded legs (default: %(default)s)")
+    p.set_defaults(func=run)
+
+
+def _q(x, qs=(0, 10, 50, 90, 100)):
+    return "  ".join(f"p{q}={v:,.3g}" for q, v in zip(qs, np.percentile(x, qs)))
+
+
+def run(args) -> int:
+    from ..io import read_instance
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        inst = read_instance(args.instance)
+    for w in caught:
+        print(f"warning: {w.message}")
+
+    L, P = inst.n_legs, inst.n_products
+    stations = np.unique(np.concatenate([inst.leg_origin, inst.leg_destination]).astype(str))
+    print(f"instance {inst.name}: {L} legs, {P} products, {len(stations)} stations, "
+          f"{len(inst.leg_index)} product-leg pairs")
+    for k in ("generator", "seed"):
+        if k in inst.meta:
+            print(f"  {k}: {inst.meta[k]}")
+    extras = list(inst.leg_extra) + list(inst.product_extra)
+    if extras:
+        print(f"  extra columns: legs {list(inst.leg_extra) or '-'}, products {list(inst.product_extra) or '-'}")
+    if inst.distribution is not None:
+        names, counts = np.unique(inst.distribution.astype(str), return_counts=True)
+        print("  distributions: " + ", ".join(f"{n} {c}" for n, c in zip(names, counts)))
+
+    print("\nlegs per product:")
+    hist = np.bincount(inst.legs_per_product)
+    for k in np.flatnonzero(hist):
+        share = hist[k] / P
+        print(f"  {k:>3} legs: {hist[k]:>10,} products ({share:6.1%}) {'#' * int(round(40 * share))}")
+
+    demand = inst.leg_load(inst.mean)
+    users = np.bincount(inst.leg_index, minlength=L)
+    cap = inst.capacity
+    with np.errstate(divide="ignore", invalid="ignore"):
+        df = np.where(cap > 0, demand / cap, np.inf)
+    finite = np.isfinite(df)
+    print("\ndemand factor per leg (mean demand / capacity):")
+    if finite.any():
+        print(f"  {_q(df[finite])}  mean={df[finite].mean():.3f}")
+        print(f"  legs over capacity (factor > 1): {int((df[finite] > 1).sum())} of {L}")
+    if (~finite).any():
+        print(f"  {int((~finite).sum())} leg(s) with capacity 0")
+    print(f"  unused legs: {int((users == 0).sum())}")
+    print(f"  capacity: {_q(cap)}  total={cap.sum():,.0f}")
+
+    k = min(args.top, L)
+    order = np.lexsort((np.arange(L), -np.where(finite, df, np.finfo(float).max)))[:k]
+    print(f"\nmost loaded legs (top {k}):")
+    print(f"  {'leg':<24} {'from':>5} {'to':>5} {'capacity':>10} {'demand':>12} {'factor':>7} {'products':>9}")
+    for i in order:
+        print(f"  {str(inst.leg_ids[i]):<24} {str(inst.leg_origin[i]):>5} {str(inst.leg_destination[i]):>5} "
+              f"{cap[i]:>10,.0f} {demand[i]:>12,.1f} {df[i]:>7.3f} {users[i]:>9,}")
+
+    print("\nfares and demand per product:")
+    print(f"  fare: {_q(inst.fare)}")
+    print(f"  mean demand: {_q(inst.mean)}  total={inst.mean.sum():,.1f}")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cv = np.where(inst.mean > 0, inst.std / inst.mean, np.nan)
+    if np.isfinite(cv).any():
+        print(f"  std/mean: {_q(cv[np.isfinite(cv)])}")
+    print(f"  revenue at mean demand, all fares: {float(inst.fare @ inst.mean):,.0f}")
+    return 0
