@@ -1,0 +1,137 @@
+"""``decomp baseline``: record what this environment answers; check another environment against it.
+
+    decomp baseline record --suite quick --out baselines/before-upgrade
+    (upgrade Ipopt, HiGHS, Pyomo, numpy or scipy)
+    decomp baseline check baselines/before-upgrade --out baselines/check-after-upgrade
+
+``check`` exits 1 when any case regressed (status, objective, bid prices,
+certificate, allocation or time beyond its threshold), 2 when the baseline
+folder is missing, truncated or edited, 0 otherwise.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+
+def register(sub):
+    p = sub.add_parser("baseline", help="record a solver baseline; check an upgraded environment against it",
+                       description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    bsub = p.add_subparsers(dest="baseline_command", metavar="ACTION")
+
+    r = bsub.add_parser("record", help="solve a suite and write a baseline folder")
+    r.add_argument("--suite", default="quick", help="suite name (default: %(default)s; see --list)")
+    r.add_argument("--out", help="baseline folder to create")
+    r.add_argument("--force", action="store_true", help="replace an existing baseline folder")
+    r.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    r.add_argument("--list", action="store_true", help="list the suites and their cases, then stop")
+    r.set_defaults(func=run_record)
+
+    c = bsub.add_parser("check", help="re-solve a baseline's cases and report what changed")
+    c.add_argument("baseline", help="baseline folder written by 'decomp baseline record'")
+    c.add_argument("--out", help="folder for check.json and check.md (default: print the Markdown only)")
+    c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable)")
+    c.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    g = c.add_argument_group("thresholds (defaults fit each case's model and recorded tolerance)")
+    g.add_argument("--rtol-objective", type=float, help="objective relative change (default max(10 tol, 1e-9))")
+    g.add_argument("--rtol-bid", type=float, help="bid-price relative change (default 1e-7 LP, max(1e-6, 1e3 tol) PNLP)")
+    g.add_argument("--atol-bid", type=float, help="bid-price absolute change in fare units "
+                                                  "(default rtol x max(1, largest recorded bid price))")
+    g.add_argument("--rtol-allocation", type=float, help="allocation sum/min/max relative change "
+                                                         "(default max(1e-5, 1e3 tol) PNLP; LP: note only)")
+    g.add_argument("--gap-floor", type=float, help="certified gap allowed in any case (default: the recorded tol)")
+    g.add_argument("--violation-floor", type=float, default=1e-6, help="relative capacity violation (default 1e-6)")
+    g.add_argument("--kkt-floor", type=float, default=1e-6, help="KKT residual (default 1e-6)")
+    g.add_argument("--certificate-factor", type=float, default=10.0,
+                   help="a certificate measure may grow to this multiple of its recorded value (default 10)")
+    g.add_argument("--time-ratio", type=float, default=2.0, help="wall-time ratio new/old (default 2.0)")
+    g.add_argument("--time-floor", type=float, default=0.5,
+                   help="seconds below which times count as this value in the ratio (default 0.5)")
+    c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
+                   help="change a solver option of every case, e.g. tol=1e-3 (to see that the check "
+                        "catches a change; value parsed as JSON)")
+    c.set_defaults(func=run_check)
+    p.set_defaults(func=lambda args: (p.print_help(), 2)[1])
+
+
+def _bad(msg: str) -> int:
+    print(f"decomp baseline: error: {msg}", file=sys.stderr)
+    return 2
+
+
+def run_record(args) -> int:
+    from .. import baseline
+
+    if args.list:
+        for name, (desc, _) in sorted(baseline.SUITES.items()):
+            print(f"{name}: {desc}")
+            for case in baseline.suite_cases(name):
+                print(f"    {case.id}")
+        return 0
+    if not args.out:
+        return _bad("record needs --out DIR")
+
+    def progress(cid, rec):
+        cert = rec["certificate"] or {}
+        print(f"  {cid:<34} {rec['termination']:<10} {rec['solution_status']:<9} "
+              f"objective {rec['objective']!s:<22} gap {cert.get('gap')!s:<24} "
+              f"iter {rec['iterations']!s:<5} {rec['wall_seconds']:.3f} s", flush=True)
+
+    cases = baseline.suite_cases(args.suite)
+    print(f"recording suite {args.suite}: {len(cases)} cases -> {args.out}", flush=True)
+    summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat, overwrite=args.force,
+                              progress=progress)
+    env = summary.environment
+    print(f"wrote {summary.path} ({len(summary.cases)} cases); environment: Python {env['python']}, "
+          f"numpy {env['numpy']}, scipy {env['scipy']}, pyomo {env['pyomo']}, HiGHS {env['highs_library']}, "
+          f"Ipopt {env['ipopt_library']}, {env['cpu_model']} x {env['cpu_count_logical']}")
+    bad = [r["case"] for r in summary.cases if not (r["termination"] == "optimal"
+                                                   and r["solution_status"] == "optimal")]
+    if bad:
+        print(f"note: {len(bad)} case(s) did not reach a certified optimum and were recorded with their "
+              f"status: {', '.join(bad)}")
+    return 0
+
+
+def _parse_override(items) -> dict:
+    out = {}
+    for item in items:
+        if "=" not in item:
+            raise ValueError(f"--override expects OPTION=VALUE, got {item!r}")
+        k, v = item.split("=", 1)
+        try:
+            out[k.strip()] = json.loads(v)
+        except json.JSONDecodeError:
+            out[k.strip()] = v
+    return out
+
+
+def run_check(args) -> int:
+    from .. import baseline
+
+    try:
+        override = _parse_override(args.override)
+    except ValueError as exc:
+        return _bad(str(exc))
+    th = baseline.Thresholds(
+        objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
+        allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
+        kkt_floor=args.kkt_floor, certificate_factor=args.certificate_factor, time_ratio=args.time_ratio,
+        time_floor=args.time_floor)
+
+    def progress(rep):
+        m = rep.metrics
+        print(f"  {rep.case:<34} {rep.verdict:<17} objective rel {m.get('objective_rel_change')!s:<22} "
+              f"bid max {m.get('bid_max_abs_change')!s:<22} time ratio {m.get('time_ratio', float('nan')):.2f}",
+              flush=True)
+
+    report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
+                            repeat=args.repeat, only=args.cases, progress=progress)
+    print()
+    print(report.to_markdown())
+    if args.out:
+        jpath, mpath = baseline.write_report(report, args.out)
+        print(f"wrote {jpath} and {mpath}")
+    return 1 if report.regression else 0
