@@ -72,7 +72,7 @@ def build(instance, K: int = 16):
     """
     import pyomo.environ as pyo
 
-    from .dlp import _leg_products
+    from .dlp import _leg_products, capacity_rule
 
     _, width, slope = segments(instance, K)
     pids = instance.product_ids.tolist()
@@ -98,10 +98,8 @@ def build(instance, K: int = 16):
         m.allocation = pyo.Expression(m.PRODUCTS, rule=lambda m, j: sum(m.y[j, k] for k in m.SEGMENTS))
         m.expected_sales = pyo.Expression(
             m.PRODUCTS, rule=lambda m, j: sum(m.slope[j, k] * m.y[j, k] for k in m.SEGMENTS))
-        on_leg = _leg_products(instance)
         m.capacity = pyo.Constraint(
-            m.LEGS, rule=lambda m, i: (sum(m.allocation[j] for j in on_leg[i]) <= m.capacity_seats[i])
-            if on_leg[i] else pyo.Constraint.Skip)
+            m.LEGS, rule=capacity_rule(_leg_products(instance), lambda m, j: m.allocation[j]))
         m.revenue = pyo.Objective(expr=sum(m.fare[j] * m.expected_sales[j] for j in m.PRODUCTS),
                                   sense=pyo.maximize)
     finally:

@@ -1,1 +1,147 @@
-"""Methods of the pyomo_highs family (registered with decomp.registry on import)."""
+"""Method ``pyomo-highs``: the DLP or the PWL PNLP built in Pyomo (:mod:`models`) and
+solved through Pyomo's APPSI HiGHS interface.
+
+Bid prices are the duals of ``model.capacity`` from ``solver.get_duals()``;
+for this maximization HiGHS reports them >= 0 (the same values as
+``row_dual`` in method ``highs``).
+"""
+
+from __future__ import annotations
+
+import gc
+import logging
+import time
+
+import numpy as np
+
+from .. import certify as _certify
+from ..errors import ConfigError, SolverUnavailableError
+from ..registry import register
+from ..result import SolutionStatus, SolveResult, Termination
+from .highs import highs_version, options_record
+
+log = logging.getLogger(__name__)
+
+#: APPSI TerminationCondition (member name) -> Termination. A test checks every member.
+STATUS = {
+    "unknown": Termination.UNKNOWN,
+    "maxTimeLimit": Termination.TIME_LIMIT,
+    "maxIterations": Termination.ITERATION_LIMIT,
+    "objectiveLimit": Termination.ERROR,          # a limit decomp never sets
+    "minStepLength": Termination.NUMERICAL_ERROR,
+    "optimal": Termination.OPTIMAL,
+    "unbounded": Termination.UNBOUNDED,
+    "infeasible": Termination.INFEASIBLE,
+    "infeasibleOrUnbounded": Termination.INFEASIBLE,   # our LPs are bounded
+    "error": Termination.ERROR,
+    "interrupted": Termination.ERROR,
+    "licensingProblems": Termination.ERROR,
+}
+
+
+def termination(cond) -> Termination:
+    name = getattr(cond, "name", str(cond))
+    if name not in STATUS:
+        log.warning("APPSI termination condition %r has no mapping; reported as unknown", name)
+        return Termination.UNKNOWN
+    return STATUS[name]
+
+
+def highs_options(options) -> dict:
+    opts = {}
+    if options.iteration_limit is not None:
+        opts["simplex_iteration_limit"] = int(options.iteration_limit)
+        opts["ipm_iteration_limit"] = int(options.iteration_limit)
+    if options.threads is not None:
+        opts["threads"] = int(options.threads)
+    ftol = float(min(1e-7, max(1e-10, options.tol)))
+    opts["primal_feasibility_tolerance"] = ftol
+    opts["dual_feasibility_tolerance"] = ftol
+    opts.update(dict(options.solver_options))
+    return opts
+
+
+@register
+class PyomoHighs:
+    """DLP or PWL as a Pyomo model, solved with appsi_highs."""
+
+    name = "pyomo-highs"
+    models = ("dlp", "pwl")
+
+    @classmethod
+    def available(cls):
+        try:
+            from pyomo.contrib.appsi.solvers import Highs
+        except ImportError as exc:
+            return False, f"Pyomo's APPSI HiGHS interface cannot be imported ({exc})"
+        try:
+            ok = Highs().available()
+        except Exception as exc:                        # noqa: BLE001  (report, do not crash)
+            return False, f"appsi_highs availability check failed: {exc}"
+        return (True, "") if ok else (False, "appsi_highs: highspy not found; pip install highspy")
+
+    def solve(self, instance, model, options, warm_start=None):
+        try:
+            from pyomo.contrib.appsi.solvers import Highs
+        except ImportError as exc:
+            raise SolverUnavailableError("Pyomo's APPSI HiGHS interface is missing; pip install pyomo highspy") from exc
+        from models import dlp, pwl
+
+        if model not in self.models:
+            raise ConfigError(f"method 'pyomo-highs' solves {self.models}, not {model!r}")
+        t0 = time.perf_counter()
+        m = dlp.build(instance) if model == "dlp" else pwl.build(instance, options.segments)
+        opt = Highs()
+        opt.config.load_solution = False
+        opt.config.stream_solver = bool(options.verbose)
+        if options.time_limit is not None:
+            opt.config.time_limit = float(options.time_limit)
+        opt.highs_options = highs_options(options)
+        t1 = time.perf_counter()
+        enabled = gc.isenabled()
+        gc.disable()
+        try:
+            res = opt.solve(m)
+        finally:
+            if enabled:
+                gc.enable()
+        t2 = time.perf_counter()
+        term = termination(res.termination_condition)
+        x = pi = cert = None
+        iters = None
+        raw = getattr(opt, "_solver_model", None)        # the highspy object, for counts only
+        if raw is not None:
+            info = raw.getInfo()
+            iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
+        try:
+            primals = opt.get_primals()
+            for v, val in primals.items():
+                v.set_value(val, skip_validation=True)
+            x = (dlp.allocation(m, instance) if model == "dlp" else pwl.allocation(m, instance))
+        except RuntimeError:
+            x = None
+        try:
+            pi = dlp.bid_prices(m, instance, opt.get_duals())
+        except RuntimeError:
+            pi = None
+        if x is not None and np.all(np.isfinite(x)):
+            cert = _certify.certify(instance, model, x, np.zeros(instance.n_legs) if pi is None else pi,
+                                    segments=options.segments)
+        else:
+            x = None
+        t3 = time.perf_counter()
+        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
+                                           have_solution=x is not None)
+        if pi is None and sstatus is SolutionStatus.OPTIMAL:
+            sstatus = SolutionStatus.FEASIBLE
+        return SolveResult(
+            model=model, method=self.name, termination=term, solution_status=sstatus,
+            objective=None if cert is None else cert.primal_value,
+            bound=None if cert is None or pi is None else cert.dual_value,
+            gap=None if cert is None or pi is None else cert.gap,
+            leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
+            allocation=x, iterations=iters,
+            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
+            solver="pyomo appsi_highs", solver_version=highs_version(),
+            raw_status=res.termination_condition.name, message=None,
+            certificate=cert, options=options_record(options))
