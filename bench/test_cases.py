@@ -1,0 +1,92 @@
+"""The benchmark cases: time of one solve (or one Pyomo model build) per case.
+
+Only the call inside ``benchmark.pedantic`` is timed. The instance, its
+incidence matrices, the reference solve and a warm-up call come before it,
+untimed. Accuracy is computed from the result the timed call returned and
+asserted after timing (pytest-benchmark's --benchmark-compare-fail covers
+timings only); it is stored in ``extra_info`` first, so a failed check is in
+the JSON too.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+import decomp
+from decomp.benchsuite import builders
+from decomp.benchsuite.cases import REFERENCE_MODEL, thresholds
+from decomp.benchsuite.measure import PeakMemory, accuracy, check, history_records
+from decomp.options import SolverOptions
+
+
+def _timed(benchmark, fn, args, kwargs, rounds, mem: PeakMemory):
+    started = []
+
+    def setup():
+        # Untimed, before each round: close the previous round's memory
+        # window and open this one.
+        if started:
+            mem.stop()
+        started.append(True)
+        mem.start()
+
+    out = benchmark.pedantic(fn, args=args, kwargs=kwargs, setup=setup, rounds=rounds,
+                             iterations=1, warmup_rounds=0)
+    mem.stop()
+    return out
+
+
+@pytest.mark.bench_solve
+def test_solve(solve_case, benchmark, instances, references, warm_up):
+    case = solve_case
+    inst = instances.get(case.rung)
+    ref = references.get(case.rung, REFERENCE_MODEL[case.model])
+    options = SolverOptions(**case.options)
+    warm_up(case.model, case.method, options)
+    mem = PeakMemory()
+    result = _timed(benchmark, decomp.solve, (inst,),
+                    {"model": case.model, "method": case.method, "options": options},
+                    case.rounds, mem)
+
+    acc = accuracy(inst, result, ref)
+    limits = thresholds(case)
+    failures = check(acc, limits)
+    benchmark.extra_info.update({
+        "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
+        "method": case.method, "label": case.label, "knobs": case.options,
+        "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
+        **acc,
+        "peak_memory_mib": mem.peak_mib, "memory_method": mem.method,
+        "reference": None if ref is None else ref.summary(),
+        "history": history_records(result) if case.method == "lagrangian" else [],
+        "thresholds": limits, "accuracy_failures": failures,
+    })
+    assert not failures, f"{case.id}: " + "; ".join(failures)
+
+
+@pytest.mark.bench_build
+def test_build(build_case, benchmark, instances):
+    case = build_case
+    inst = instances.get(case.rung)
+    build = builders.resolve(case.model)
+    options = SolverOptions(**case.options)
+    build(bcases_tiny(), options)   # warm-up: imports, untimed
+    mem = PeakMemory()
+    model = _timed(benchmark, build, (inst, options), {}, case.rounds, mem)
+    size = builders.size(model)
+    benchmark.extra_info.update({
+        "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
+        "method": case.method, "label": case.label, "knobs": case.options,
+        "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
+        "peak_memory_mib": mem.peak_mib, "memory_method": mem.method,
+        "builder": builders.describe(case.model), **size,
+        "accuracy_failures": [],
+    })
+    # A build that made no variables is not a model of the instance.
+    assert size["n_variables"] is not None and size["n_variables"] >= inst.n_products
+
+
+def bcases_tiny():
+    from decomp.benchsuite.cases import load_instance
+
+    return load_instance("tiny")[0]

@@ -1,0 +1,271 @@
+"""The benchmark cases: which (rung, model, method, knob) each suite runs.
+
+A :class:`Case` is one timed measurement. ``kind="solve"`` times one call of
+:func:`decomp.solve` (for the Pyomo methods that call includes building the
+model: it is what a user waits for; the phases are kept in ``extra_info``);
+``kind="build"`` times the Pyomo model builder alone. Instance generation and
+loading are never timed.
+
+Suites:
+
+* ``micro``: the ``tiny`` rung (40 products), one round, one knob per method;
+  for the tests of the suite's machinery.
+* ``quick``: rungs to p100k, every available method that fits a 5-minute total
+  on 2 cores (Pyomo paths to p10k, PWL to p10k).
+* ``full``: rungs to p1m (array methods), Pyomo paths to p100k.
+
+Only methods whose ``available()`` is true and whose (model, method) pair is
+registered give cases, so a missing solver shrinks the list instead of
+producing skipped cases.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+SUITES = ("micro", "quick", "full")
+
+#: Rung name -> products. The ladder (decomp.ladder) provides all but ``tiny``.
+RUNG_SIZES = {"tiny": 40, "p100": 100, "p1k": 1_000, "p10k": 10_000, "p100k": 100_000, "p1m": 1_000_000}
+RUNG_ORDER = tuple(RUNG_SIZES)
+#: Seed of the generator for rungs the ladder does not provide (every RNG is seeded).
+FALLBACK_SEED = 20260101
+
+#: Reference solves (tight) by model: (method, options overrides), first available wins.
+REFERENCES = {
+    "pnlp": (("lagrangian", {"tol": 1e-12, "dual_method": "newton"}),
+             ("ipopt", {"tol": 1e-10}),
+             ("pyomo-ipopt", {"tol": 1e-10})),
+    "dlp": (("highs", {}), ("pyomo-highs", {})),
+    # PWL cases are measured against the exact PNLP: the error is what the
+    # approximation costs, which is the trade-off its K buys.
+    "pwl": (("lagrangian", {"tol": 1e-12, "dual_method": "newton"}),
+            ("ipopt", {"tol": 1e-10})),
+}
+REFERENCE_MODEL = {"pnlp": "pnlp", "dlp": "dlp", "pwl": "pnlp"}
+
+#: Bid prices below this share of the largest reference bid price are not compared.
+BID_PRICE_FLOOR = 1e-3
+
+
+@dataclasses.dataclass(frozen=True)
+class Case:
+    """One benchmark case. ``knobs`` are SolverOptions fields (tol, segments, dual_method, limits)."""
+
+    kind: str            # "solve" or "build"
+    rung: str
+    model: str
+    method: str          # for kind "build": the builder family ("pyomo")
+    knobs: tuple = ()    # sorted (name, value) pairs
+    rounds: int = 1
+    expect_optimal: bool = True
+
+    @property
+    def options(self) -> dict:
+        return dict(self.knobs)
+
+    @property
+    def n_products(self) -> int:
+        return RUNG_SIZES[self.rung]
+
+    @property
+    def label(self) -> str:
+        """Method label for plots and tables: method plus dual method variant."""
+        o = self.options
+        if self.kind == "build":
+            return f"{self.method}-build"
+        if self.method == "lagrangian":
+            return f"lagrangian-{o.get('dual_method', 'newton')}"
+        return self.method
+
+    @property
+    def knob_label(self) -> str:
+        o = self.options
+        parts = []
+        if self.model == "pwl" and "segments" in o:
+            parts.append(f"K{o['segments']}")
+        if "tol" in o:
+            parts.append(f"tol{o['tol']:.0e}")
+        return "-".join(parts)
+
+    @property
+    def id(self) -> str:
+        parts = [self.rung, self.model, self.label]
+        if self.knob_label:
+            parts.append(self.knob_label)
+        return "-".join(parts)
+
+
+@dataclasses.dataclass(frozen=True)
+class _Spec:
+    model: str
+    method: str
+    knob_sets: tuple          # tuple of dicts
+    max_rung: dict            # suite -> last rung (inclusive) or None (not in suite)
+    kind: str = "solve"
+    expect_optimal: bool = True
+    rounds_cap: int | None = None
+
+
+def _upto(last):
+    return RUNG_ORDER[RUNG_ORDER.index("p100"):RUNG_ORDER.index(last) + 1] if last else ()
+
+
+# The case table. Limits on the first-order dual methods keep them bounded:
+# they are expected to stop at a limit on large rungs (reported by status).
+_SPECS = (
+    _Spec("pnlp", "lagrangian", ({"dual_method": "newton", "tol": 1e-4},
+                                 {"dual_method": "newton", "tol": 1e-6},
+                                 {"dual_method": "newton", "tol": 1e-9}),
+          {"quick": "p100k", "full": "p1m"}),
+    _Spec("pnlp", "lagrangian", ({"dual_method": "lbfgsb", "tol": 1e-4, "time_limit": 30.0},
+                                 {"dual_method": "lbfgsb", "tol": 1e-6, "time_limit": 30.0}),
+          {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
+    _Spec("pnlp", "lagrangian", ({"dual_method": "subgradient", "tol": 1e-3, "time_limit": 20.0},),
+          {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
+    _Spec("pnlp", "ipopt", ({"tol": 1e-6}, {"tol": 1e-9}), {"quick": "p100k", "full": "p1m"}),
+    _Spec("pnlp", "pyomo-ipopt", ({"tol": 1e-9},), {"quick": "p10k", "full": "p100k"}, rounds_cap=1),
+    _Spec("dlp", "highs", ({},), {"quick": "p100k", "full": "p1m"}),
+    _Spec("dlp", "pyomo-highs", ({},), {"quick": "p10k", "full": "p100k"}, rounds_cap=1),
+    _Spec("pwl", "highs", ({"segments": 4}, {"segments": 16}, {"segments": 64}),
+          {"quick": "p10k", "full": "p100k"}),
+    _Spec("pwl", "pyomo-highs", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, rounds_cap=1),
+    # The Pyomo model build on its own (method field: the builder family).
+    _Spec("pnlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
+    _Spec("dlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
+    _Spec("pwl", "pyomo", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, kind="build", rounds_cap=1),
+)
+
+#: Rounds by rung (each round is one solve; the report uses the minimum and the median).
+_ROUNDS = {"tiny": 1, "p100": 5, "p1k": 3, "p10k": 2, "p100k": 1, "p1m": 1}
+
+#: The Pyomo method whose builders a build case times, by model.
+BUILD_METHOD = {"pnlp": "pyomo-ipopt", "dlp": "pyomo-highs", "pwl": "pyomo-highs"}
+
+
+def _method_ok(method: str, model: str, registry_pairs, available) -> bool:
+    return (model, method) in registry_pairs and available(method)
+
+
+def suite_cases(suite: str, registry_pairs, available) -> list:
+    """The cases of ``suite`` for the registered (model, method) pairs that are available.
+
+    ``registry_pairs``: set of (model, method); ``available(method) -> bool``.
+    """
+    if suite not in SUITES:
+        raise ValueError(f"unknown suite {suite!r}; suites: {', '.join(SUITES)}")
+    cases = []
+    for spec in _SPECS:
+        method_for_check = BUILD_METHOD[spec.model] if spec.kind == "build" else spec.method
+        if not _method_ok(method_for_check, spec.model, registry_pairs, available):
+            continue
+        if suite == "micro":
+            rungs, knob_sets = ("tiny",), spec.knob_sets[-1:]
+        else:
+            rungs, knob_sets = _upto(spec.max_rung.get(suite)), spec.knob_sets
+        for rung in rungs:
+            rounds = _ROUNDS[rung] if spec.rounds_cap is None else min(_ROUNDS[rung], spec.rounds_cap)
+            for ks in knob_sets:
+                cases.append(Case(kind=spec.kind, rung=rung, model=spec.model, method=spec.method,
+                                  knobs=tuple(sorted(ks.items())), rounds=rounds,
+                                  expect_optimal=spec.expect_optimal))
+    order = {r: i for i, r in enumerate(RUNG_ORDER)}
+    # Rung by rung so one instance is in memory at a time; builds before solves.
+    cases.sort(key=lambda c: (order[c.rung], c.kind != "build"))
+    return cases
+
+
+def thresholds(case: Case) -> dict:
+    """Accuracy limits asserted after timing (None: recorded, not asserted).
+
+    * ``max_violation_rel``: capacity violation relative to max(1, c_i).
+    * ``gap``: the certified gap, when the case expects an optimal finish.
+    * ``objective_error``: relative objective error against the reference.
+      For PNLP methods it may not exceed the certified gap (weak duality: for
+      a feasible allocation, optimum - primal <= dual - primal) plus slack.
+    * ``bid_price_error``: largest relative bid-price error where the
+      reference bid price is >= 1e-3 of the largest; asserted for the PNLP at
+      tight tolerance only (the DLP's duals are not unique; the PWL is an
+      approximation, whose error is what the benchmark measures).
+    """
+    o = case.options
+    tol = o.get("tol")
+    out = {"max_violation_rel": 1e-6, "gap": None, "objective_error": None, "bid_price_error": None,
+           "require_optimal": case.expect_optimal}
+    if case.kind != "solve":
+        return {}
+    if case.model == "pnlp":
+        t = tol if tol is not None else 1e-9
+        if case.expect_optimal:
+            out["gap"] = 10 * t + 1e-10
+        out["objective_error"] = "gap"   # <= the case's own certified gap (+ 1e-8)
+        if case.expect_optimal and t <= 1e-8:
+            out["bid_price_error"] = 1e-5
+    elif case.model == "dlp":
+        out["gap"] = 1e-6
+        out["objective_error"] = 1e-7
+    elif case.model == "pwl":
+        out["gap"] = 1e-6
+        k = int(o.get("segments", 16))
+        # The K-segment approximation's own error against the exact PNLP;
+        # measured near 0.5/K^2 on the generator's networks (see bench/README.md).
+        out["objective_error"] = 4.0 / (k * k)
+    return out
+
+
+def fmt_float(v) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return "-"
+    return f"{v:.3g}"
+
+
+def load_instance(rung: str):
+    """(instance, source) for a rung: the ladder's instance, or the seeded generator's.
+
+    ``tiny`` (the micro suite's rung) always comes from the generator.
+    """
+    if rung not in RUNG_SIZES:
+        raise ValueError(f"unknown rung {rung!r}; rungs: {', '.join(RUNG_ORDER)}")
+    if rung != "tiny":
+        try:
+            from decomp import ladder
+        except ImportError:
+            ladder = None
+        if ladder is not None and rung in tuple(ladder.RUNGS):
+            return ladder.load_rung(rung), f"decomp.ladder.load_rung({rung!r})"
+    from decomp.generator import generate
+
+    n = RUNG_SIZES[rung]
+    return generate(n, seed=FALLBACK_SEED), f"decomp.generator.generate({n}, seed={FALLBACK_SEED})"
+
+
+def availability() -> tuple:
+    """(registered pairs, {method: (ok, reason)}) from the registry; no solver is run."""
+    from decomp import registry
+
+    pairs = set(registry.pairs())
+    status = {}
+    for model, name in sorted(pairs):
+        if name not in status:
+            cls = registry.get_method(name, model)
+            ok, reason = cls.available()
+            status[name] = (bool(ok), str(reason or ""))
+    return pairs, status
+
+
+def excluded(suite: str, pairs, status) -> list:
+    """Methods of the case table that give no cases in this run, with the reason."""
+    out = []
+    seen = set()
+    for spec in _SPECS:
+        name = BUILD_METHOD[spec.model] if spec.kind == "build" else spec.method
+        key = (spec.model, name)
+        if key in seen:
+            continue
+        seen.add(key)
+        if key not in pairs:
+            out.append({"model": spec.model, "method": name, "reason": "not registered"})
+        elif not status.get(name, (False, ""))[0]:
+            out.append({"model": spec.model, "method": name, "reason": status[name][1] or "not available"})
+    return out

@@ -1,0 +1,216 @@
+"""PNG plots of a benchmark run (matplotlib, Agg backend; files written atomically).
+
+* ``time_vs_products.png``: solve time against products, log-log, one line per
+  model and method at its headline knob (tightest tolerance; K nearest 16),
+  with the fitted power-law slope b (t = a n^b, :mod:`.fit`) in the legend.
+* ``pareto_<rung>.png``: per rung, time against accuracy for every method and
+  knob: left, the largest relative bid-price error against the exact PNLP
+  (PNLP and PWL cases); right, the certified gap (every solve case). The
+  Pareto front (no other case both faster and more accurate) is drawn.
+* ``lagrangian_gap.png``: certified gap against iteration for the Lagrangian
+  cases on the largest rung they ran on.
+"""
+
+from __future__ import annotations
+
+import math
+import pathlib
+
+from .. import atomic
+from .cases import RUNG_ORDER
+from .fit import fit_power_law
+
+#: Values of exactly zero are drawn at this floor on log axes.
+LOG_FLOOR = 1e-16
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _save(fig, path: pathlib.Path) -> pathlib.Path:
+    with atomic.atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=110, bbox_inches="tight")
+    return path
+
+
+def _knob_key(row):
+    k = row.get("knobs") or {}
+    tol = k.get("tol", 0.0)
+    seg = k.get("segments")
+    return (abs(math.log(seg / 16.0)) if seg else 0.0, tol)
+
+
+def headline_series(run, stat: str = "min") -> dict:
+    """(model, label) -> sorted list of (n_products, time, row) at the headline knob."""
+    groups = {}
+    for r in run.rows:
+        if r.get("kind") != "solve" and r.get("kind") != "build":
+            continue
+        groups.setdefault((r.get("model"), r.get("label")), []).append(r)
+    out = {}
+    for key, rows in groups.items():
+        best = min((_knob_key(r) for r in rows))
+        pts = sorted((r.get("n_products"), r.time(stat), r) for r in rows if _knob_key(r) == best)
+        # one point per size (the first in knob order)
+        seen, uniq = set(), []
+        for n, t, r in pts:
+            if n not in seen:
+                seen.add(n)
+                uniq.append((n, t, r))
+        out[key] = uniq
+    return out
+
+
+def slopes(run, stat: str = "min", min_n: int = 0) -> dict:
+    """(model, label) -> PowerLawFit over the headline series (sizes >= min_n), where >= 2 sizes."""
+    out = {}
+    for key, pts in headline_series(run, stat).items():
+        pts = [p for p in pts if p[0] >= min_n and p[1] > 0]
+        if len({p[0] for p in pts}) >= 2:
+            out[key] = fit_power_law([p[0] for p in pts], [p[1] for p in pts])
+    return out
+
+
+def _knob_text(row) -> str:
+    k = row.get("knobs") or {}
+    parts = []
+    if "segments" in k:
+        parts.append(f"K={k['segments']}")
+    if "tol" in k:
+        parts.append(f"tol={k['tol']:.0e}")
+    return " ".join(parts)
+
+
+def plot_time_vs_products(run, path, stat="min"):
+    plt = _plt()
+    series = headline_series(run, stat)
+    fig, ax = plt.subplots(figsize=(8, 5.5))
+    for (model, label), pts in sorted(series.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1]))):
+        if not pts:
+            continue
+        n = [p[0] for p in pts]
+        t = [p[1] for p in pts]
+        name = f"{model} {label} {_knob_text(pts[0][2])}".strip()
+        if len(set(n)) >= 2:
+            fit = fit_power_law(n, t)
+            se = fit.stderr.get("b")
+            name += f": b={fit.b:.2f}" + (f"±{se:.2f}" if se is not None else "")
+        style = "--" if label and str(label).endswith("build") else "-"
+        ax.plot(n, t, style, marker="o", label=name)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("products")
+    ax.set_ylabel(f"time per call, s ({stat} of rounds)")
+    ax.set_title("Solve time against network size (slope b of t = a n^b)")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=7, loc="upper left")
+    try:
+        return _save(fig, pathlib.Path(path))
+    finally:
+        plt.close(fig)
+
+
+def pareto_front(points):
+    """Indices of points (time, error) not dominated by another (faster and at least as accurate)."""
+    order = sorted(range(len(points)), key=lambda i: (points[i][0], points[i][1]))
+    front, best = [], math.inf
+    for i in order:
+        if points[i][1] < best:
+            front.append(i)
+            best = points[i][1]
+    return front
+
+
+def _scatter(ax, rows, field, stat, title):
+    pts, labels = [], []
+    for r in rows:
+        v = r.get(field)
+        if v is None:
+            continue
+        pts.append((r.time(stat), max(float(v), LOG_FLOOR)))
+        labels.append(f"{r.get('model')} {r.get('label')} {_knob_text(r)}".strip())
+    if not pts:
+        ax.set_visible(False)
+        return
+    markers = {}
+    for (t, e), lab in zip(pts, labels):
+        base = lab.rsplit(" ", 1)[0] if ("tol=" in lab or "K=" in lab) else lab
+        if base not in markers:
+            markers[base] = ax.plot([], [], "o", label=base)[0].get_color()
+        ax.plot([t], [e], "o", color=markers[base])
+        ax.annotate(_knob_text_from(lab), (t, e), fontsize=6, xytext=(3, 3), textcoords="offset points")
+    front = pareto_front(pts)
+    fx = [pts[i][0] for i in front]
+    fy = [pts[i][1] for i in front]
+    ax.step(fx, fy, where="post", color="k", lw=1, alpha=0.6, label="Pareto front")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel(f"time, s ({stat} of rounds)")
+    ax.set_title(title, fontsize=9)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=6)
+
+
+def _knob_text_from(label: str) -> str:
+    return " ".join(p for p in label.split(" ") if p.startswith(("tol=", "K=")))
+
+
+def plot_pareto(run, rung, path, stat="min"):
+    plt = _plt()
+    rows = [r for r in run.rows if r.get("rung") == rung and r.get("kind") == "solve"]
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(12, 5))
+    _scatter(ax1, [r for r in rows if r.get("model") in ("pnlp", "pwl")], "bid_price_error", stat,
+             "largest relative bid-price error vs exact PNLP")
+    ax1.set_ylabel("error (log)")
+    _scatter(ax2, rows, "gap", stat, "certified relative gap")
+    n = rows[0].get("n_products") if rows else "?"
+    fig.suptitle(f"Time against accuracy, rung {rung} ({n} products); zeros drawn at {LOG_FLOOR:g}")
+    try:
+        return _save(fig, pathlib.Path(path))
+    finally:
+        plt.close(fig)
+
+
+def plot_lagrangian_gap(run, path):
+    rows = [r for r in run.rows if r.get("method") == "lagrangian" and r.get("history")]
+    if not rows:
+        return None
+    order = {r: i for i, r in enumerate(RUNG_ORDER)}
+    top = max(rows, key=lambda r: order.get(r.get("rung"), -1)).get("rung")
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(8, 5))
+    for r in sorted((r for r in rows if r.get("rung") == top), key=lambda r: r.case):
+        h = [x for x in r.get("history") if x.get("gap") is not None]
+        if not h:
+            continue
+        ax.plot([x["iteration"] for x in h], [max(float(x["gap"]), LOG_FLOOR) for x in h],
+                marker=".", label=f"{r.get('label')} {_knob_text(r)}")
+    ax.set_yscale("log")
+    ax.set_xlabel("iteration")
+    ax.set_ylabel("certified relative gap")
+    ax.set_title(f"Lagrangian dual: gap against iteration, rung {top}")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=7)
+    try:
+        return _save(fig, pathlib.Path(path))
+    finally:
+        plt.close(fig)
+
+
+def make_plots(run, out, stat="min") -> list:
+    """Write every plot of ``run`` into ``out``; returns the paths written."""
+    out = pathlib.Path(out)
+    made = [plot_time_vs_products(run, out / "time_vs_products.png", stat)]
+    rungs = [r for r in RUNG_ORDER if any(x.get("rung") == r and x.get("kind") == "solve" for x in run.rows)]
+    for rung in rungs:
+        made.append(plot_pareto(run, rung, out / f"pareto_{rung}.png", stat))
+    g = plot_lagrangian_gap(run, out / "lagrangian_gap.png")
+    if g is not None:
+        made.append(g)
+    return made

@@ -1,0 +1,163 @@
+"""The Markdown report of a benchmark run: machine, per-rung tables, fitted slopes, speed-ups."""
+
+from __future__ import annotations
+
+from .cases import RUNG_ORDER
+from .plots import slopes
+
+#: Methods the speed-up columns compare against, measured in the same run.
+BASELINES = ("ipopt", "pyomo-ipopt")
+
+
+def _g(v, fmt="{:.3g}"):
+    if v is None:
+        return "-"
+    if isinstance(v, (int, float)):
+        return fmt.format(v)
+    return str(v)
+
+
+def _knobs(row) -> str:
+    k = row.get("knobs") or {}
+    parts = []
+    if "segments" in k:
+        parts.append(f"K={k['segments']}")
+    if "tol" in k:
+        parts.append(f"tol={k['tol']:.0e}")
+    for name in ("time_limit", "iteration_limit"):
+        if k.get(name) is not None:
+            parts.append(f"{name}={k[name]:g}")
+    return ", ".join(parts) or "-"
+
+
+def baseline_row(rows, method: str):
+    """The baseline case of a rung: ``method`` at tol 1e-9 if measured, else at its tightest tol."""
+    cand = [r for r in rows if r.get("method") == method and r.get("kind") == "solve"]
+    if not cand:
+        return None
+    exact = [r for r in cand if (r.get("knobs") or {}).get("tol") == 1e-9]
+    return exact[0] if exact else min(cand, key=lambda r: (r.get("knobs") or {}).get("tol", 1.0))
+
+
+def speedups(run, stat: str = "min") -> dict:
+    """case -> {baseline method: baseline time / case time} within each rung."""
+    out = {}
+    for rung in RUNG_ORDER:
+        rows = [r for r in run.rows if r.get("rung") == rung]
+        bases = {m: baseline_row(rows, m) for m in BASELINES}
+        for r in rows:
+            if r.get("kind") != "solve":
+                continue
+            out[r.case] = {m: (None if b is None or r.time(stat) <= 0 else b.time(stat) / r.time(stat))
+                           for m, b in bases.items()}
+    return out
+
+
+def _machine(run) -> list:
+    mi = run.machine_info or {}
+    cpu = mi.get("cpu") or {}
+    d = mi.get("decomp") or {}
+    ver = d.get("versions") or {}
+    lines = [
+        f"- date (UTC): {run.datetime or '-'}",
+        f"- machine: {mi.get('node', '-')}, {cpu.get('brand_raw', mi.get('processor', '-'))}, "
+        f"{d.get('logical_cpus', '-')} logical CPUs ({d.get('physical_cores', '-')} physical), "
+        f"{d.get('memory_total_gib', '-')} GiB RAM, {mi.get('system', '')} {mi.get('release', '')}".rstrip(),
+        f"- load average (1, 5, 15 min) at start: {_load(d.get('load_average_at_start'))}; "
+        f"at end: {_load(run.decomp.get('load_average_at_end'))} (the machine is shared: timings are noisy)",
+        "- versions: " + ", ".join(f"{k} {v}" for k, v in ver.items() if v),
+    ]
+    return lines
+
+
+def _load(v):
+    return "-" if not v else ", ".join(f"{x:.2f}" for x in v)
+
+
+def render(run, plots=(), stat: str = "min") -> str:
+    """The report as Markdown."""
+    d = run.decomp or {}
+    rn = d.get("run") or {}
+    out = [f"# Benchmark report: suite `{d.get('suite', rn.get('suite', '?'))}`", ""]
+    out += _machine(run)
+    if rn:
+        out.append(f"- wall time of the run: {rn.get('wall_seconds', 0):.1f} s "
+                   f"({rn.get('cases_run', len(run.rows))} cases; pytest exit code {rn.get('pytest_exit_code')})")
+        out.append(f"- command: `{rn.get('command', '-')}`")
+    out.append(f"- times: {stat} over rounds of one call each (instance loading, incidence "
+               "matrices, references and a warm-up call are untimed); Pyomo method times include "
+               "building the model (the `build` phase column shows its share)")
+    out.append(f"- memory: {d.get('memory_note', 'peak resident-set growth during the solve')}")
+    out.append("")
+    excl = d.get("excluded_methods") or []
+    if excl:
+        out.append("Methods not in this run (no case generated): "
+                   + "; ".join(f"{e['model']}/{e['method']}: {e['reason']}" for e in excl))
+        out.append("")
+    rungs = d.get("rungs") or {}
+    if rungs:
+        out.append("Instances: " + "; ".join(
+            f"{k} = {v.get('source')} ({v.get('n_products')} products, {v.get('n_legs')} legs)"
+            for k, v in rungs.items()))
+        out.append("")
+    refs = d.get("references") or {}
+    if refs:
+        out.append("Reference solves (errors are measured against them): " + "; ".join(
+            f"{k}: {v.get('method')} {v.get('options') or ''} status {v.get('status')}, gap {_g(v.get('gap'))}"
+            for k, v in refs.items()))
+        out.append("")
+    failed = [r for r in run.rows if r.get("accuracy_failures")]
+    crashed = [c for c in rn.get("failed_cases", []) if not any(c.endswith(f"[{r.name.split('[', 1)[-1]}")
+                                                                  for r in failed)]
+    if failed or crashed:
+        out.append("## Failed cases")
+        for r in failed:
+            out.append(f"- `{r.case}`: " + "; ".join(r.get("accuracy_failures")))
+        for c in crashed:
+            out.append(f"- `{c}`: failed without timing data (see pytest.log)")
+        out.append("")
+
+    sp = speedups(run, stat)
+    for rung in RUNG_ORDER:
+        rows = [r for r in run.rows if r.get("rung") == rung]
+        if not rows:
+            continue
+        n, L = rows[0].get("n_products"), rows[0].get("n_legs")
+        out += [f"## Rung {rung}: {n} products, {L} legs", "",
+                "| model | method | knobs | time s | median s | rounds | build s | iterations | gap | "
+                "objective err | bid-price err | violation (rel) | peak MiB | status | x ipopt | x pyomo-ipopt |",
+                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|---:|---:|"]
+        for r in sorted(rows, key=lambda r: (r.get("kind") != "solve", str(r.get("model")),
+                                             str(r.get("label")), _knobs(r))):
+            ph = r.get("phase_seconds") or {}
+            s = sp.get(r.case, {})
+            status = r.get("termination") or ("built" if r.get("kind") == "build" else "-")
+            if r.get("accuracy_failures"):
+                status += " (FAILED check)"
+            out.append("| " + " | ".join([
+                str(r.get("model")), str(r.get("label")), _knobs(r),
+                _g(r.min, "{:.4g}"), _g(r.median, "{:.4g}"), str(r.rounds), _g(ph.get("build"), "{:.3g}"),
+                _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
+                _g(r.get("bid_price_error"), "{:.2e}"), _g(r.get("max_violation_rel"), "{:.1e}"),
+                _g(r.get("peak_memory_mib"), "{:.0f}"), status,
+                _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
+        out.append("")
+    fits = slopes(run, stat, min_n=1000)
+    if fits:
+        out += ["## Fitted scaling t = a n^b (rungs from 1,000 products, headline knob)", "",
+                "| model | method | b | stderr of b | a | sizes |", "|---|---|---:|---:|---:|---|"]
+        for (model, label), f in sorted(fits.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1]))):
+            se = f.stderr.get("b")
+            out.append(f"| {model} | {label} | {f.b:.3f} | {_g(se, '{:.3f}')} | {f.a:.3g} | "
+                       f"{int(f.stderr['n_min'])}..{int(f.stderr['n_max'])} ({f.stderr['n_points']}) |")
+        out.append("")
+    out += ["Columns: `x ipopt` = time of `ipopt` (tol 1e-9, or its tightest tol) on the same rung in this "
+            "run divided by this case's time (> 1: faster than ipopt); same for `x pyomo-ipopt`. "
+            "Errors are relative, against the reference solve; bid-price error over legs whose reference "
+            "bid price is >= 1e-3 of the largest. DLP bid prices need not be unique (degenerate LPs), so "
+            "their bid-price error is informative only.", ""]
+    if plots:
+        out.append("## Plots")
+        out += [f"![{p}]({p})" for p in plots]
+        out.append("")
+    return "\n".join(out)

@@ -1,0 +1,159 @@
+"""Run the benchmark suite in a pytest subprocess and write its outputs.
+
+:func:`run_suite` starts ``python -m pytest bench/ --suite S --benchmark-json
+...`` with the progress plugin, shows a tqdm bar over the cases, then writes
+into the output folder (each file atomically): ``benchmark.json`` (the raw
+pytest-benchmark JSON with machine info), ``pytest.log``, ``report.md`` and
+the PNG plots. A failed accuracy check fails its case in pytest, is listed in
+the report, and makes the run's exit code 1.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import logging
+import os
+import pathlib
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+
+from .. import atomic
+from .progress import ENV as PROGRESS_ENV
+
+log = logging.getLogger(__name__)
+
+BENCH_JSON = "benchmark.json"
+REPORT = "report.md"
+LOG = "pytest.log"
+
+
+def bench_dir() -> pathlib.Path:
+    """The ``bench/`` folder of this checkout."""
+    return pathlib.Path(__file__).resolve().parents[2] / "bench"
+
+
+@dataclasses.dataclass(frozen=True)
+class RunOutcome:
+    returncode: int        # pytest's exit code (0 all passed, 1 some case failed, other: did not run)
+    out: pathlib.Path
+    json_path: pathlib.Path | None
+    files: tuple
+    wall_seconds: float
+    n_cases: int
+    n_failed: int
+
+
+def _pytest_command(suite, json_path, k, extra, python) -> list:
+    cmd = [python, "-m", "pytest", str(bench_dir()), "--suite", suite,
+           "-p", "decomp.benchsuite.progress", "-p", "no:cacheprovider",
+           f"--benchmark-json={json_path}", "--benchmark-sort=name",
+           "-o", "addopts=", "-rfE", "-q", "--rootdir", str(bench_dir().parent)]
+    if k:
+        cmd += ["-k", k]
+    return cmd + list(extra)
+
+
+def _read_progress(path, pos):
+    """New complete JSON lines of the progress file from byte ``pos``."""
+    try:
+        with open(path) as fh:
+            fh.seek(pos)
+            chunk = fh.read()
+    except FileNotFoundError:
+        return [], pos
+    lines = chunk.split("\n")
+    tail = lines.pop()            # incomplete last line (or "")
+    events = []
+    for line in lines:
+        if line.strip():
+            try:
+                events.append(json.loads(line))
+            except json.JSONDecodeError:
+                log.warning("progress line not understood: %r", line)
+    return events, pos + len(chunk) - len(tail)
+
+
+def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bool = True,
+              python: str | None = None, plots: bool = True, command: str | None = None) -> RunOutcome:
+    """Run ``suite`` and write benchmark.json, pytest.log, report.md and plots into ``out``."""
+    from tqdm import tqdm
+
+    out = pathlib.Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    python = python or sys.executable
+    t0 = time.perf_counter()
+    with tempfile.TemporaryDirectory(prefix=".bench-run-", dir=out) as tmp:
+        tmp = pathlib.Path(tmp)
+        json_tmp, prog, log_tmp = tmp / BENCH_JSON, tmp / "progress.jsonl", tmp / LOG
+        env = dict(os.environ, **{PROGRESS_ENV: str(prog), "MPLBACKEND": "Agg"})
+        cmd = _pytest_command(suite, json_tmp, k, extra_args, python)
+        log.info("running %s", " ".join(cmd))
+        n_done = n_failed = 0
+        failed = []
+        bar = None
+        with open(log_tmp, "w") as logfh:
+            proc = subprocess.Popen(cmd, stdout=logfh, stderr=subprocess.STDOUT, env=env,
+                                    cwd=str(bench_dir().parent))
+            pos = 0
+            try:
+                while True:
+                    finished = proc.poll() is not None
+                    events, pos = _read_progress(prog, pos)
+                    for ev in events:
+                        if ev.get("event") == "collected" and bar is None:
+                            bar = tqdm(total=int(ev["n"]), desc=f"bench {suite}", unit="case",
+                                       disable=not progress, file=sys.stderr, dynamic_ncols=True)
+                        elif ev.get("event") == "done":
+                            n_done += 1
+                            if ev.get("outcome") == "failed":
+                                n_failed += 1
+                                failed.append(ev["nodeid"])
+                            if bar is not None:
+                                bar.set_postfix_str(ev["nodeid"].split("[", 1)[-1].rstrip("]")[:40]
+                                                    + (f" failed={n_failed}" if n_failed else ""))
+                                bar.update(1)
+                    if finished:
+                        break
+                    time.sleep(0.2)
+            except BaseException:
+                proc.terminate()
+                proc.wait(timeout=30)
+                raise
+            finally:
+                if bar is not None:
+                    bar.close()
+        rc = proc.returncode
+        wall = time.perf_counter() - t0
+        files = []
+        final_log = out / LOG
+        with atomic.atomic_path(final_log) as p:
+            shutil.copyfile(log_tmp, p)
+        files.append(final_log)
+        json_path = None
+        if json_tmp.exists():
+            json_path = out / BENCH_JSON
+            data = json.loads(json_tmp.read_text())
+            data.setdefault("decomp", {})["run"] = {
+                "suite": suite, "k": k, "wall_seconds": wall, "pytest_exit_code": rc,
+                "cases_run": n_done, "failed_cases": failed,
+                "command": command or " ".join(cmd),
+            }
+            atomic.write_json(json_path, data)
+            files.append(json_path)
+    if json_path is not None:
+        from . import plots as bplots
+        from . import report as breport
+        from .results import load_run
+
+        run = load_run(json_path)
+        made = bplots.make_plots(run, out) if plots else []
+        files += made
+        report_path = out / REPORT
+        atomic.write_text(report_path, breport.render(run, plots=[p.name for p in made]))
+        files.append(report_path)
+    return RunOutcome(returncode=rc, out=out, json_path=json_path, files=tuple(files),
+                      wall_seconds=wall, n_cases=n_done, n_failed=n_failed)
