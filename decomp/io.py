@@ -86,6 +86,21 @@ def _csv_header(path: pathlib.Path) -> list[str]:
 def _read_csv(path: pathlib.Path, required) -> pa.Table:
     names = _csv_header(path)
     _check_names(names, required, path)
+    table, bad = _parse_csv(path, names, threads=True)
+    if bad is not None:
+        if bad.number is None:             # the threaded reader does not count lines
+            _, bad = _parse_csv(path, names, threads=False)
+        row = None if bad.number is None else bad.number - 1   # file line -> data row
+        why = ("blank line" if not bad.text.strip() else
+               f"expected {bad.expected_columns} fields, got {bad.actual_columns}")
+        raise InstanceError(why, file=path, row=row, value=bad.text)
+    if table.column_names != names:
+        raise InstanceError(f"the header reads as {table.column_names}, expected {names}", file=path)
+    return table
+
+
+def _parse_csv(path, names, threads):
+    """Parse with every column as text; also return the first row with a wrong field count."""
     bad_rows = []
 
     def on_invalid(row):
@@ -95,19 +110,15 @@ def _read_csv(path: pathlib.Path, required) -> pa.Table:
     try:
         table = pcsv.read_csv(
             path,
-            read_options=pcsv.ReadOptions(use_threads=True, block_size=1 << 24),
-            parse_options=pcsv.ParseOptions(invalid_row_handler=on_invalid, newlines_in_values=False),
+            read_options=pcsv.ReadOptions(use_threads=threads, block_size=1 << 24),
+            parse_options=pcsv.ParseOptions(invalid_row_handler=on_invalid, newlines_in_values=False,
+                                            ignore_empty_lines=False),
             convert_options=pcsv.ConvertOptions(
                 column_types={n: pa.string() for n in names},
                 strings_can_be_null=False, quoted_strings_can_be_null=False))
     except pa.ArrowException as exc:
         raise InstanceError(f"cannot parse the CSV file: {exc}", file=path) from exc
-    if bad_rows:
-        r = bad_rows[0]
-        row = None if r.number is None else r.number - 1   # file line -> data row
-        raise InstanceError(f"expected {r.expected_columns} fields, got {r.actual_columns}",
-                            file=path, row=row, value=r.text)
-    return table
+    return table, (bad_rows[0] if bad_rows else None)
 
 
 def _read_parquet(path: pathlib.Path, required) -> pa.Table:
@@ -204,8 +215,8 @@ def _numbers(arr: pa.Array, path, column) -> np.ndarray:
     return out
 
 
-def _ids(arr: pa.Array, path, column, what) -> tuple[pa.Array, np.ndarray]:
-    """Unique, non-empty ids: the string array and its object numpy view."""
+def _ids(arr: pa.Array, path, column, what) -> pa.Array:
+    """Unique, non-empty ids without spaces, as a string array."""
     txt = _text(arr, path, column)
     empty = pc.equal(pc.utf8_length(pc.utf8_trim_whitespace(txt)), 0).to_numpy(zero_copy_only=False)
     if empty.any():
@@ -226,7 +237,11 @@ def _ids(arr: pa.Array, path, column, what) -> tuple[pa.Array, np.ndarray]:
         j = int(first[np.searchsorted(_, codes[i])])
         raise InstanceError(f"duplicate {what} id (first in row {j + 1})", file=path, row=i + 1,
                             column=column, value=txt[i].as_py())
-    return txt, np.asarray(txt.to_numpy(zero_copy_only=False), dtype=object)
+    return txt
+
+
+def _objects(arr: pa.Array) -> np.ndarray:
+    return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
 
 
 def _check_range(values, ok, path, column, reason):
@@ -278,7 +293,8 @@ def read_instance(path) -> Instance:
     legs_path, legs = _read_table(folder, "legs", LEG_COLUMNS)
     prod_path, prods = _read_table(folder, "products", PRODUCT_COLUMNS)
 
-    leg_txt, leg_ids = _ids(_col(legs, "leg"), legs_path, "leg", "leg")
+    leg_txt = _ids(_col(legs, "leg"), legs_path, "leg", "leg")
+    leg_ids = _objects(leg_txt)
     stations = {}
     for col in ("origin", "destination"):
         st = _text(_col(legs, col), legs_path, col)
@@ -291,7 +307,7 @@ def read_instance(path) -> Instance:
     capacity = _numbers(_col(legs, "capacity"), legs_path, "capacity")
     _check_range(capacity, capacity >= 0, legs_path, "capacity", "capacity must be >= 0")
 
-    prod_txt, product_ids = _ids(_col(prods, "product"), prod_path, "product", "product")
+    product_ids = _objects(_ids(_col(prods, "product"), prod_path, "product", "product"))
     fare = _numbers(_col(prods, "fare"), prod_path, "fare")
     _check_range(fare, fare > 0, prod_path, "fare", "fare must be > 0")
     mean = _numbers(_col(prods, "mean"), prod_path, "mean")
@@ -400,6 +416,41 @@ def _check_connected(leg_ptr, leg_index, stations, path, leg_ids):
 # writing
 # ---------------------------------------------------------------------------
 
+def check_instance(inst: Instance) -> None:
+    """The checks of :func:`read_instance` on an in-memory instance (rows 1-based, no file).
+
+    :func:`write_instance` runs it first, so an invalid instance is never written.
+    """
+    leg_ids = _objects(_ids(_as_arrow(inst.leg_ids), None, "leg", "leg"))
+    _ids(_as_arrow(inst.product_ids), None, "product", "product")
+    stations = {}
+    for col, vals in (("origin", inst.leg_origin), ("destination", inst.leg_destination)):
+        st = _as_arrow(vals)
+        empty = pc.equal(pc.utf8_length(pc.utf8_trim_whitespace(st)), 0).to_numpy(zero_copy_only=False)
+        if empty.any():
+            raise InstanceError("empty station code", row=int(np.argmax(empty)) + 1, column=col)
+        stations[col] = st
+    for col, vals, ok, why in (
+            ("capacity", inst.capacity, inst.capacity >= 0, "capacity must be >= 0"),
+            ("fare", inst.fare, inst.fare > 0, "fare must be > 0"),
+            ("mean", inst.mean, inst.mean >= 0, "demand mean must be >= 0"),
+            ("std", inst.std, inst.std >= 0, "demand std must be >= 0")):
+        finite = np.isfinite(vals)
+        _check_range(vals, finite, None, col, "NaN or infinite value")
+        _check_range(vals, ok, None, col, why)
+    empty = np.diff(inst.leg_ptr) == 0
+    if empty.any():
+        raise InstanceError("empty legs field: a product needs at least one leg",
+                            row=int(np.argmax(empty)) + 1, column="legs")
+    _check_connected(inst.leg_ptr, inst.leg_index, stations, None, leg_ids)
+    if inst.distribution is not None:
+        known = np.isin(inst.distribution.astype(str), DISTRIBUTIONS)
+        if not known.all():
+            i = int(np.argmax(~known))
+            raise InstanceError(f"unknown demand distribution; known: {', '.join(DISTRIBUTIONS)}",
+                                row=i + 1, column="distribution", value=str(inst.distribution[i]))
+
+
 def _as_arrow(values) -> pa.Array:
     a = np.asarray(values)
     if a.dtype.kind in "US":
@@ -476,7 +527,9 @@ def write_instance(inst: Instance, path, format: str = "csv") -> pathlib.Path:
     """Write ``inst`` as an instance folder (``format`` ``"csv"`` or ``"parquet"``) plus meta.json.
 
     Atomic: the tables go into a temporary folder beside ``path``, which then
-    replaces ``path``; on any error nothing at ``path`` changes. An existing
+    replaces ``path``; on any error nothing at ``path`` changes. The instance
+    is checked first (:func:`check_instance`): an invalid one raises
+    InstanceError and nothing is written. An existing
     ``path`` is replaced only if it holds nothing but instance files. Numbers
     are written in the shortest form that reads back to the same float, so
     :func:`read_instance` gives the same arrays back.
@@ -491,6 +544,7 @@ def write_instance(inst: Instance, path, format: str = "csv") -> pathlib.Path:
         if foreign:
             raise FileExistsError(f"{target} holds other files ({', '.join(foreign[:3])}); "
                                   "write the instance to a new or instance-only folder")
+    check_instance(inst)
     target.parent.mkdir(parents=True, exist_ok=True)
     legs, products = _tables(inst)
     tmp = pathlib.Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent))

@@ -7,6 +7,7 @@ chosen from the number of products (see decomp.generator).
 from __future__ import annotations
 
 import argparse
+import sys
 import time
 
 
@@ -44,7 +45,7 @@ def run(args) -> int:
     try:
         out = write_instance(inst, args.out, format=args.format)
     except FileExistsError as exc:
-        print(f"decomp generate: error: {exc}")
+        print(f"decomp generate: error: {exc}", file=sys.stderr)
         return 2
     t2 = time.perf_counter()
     p = inst.meta["params"]
