@@ -55,7 +55,7 @@ from typing import Any, Callable, Mapping, Sequence
 import numpy as np
 
 from . import atomic
-from .errors import ConfigError, InstanceError
+from .errors import ConfigError, DecompError, InstanceError, SolverUnavailableError
 from .instance import Instance
 from .options import SolverOptions
 
@@ -180,9 +180,10 @@ def micro_instance(seed: int, n_products: int = 12, name: str | None = None) -> 
     return Instance.from_lists(leg_rows, products, meta={"name": name or f"micro{seed}"})
 
 
-# Largest quick-suite rung per method: the Pyomo-built models take much longer to build.
+# Largest quick-suite rung per (model, method) or method: the Pyomo-built models take much
+# longer to build (the PWL by Pyomo at p10k takes about 20 s here, the DLP 2.5 s).
 _QUICK_RUNGS = ("p100", "p1k", "p10k")
-_QUICK_MAX_RUNG = {"pyomo-highs": "p1k", "pyomo-ipopt": "p1k"}
+_QUICK_MAX_RUNG = {("dlp", "pyomo-highs"): "p10k", "pyomo-highs": "p1k", "pyomo-ipopt": "p1k"}
 
 
 def _available_pairs() -> list:
@@ -213,7 +214,7 @@ def _suite_quick() -> list:
     for k, rung in enumerate(_QUICK_RUNGS):
         spec = _ladder_spec(rung)
         for model, method in pairs:
-            limit = _QUICK_MAX_RUNG.get(method)
+            limit = _QUICK_MAX_RUNG.get((model, method), _QUICK_MAX_RUNG.get(method))
             if limit is not None and k > _QUICK_RUNGS.index(limit):
                 continue
             cases.append(Case(spec, model, method, SolverOptions()))
@@ -231,7 +232,7 @@ SUITES: dict = {
     "micro": ("two tiny seeded networks (12 and 24 products) x every available (model, method)",
               _suite_micro),
     "quick": ("ladder rungs p100, p1k, p10k x every available (model, method); "
-              "Pyomo-built methods up to p1k", _suite_quick),
+              "Pyomo-built models up to p1k (the DLP up to p10k)", _suite_quick),
 }
 
 
@@ -548,6 +549,11 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
         raise ConfigError(f"duplicate case ids {dup}; give the cases distinct labels")
     if out.exists() and not overwrite:
         raise ConfigError(f"{out} already exists; choose another folder or pass --force to replace it")
+    if solve_fn is None:
+        missing = _unavailable_pairs({(c.model, c.method) for c in cases})
+        if missing:
+            raise SolverUnavailableError("cannot record: " + "; ".join(
+                f"{model}/{method}: {reason}" for (model, method), reason in missing.items()))
     solve_fn = solve_fn or _default_solve()
     env = environment()
     out.parent.mkdir(parents=True, exist_ok=True)
@@ -883,6 +889,7 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
     """
     base = load(path)
     thresholds = thresholds or Thresholds()
+    solve_fn_given = solve_fn is not None
     solve_fn = solve_fn or _default_solve()
     override = dict(options_override or {})
     known = {f.name for f in dataclasses.fields(SolverOptions)}
@@ -897,11 +904,18 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
         if missing:
             raise ConfigError(f"no case {missing} in baseline {base.path}")
     instances: dict = {}
-    for rec in base.cases:
-        if wanted is not None and rec["case"] not in wanted:
-            continue
+    todo = [rec for rec in base.cases if wanted is None or rec["case"] in wanted]
+    # Availability first (as record's suites do): a missing solver is reported by name, and the
+    # libraries are imported before any timed solve, as they were when the baseline was recorded.
+    unavailable = {} if solve_fn_given else _unavailable_pairs({(r["model"], r["method"]) for r in todo})
+    for rec in todo:
         rep = CaseReport(rec["case"], rec["model"], rec["method"])
         rep.thresholds = thresholds.for_case(rec["model"], float(rec["options"]["tol"]))
+        if (rec["model"], rec["method"]) in unavailable:
+            rep.add("regression", "unavailable", f"method {rec['method']!r} for model {rec['model']!r} is not "
+                                                 f"available here: {unavailable[(rec['model'], rec['method'])]}")
+            reports.append(rep)
+            continue
         try:
             _check_case(base, rec, rep, instances, override, solve_fn, clock, repeat)
         except Exception as exc:  # noqa: BLE001 - a failing case is reported, the others still run
@@ -916,6 +930,21 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
         environment_old=dict(base.environment), environment_new=env_new,
         environment_changes=environment_changes(base.environment, env_new), cases=reports,
         options_override=override)
+
+
+def _unavailable_pairs(pairs) -> dict:
+    """{(model, method): reason} for the pairs whose method is unknown or unavailable here."""
+    from . import registry
+
+    out = {}
+    for model, method in sorted(pairs):
+        try:
+            ok, reason = registry.get_method(method, model).available()
+        except DecompError as exc:
+            ok, reason = False, str(exc)
+        if not ok:
+            out[(model, method)] = reason
+    return out
 
 
 def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat) -> None:
@@ -984,7 +1013,8 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
         m["bid_moved_legs"] = moved_legs
         if moved_legs:
             detail = (f"{len(moved_legs)} leg(s) beyond {th['bid_rtol']:.3g} rel + {atol:.3g} abs: "
-                      f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {pi_old[i_abs]!r} -> {pi_new[i_abs]!r}")
+                      f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {float(pi_old[i_abs])!r} -> "
+                      f"{float(pi_new[i_abs])!r}")
             if rec["model"] == "dlp" and objective_same:
                 _alternative_duals(rep, inst, pi_new, obj_old, th, moved_legs, detail)
             else:

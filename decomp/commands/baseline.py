@@ -63,6 +63,7 @@ def _bad(msg: str) -> int:
 
 def run_record(args) -> int:
     from .. import baseline
+    from ..errors import SolverUnavailableError
 
     if args.list:
         for name, (desc, _) in sorted(baseline.SUITES.items()):
@@ -81,8 +82,12 @@ def run_record(args) -> int:
 
     cases = baseline.suite_cases(args.suite)
     print(f"recording suite {args.suite}: {len(cases)} cases -> {args.out}", flush=True)
-    summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat, overwrite=args.force,
-                              progress=progress)
+    try:
+        summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat, overwrite=args.force,
+                                  progress=progress)
+    except SolverUnavailableError as exc:
+        print(f"decomp baseline record: {exc}", file=sys.stderr)
+        return 1
     env = summary.environment
     print(f"wrote {summary.path} ({len(summary.cases)} cases); environment: Python {env['python']}, "
           f"numpy {env['numpy']}, scipy {env['scipy']}, pyomo {env['pyomo']}, HiGHS {env['highs_library']}, "
