@@ -1,0 +1,104 @@
+"""``decomp run``: the nightly production run on Dask.
+
+BATCH is a folder of instance folders (one task each), an instance folder, or
+``gen:PRODUCTS[:SEED]`` (a generated network); with ``--dates FIRST:LAST`` or
+``--days N`` every base network is solved once per departure date, with a
+deterministic per-date demand variation. Each task's bid prices (Parquet) and
+result (JSON) land in OUT/tasks/<key>/, written atomically; rerunning with the
+same arguments skips finished tasks. ``--warm-start-from`` an earlier run's
+OUT starts each task from the bid prices of the same key there.
+The summary is written to OUT/summary.json and OUT/summary.md.
+"""
+
+from __future__ import annotations
+
+import sys
+
+
+def register(sub):
+    p = sub.add_parser("run", help="solve a batch of departure dates on Dask (resumable)", description=__doc__)
+    p.add_argument("batch", help="folder of instances, an instance folder, or gen:PRODUCTS[:SEED]")
+    p.add_argument("--out", required=True, help="output folder (finished tasks in it are skipped)")
+    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
+    p.add_argument("--method", default="lagrangian", help="default: %(default)s")
+    p.add_argument("--tol", type=float, default=1e-9, help="optimality tolerance (default: %(default)g)")
+    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve")
+    p.add_argument("--iteration-limit", type=int, default=None)
+    g = p.add_argument_group("departure dates")
+    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31")
+    g.add_argument("--days", type=int, help="N dates from --start")
+    g.add_argument("--start", help="first date for --days (default: today, UTC)")
+    g.add_argument("--variation-seed", type=int, default=0, help="seed of the per-date demand variation")
+    g.add_argument("--variation-sigma", type=float, default=0.10,
+                   help="per-product lognormal sigma of the daily variation (default: %(default)s)")
+    g.add_argument("--seasonal", type=float, default=0.15, help="seasonal amplitude (default: %(default)s)")
+    c = p.add_argument_group("cluster")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its workers)")
+    c.add_argument("--workers", type=int, help="worker processes of the embedded cluster (default: one per core)")
+    c.add_argument("--retries", type=int, default=2, help="retries of a task that raised (default: %(default)s)")
+    p.add_argument("--warm-start-from", metavar="DIR", help="an earlier run's OUT folder to warm-start from")
+    p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    import logging
+
+    # distributed logs every worker start and stop at INFO; keep the terminal for the progress bar
+    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core"):
+        logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
+    from ..options import SolverOptions
+    from ..production.batch import DateVariation, build_batch, date_range
+    from ..production.durations import format_duration, parse_duration
+    from ..production.runner import RunConfig, run_batch
+
+    window = parse_duration(args.window) if args.window else None
+    dates = date_range(args.dates, args.days, args.start)
+    variation = DateVariation(seed=args.variation_seed, sigma=args.variation_sigma, seasonal=args.seasonal)
+    batch = build_batch(args.batch, dates, variation)
+    options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
+                            threads=1)
+    cfg = RunConfig(model=args.model, method=args.method, options=options, out=args.out,
+                    warm_start_from=args.warm_start_from)
+    bar = {}
+
+    def on_event(kind, rec, prog):
+        if args.no_progress:
+            if kind == "failed":
+                print(f"task {rec['key']} failed: {rec.get('error')}", file=sys.stderr)
+            return
+        from tqdm import tqdm
+
+        if kind == "start":
+            bar["b"] = tqdm(total=prog.todo, unit="task", desc="decomp run", file=sys.stderr,
+                            dynamic_ncols=True)
+            return
+        b = bar["b"]
+        if kind == "failed":
+            b.write(f"task {rec['key']} failed: {rec.get('error')}")
+        proj = prog.projected_seconds()
+        post = {"failed": prog.failed, "finish": format_duration(proj)}
+        if window:
+            post["window"] = format_duration(window)
+            post["fits"] = "yes" if proj is not None and proj <= window else "NO"
+        b.set_postfix(post, refresh=False)
+        b.update(1)
+
+    print(f"decomp run: {batch.description}; {args.model} by {args.method}, tol {args.tol:g}; out {cfg.out}")
+    try:
+        s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
+                      window=window, on_event=on_event)
+    finally:
+        if "b" in bar:
+            bar["b"].close()
+    t = s["totals"]
+    print(f"{t['n_tasks']} tasks: {t['ok']} ok, {t['not_optimal']} not optimal, {t['failed']} failed, "
+          f"{t['skipped']} skipped (finished earlier); wall {format_duration(t['wall_seconds'])}"
+          + (f" of window {format_duration(window)}: {'fits' if t['fits_window'] else 'DOES NOT FIT'}"
+             if window else ""))
+    for task in s["tasks"]:
+        if task["status"] in ("failed", "not_optimal"):
+            print(f"  {task['key']}: {task['status']}: {task.get('error')}")
+    print(f"summary: {cfg.out}/summary.md, {cfg.out}/summary.json")
+    return 0 if t["ok"] == t["n_tasks"] else 1

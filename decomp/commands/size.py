@@ -1,0 +1,89 @@
+"""``decomp size``: will the nightly run fit its optimization window?
+
+Fits time = a * products^b per method from ``decomp bench`` output, projects
+the run's wall time on the given workers (per-task overhead from --overhead or
+a ``decomp run`` summary), and says whether it fits, by what margin, the
+fewest workers that fit, and what a looser tolerance (other benchmarked
+tolerances) would buy. Prints a table; writes sizing.json and sizing.png to
+--out.
+"""
+
+from __future__ import annotations
+
+
+def register(sub):
+    p = sub.add_parser("size", help="project a production run's wall time against the window", description=__doc__)
+    p.add_argument("--bench", required=True, metavar="FILE_OR_DIR", help="decomp bench output (benchmark.json or its folder)")
+    p.add_argument("--dates", type=int, default=365, help="departure dates (default: %(default)s)")
+    p.add_argument("--products", type=int, help="products per network")
+    p.add_argument("--networks", type=int, default=1, help="networks per date (default: %(default)s)")
+    p.add_argument("--instances", metavar="DIR", help="folder of instance folders (sizes read from it) x --dates")
+    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"))
+    p.add_argument("--method", default="lagrangian")
+    p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
+    p.add_argument("--tol", type=float, default=1e-9)
+    p.add_argument("--workers", type=int, default=2)
+    p.add_argument("--window", required=True, help="optimization window, e.g. 2h, 90m, 180s")
+    p.add_argument("--overhead", type=float, help="seconds per task beyond the solve")
+    p.add_argument("--startup", type=float, help="seconds to start the cluster (default: from --run-summary, else 0)")
+    p.add_argument("--run-summary", metavar="FILE", help="a decomp run summary.json to take the overhead from")
+    p.add_argument("--out", default="sizing", help="folder for sizing.json and sizing.png (default: %(default)s)")
+    p.set_defaults(func=run)
+
+
+def _m(s):
+    from ..production.durations import format_duration
+
+    return format_duration(s)
+
+
+def run(args) -> int:
+    import pathlib
+
+    from .. import atomic
+    from ..production import sizing
+    from ..production.durations import parse_duration
+
+    window = parse_duration(args.window)
+    overhead, startup, source = 0.0, 0.0, "none given (0 s)"
+    if args.run_summary:
+        overhead, startup = sizing.read_run_overhead(args.run_summary)
+        source = f"measured in {args.run_summary}"
+    if args.overhead is not None:
+        overhead, source = args.overhead, "--overhead"
+    if args.startup is not None:
+        startup = args.startup
+    cases = sizing.load_bench(args.bench)
+    sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
+    s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
+                        workers=args.workers, window=window, overhead=overhead, startup=startup,
+                        variant=args.variant)
+    s["overhead_source"] = source
+    r, f = s["result"], s["result"]["fit"]
+    out = pathlib.Path(args.out)
+    atomic.write_json(out / "sizing.json", s)
+    sizing.plot(s, out / "sizing.png")
+
+    print(f"decomp size: {s['tasks']} tasks of {s['products_min']:,.0f}..{s['products_max']:,.0f} products, "
+          f"{s['model']} by {s['variant']}, tol {r['tol']:g}, {s['workers']} workers, window {_m(window)}")
+    bse = "-" if f["b_stderr"] is None else f"{f['b_stderr']:.3f}"
+    print(f"  fit: t = {f['a']:.3g} * n^{f['b']:.3f} (stderr of b {bse}; {f['n_points']} cases, "
+          f"n {f['n_range'][0]:,.0f}..{f['n_range'][1]:,.0f}{'; EXTRAPOLATED' if r['extrapolated'] else ''})")
+    print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {overhead:.3f} s ({source}); "
+          f"start-up {startup:.1f} s")
+    rows = [("tol", "wall", "95% interval", "fits", "margin", "fewest workers (central/high)")]
+    for x in [r] + s["looser"]:
+        iv = "-" if x["wall_low"] is None else f"{_m(x['wall_low'])}..{_m(x['wall_high'])}"
+        margin = ("+" if x["margin_seconds"] >= 0 else "-") + _m(abs(x["margin_seconds"]))
+        rows.append((f"{x['tol']:g}", _m(x["wall_seconds"]), iv, "yes" if x["fits"] else "NO", margin,
+                     f"{x['smallest_workers'] or '-'} / {x['smallest_workers_high'] or '-'}"))
+    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
+    for i, row in enumerate(rows):
+        print("  " + "  ".join(c.ljust(w) for c, w in zip(row, widths)))
+        if i == 0:
+            print("  " + "  ".join("-" * w for w in widths))
+    if not s["looser"]:
+        print("  (no benchmark cases at a looser tolerance for this method)")
+    verdict = "FITS" if r["fits"] else "DOES NOT FIT"
+    print(f"verdict: {verdict} on {s['workers']} workers; written {out / 'sizing.json'}, {out / 'sizing.png'}")
+    return 0 if r["fits"] else 1

@@ -1,0 +1,337 @@
+"""Sizing the nightly run: fit time = a * products^b to benchmark data, project the wall time.
+
+The benchmark data is the pytest-benchmark JSON that ``decomp bench`` writes
+(``benchmark.json``): every solve case carries ``extra_info`` with
+``n_products``, ``model``, ``method``, ``label`` and ``knobs`` (``tol`` among
+them; absent means the default tolerance). Per (model, method, variant, tol)
+the median times are fitted on logs (:func:`decomp.benchsuite.fit.fit_power_law`)
+and the 95 % prediction interval of log t at the production size comes from the
+fit's covariance and residual spread (Student t with n - 2 degrees of freedom,
+the textbook prediction interval of a simple linear regression).
+
+Projection for W workers: each task costs its predicted solve time plus a
+per-task overhead (instance build, writes, scheduling; measured by a Dask run:
+``overhead_per_task_seconds`` in its ``summary.json``), tasks are packed onto
+the workers longest first (LPT: each next task goes to the least-loaded
+worker), and the cluster start-up is added once. For equal tasks this is
+``ceil(tasks / W) * (solve + overhead) + startup``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import heapq
+import json
+import math
+import pathlib
+
+import numpy as np
+
+from ..errors import ConfigError, InstanceError
+
+DEFAULT_TOL = 1e-9   # SolverOptions' default tolerance, assumed when a case gives none
+
+
+@dataclasses.dataclass(frozen=True)
+class BenchCase:
+    """One timed solve case of a benchmark file."""
+
+    name: str
+    model: str
+    method: str
+    variant: str          # the case's label (e.g. lagrangian-newton), or the method
+    tol: float
+    n_products: int
+    seconds: float        # median time per round
+    source: str
+
+
+# -- reading benchmark output --------------------------------------------------------
+
+def _bench_files(path: pathlib.Path) -> list:
+    if path.is_file():
+        return [path]
+    if path.is_dir():
+        files = sorted(path.rglob("*.json"))
+        if files:
+            return files
+        raise InstanceError("no benchmark JSON files in folder", file=path)
+    raise InstanceError("benchmark file or folder not found", file=path)
+
+
+def load_bench(path) -> list:
+    """Every solve case with a time and a size in a benchmark file, or a folder of them."""
+    out = []
+    for f in _bench_files(pathlib.Path(path)):
+        try:
+            data = json.loads(f.read_text())
+        except (OSError, ValueError) as exc:
+            raise InstanceError(f"not a readable JSON file ({exc})", file=f) from exc
+        if not isinstance(data, dict) or not isinstance(data.get("benchmarks"), list):
+            if f == pathlib.Path(path):
+                raise InstanceError("not a pytest-benchmark JSON file (no 'benchmarks' list)", file=f)
+            continue
+        for i, b in enumerate(data["benchmarks"], start=1):
+            info = b.get("extra_info") or {}
+            stats = b.get("stats") or {}
+            if info.get("kind", "solve") != "solve" or info.get("accuracy_failures"):
+                continue
+            n, t = info.get("n_products"), stats.get("median", stats.get("mean"))
+            model, method = info.get("model"), info.get("method")
+            if not (isinstance(n, (int, float)) and isinstance(t, (int, float)) and model and method):
+                continue
+            knobs = info.get("knobs") or {}
+            tol = info.get("tol", knobs.get("tol", DEFAULT_TOL))
+            try:
+                tol = float(tol)
+            except (TypeError, ValueError) as exc:
+                raise InstanceError("tolerance is not a number", file=f, row=i, column="extra_info.tol",
+                                    value=tol) from exc
+            if n <= 0 or t <= 0:
+                raise InstanceError("n_products and time must be positive", file=f, row=i,
+                                    column="extra_info.n_products / stats.median", value=(n, t))
+            out.append(BenchCase(name=str(b.get("name", f"case {i}")), model=str(model), method=str(method),
+                                 variant=str(info.get("label") or method), tol=tol, n_products=int(n),
+                                 seconds=float(t), source=str(f)))
+    return out
+
+
+def select(cases, model: str, method: str, variant: str | None = None) -> dict:
+    """Cases of one model and method (and variant), grouped by tolerance: {tol: [cases]}."""
+    chosen = [c for c in cases if c.model == model and c.method == method]
+    if not chosen:
+        have = sorted({f"{c.model}/{c.method}" for c in cases})
+        raise ConfigError(f"no benchmark cases for model {model!r}, method {method!r}; "
+                          f"the file has: {', '.join(have) or 'none'}")
+    variants = sorted({c.variant for c in chosen})
+    if variant is None:
+        # the method's default variant when present (e.g. lagrangian-newton), else the commonest
+        default = [v for v in variants if v in (method, f"{method}-newton")]
+        variant = default[0] if default else max(variants, key=lambda v: sum(c.variant == v for c in chosen))
+    elif variant not in variants:
+        raise ConfigError(f"no benchmark cases for variant {variant!r}; have: {', '.join(variants)}")
+    groups = {}
+    for c in chosen:
+        if c.variant == variant:
+            groups.setdefault(c.tol, []).append(c)
+    return groups
+
+
+# -- the fit -------------------------------------------------------------------
+
+@dataclasses.dataclass(frozen=True)
+class TimeModel:
+    """t(n) = a n^b with its uncertainty; ``q`` is the 95 % Student t quantile."""
+
+    a: float
+    b: float
+    b_stderr: float | None
+    sigma: float | None         # residual sd of log t
+    cov: tuple | None           # covariance of (log a, b)
+    n_points: int
+    n_min: float
+    n_max: float
+    q: float | None
+
+    @classmethod
+    def fit(cls, n, t) -> "TimeModel":
+        from ..benchsuite.fit import fit_power_law
+
+        f = fit_power_law(n, t)
+        s = f.stderr
+        dof = int(s["n_points"]) - 2
+        q = None
+        if dof > 0:
+            from scipy import stats
+
+            q = float(stats.t.ppf(0.975, dof))
+        cov = None if s.get("cov") is None else tuple(tuple(r) for r in s["cov"])
+        return cls(a=f.a, b=f.b, b_stderr=s.get("b"), sigma=s.get("sigma"), cov=cov,
+                   n_points=int(s["n_points"]), n_min=float(s["n_min"]), n_max=float(s["n_max"]), q=q)
+
+    def predict(self, n) -> np.ndarray:
+        return self.a * np.asarray(n, dtype=np.float64) ** self.b
+
+    def interval(self, n):
+        """(low, high) 95 % prediction interval of the time of one solve at size(s) n, or None."""
+        if self.cov is None or self.q is None:
+            return None
+        x = np.log(np.asarray(n, dtype=np.float64))
+        c = np.asarray(self.cov)
+        var_fit = c[0, 0] + 2 * x * c[0, 1] + x * x * c[1, 1]
+        sd = np.sqrt(np.maximum(var_fit, 0.0) + self.sigma ** 2)
+        mid = self.predict(n)
+        return mid * np.exp(-self.q * sd), mid * np.exp(self.q * sd)
+
+    def to_dict(self) -> dict:
+        return {"a": self.a, "b": self.b, "b_stderr": self.b_stderr, "sigma_log": self.sigma,
+                "n_points": self.n_points, "n_range": [self.n_min, self.n_max]}
+
+
+# -- packing and projection ------------------------------------------------------
+
+def lpt_makespan(times, workers: int) -> float:
+    """Finish time of ``times`` on ``workers`` machines, longest first, each to the least-loaded one."""
+    workers = int(workers)
+    if workers < 1:
+        raise ConfigError(f"workers must be at least 1, got {workers}")
+    times = np.sort(np.asarray(times, dtype=np.float64))[::-1]
+    if times.size == 0:
+        return 0.0
+    if np.all(times == times[0]):                    # equal tasks: whole rounds
+        return float(math.ceil(times.size / workers) * times[0])
+    loads = [0.0] * min(workers, times.size)
+    heapq.heapify(loads)
+    for t in times:                                  # one step per task (hundreds), not per product
+        heapq.heappush(loads, heapq.heappop(loads) + float(t))
+    return float(max(loads))
+
+
+def project(task_products, model: TimeModel, workers: int, overhead: float = 0.0, startup: float = 0.0) -> dict:
+    """Projected wall seconds (central and 95 % interval) of the tasks on ``workers``."""
+    p = np.asarray(task_products, dtype=np.float64)
+    mid = model.predict(p)
+    out = {"workers": int(workers), "wall_seconds": startup + lpt_makespan(mid + overhead, workers)}
+    iv = model.interval(p)
+    if iv is None:
+        out["wall_low"] = out["wall_high"] = None
+    else:
+        out["wall_low"] = startup + lpt_makespan(iv[0] + overhead, workers)
+        out["wall_high"] = startup + lpt_makespan(iv[1] + overhead, workers)
+    return out
+
+
+def smallest_workers(task_products, model, window, overhead=0.0, startup=0.0, key="wall_seconds",
+                     limit: int | None = None):
+    """The fewest workers whose projection (``key``) fits the window, or None."""
+    n = len(task_products)
+    for w in range(1, (limit or n) + 1):
+        v = project(task_products, model, w, overhead, startup)[key]
+        if v is not None and v <= window:
+            return w
+    return None
+
+
+# -- production shape ----------------------------------------------------------------
+
+def instance_products(folder) -> int:
+    """Products in an instance folder, without reading it whole."""
+    folder = pathlib.Path(folder)
+    meta = folder / "meta.json"
+    if meta.is_file():
+        try:
+            n = json.loads(meta.read_text()).get("n_products")
+            if isinstance(n, int) and n > 0:
+                return n
+        except ValueError:
+            pass
+    if (folder / "products.parquet").is_file():
+        import pyarrow.parquet as pq
+
+        return int(pq.ParquetFile(folder / "products.parquet").metadata.num_rows)
+    if (folder / "products.csv").is_file():
+        with open(folder / "products.csv", "rb") as fh:
+            lines = sum(chunk.count(b"\n") for chunk in iter(lambda: fh.read(1 << 20), b""))
+        return max(lines - 1, 0)
+    raise InstanceError("no products table (products.csv or products.parquet)", file=folder)
+
+
+def task_sizes(dates: int, products: int | None = None, networks: int = 1, instances=None) -> np.ndarray:
+    """Products per task: ``dates`` x ``networks`` tasks of ``products``, or per instance folder x dates."""
+    if instances is not None:
+        root = pathlib.Path(instances)
+        if not root.is_dir():
+            raise InstanceError("instances folder not found", file=root)
+        folders = sorted(p for p in root.iterdir() if p.is_dir() and not p.name.startswith("."))
+        if not folders:
+            raise InstanceError("no instance folders", file=root)
+        sizes = np.array([instance_products(f) for f in folders], dtype=np.float64)
+        return np.tile(sizes, max(int(dates or 1), 1))
+    if not products or products < 1:
+        raise ConfigError("give --products P (per network) or --instances DIR")
+    if dates < 1 or networks < 1:
+        raise ConfigError("--dates and --networks must be at least 1")
+    return np.full(int(dates) * int(networks), float(products))
+
+
+def read_run_overhead(path) -> tuple:
+    """(overhead per task, cluster start) in seconds from a ``decomp run`` summary.json."""
+    try:
+        data = json.loads(pathlib.Path(path).read_text())
+        t = data["totals"]
+        ov, st = t.get("overhead_per_task_seconds"), t.get("cluster_start_seconds", 0.0)
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="totals") from exc
+    if ov is None:
+        raise InstanceError("the summary has no measured overhead (no task ran in it)", file=path,
+                            column="totals.overhead_per_task_seconds")
+    return float(ov), float(st or 0.0)
+
+
+def size_run(cases, *, model, method, tol, task_products, workers, window, overhead=0.0, startup=0.0,
+             variant=None) -> dict:
+    """The sizing answer: fit, projection on ``workers``, fits or not, margin, smallest workers, other tols."""
+    groups = select(cases, model, method, variant)
+    tols = sorted(groups)
+    match = [t for t in tols if math.isclose(t, tol, rel_tol=1e-9)]
+    if not match:
+        raise ConfigError(f"no benchmark cases at tol {tol:g} for {model}/{method}; "
+                          f"tolerances there: {', '.join(f'{t:g}' for t in tols)}")
+    task_products = np.asarray(task_products, dtype=np.float64)
+
+    def one(t):
+        cs = groups[t]
+        tm = TimeModel.fit([c.n_products for c in cs], [c.seconds for c in cs])
+        pr = project(task_products, tm, workers, overhead, startup)
+        per = float(tm.predict(np.max(task_products)))
+        res = {"tol": t, "fit": tm.to_dict(), "per_task_solve_seconds": per, **pr,
+               "fits": pr["wall_seconds"] <= window, "margin_seconds": window - pr["wall_seconds"],
+               "fits_high": None if pr["wall_high"] is None else pr["wall_high"] <= window,
+               "smallest_workers": smallest_workers(task_products, tm, window, overhead, startup),
+               "smallest_workers_high": (None if pr["wall_high"] is None else
+                                         smallest_workers(task_products, tm, window, overhead, startup,
+                                                          key="wall_high")),
+               "extrapolated": bool(np.max(task_products) > tm.n_max * 1.0000001
+                                    or np.min(task_products) < tm.n_min / 1.0000001)}
+        return res, tm
+
+    main, tm = one(match[0])
+    others = [one(t)[0] for t in tols if t > match[0] * (1 + 1e-9)]
+    w_max = min(max(2 * workers, (main["smallest_workers"] or 2 * workers) + 2, 8), len(task_products))
+    curve_w = list(range(1, w_max + 1))
+    curve = [project(task_products, tm, w, overhead, startup) for w in curve_w]
+    return {"model": model, "method": method, "variant": next(iter(groups[match[0]])).variant,
+            "tasks": int(task_products.size), "products_min": float(task_products.min()),
+            "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
+            "overhead_per_task_seconds": overhead, "startup_seconds": startup,
+            "result": main, "looser": others, "curve": curve}
+
+
+def plot(sizing: dict, path) -> None:
+    """PNG of projected wall time against workers, the window drawn, written atomically."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from .. import atomic
+
+    w = [c["workers"] for c in sizing["curve"]]
+    mid = [c["wall_seconds"] / 60 for c in sizing["curve"]]
+    fig, ax = plt.subplots(figsize=(7, 4.2))
+    ax.plot(w, mid, marker="o", ms=3, label=f"projected ({sizing['method']}, tol {sizing['result']['tol']:g})")
+    if sizing["curve"][0]["wall_low"] is not None:
+        ax.fill_between(w, [c["wall_low"] / 60 for c in sizing["curve"]],
+                        [c["wall_high"] / 60 for c in sizing["curve"]], alpha=0.25, label="95 % prediction")
+    ax.axhline(sizing["window_seconds"] / 60, color="crimson", ls="--", label="window")
+    ax.axvline(sizing["workers"], color="grey", ls=":", label=f"{sizing['workers']} workers")
+    ax.set_xlabel("workers")
+    ax.set_ylabel("wall time (minutes)")
+    ax.set_yscale("log")
+    ax.set_title(f"{sizing['tasks']} tasks of {sizing['products_max']:,.0f} products: {sizing['model']}")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    with atomic.atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=110)
+    plt.close(fig)

@@ -1,0 +1,114 @@
+"""The end-of-run summary: per task status, time, gap, iterations; totals against the window.
+
+``summary.json`` is the machine-readable record (``decomp size --run-summary``
+reads the per-task overhead from it); ``summary.md`` is the same for people.
+Both are written atomically.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import pathlib
+
+from .. import atomic
+from .durations import format_duration
+
+
+def _f(v):
+    return float(v) if isinstance(v, (int, float)) else None
+
+
+def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_seconds: float = 0.0,
+                  workers=None, window=None, interrupted=None) -> dict:
+    """The summary dict. ``records`` maps task key to its record (missing: not run)."""
+    tasks = []
+    for spec in batch.tasks:
+        rec = records.get(spec.key)
+        if rec is None:
+            tasks.append({"key": spec.key, "status": "not_run", "skipped": False})
+            continue
+        sec = rec.get("seconds") or {}
+        tasks.append({
+            "key": spec.key, "status": rec.get("status"), "skipped": bool(rec.get("skipped")),
+            "termination": rec.get("termination"), "gap": rec.get("gap"),
+            "iterations": rec.get("iterations"), "objective": rec.get("objective"),
+            "n_products": rec.get("n_products"),
+            "warm_started": bool((rec.get("warm_start") or {}).get("from")),
+            "seconds_total": _f(sec.get("total")), "seconds_solve": _f(sec.get("solve")),
+            "seconds_load": _f(sec.get("load")), "error": rec.get("error"),
+        })
+    count = lambda st: sum(1 for t in tasks if t["status"] == st)  # noqa: E731
+    ran = [t for t in tasks if not t["skipped"] and t["status"] in ("ok", "not_optimal", "failed")]
+    solve_sum = sum(t["seconds_solve"] or 0.0 for t in ran)
+    task_sum = sum(t["seconds_total"] or 0.0 for t in ran)
+    totals = {
+        "n_tasks": len(tasks), "ok": count("ok"), "not_optimal": count("not_optimal"),
+        "failed": count("failed"), "not_run": count("not_run"),
+        "skipped": sum(1 for t in tasks if t["skipped"]), "run": len(ran),
+        "wall_seconds": wall_seconds, "cluster_start_seconds": cluster_seconds,
+        "workers": workers, "task_seconds_sum": task_sum, "solve_seconds_sum": solve_sum,
+        "max_gap": max((t["gap"] for t in tasks if isinstance(t.get("gap"), (int, float))), default=None),
+    }
+    # Everything a task costs beyond its solve (instance build, warm-start read,
+    # writing, scheduling, idle at the end), per task, on these workers.
+    if ran and workers:
+        busy = max(wall_seconds - cluster_seconds, 0.0) * workers
+        totals["overhead_per_task_seconds"] = max(busy - solve_sum, 0.0) / len(ran)
+        totals["throughput_tasks_per_minute"] = 60.0 * len(ran) / max(wall_seconds - cluster_seconds, 1e-9)
+    else:
+        totals["overhead_per_task_seconds"] = None
+        totals["throughput_tasks_per_minute"] = None
+    if window:
+        totals["window_seconds"] = window
+        totals["fits_window"] = wall_seconds <= window
+        totals["margin_seconds"] = window - wall_seconds
+    return {
+        "written": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "batch": batch.description, "model": cfg.model, "method": cfg.method,
+        "tol": cfg.options.tol, "out": cfg.out, "warm_start_from": cfg.warm_start_from,
+        "interrupted": interrupted, "totals": totals, "tasks": tasks,
+    }
+
+
+def _cell(v, fmt="{}"):
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return fmt.format(v)
+    return str(v).replace("|", "\\|").replace("\n", " ")
+
+
+def to_markdown(s: dict) -> str:
+    t = s["totals"]
+    lines = [f"# decomp run: {s['model']} by {s['method']} (tol {s['tol']:g})", "",
+             f"- batch: {s['batch']}", f"- output: `{s['out']}`",
+             f"- warm start from: {s['warm_start_from'] or '-'}",
+             f"- tasks: {t['n_tasks']} ({t['ok']} ok, {t['not_optimal']} not optimal, {t['failed']} failed, "
+             f"{t['not_run']} not run; {t['skipped']} skipped as finished earlier)",
+             f"- wall time: {format_duration(t['wall_seconds'])} on {t['workers'] or '-'} worker(s) "
+             f"(cluster start {format_duration(t['cluster_start_seconds'])})"]
+    if t.get("window_seconds"):
+        verdict = "fits" if t["fits_window"] else "DOES NOT FIT"
+        lines.append(f"- window: {format_duration(t['window_seconds'])}: {verdict} "
+                     f"(margin {format_duration(abs(t['margin_seconds']))}"
+                     f"{'' if t['fits_window'] else ' over'})")
+    if t.get("overhead_per_task_seconds") is not None:
+        lines.append(f"- overhead per task beyond the solve: {t['overhead_per_task_seconds']:.3f} s; "
+                     f"throughput {t['throughput_tasks_per_minute']:.1f} tasks/min")
+    if s.get("interrupted"):
+        lines.append(f"- INTERRUPTED ({s['interrupted']}): rerun with the same arguments to finish")
+    lines += ["", "| task | status | skipped | gap | iterations | solve s | task s | warm | error |",
+              "|---|---|---|---|---|---|---|---|---|"]
+    for r in s["tasks"]:
+        lines.append("| " + " | ".join([
+            _cell(r["key"]), _cell(r["status"]), "yes" if r.get("skipped") else "",
+            _cell(r.get("gap"), "{:.1e}"), _cell(r.get("iterations")),
+            _cell(r.get("seconds_solve"), "{:.3f}"), _cell(r.get("seconds_total"), "{:.3f}"),
+            "yes" if r.get("warm_started") else "", _cell(r.get("error"))]) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def write_summary(out, s: dict) -> None:
+    out = pathlib.Path(out)
+    atomic.write_json(out / "summary.json", s)
+    atomic.write_text(out / "summary.md", to_markdown(s))
