@@ -1,0 +1,155 @@
+"""decomp size: fitting benchmark times and projecting the nightly run, checked by hand."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from decomp.errors import ConfigError, InstanceError
+from decomp.production import sizing
+
+
+def _case(n, t, tol=1e-9, method="lagrangian", model="pnlp", label=None, kind="solve", failures=()):
+    return {"name": f"test_solve[{model}-{method}-{n}-{tol:g}]",
+            "extra_info": {"kind": kind, "model": model, "method": method,
+                           "label": label or (f"{method}-newton" if method == "lagrangian" else method),
+                           "knobs": {"tol": tol}, "n_products": n, "accuracy_failures": list(failures)},
+            "stats": {"median": t, "mean": t * 1.1, "min": t * 0.9}}
+
+
+def _write(tmp_path, cases, name="benchmark.json"):
+    path = tmp_path / name
+    path.write_text(json.dumps({"machine_info": {}, "benchmarks": cases}))
+    return path
+
+
+@pytest.fixture
+def exact(tmp_path):
+    """t = 2e-6 * n exactly at tol 1e-9, and t = 1e-6 * n at the looser tol 1e-6."""
+    sizes = (1_000, 10_000, 100_000, 1_000_000)
+    cases = [_case(n, 2e-6 * n) for n in sizes] + [_case(n, 1e-6 * n, tol=1e-6) for n in sizes]
+    cases.append(_case(10_000, 99.0, kind="build"))                         # not a solve: ignored
+    cases.append(_case(10_000, 99.0, failures=["gap too large"]))           # failed accuracy: ignored
+    return _write(tmp_path, cases)
+
+
+def test_fit_recovers_exact_power_law(exact):
+    cases = sizing.load_bench(exact)
+    assert len(cases) == 8
+    groups = sizing.select(cases, "pnlp", "lagrangian")
+    assert sorted(groups) == [1e-9, 1e-6]
+    tm = sizing.TimeModel.fit([c.n_products for c in groups[1e-9]], [c.seconds for c in groups[1e-9]])
+    assert tm.a == pytest.approx(2e-6, rel=1e-9) and tm.b == pytest.approx(1.0, abs=1e-12)
+    assert tm.predict(100_000) == pytest.approx(0.2, rel=1e-9)
+
+
+def test_projection_by_hand(exact):
+    cases = sizing.load_bench(exact)
+    s = sizing.size_run(cases, model="pnlp", method="lagrangian", tol=1e-9,
+                        task_products=sizing.task_sizes(365, 100_000), workers=2, window=60.0, overhead=0.1)
+    r = s["result"]
+    # By hand: 365 tasks on 2 workers = ceil(365/2) = 183 rounds of (0.2 s solve + 0.1 s overhead) = 54.9 s.
+    assert r["wall_seconds"] == pytest.approx(54.9, rel=1e-9)
+    assert r["fits"] and r["margin_seconds"] == pytest.approx(5.1, rel=1e-6)
+    # With a 30 s window: 3 workers give 122 * 0.3 = 36.6 s (too long), 4 give 92 * 0.3 = 27.6 s.
+    s30 = sizing.size_run(cases, model="pnlp", method="lagrangian", tol=1e-9,
+                          task_products=sizing.task_sizes(365, 100_000), workers=2, window=30.0, overhead=0.1)
+    assert not s30["result"]["fits"] and s30["result"]["smallest_workers"] == 4
+    # The looser tolerance (t = 1e-6 n): 183 * (0.1 + 0.1) = 36.6 s, fewest workers 3 (122 * 0.2 = 24.4 s).
+    (loose,) = s30["looser"]
+    assert loose["tol"] == 1e-6 and loose["wall_seconds"] == pytest.approx(36.6, rel=1e-9)
+    assert loose["smallest_workers"] == 3
+    # Exact data: the prediction interval collapses onto the fit.
+    assert r["wall_low"] == pytest.approx(r["wall_seconds"]) and r["wall_high"] == pytest.approx(r["wall_seconds"])
+    # networks multiply the tasks; start-up is added once: 2 x 365 tasks, 365 rounds of 0.3 s + 5 s
+    s2 = sizing.size_run(cases, model="pnlp", method="lagrangian", tol=1e-9,
+                         task_products=sizing.task_sizes(365, 100_000, networks=2), workers=2, window=600.0,
+                         overhead=0.1, startup=5.0)
+    assert s2["result"]["wall_seconds"] == pytest.approx(365 * 0.3 + 5.0, rel=1e-9)
+
+
+def test_lpt_packing():
+    # Graham (1969), the tight example of the LPT bound 4/3 - 1/(3m) for m = 2 machines:
+    # jobs 3, 3, 2, 2, 2 give an LPT makespan of 7 (the optimum is 6: 3+3 | 2+2+2).
+    assert sizing.lpt_makespan([2, 3, 2, 3, 2], 2) == 7
+    assert sizing.lpt_makespan([5, 1, 1, 1, 1, 1], 2) == 5       # the long job alone; the rest fill the other
+    assert sizing.lpt_makespan([1.0] * 7, 3) == 3                   # equal tasks: ceil(7/3) rounds
+    assert sizing.lpt_makespan([4, 3], 5) == 4                      # more workers than tasks
+    with pytest.raises(ConfigError):
+        sizing.lpt_makespan([1], 0)
+
+
+def test_uncertainty_against_scipy(tmp_path):
+    rng = np.random.default_rng(7)
+    n = np.array([1e3, 3e3, 1e4, 3e4, 1e5, 3e5])
+    t = 3e-6 * n ** 1.1 * np.exp(rng.normal(0, 0.1, n.size))
+    cases = sizing.load_bench(_write(tmp_path, [_case(int(a), float(b)) for a, b in zip(n, t)]))
+    tm = sizing.TimeModel.fit([c.n_products for c in cases], [c.seconds for c in cases])
+    # Reference: scipy.stats.linregress on (log n, log t) gives the same slope and its standard error.
+    from scipy import stats
+
+    lr = stats.linregress(np.log(n), np.log(t))
+    assert tm.b == pytest.approx(lr.slope, rel=1e-10)
+    assert tm.b_stderr == pytest.approx(lr.stderr, rel=1e-8)
+    # The textbook 95 % prediction interval of simple regression at x0 = log 1e5:
+    # yhat +- t_{0.975, n-2} * s * sqrt(1 + 1/n + (x0 - xbar)^2 / Sxx).
+    x, y = np.log(n), np.log(t)
+    s = np.sqrt(np.sum((y - (lr.intercept + lr.slope * x)) ** 2) / (n.size - 2))
+    x0 = math.log(1e5)
+    half = stats.t.ppf(0.975, n.size - 2) * s * math.sqrt(1 + 1 / n.size + (x0 - x.mean()) ** 2
+                                                          / np.sum((x - x.mean()) ** 2))
+    lo, hi = tm.interval(1e5)
+    yhat = lr.intercept + lr.slope * x0
+    assert math.log(lo) == pytest.approx(yhat - half, rel=1e-9)
+    assert math.log(hi) == pytest.approx(yhat + half, rel=1e-9)
+
+
+def test_instances_folder_and_run_summary(tmp_path):
+    from decomp.generator import generate
+    from decomp.io import write_instance
+
+    write_instance(generate(120, seed=1), tmp_path / "nets" / "a", format="csv")
+    write_instance(generate(80, seed=2), tmp_path / "nets" / "b", format="parquet")
+    sizes = sizing.task_sizes(3, instances=tmp_path / "nets")
+    assert sorted(sizes.tolist()) == [80.0] * 3 + [120.0] * 3
+    summ = tmp_path / "summary.json"
+    summ.write_text(json.dumps({"totals": {"overhead_per_task_seconds": 0.25, "cluster_start_seconds": 3.0}}))
+    assert sizing.read_run_overhead(summ) == (0.25, 3.0)
+    summ.write_text(json.dumps({"totals": {"overhead_per_task_seconds": None}}))
+    with pytest.raises(InstanceError, match="no measured overhead"):
+        sizing.read_run_overhead(summ)
+
+
+def test_bad_inputs(tmp_path, exact):
+    bad = tmp_path / "bad.json"
+    bad.write_text("{not json")
+    with pytest.raises(InstanceError, match="bad.json"):
+        sizing.load_bench(bad)
+    with pytest.raises(ConfigError, match="no benchmark cases for model 'dlp'"):
+        sizing.size_run(sizing.load_bench(exact), model="dlp", method="highs", tol=1e-9,
+                        task_products=[10.0], workers=1, window=10.0)
+    with pytest.raises(ConfigError, match="tolerances there"):
+        sizing.size_run(sizing.load_bench(exact), model="pnlp", method="lagrangian", tol=1e-4,
+                        task_products=[10.0], workers=1, window=10.0)
+
+
+def test_size_command(exact, tmp_path, capsys):
+    from decomp.cli import main
+
+    out = tmp_path / "sz"
+    rc = main(["size", "--bench", str(exact.parent), "--dates", "365", "--products", "100000",
+               "--method", "lagrangian", "--model", "pnlp", "--tol", "1e-9", "--workers", "2",
+               "--window", "1m", "--overhead", "0.1", "--out", str(out)])
+    text = capsys.readouterr().out
+    assert rc == 0 and "FITS" in text and "54.9s" in text and "1e-06" in text
+    data = json.loads((out / "sizing.json").read_text())
+    assert data["result"]["wall_seconds"] == pytest.approx(54.9)
+    assert (out / "sizing.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    rc = main(["size", "--bench", str(exact), "--products", "100000", "--workers", "2", "--window", "30s",
+               "--overhead", "0.1", "--out", str(out)])
+    assert rc == 1 and "DOES NOT FIT" in capsys.readouterr().out
+    assert main(["size", "--bench", str(tmp_path / "nothing.json"), "--products", "10", "--window", "1h",
+                 "--out", str(out)]) == 2
