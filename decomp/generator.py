@@ -51,7 +51,7 @@ from .instance import Instance
 
 log = logging.getLogger(__name__)
 
-GENERATOR_NAME = "decomp.generator/1"
+GENERATOR_NAME = "decomp.generator/2"
 
 _CONSONANTS = "BDFGHJKLMNPRSTVWZ"
 _VOWELS = "AEIOU"
@@ -135,6 +135,18 @@ def _auto_shape(n: int, p: GeneratorParams):
     two_stop = p.two_stop if p.two_stop is not None else hubs >= 2
     leg_target = 150.0 * (n / 1e4) ** 0.56
     return int(hubs), int(banks), int(classes), bool(two_stop), leg_target
+
+
+def _round_sig(x: np.ndarray, digits: int) -> np.ndarray:
+    """Round to ``digits`` significant digits, as the nearest float to a short decimal."""
+    x = np.asarray(x, dtype=np.float64)
+    out = np.zeros_like(x)
+    nz = x != 0
+    m = digits - 1 - np.floor(np.log10(np.abs(x[nz]))).astype(np.int64)
+    scaled = np.round(x[nz] * 10.0 ** m)
+    # k / 10**m is the float nearest the decimal k * 10**-m when 10**m is exact (m <= 22)
+    out[nz] = np.where(m >= 0, scaled / 10.0 ** np.maximum(m, 0), scaled * 10.0 ** np.maximum(-m, 0))
+    return out
 
 
 def _station_codes(n: int, rng) -> np.ndarray:
@@ -342,9 +354,9 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
     raw_load = np.bincount(leg_index, weights=np.repeat(raw, nleg), minlength=net.n_legs)
     used = raw_load > 0
     scale = p.seats / np.median(raw_load[used]) if used.any() else 1.0
-    mean = np.maximum(np.round(raw * scale, 4), 1e-4)
+    mean = _round_sig(np.maximum(raw * scale, 1e-6), 4)
     cv = rng.uniform(p.cv[0], p.cv[1], n)
-    std = np.round(mean * cv, 4)
+    std = _round_sig(mean * cv, 4)
     load = np.bincount(leg_index, weights=np.repeat(mean, nleg), minlength=net.n_legs)
     target_df = rng.uniform(p.demand_factor[0], p.demand_factor[1], net.n_legs)
     capacity = np.maximum(1.0, np.round(load / target_df))

@@ -492,6 +492,8 @@ def _csv_field(arr: pa.Array) -> pa.Array:
     """Text of one column for CSV: numbers in shortest round-trip form, text quoted when needed."""
     if pa.types.is_string(arr.type):
         need = pc.match_substring_regex(arr, _NEEDS_QUOTES)
+        if not pc.any(need).as_py():
+            return arr
         quoted = pc.binary_join_element_wise('"', pc.replace_substring(arr, '"', '""'), '"', "")
         return pc.if_else(need, quoted, arr)
     if pa.types.is_boolean(arr.type):
