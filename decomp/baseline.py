@@ -30,8 +30,9 @@ DLP case whose objective is unchanged but whose bid prices moved is checked
 for dual feasibility (pi >= 0) and for the LP dual objective
 c.pi + sum_j mean_j (f_j - a_j)^+ equal to the recorded optimum; when both
 hold, the case is reported as ``alternative_duals`` (legs named), not as a
-regression (LP strong duality: a dual-feasible point whose dual objective
-equals the primal optimum is an optimal dual).
+regression (LP duality: a dual-feasible point whose dual objective equals the
+primal optimum is an optimal dual). The PWL model, an LP too, is treated the
+same way with its own dual objective (both from :mod:`decomp.certify`).
 """
 
 from __future__ import annotations
@@ -407,15 +408,19 @@ def _unnum(v):
     return float(v)
 
 
-def dlp_dual_objective(inst: Instance, pi) -> float:
-    """LP dual objective of the DLP at bid prices ``pi``: c.pi + sum_j mean_j (f_j - a_j)^+.
+def lp_dual_objective(inst: Instance, model: str, pi, segments: int = 16) -> float:
+    """LP dual objective of the DLP or PWL model at bid prices ``pi`` (from :mod:`decomp.certify`).
 
-    (DLP: max f.x s.t. A x <= c, 0 <= x <= mean; its dual is min c.pi + mean.s
-    s.t. A^T pi + s >= f, pi, s >= 0, whose best s at given pi is (f - A^T pi)^+.)
+    DLP: max f.x s.t. A x <= c, 0 <= x <= mean has the dual min c.pi + mean.s
+    s.t. A^T pi + s >= f, pi, s >= 0, whose best s at given pi is (f - A^T pi)^+,
+    so the dual objective is c.pi + sum_j mean_j (f_j - a_j)^+; the PWL model's
+    is c.pi + sum_j sum_k w_jk (f_j s_jk - a_j)^+ over its segments.
     """
+    from . import certify
+
     pi = np.asarray(pi, dtype=np.float64)
-    a = inst.leg_sum(pi)
-    return float(inst.capacity @ pi + inst.mean @ np.maximum(inst.fare - a, 0.0))
+    cert = certify.certify(inst, model, np.zeros(inst.n_products), pi, segments=segments)
+    return float(cert.dual_value)
 
 
 # --------------------------------------------------------------------------- bid-price CSV
@@ -453,7 +458,13 @@ def read_bid_prices_csv(path) -> tuple:
 
 
 # --------------------------------------------------------------------------- record
-def _timed_solve(solve_fn, clock, instance, case_model, case_method, options, repeat):
+def _timed_solve(solve_fn, clock, instance, case_model, case_method, options, repeat, warm=None):
+    """(result, best wall seconds of ``repeat`` runs). ``warm``: a set of (model, method) pairs
+    already solved in this process; a pair not in it is first solved once untimed, so that
+    library imports and first-call set-up are not counted (the pair is then added)."""
+    if warm is not None and (case_model, case_method) not in warm:
+        solve_fn(instance, model=case_model, method=case_method, options=options)
+        warm.add((case_model, case_method))
     best, result = math.inf, None
     for _ in range(max(1, int(repeat))):
         t0 = clock()
@@ -526,12 +537,14 @@ class RecordSummary:
 
 def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None,
            solve_fn: Callable | None = None, clock: Callable[[], float] = time.perf_counter,
-           repeat: int = 1, overwrite: bool = False, progress: Callable | None = None) -> RecordSummary:
+           repeat: int = 1, warmup: bool = True, overwrite: bool = False,
+           progress: Callable | None = None) -> RecordSummary:
     """Solve every case of ``suite`` (or the given ``cases``) and write a baseline folder at ``out``.
 
     ``solve_fn(instance, model=, method=, options=)`` defaults to
     :func:`decomp.registry.solve`; ``clock`` times each solve (the best of
-    ``repeat`` runs). The folder is built in a temporary sibling and renamed
+    ``repeat`` runs; with ``warmup`` the first case of each (model, method)
+    is solved once untimed before it is timed). The folder is built in a temporary sibling and renamed
     into place; an existing ``out`` is replaced only with ``overwrite``.
     ``progress(case_id, record_dict)`` is called after each case (commands print from it).
     """
@@ -561,6 +574,7 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
     try:
         records = []
         written: dict = {}
+        warm: set = set()
         for case in cases:
             name = _safe_name(case.instance_name)
             if name not in written:
@@ -568,7 +582,8 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
                 written[name] = (_write_instance(built, tmp / "instances" / name), built)
             inst = written[name][0]
             fp = instance_fingerprint(inst)
-            result, wall = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat)
+            result, wall = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
+                                        warm if warmup else None)
             rec = _result_record(case, result, wall, fp, case.options)
             rec["instance_dir"] = f"instances/{name}"
             cdir = tmp / "cases" / case.id
@@ -879,12 +894,14 @@ def _options_for(rec: Mapping, override: Mapping | None) -> SolverOptions:
 
 def check(path, *, thresholds: Thresholds | None = None, options_override: Mapping | None = None,
           solve_fn: Callable | None = None, clock: Callable[[], float] = time.perf_counter, repeat: int = 1,
-          only: Sequence[str] | None = None, progress: Callable | None = None) -> CheckReport:
+          warmup: bool = True, only: Sequence[str] | None = None,
+          progress: Callable | None = None) -> CheckReport:
     """Re-solve every case of the baseline at ``path`` and compare with what was recorded.
 
     Test hooks: ``options_override`` (e.g. ``{"tol": 1e-3}``) changes the
     options of every case; ``solve_fn`` replaces :func:`decomp.registry.solve`
-    (same keywords); ``clock`` replaces the timer. ``only`` restricts the check
+    (same keywords); ``clock`` replaces the timer; ``repeat`` and ``warmup`` as
+    in :func:`record`. ``only`` restricts the check
     to the named case ids. ``progress(case_report)`` is called after each case.
     """
     base = load(path)
@@ -904,6 +921,7 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
         if missing:
             raise ConfigError(f"no case {missing} in baseline {base.path}")
     instances: dict = {}
+    warm: set = set()
     todo = [rec for rec in base.cases if wanted is None or rec["case"] in wanted]
     # Availability first (as record's suites do): a missing solver is reported by name, and the
     # libraries are imported before any timed solve, as they were when the baseline was recorded.
@@ -915,9 +933,11 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
             rep.add("regression", "unavailable", f"method {rec['method']!r} for model {rec['model']!r} is not "
                                                  f"available here: {unavailable[(rec['model'], rec['method'])]}")
             reports.append(rep)
+            if progress is not None:
+                progress(rep)
             continue
         try:
-            _check_case(base, rec, rep, instances, override, solve_fn, clock, repeat)
+            _check_case(base, rec, rep, instances, override, solve_fn, clock, repeat, warm if warmup else None)
         except Exception as exc:  # noqa: BLE001 - a failing case is reported, the others still run
             log.debug("case %s failed", rec["case"], exc_info=True)
             rep.add("regression", "error", f"the check could not re-solve this case: {type(exc).__name__}: {exc}")
@@ -947,7 +967,7 @@ def _unavailable_pairs(pairs) -> dict:
     return out
 
 
-def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat) -> None:
+def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat, warm) -> None:
     th = rep.thresholds
     m = rep.metrics
     key = rec["instance_dir"]
@@ -965,7 +985,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                    if rec["options"].get(k) != v}
         rep.add("note", "options", "solved with changed options: " +
                 ", ".join(f"{k} {o!r} -> {n!r}" for k, (o, n) in changed.items()))
-    result, wall = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat)
+    result, wall = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
 
     # status
     old_st = f"{rec['termination']}/{rec['solution_status']}"
@@ -999,6 +1019,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
         rep.add("regression", "bid_prices", "no bid prices returned now")
     elif len(legs_old):
         diff = np.abs(pi_new - pi_old)
+        diff = np.where(np.isfinite(diff), diff, np.inf)   # a NaN bid price has moved
         scale = max(1.0, float(np.max(np.abs(pi_old))) if len(pi_old) else 1.0)
         atol = th["bid_atol"] if th["bid_atol"] is not None else th["bid_rtol"] * scale
         limit = atol + th["bid_rtol"] * np.abs(pi_old)
@@ -1015,8 +1036,9 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
             detail = (f"{len(moved_legs)} leg(s) beyond {th['bid_rtol']:.3g} rel + {atol:.3g} abs: "
                       f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {float(pi_old[i_abs])!r} -> "
                       f"{float(pi_new[i_abs])!r}")
-            if rec["model"] == "dlp" and objective_same:
-                _alternative_duals(rep, inst, pi_new, obj_old, th, moved_legs, detail)
+            if rec["model"] in LP_MODELS and objective_same:
+                _alternative_duals(rep, inst, rec["model"], options.segments, pi_new, obj_old, th, moved_legs,
+                                   detail)
             else:
                 rep.add("regression", "bid_prices", "bid prices moved: " + detail)
 
@@ -1069,12 +1091,12 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                                       f"{th['time_ratio']:g} (times below {floor:g} s count as {floor:g} s)")
 
 
-def _alternative_duals(rep, inst, pi_new, obj_old, th, moved_legs, detail) -> None:
-    """DLP with the same objective and moved bid prices: optimal duals again, or a regression."""
+def _alternative_duals(rep, inst, model, segments, pi_new, obj_old, th, moved_legs, detail) -> None:
+    """An LP (DLP, PWL) with the same objective and moved bid prices: optimal duals again, or a regression."""
     m = rep.metrics
     scale = max(1.0, abs(obj_old))
     min_pi = float(pi_new.min()) if len(pi_new) else 0.0
-    dual_obj = dlp_dual_objective(inst, np.maximum(pi_new, 0.0))
+    dual_obj = lp_dual_objective(inst, model, np.maximum(pi_new, 0.0), segments)
     dual_gap = (dual_obj - obj_old) / scale
     m.update(alt_dual_objective=dual_obj, alt_dual_rel_gap=dual_gap, alt_min_bid_price=min_pi)
     feasible = min_pi >= -th["bid_rtol"] * max(1.0, float(np.max(np.abs(pi_new))))

@@ -96,15 +96,22 @@ def test_round_significant_and_digest():
     assert d1["sum"] == pytest.approx(float(x.sum())) and d1["max"] == 1234567.0 and d1["min"] == 0.0
 
 
-def test_dlp_dual_objective_formula_on_series_network():
+def _dlp_dual(inst, pi):
+    """LP dual objective of the DLP, written out here independently of decomp.certify:
+    min c.pi + mean.s s.t. A^T pi + s >= f, pi, s >= 0 (LP duality), best s = (f - A^T pi)^+."""
+    pi = np.asarray(pi, dtype=np.float64)
+    return float(inst.capacity @ pi + inst.mean @ np.maximum(inst.fare - inst.A.T @ pi, 0.0))
+
+
+def test_dlp_dual_objective_on_series_network():
     # Two legs in series, one product (fare 100, mean 20, capacities 10): by LP duality the
     # DLP optimum is 100 * 10 = 1000 and the optimal duals are exactly pi1 + pi2 = 100, pi >= 0
     # (dual objective 10 pi1 + 10 pi2 + 20 (100 - pi1 - pi2)^+); worked out by hand.
     inst = _series()
-    for pi in ([100, 0], [0, 100], [37.5, 62.5]):
-        assert bl.dlp_dual_objective(inst, pi) == pytest.approx(1000.0)
-    assert bl.dlp_dual_objective(inst, [60, 60]) == pytest.approx(1200.0)
-    assert bl.dlp_dual_objective(inst, [20, 30]) == pytest.approx(10 * 50 + 20 * 50)
+    for pi, want in (([100, 0], 1000.0), ([0, 100], 1000.0), ([37.5, 62.5], 1000.0), ([60, 60], 1200.0),
+                     ([20, 30], 10 * 50 + 20 * 50)):
+        assert _dlp_dual(inst, pi) == pytest.approx(want)
+        assert bl.lp_dual_objective(inst, "dlp", pi) == pytest.approx(want)
 
 
 def test_environment_lists_versions():
@@ -130,16 +137,14 @@ def _series() -> Instance:
 
 
 # ---------------------------------------------------------------------------- fake-solver tests
-def _canned_solver(pi_by_call, objective=1000.0, termination=Termination.OPTIMAL):
+def _canned_solver(bid_prices, objective=1000.0, termination=Termination.OPTIMAL):
     """A stand-in solve function for the series network (no solver library needed)."""
     from decomp.result import Certificate, SolveResult
 
-    calls = iter(pi_by_call)
-
     def fake(instance, model, method, options):
-        pi = np.array(next(calls), dtype=np.float64)
+        pi = np.array(bid_prices, dtype=np.float64)
         cert = Certificate(max_violation=0.0, max_violation_rel=0.0, kkt_residual=0.0,
-                           dual_value=bl.dlp_dual_objective(instance, pi), primal_value=objective,
+                           dual_value=_dlp_dual(instance, pi), primal_value=objective,
                            gap=0.0, min_bid_price=float(pi.min()))
         return SolveResult(model=model, method=method, termination=termination,
                            solution_status=SolutionStatus.OPTIMAL if termination is Termination.OPTIMAL
@@ -154,7 +159,7 @@ def _canned_solver(pi_by_call, objective=1000.0, termination=Termination.OPTIMAL
 def test_record_writes_plain_files_and_manifest(tmp_path):
     out = tmp_path / "base"
     summary = bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")],
-                        solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(0.1))
+                        solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.1))
     assert summary.path == out
     manifest = json.loads((out / "manifest.json").read_text())
     paths = {f["path"] for f in manifest["files"]}
@@ -180,58 +185,58 @@ def test_record_failure_leaves_nothing(tmp_path):
 
     with pytest.raises(ConfigError, match="already exists"):
         bl.record(tmp_path / "base", cases=[bl.Case(_series(), "dlp", "highs")],
-                  solve_fn=_canned_solver([[100, 0]]))
+                  solve_fn=_canned_solver([100, 0]))
 
 
 def test_alternative_optimal_duals_with_canned_solver(tmp_path):
     # Series network: (100, 0) and (0, 100) are both optimal duals (see the formula test above),
     # (60, 60) is dual feasible but its dual objective is 1200 > 1000: not optimal.
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([[100, 0]]))
-    rep = bl.check(out, solve_fn=_canned_solver([[0, 100]]))
+    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
+    rep = bl.check(out, solve_fn=_canned_solver([0, 100]))
     (case,) = rep.cases
     assert case.verdict == bl.ALTERNATIVE_DUALS and not rep.regression
     assert case.metrics["bid_moved_legs"] == ["QAAQHX", "QHXQAB"]
     assert "QAAQHX" in rep.to_markdown() and "alternative" in rep.to_markdown()
-    rep = bl.check(out, solve_fn=_canned_solver([[60, 60]]))
+    rep = bl.check(out, solve_fn=_canned_solver([60, 60]))
     assert rep.cases[0].verdict == bl.REGRESSION
     assert any("not optimal duals" in f["message"] for f in rep.cases[0].findings)
-    rep = bl.check(out, solve_fn=_canned_solver([[-10, 110]]))
+    rep = bl.check(out, solve_fn=_canned_solver([-10, 110]))
     assert rep.cases[0].verdict == bl.REGRESSION
     assert any("negative" in f["message"] for f in rep.cases[0].findings)
 
 
 def test_status_change_is_a_regression(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([[100, 0]]))
-    rep = bl.check(out, solve_fn=_canned_solver([[100, 0]], termination=Termination.ITERATION_LIMIT))
+    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
+    rep = bl.check(out, solve_fn=_canned_solver([100, 0], termination=Termination.ITERATION_LIMIT))
     assert rep.regression
     assert any(f["kind"] == "status" and "iteration_limit" in f["message"] for f in rep.cases[0].findings)
 
 
 def test_timing_regression_with_fake_clock(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([[100, 0]]),
+    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]),
               clock=FakeClock(1.0))
-    ok = bl.check(out, solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(1.9))
+    ok = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(1.9))
     assert not ok.regression and ok.cases[0].metrics["time_ratio"] == pytest.approx(1.9)
-    slow = bl.check(out, solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(3.0))
+    slow = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0))
     assert slow.regression and slow.cases[0].metrics["time_ratio"] == pytest.approx(3.0)
     assert [f["kind"] for f in slow.cases[0].findings] == ["time"]
-    lenient = bl.check(out, solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(3.0),
+    lenient = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0),
                        thresholds=bl.Thresholds(time_ratio=4.0))
     assert not lenient.regression
     # Below the time floor (0.5 s) a 10x ratio of millisecond solves is timer noise, not a regression.
     bl.record(tmp_path / "fast", cases=[bl.Case(_series(), "dlp", "highs")],
-              solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(0.01))
-    assert not bl.check(tmp_path / "fast", solve_fn=_canned_solver([[100, 0]]), clock=FakeClock(0.1)).regression
+              solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.01))
+    assert not bl.check(tmp_path / "fast", solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.1)).regression
 
 
 # ---------------------------------------------------------------------------- tampered baselines
 @pytest.fixture
 def recorded(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([[100, 0]]))
+    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
     return out
 
 
@@ -289,7 +294,7 @@ def test_unknown_override_is_rejected(recorded):
     from decomp.errors import ConfigError
 
     with pytest.raises(ConfigError, match="unknown options"):
-        bl.check(recorded, options_override={"tolerance": 1e-3}, solve_fn=_canned_solver([[100, 0]]))
+        bl.check(recorded, options_override={"tolerance": 1e-3}, solve_fn=_canned_solver([100, 0]))
     with pytest.raises(ConfigError):
         bl.Thresholds(time_ratio=0.5)
 
@@ -366,25 +371,35 @@ def test_injected_bid_price_change_names_the_leg(tmp_path, model, method):
 
 
 @pytest.mark.solver
-def test_dlp_alternative_duals_from_highs(tmp_path):
-    _need("dlp", "highs")
+@pytest.mark.parametrize("model", ["dlp", "pwl"])
+def test_lp_alternative_duals_from_highs(tmp_path, model):
+    # Series network: both legs have capacity 10 and carry the same single product, so the LP dual
+    # objective c1 pi1 + c2 pi2 + g(pi1 + pi2) depends on pi1 + pi2 only (c1 = c2): moving the bid
+    # price from one leg to the other keeps an optimal dual optimal (a mathematical fact, DLP and PWL).
+    _need(model, "highs")
     from decomp import registry
 
     inst = _series()
-    res = registry.solve(inst, model="dlp", method="highs")
-    # HiGHS against the hand solution: optimum 1000, bid prices on the optimal face pi1 + pi2 = 100.
-    assert res.objective == pytest.approx(1000.0, rel=1e-12)
-    assert float(np.sum(res.bid_price_array)) == pytest.approx(100.0, rel=1e-9)
-    assert bl.dlp_dual_objective(inst, res.bid_price_array) == pytest.approx(1000.0, rel=1e-12)
+    res = registry.solve(inst, model=model, method="highs")
+    total = float(np.sum(res.bid_price_array))
+    if model == "dlp":
+        # HiGHS against the hand solution: optimum 1000, bid prices on the optimal face pi1 + pi2 = 100.
+        assert res.objective == pytest.approx(1000.0, rel=1e-12)
+        assert total == pytest.approx(100.0, rel=1e-9)
+        assert _dlp_dual(inst, res.bid_price_array) == pytest.approx(1000.0, rel=1e-12)
+    assert total > 1.0
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(inst, "dlp", "highs")])
-    other = [0.0, 100.0] if res.bid_price_array[0] > 50 else [100.0, 0.0]
+    bl.record(out, cases=[bl.Case(inst, model, "highs")])
+    other = [0.0, total] if res.bid_price_array[0] > total / 2 else [total, 0.0]
     delta = dict(zip(["QAAQHX", "QHXQAB"], (np.array(other) - res.bid_price_array).tolist()))
     rep = bl.check(out, solve_fn=_perturb(_real_solve(), delta))
     (c,) = rep.cases
     assert c.verdict == bl.ALTERNATIVE_DUALS, rep.to_markdown()
     assert not rep.regression
     assert sorted(c.metrics["bid_moved_legs"]) == ["QAAQHX", "QHXQAB"]
+    # Negative control: raising both bid prices leaves the optimal face (dual objective grows).
+    rep = bl.check(out, solve_fn=_perturb(_real_solve(), {"QAAQHX": 5.0, "QHXQAB": 5.0}))
+    assert rep.cases[0].verdict == bl.REGRESSION
 
 
 @pytest.mark.solver
@@ -396,4 +411,30 @@ def test_dlp_dual_objective_matches_highs_on_micro():
     for seed in (1, 2):
         inst = bl.micro_instance(seed, 24)
         res = registry.solve(inst, model="dlp", method="highs")
-        assert bl.dlp_dual_objective(inst, res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
+        assert _dlp_dual(inst, res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
+        assert bl.lp_dual_objective(inst, "dlp", res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
+
+
+def test_warmup_solves_each_pair_once_untimed(tmp_path):
+    calls = []
+    canned = _canned_solver([100, 0])
+
+    def counting(instance, **kw):
+        calls.append(kw["method"])
+        return canned(instance, **kw)
+
+    cases = [bl.Case(_series(), "dlp", "highs", label="a"), bl.Case(_series(), "dlp", "highs", label="b")]
+    bl.record(tmp_path / "w", cases=cases, solve_fn=counting)
+    assert len(calls) == 3                      # one untimed warm-up, then one timed solve per case
+    calls.clear()
+    bl.record(tmp_path / "nw", cases=cases, solve_fn=counting, warmup=False, repeat=2)
+    assert len(calls) == 4                      # two timed solves per case, no warm-up
+
+
+def test_environment_change_is_reported(recorded, monkeypatch):
+    real = bl.environment()
+    monkeypatch.setattr(bl, "environment", lambda: {**real, "highs_library": "99.0.0"})
+    rep = bl.check(recorded, solve_fn=_canned_solver([100, 0]))
+    assert ("highs_library", real["highs_library"], "99.0.0") in rep.environment_changes
+    assert not rep.regression                     # a version change alone is not a regression
+    assert "| highs_library | " + str(real["highs_library"]) + " | 99.0.0 |" in rep.to_markdown()

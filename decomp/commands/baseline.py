@@ -26,6 +26,8 @@ def register(sub):
     r.add_argument("--out", help="baseline folder to create")
     r.add_argument("--force", action="store_true", help="replace an existing baseline folder")
     r.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    r.add_argument("--no-warmup", action="store_true",
+                   help="do not solve the first case of each (model, method) once untimed before timing it")
     r.add_argument("--list", action="store_true", help="list the suites and their cases, then stop")
     r.set_defaults(func=run_record)
 
@@ -34,6 +36,8 @@ def register(sub):
     c.add_argument("--out", help="folder for check.json and check.md (default: print the Markdown only)")
     c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable)")
     c.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    c.add_argument("--no-warmup", action="store_true",
+                   help="do not solve the first case of each (model, method) once untimed before timing it")
     g = c.add_argument_group("thresholds (defaults fit each case's model and recorded tolerance)")
     g.add_argument("--rtol-objective", type=float, help="objective relative change (default max(10 tol, 1e-9))")
     g.add_argument("--rtol-bid", type=float, help="bid-price relative change (default 1e-7 LP, max(1e-6, 1e3 tol) PNLP)")
@@ -83,7 +87,8 @@ def run_record(args) -> int:
     cases = baseline.suite_cases(args.suite)
     print(f"recording suite {args.suite}: {len(cases)} cases -> {args.out}", flush=True)
     try:
-        summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat, overwrite=args.force,
+        summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat,
+                                  warmup=not args.no_warmup, overwrite=args.force,
                                   progress=progress)
     except SolverUnavailableError as exc:
         print(f"decomp baseline record: {exc}", file=sys.stderr)
@@ -133,7 +138,8 @@ def run_check(args) -> int:
               flush=True)
 
     report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
-                            repeat=args.repeat, only=args.cases, progress=progress)
+                            repeat=args.repeat, warmup=not args.no_warmup, only=args.cases,
+                            progress=progress)
     print()
     print(report.to_markdown())
     if args.out:
