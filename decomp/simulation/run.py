@@ -274,6 +274,8 @@ def simulate(instance, config: SimulationConfig, *, client=None, on_progress=Non
     while True:
         todo = np.arange(done, planned)
         chunks = [todo[i:i + config.chunk] for i in range(0, len(todo), config.chunk)]
+        if on_progress is not None:
+            on_progress(done, planned)
         if client is None:
             for c in chunks:
                 parts.append(run_chunk(instance, config, c, initial))

@@ -1,0 +1,130 @@
+"""``decomp simulate``: what a model, a method and a tolerance earn in the booking process.
+
+Every policy runs on the same sample paths (common random numbers); each path
+also gets its perfect-hindsight bound (the DLP on its realized demand) and
+first-come-first-served is added as a baseline. Policies (comma-separated):
+``MODEL[:METHOD[:TOL]]`` bid-price control (e.g. ``pnlp:lagrangian:1e-9``,
+``dlp:highs``), ``partitioned:MODEL[:METHOD[:TOL]]`` booking limits from the
+model's allocation, ``fcfs``, and on single-leg instances ``emsrb`` or
+``nested:Y1[/Y2...]`` nested protection levels. ``--reoptimize-every``,
+``--forecast-bias`` and ``--sigma-factor`` take comma-separated lists; every
+combination is a scenario, and lists give the plots. Writes
+OUT/simulation.json, OUT/simulation.md and PNG plots.
+"""
+
+from __future__ import annotations
+
+import sys
+
+
+def _floats(text: str, what: str) -> list:
+    from ..simulation.errors import SimulationConfigError
+
+    try:
+        vals = [float(v) for v in str(text).split(",") if v.strip()]
+    except ValueError as exc:
+        raise SimulationConfigError(f"{what}: expected comma-separated numbers, got {text!r}") from exc
+    if not vals:
+        raise SimulationConfigError(f"{what}: no value given")
+    return vals
+
+
+def register(sub):
+    p = sub.add_parser("simulate", help="booking simulation of bid-price and other controls (Dask)",
+                       description=__doc__)
+    p.add_argument("instance", help="instance folder, or a ladder rung name (p1k, p10k, ...)")
+    p.add_argument("--policies", default="pnlp:lagrangian:1e-9,dlp:highs,fcfs",
+                   help="comma-separated policy specifications (default: %(default)s)")
+    p.add_argument("--paths", type=int, default=200,
+                   help="sample paths (the maximum with --target-halfwidth; default: %(default)s)")
+    p.add_argument("--target-halfwidth", type=float, default=None,
+                   help="add paths until every paired 95%% half-width (vs the first policy) is at most this")
+    p.add_argument("--reoptimize-every", default="7", help="days between re-optimizations, list allowed (default: 7)")
+    p.add_argument("--horizon", type=float, default=60.0, help="booking horizon in days (default: %(default)g)")
+    p.add_argument("--forecast-bias", default="0", help="optimizer sees mean x (1 + B); list allowed")
+    p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed")
+    p.add_argument("--bias-spread", type=float, default=0.0,
+                   help="per-product random bias B + spread x N(0,1), seeded (default: 0, aggregate)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the sample paths (default: %(default)s)")
+    p.add_argument("--chunk", type=int, default=50, help="paths per task (default: %(default)s)")
+    c = p.add_argument_group("cluster")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler")
+    c.add_argument("--workers", type=int, default=None,
+                   help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.set_defaults(func=run)
+
+
+def _load(name: str):
+    import pathlib
+
+    from .. import read_instance
+
+    if not pathlib.Path(name).exists():
+        try:
+            from ..ladder import RUNGS, load_rung
+        except ImportError:
+            RUNGS, load_rung = (), None
+        if name in RUNGS:
+            return load_rung(name)
+    return read_instance(name)
+
+
+def run(args) -> int:
+    import logging
+
+    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core"):
+        logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
+    from ..simulation import ForecastError, SimulationConfig, parse_policies, simulate
+    from ..simulation import report
+    from ..simulation.cluster import open_client
+    from ..simulation.errors import SimulationConfigError
+
+    if args.workers is not None and args.workers < 0:
+        raise SimulationConfigError(f"--workers must be >= 0, got {args.workers}")
+    every = _floats(args.reoptimize_every, "--reoptimize-every")
+    biases = _floats(args.forecast_bias, "--forecast-bias")
+    sigmas = _floats(args.sigma_factor, "--sigma-factor")
+    errors = [ForecastError(bias=b, sigma_factor=s, spread=args.bias_spread) for b in biases for s in sigmas]
+    policies = parse_policies(args.policies)
+    cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
+                           forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
+                           chunk=args.chunk)
+    instance = _load(args.instance)
+    cfg.check(instance)
+
+    bar = {}
+
+    def on_progress(done, planned):
+        if args.no_progress:
+            return
+        from tqdm import tqdm
+
+        if "b" not in bar:
+            bar["b"] = tqdm(total=planned, unit="path", desc="decomp simulate", file=sys.stderr, dynamic_ncols=True)
+        b = bar["b"]
+        if b.total != planned:
+            b.total = planned
+        b.n = done
+        b.refresh()
+
+    try:
+        with open_client(args.workers, args.scheduler) as client:
+            result = simulate(instance, cfg, client=client, on_progress=on_progress)
+    finally:
+        if "b" in bar:
+            bar["b"].close()
+    summary = result.summary()
+    files = report.write(summary, args.out)
+    print("\n".join(report.header_lines(summary)))
+    print()
+    print(report.text_table(summary))
+    print()
+    for f in files:
+        print(f"wrote {f}")
+    failed = int(result.failures.sum())
+    if failed:
+        print(f"warning: {failed} re-optimizations did not end optimal (see solve_statuses in simulation.json)",
+              file=sys.stderr)
+    return 0
