@@ -77,6 +77,8 @@ def _csv_header(path: pathlib.Path) -> list[str]:
             first = fh.readline()
     except UnicodeDecodeError as exc:
         raise InstanceError(f"the header is not valid UTF-8 text ({exc.reason})", file=path) from exc
+    except OSError as exc:
+        raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not first.strip():
         raise InstanceError("the file is empty: it needs a header line and at least one row", file=path)
     names = next(csv.reader([first.lstrip("\ufeff")]))
@@ -360,6 +362,8 @@ def _read_meta(folder: pathlib.Path) -> dict:
         meta = json.loads(path.read_text(encoding="utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise InstanceError(f"not valid JSON: {exc}", file=path) from exc
+    except OSError as exc:
+        raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not isinstance(meta, dict):
         raise InstanceError("meta.json must hold a JSON object", file=path)
     return meta
@@ -566,19 +570,37 @@ def write_instance(inst: Instance, path, format: str = "csv") -> pathlib.Path:
     return target
 
 
-def _replace_dir(tmp: pathlib.Path, target: pathlib.Path):
-    if not target.exists():
-        os.rename(tmp, target)
+def _replace_dir(tmp: pathlib.Path, target: pathlib.Path, attempts: int = 5):
+    """Move the finished folder ``tmp`` to ``target``, replacing an old one.
+
+    Another process may write the same target at the same time (two jobs
+    regenerating one ladder rung): each attempt either renames into a free
+    place or moves the current folder aside first; the last writer wins and
+    the target is always a complete folder.
+    """
+    for _ in range(attempts):
+        try:
+            os.rename(tmp, target)
+            return
+        except OSError:
+            if not target.exists():
+                raise
+        old = pathlib.Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target.parent))
+        os.rmdir(old)
+        try:
+            os.rename(target, old)
+        except FileNotFoundError:
+            continue                       # someone else moved it meanwhile; try again
+        try:
+            os.rename(tmp, target)
+        except OSError:
+            with contextlib.suppress(OSError):
+                os.rename(old, target)
+            shutil.rmtree(old, ignore_errors=True)
+            continue
+        shutil.rmtree(old, ignore_errors=True)
         return
-    old = pathlib.Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target.parent))
-    os.rmdir(old)
-    os.rename(target, old)
-    try:
-        os.rename(tmp, target)
-    except BaseException:
-        os.rename(old, target)
-        raise
-    shutil.rmtree(old, ignore_errors=True)
+    raise OSError(f"could not replace {target}: it keeps changing under another writer")
 
 
 def validate(path) -> Instance:

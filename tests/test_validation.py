@@ -389,3 +389,20 @@ def test_random_bytes_never_escape_as_a_library_traceback(tmp_path_factory, pos,
             read_instance(d)
         except InstanceError:
             pass
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(pos=st.floats(0, 1, exclude_max=True), junk=st.binary(min_size=1, max_size=16),
+       mode=st.sampled_from(["overwrite", "truncate"]))
+def test_damaged_parquet_never_escapes_as_a_library_traceback(tmp_path_factory, pos, junk, mode):
+    d = tmp_path_factory.mktemp("pqb")
+    pq.write_table(pa.table(LEGS_D), d / "legs.parquet")
+    pq.write_table(pa.table(PRODS_D), d / "products.parquet")
+    f = d / "products.parquet"
+    raw = f.read_bytes()
+    k = int(pos * len(raw))
+    f.write_bytes(raw[:k] + junk + raw[k + len(junk):] if mode == "overwrite" else raw[:k])
+    try:
+        read_instance(d)
+    except InstanceError:
+        pass
