@@ -267,6 +267,36 @@ def _cpu_model() -> str:
     return platform.processor() or platform.machine()
 
 
+def _source_digest() -> str:
+    """sha256 over the decomp package's and the Pyomo models' Python sources (path and content),
+    so that a code change without a version bump (or uncommitted) shows in the environment."""
+    root = pathlib.Path(__file__).resolve().parent
+    h = hashlib.sha256()
+    for folder in (root, root.parent / "models"):
+        if not folder.is_dir():
+            continue
+        for p in sorted(folder.rglob("*.py")):
+            h.update(p.relative_to(root.parent).as_posix().encode() + b"\0")
+            h.update(p.read_bytes() + b"\0")
+    return h.hexdigest()
+
+
+def _git_commit() -> str | None:
+    """The checkout's commit (with '+dirty' when files differ), or None outside a git checkout."""
+    import subprocess
+
+    cwd = pathlib.Path(__file__).resolve().parent.parent
+    try:
+        head = subprocess.run(["git", "rev-parse", "HEAD"], cwd=cwd, capture_output=True, text=True, timeout=10)
+        if head.returncode != 0:
+            return None
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no", "--", "decomp", "models"],
+                               cwd=cwd, capture_output=True, text=True, timeout=10)
+    except (OSError, subprocess.SubprocessError):
+        return None
+    return head.stdout.strip() + ("+dirty" if dirty.stdout.strip() else "")
+
+
 def environment() -> dict:
     """What the answers may depend on: library and solver versions, CPU, platform."""
     env: dict = {
@@ -286,6 +316,8 @@ def environment() -> dict:
     if hasattr(os, "sched_getaffinity"):
         env["cpu_count_usable"] = len(os.sched_getaffinity(0))
     env["decomp"] = _dist_version("decomp")
+    env["decomp_source_sha256"] = _source_digest()
+    env["decomp_git_commit"] = _git_commit()
     env["numpy"] = np.__version__
     try:
         blas = np.show_config(mode="dicts")["Build Dependencies"]["blas"]
@@ -316,7 +348,7 @@ def environment() -> dict:
 
 #: Environment keys that change the answers (a difference is listed first in the report).
 SOLVER_KEYS = ("highs_library", "ipopt_library", "highspy", "cyipopt", "pyomo", "numpy", "numpy_blas",
-               "scipy", "python", "decomp")
+               "scipy", "python", "decomp", "decomp_source_sha256", "decomp_git_commit")
 
 
 def environment_changes(old: Mapping, new: Mapping) -> list:
