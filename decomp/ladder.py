@@ -136,7 +136,7 @@ def load_rung(name: str) -> Instance:
     committed rung that does not match raises InstanceError (regenerate it with
     ``decomp ladder --build``).
     """
-    from .io import read_instance
+    from .io import read_instance, write_instance
     rung = get_rung(name)
     path = rung_path(name)
     if path.is_dir() and (path / "meta.json").is_file():
@@ -155,5 +155,6 @@ def load_rung(name: str) -> Instance:
         raise InstanceError(f"the committed rung {name} is missing; rebuild it with "
                             "`decomp ladder --build`", file=path)
     log.info("generating rung %s (%d products, seed %d) into %s", name, rung.products, rung.seed, path)
-    write_rung(name)
-    return read_instance(path)
+    inst = build_rung(name)
+    write_instance(inst, path, format=rung.format)
+    return inst                  # the same arrays a later read gives (tests check the round trip)
