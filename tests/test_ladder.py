@@ -53,6 +53,9 @@ def test_generated_rung_is_regenerated_when_missing_or_stale(tmp_path, monkeypat
     assert json.loads((path / "meta.json").read_text())["seed"] == 3
     assert np.array_equal(first.mean, again.mean)
     assert list(first.product_ids) == list(again.product_ids)
+    read = ladder.load_rung("tiny")          # now up to date: read from the folder
+    assert np.array_equal(read.mean, again.mean) and np.array_equal(read.leg_index, again.leg_index)
+    assert list(read.product_extra) == list(again.product_extra)
 
 
 def test_unknown_rung_lists_the_valid_names():
