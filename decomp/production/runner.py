@@ -162,6 +162,17 @@ def _num(v):
     return v if np.isfinite(v) else str(v)
 
 
+def prepare_worker(model: str, method: str) -> bool:
+    """Import what the tasks need (numpy, scipy, pyarrow, the method) once per worker, before timing starts."""
+    import pyarrow.parquet  # noqa: F401
+
+    from .. import generator, io  # noqa: F401
+    from ..registry import get_method
+
+    get_method(method, model).available()
+    return True
+
+
 def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
     """Build, solve and write one task; return its (small) record.
 
@@ -319,6 +330,7 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
                 else:
                     own_cluster, client = start_cluster(workers)
                     own_client = client
+            client.run(prepare_worker, cfg.model, cfg.method)
             cluster_seconds = time.perf_counter() - t_start
             n_workers = len(client.scheduler_info().get("workers", {})) or None
             progress.started = time.perf_counter()
