@@ -1,7 +1,7 @@
 """decomp: network bid prices by DLP, PNLP and Lagrangian decomposition.
 
     >>> from decomp import read_instance, solve
-    >>> result = solve(read_instance("instances/rung-1k"), model="pnlp", method="lagrangian")
+    >>> result = solve(read_instance("instances/p1k"), model="pnlp", method="lagrangian")
     >>> result.bid_prices            # {leg id: bid price}
 """
 

@@ -48,6 +48,10 @@ def main(argv=None) -> int:
     except (InstanceError, UnknownMethodError, ConfigError) as exc:
         print(f"decomp {args.command}: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:
+        # output piped into a reader that stopped early (e.g. `head`)
+        sys.stderr.close()
+        return EXIT_FAIL
     except KeyboardInterrupt:
         print(f"decomp {args.command}: interrupted", file=sys.stderr)
         return EXIT_FAIL
