@@ -186,6 +186,6 @@ def gap_tolerance(tol: float) -> float:
 
     A solver's own tolerance is not a relative duality gap (Ipopt's is a scaled
     KKT error, HiGHS's are feasibility tolerances), so the certificate allows
-    a relative gap of max(100 tol, 1e-7).
+    a relative gap of max(10 tol, 1e-7).
     """
-    return max(100.0 * float(tol), 1e-7)
+    return max(10.0 * float(tol), 1e-7)

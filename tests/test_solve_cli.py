@@ -1,0 +1,83 @@
+"""``decomp solve``: result JSON, allocation files, summary, exit codes."""
+
+import json
+
+import numpy as np
+import pyarrow.csv as pcsv
+import pyarrow.parquet as pq
+import pytest
+
+from decomp import ladder
+from decomp.cli import main
+from decomp.io import write_instance
+
+pytestmark = pytest.mark.solver
+
+
+@pytest.fixture(scope="module")
+def inst_dir(tmp_path_factory):
+    path = tmp_path_factory.mktemp("inst") / "p100"
+    write_instance(ladder.load_rung("p100"), path)
+    return path
+
+
+def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
+    out, alloc = tmp_path / "r.json", tmp_path / "a.csv"
+    code = main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
+                 "--allocation", str(alloc)])
+    assert code == 0
+    data = json.loads(out.read_text())
+    for key in ("status", "model", "method", "objective", "gap", "bid_prices", "iterations", "seconds",
+                "solver", "solver_version", "instance", "certificate"):
+        assert key in data, key
+    assert data["status"] == "optimal" and data["model"] == "pnlp" and data["method"] == "ipopt"
+    assert set(data["seconds"]) == {"build", "solve", "certify"}
+    inst = ladder.load_rung("p100")
+    assert set(data["bid_prices"]) == set(inst.leg_ids.tolist())
+    assert all(v >= 0 for v in data["bid_prices"].values())
+    table = pcsv.read_csv(alloc)
+    assert table.column_names == ["product", "allocation"]
+    assert table.num_rows == inst.n_products
+    x = table.column("allocation").to_numpy()
+    # the allocation file keeps capacities (checked from the file, against the instance)
+    assert np.all(inst.leg_load(x) <= inst.capacity * (1 + 1e-9))
+    text = capsys.readouterr().out
+    assert "optimal" in text and "highest bid prices" in text
+    top = max(data["bid_prices"], key=data["bid_prices"].get)
+    assert top in text
+
+
+def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
+    first = tmp_path / "r1.json"
+    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(first),
+                 "--allocation", str(tmp_path / "a.parquet")]) == 0
+    assert pq.read_table(tmp_path / "a.parquet").num_rows == 100
+    second = tmp_path / "r2.json"
+    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(first),
+                 "--out", str(second)]) == 0
+    assert json.loads(second.read_text())["status"] == "optimal"
+
+
+def test_limits_exit_one_and_still_write(inst_dir, tmp_path):
+    out = tmp_path / "r.json"
+    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "2",
+                 "--out", str(out)]) == 1
+    data = json.loads(out.read_text())
+    assert data["status"] == "iteration_limit" and data["solution_status"] != "optimal"
+
+
+def test_bad_input_exits_two(inst_dir, tmp_path, capsys):
+    out = tmp_path / "r.json"
+    assert main(["solve", str(tmp_path / "missing"), "--model", "dlp", "--method", "highs", "--out", str(out)]) == 2
+    assert "missing" in capsys.readouterr().err
+    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "highs", "--out", str(out)]) == 2
+    assert "methods for 'pnlp'" in capsys.readouterr().err
+    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
+                 "--allocation", str(tmp_path / "a.txt")]) == 2
+    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
+                 "--tol", "5"]) == 2
+    bad = tmp_path / "bad.json"
+    bad.write_text("{not json")
+    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
+                 "--warm-start", str(bad)]) == 2
+    assert not out.exists()
