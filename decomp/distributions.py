@@ -1,37 +1,474 @@
 """Demand distributions in the PNLP subproblems, dispatched per product.
 
-Each distribution supplies expected sales S(x) = E[min(max(D, 0), x)], the
-fractile x(a) = argmax_{x >= 0} f S(x) - a x with dx/da, and S'(x). Only the
-normal distribution is wired in here so far; others raise a clear error.
+Every product ``j`` has a subproblem ``max_{x >= 0} f_j S_j(x) - a_j x`` with
+``S_j(x) = E[min(max(D_j, 0), x)]`` its expected sales and ``a_j`` the sum of
+its legs' bid prices. Its solution is the newsvendor fractile: the ``x`` where
+the marginal sales ``S_j'(x) = P(D_j > x)`` equal ``a_j / f_j`` (0 when
+``a_j >= f_j S_j'(0)``). Four families are supported (column ``distribution``):
+
+``normal`` (default)
+    D ~ N(mean, std^2), demand floored at zero (see :mod:`decomp.normal`).
+``gamma``
+    shape k = (mean/std)^2, scale theta = std^2/mean, so that mean and std are
+    the product's. S(x) = mean P(k+1, x/theta) + x Q(k, x/theta) with P, Q the
+    regularized incomplete gamma functions; the fractile is
+    x = theta Q^{-1}(k, a/f) (the upper-tail inverse, no cancellation).
+``poisson`` (mean) and ``negbin`` (mean and std, std^2 > mean; parameters
+    r = mean^2/(std^2 - mean), p = mean/std^2 as in scipy.stats.nbinom)
+    Discrete demand. Expected sales are taken piecewise linear between the
+    integers, S(n) = sum_{k<n} P(D > k), which is exactly the expected sales of
+    an integer allocation, and the subproblem is then a concave piecewise-linear
+    maximization solved exactly at the integer n = smallest n with
+    f P(D > n) <= a. The dual stays exact for this model, but it is piecewise
+    linear in a (dx/da = 0 between breakpoints).
+
+Products with std = 0 (any continuous family, or a discrete family with mean
+0) are deterministic: S(x) = min(x, max(mean, 0)) and x = mean when a < f.
+
+Non-smooth products (deterministic and discrete) make the dual non-smooth. For
+second-order methods :meth:`Subproblems.evaluate` can replace each of their
+terms by its average over a window a +- eps (eps = ``smoothing`` * fare): a
+convex, continuously differentiable upper bound that equals the exact term
+outside eps of a breakpoint, with dx/da = -(jump)/(2 eps) inside. The
+Lagrangian method uses it only to compute Newton steps and certifies with the
+exact dual (``smoothing=0``).
 """
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
+from scipy import special
 
 from . import normal
 from .errors import InstanceError
 
+#: Family codes, in the order of :data:`decomp.instance.DISTRIBUTIONS`.
+NORMAL, GAMMA, POISSON, NEGBIN = 0, 1, 2, 3
+FAMILIES = ("normal", "gamma", "poisson", "negbin")
 
-def _check_normal(instance):
-    if instance.distribution is not None:
-        other = set(np.unique(instance.distribution).tolist()) - {"normal"}
-        if other:
-            raise InstanceError(f"demand distribution(s) {sorted(other)} are not supported yet",
-                                column="distribution")
+#: Smallest ratio a/f used in a fractile (a = 0 would mean an unbounded allocation).
+MIN_RATIO = normal.MIN_RATIO
+_INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 
 
+# ---------------------------------------------------------------------------
+# Gamma demand
+# ---------------------------------------------------------------------------
+def gamma_params(mean, std):
+    """Shape k and scale theta of the gamma distribution with this mean and std."""
+    mean = np.asarray(mean, dtype=np.float64)
+    std = np.asarray(std, dtype=np.float64)
+    return (mean / std) ** 2, std * std / mean
+
+
+def gamma_expected_sales(x, mean, std):
+    """E[min(D, x)] for gamma D with this mean and std (x >= 0)."""
+    k, theta = gamma_params(mean, std)
+    x = np.asarray(x, dtype=np.float64)
+    y = x / theta
+    return mean * special.gammainc(k + 1.0, y) + x * special.gammaincc(k, y)
+
+
+def gamma_fractile(ratio, mean, std):
+    """x with P(D > x) = ratio (0 for ratio >= 1), and dx/d(ratio) (<= 0)."""
+    k, theta = gamma_params(mean, std)
+    ratio = np.asarray(ratio, dtype=np.float64)
+    r = np.clip(ratio, MIN_RATIO, 1.0)
+    y = special.gammainccinv(k, r)
+    x = theta * y
+    logpdf = special.xlogy(k - 1.0, y) - y - special.gammaln(k) - np.log(theta)
+    with np.errstate(over="ignore", divide="ignore"):
+        dxdr = np.where((r < 1.0) & (y > 0), -np.exp(-logpdf), 0.0)
+    x = np.where(r < 1.0, x, 0.0)
+    return x, dxdr
+
+
+# ---------------------------------------------------------------------------
+# Discrete demand (Poisson, negative binomial)
+# ---------------------------------------------------------------------------
+def negbin_params(mean, std):
+    """(r, p) of scipy.stats.nbinom with this mean and std (std^2 > mean)."""
+    mean = np.asarray(mean, dtype=np.float64)
+    var = np.asarray(std, dtype=np.float64) ** 2
+    return mean * mean / (var - mean), mean / var
+
+
+def discrete_sf(n, family, mean, std):
+    """P(D > n) for integer-valued n (arrays broadcast); 1 for n < 0."""
+    n = np.asarray(n, dtype=np.float64)
+    family = np.asarray(family)
+    mean = np.asarray(mean, dtype=np.float64)
+    std = np.asarray(std, dtype=np.float64)
+    n, family, mean, std = np.broadcast_arrays(n, family, mean, std)
+    out = np.ones(n.shape)
+    pos = n >= 0
+    po = pos & (family == POISSON)
+    if np.any(po):
+        out[po] = special.gammainc(n[po] + 1.0, mean[po])
+    nb = pos & (family == NEGBIN)
+    if np.any(nb):
+        r, p = negbin_params(mean[nb], std[nb])
+        out[nb] = special.betainc(n[nb] + 1.0, r, 1.0 - p)
+    return out
+
+
+def discrete_expected_sales(x, family, mean, std):
+    """Expected sales, piecewise linear between integers: S(n) = sum_{k<n} P(D > k).
+
+    At integers this is E[min(D, n)]; in closed form S(n) = mean (1 - P(D* >= n))
+    + n P(D > n), with D* = D for Poisson and D* ~ NB(r + 1, p) for the
+    negative binomial (from k p_r(k) = mean p_{r+1}(k - 1)).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    family = np.asarray(family)
+    mean = np.asarray(mean, dtype=np.float64)
+    std = np.asarray(std, dtype=np.float64)
+    x, family, mean, std = np.broadcast_arrays(x, family, mean, std)
+    n = np.floor(np.maximum(x, 0.0))
+    sf_n = discrete_sf(n, family, mean, std)
+    tail = np.ones(n.shape)  # P(D* > n - 1)
+    pos = n >= 1
+    po = pos & (family == POISSON)
+    if np.any(po):
+        tail[po] = special.gammainc(n[po], mean[po])
+    nb = pos & (family == NEGBIN)
+    if np.any(nb):
+        r, p = negbin_params(mean[nb], std[nb])
+        tail[nb] = special.betainc(n[nb], r + 1.0, 1.0 - p)
+    s_n = mean * (1.0 - tail) + n * sf_n
+    return s_n + (np.maximum(x, 0.0) - n) * sf_n
+
+
+def discrete_fractile(ratio, family, mean, std):
+    """Smallest integer n >= 0 with P(D > n) <= ratio (vectorized bisection)."""
+    ratio = np.asarray(ratio, dtype=np.float64)
+    family, mean, std = (np.asarray(v) for v in (family, mean, std))
+    ratio, family, mean, std = np.broadcast_arrays(ratio, family, mean, std)
+    ratio = np.maximum(ratio, MIN_RATIO)
+    var = np.where(family == POISSON, mean, np.asarray(std, dtype=np.float64) ** 2)
+    lo = np.full(ratio.shape, -1.0)                    # sf(lo) > ratio
+    hi = np.ceil(mean + 10.0 * np.sqrt(var) + 10.0)    # grown until sf(hi) <= ratio
+    bad = discrete_sf(hi, family, mean, std) > ratio
+    while np.any(bad):
+        lo = np.where(bad, hi, lo)
+        hi = np.where(bad, 2.0 * hi + 1.0, hi)
+        bad = discrete_sf(hi, family, mean, std) > ratio
+    while True:
+        open_ = hi - lo > 1
+        if not np.any(open_):
+            break
+        mid = np.floor(0.5 * (lo + hi))
+        idx = np.nonzero(open_)[0]
+        sf_mid = discrete_sf(mid[idx], family[idx], mean[idx], std[idx])
+        ok = sf_mid <= ratio[idx]
+        hi[idx] = np.where(ok, mid[idx], hi[idx])
+        lo[idx] = np.where(ok, lo[idx], mid[idx])
+    return hi
+
+
+# ---------------------------------------------------------------------------
+# Per-product dispatch
+# ---------------------------------------------------------------------------
+def family_codes(instance) -> np.ndarray | None:
+    """Per-product family code (int8), or None when every product is normal.
+
+    Raises InstanceError naming the first row with an unknown name.
+    """
+    names = instance.distribution
+    if names is None:
+        default = str(instance.meta.get("distribution", "normal")).strip().lower()
+        if default not in FAMILIES:
+            raise InstanceError(f"unknown demand distribution in meta; use one of {', '.join(FAMILIES)}",
+                                column="distribution", value=default)
+        code = FAMILIES.index(default)
+        return None if code == NORMAL else np.full(instance.n_products, code, dtype=np.int8)
+    names = np.asarray(names, dtype=object)
+    codes = np.full(len(names), -1, dtype=np.int8)
+    for code, fam in enumerate(FAMILIES):          # a loop over 4 names, not over products
+        codes[names == fam] = code
+    left = np.nonzero(codes < 0)[0]
+    if len(left):                                  # other spellings ("Normal ", "GAMMA")
+        uniq, inv = np.unique(np.asarray(names[left], dtype=str), return_inverse=True)
+        inv = inv.reshape(-1)
+        fixed = np.empty(len(uniq), dtype=np.int8)
+        for i, name in enumerate(uniq):
+            key = name.strip().lower()
+            if key not in FAMILIES:
+                j = int(left[np.nonzero(inv == i)[0][0]])
+                raise InstanceError(f"unknown demand distribution; use one of {', '.join(FAMILIES)}",
+                                    row=j + 1, column="distribution", value=name)
+            fixed[i] = FAMILIES.index(key)
+        codes[left] = fixed[inv]
+    return None if not np.any(codes != NORMAL) else codes
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class SubproblemValues:
+    """The product subproblems at one vector a of bid-price sums.
+
+    ``x``: solutions; ``w``: -dx/da (>= 0, smoothed for non-smooth products when
+    smoothing > 0); ``value``: sum_j f_j S_j(x_j) - a_j x_j (the smoothed terms
+    when smoothing > 0); ``exact_value``: the same sum without smoothing (an exact
+    dual term); ``revenue``: sum_j f_j S_j(x_j) (exact, at x).
+    """
+
+    x: np.ndarray
+    w: np.ndarray
+    value: float
+    revenue: float
+    exact_value: float
+
+
+class Subproblems:
+    """The product subproblems of an instance (or of a subset of its products).
+
+    Built once per solve: groups the products by family, checks parameters and
+    precomputes per-product constants, so that :meth:`evaluate` does only
+    array arithmetic. Hot-path arrays are views when every product is normal.
+    """
+
+    def __init__(self, fare, mean, std, codes=None):
+        fare = np.asarray(fare, dtype=np.float64)
+        mean = np.asarray(mean, dtype=np.float64)
+        std = np.asarray(std, dtype=np.float64)
+        self.n = n = len(fare)
+        self.fare, self.mean, self.std = fare, mean, std
+        if not np.all(fare > 0):
+            j = int(np.nonzero(~(fare > 0))[0][0])
+            raise InstanceError("fare must be positive", row=j + 1, column="fare", value=float(fare[j]))
+        if codes is None and np.all(std > 0):
+            self.all_normal = True
+            self.i_norm = None
+            self._set_normal(fare, mean, std)
+            empty = np.zeros(0, dtype=np.int64)
+            self.i_gam = self.i_dis = self.i_det = empty
+            self.nonsmooth = False
+            return
+        if codes is None:
+            codes = np.zeros(n, dtype=np.int8)
+        codes = np.asarray(codes, dtype=np.int8)
+        disc = (codes == POISSON) | (codes == NEGBIN)
+        det = (((codes == NORMAL) & ~(std > 0))
+               | ((codes == GAMMA) & ~((std > 0) & (mean > 0)))
+               | (disc & ~(mean > 0)))
+        nb = (codes == NEGBIN) & ~det
+        badnb = nb & ~(std * std > mean * (1.0 + 1e-12))
+        if np.any(badnb):
+            j = int(np.nonzero(badnb)[0][0])
+            raise InstanceError("negative binomial demand needs std^2 > mean (use poisson when equal)",
+                                row=j + 1, column="std", value=float(std[j]))
+        self.all_normal = False
+        self.i_norm = np.nonzero((codes == NORMAL) & ~det)[0]
+        i = self.i_norm
+        self._set_normal(fare[i], mean[i], std[i])
+        # -- gamma -------------------------------------------------------------
+        self.i_gam = np.nonzero((codes == GAMMA) & ~det)[0]
+        self.g_f, self.g_m, self.g_s = fare[self.i_gam], mean[self.i_gam], std[self.i_gam]
+        # -- discrete ------------------------------------------------------------
+        self.i_dis = np.nonzero(disc & ~det)[0]
+        self.d_fam = codes[self.i_dis]
+        self.d_f, self.d_m, self.d_s = fare[self.i_dis], mean[self.i_dis], std[self.i_dis]
+        # -- deterministic (point mass at max(mean, 0)) ---------------------------
+        self.i_det = np.nonzero(det)[0]
+        self.t_f = fare[self.i_det]
+        self.t_m = np.maximum(mean[self.i_det], 0.0)
+        self.nonsmooth = bool(len(self.i_dis) or len(self.i_det))
+
+    def _set_normal(self, f, m, s):
+        self.n_f, self.n_m, self.n_s = f, m, s
+        self._n_const = None
+
+    def _normal_constants(self):
+        """Per-product constants of the normal fast path (computed on first use)."""
+        if self._n_const is None:
+            f, m, s = self.n_f, self.n_m, self.n_s
+            fs = f * s
+            self._n_const = dict(
+                invf=1.0 / f,
+                fs_pdf=fs * _INV_SQRT_2PI,                                   # f s / sqrt(2 pi)
+                fsG0=fs * normal.loss(-m / s) if len(f) else f.copy(),       # f s G(-m/s)
+                sof_pdf=(s / f) * np.sqrt(2.0 * np.pi),                       # w = this / exp(-z^2/2)
+                curv=f * _INV_SQRT_2PI / s,                                  # f max pdf (bounds S'')
+            )
+        return self._n_const
+
+    @classmethod
+    def from_instance(cls, instance, products=None):
+        codes = family_codes(instance)
+        if products is None:
+            return cls(instance.fare, instance.mean, instance.std, codes)
+        return cls(instance.fare[products], instance.mean[products], instance.std[products],
+                   None if codes is None else codes[products])
+
+    # -- solutions ---------------------------------------------------------------
+    def evaluate(self, a, smoothing: float = 0.0) -> SubproblemValues:
+        """Solve every subproblem at bid-price sums ``a`` (one per product)."""
+        a = np.asarray(a, dtype=np.float64)
+        if self.all_normal:
+            x, w, value, rev = self._normal(a)
+            return SubproblemValues(x, w, value, rev, value)
+        x = np.zeros(self.n)
+        w = np.zeros(self.n)
+        rev = value = exact = 0.0
+        for idx, fn in ((self.i_norm, self._normal), (self.i_gam, self._gamma),
+                        (self.i_dis, lambda aa: self._discrete(aa, smoothing)),
+                        (self.i_det, lambda aa: self._deterministic(aa, smoothing))):
+            if len(idx):
+                xs, ws, v, rs, *ex = fn(a[idx])
+                x[idx], w[idx] = xs, ws
+                rev += rs
+                value += v
+                exact += ex[0] if ex else v
+        return SubproblemValues(x, w, value, rev, exact)
+
+    def _normal(self, a):
+        """x = max(0, m - s ndtri(a/f)) and, on the inside (x > 0, f ratio = a),
+        f S(x) - a x = f s (G(-m/s) - pdf(z)) - a m, w = s / (f pdf(z))."""
+        k = self._normal_constants()
+        r = a * k["invf"]
+        np.clip(r, MIN_RATIO, 1.0, out=r)
+        z = special.ndtri(r, out=r)          # ndtri(ratio) = -(the usual z)
+        x = self.n_s * z
+        np.subtract(self.n_m, x, out=x)
+        np.maximum(x, 0.0, out=x)
+        inside = x > 0
+        np.square(z, out=z)
+        z *= -0.5
+        e = np.exp(z, out=z)                 # exp(-z^2/2) = sqrt(2 pi) pdf(z)
+        np.multiply(e, inside, out=e)
+        value = float(k["fsG0"] @ inside) - float(k["fs_pdf"] @ e) - float((a * self.n_m) @ inside)
+        rev = value + float(a @ x)
+        w = np.zeros_like(e)
+        np.divide(k["sof_pdf"], e, out=w, where=inside)
+        np.minimum(w, 1e300, out=w)
+        return x, w, value, rev
+
+    def _gamma(self, a):
+        ratio = a / self.g_f
+        x, dxdr = gamma_fractile(ratio, self.g_m, self.g_s)
+        w = np.minimum(-dxdr / self.g_f, 1e300)
+        rev = self.g_f * gamma_expected_sales(x, self.g_m, self.g_s)
+        return x, w, float(np.sum(rev - a * x)), float(rev.sum())
+
+    def _deterministic(self, a, smoothing):
+        f, m = self.t_f, self.t_m
+        x = np.where(a < f, m, 0.0)
+        w = np.zeros(len(a))
+        extra = 0.0
+        if smoothing > 0:
+            eps = smoothing * f
+            u = f - a
+            band = np.abs(u) < eps
+            x = np.where(band, m * np.clip((u + eps) / (2 * eps), 0.0, 1.0), x)
+            w = np.where(band, m / (2 * eps), 0.0)
+            extra = float(np.sum(np.where(band, m * (eps - np.abs(u)) ** 2 / (4 * eps), 0.0)))
+        rev = float(f @ np.minimum(x, m))
+        exact = float(np.sum(m * np.maximum(f - a, 0.0)))
+        return x, w, exact + extra, rev, exact
+
+    def _discrete(self, a, smoothing):
+        f, m, s, fam = self.d_f, self.d_m, self.d_s, self.d_fam
+        n = discrete_fractile(a / f, fam, m, s)
+        exact_terms = f * discrete_expected_sales(n, fam, m, s) - a * n
+        exact = float(np.sum(exact_terms))
+        if smoothing <= 0:
+            return n, np.zeros(len(a)), exact, exact + float(a @ n), exact
+        eps = smoothing * f
+        n1 = discrete_fractile((a - eps) / f, fam, m, s)  # x(a - eps) >= x(a + eps)
+        n2 = discrete_fractile((a + eps) / f, fam, m, s)
+        x = n2.copy()
+        extra = np.zeros(len(a))
+        jump = n1 - n2
+        for k in range(1, int(jump.max(initial=0)) + 1):
+            sel = jump >= k
+            if not np.any(sel):
+                break
+            b = f[sel] * discrete_sf(n2[sel] + k - 1, fam[sel], m[sel], s[sel])  # breakpoint
+            lo = a[sel] - eps[sel]
+            x[sel] += np.clip(b - lo, 0.0, 2 * eps[sel]) / (2 * eps[sel])
+            extra[sel] += np.maximum(eps[sel] - np.abs(b - a[sel]), 0.0) ** 2 / (4 * eps[sel])
+        w = jump / (2 * eps)
+        rev = float(f @ discrete_expected_sales(x, fam, m, s))
+        return x, w, exact + float(np.sum(extra)), rev, exact
+
+    def curvature(self, x):
+        """Per product f_j max pdf_j x_j^2 (normal fast path): with it,
+        f S(y) >= f S(x) - (x - y) a - (x - y)^2 f max pdf for y <= x, because
+        S(x) - S(y) <= (x - y) S'(y) <= (x - y) (S'(x) + (x - y) max pdf)
+        (S concave, -S'' the density) and f S'(x) = a at the fractile."""
+        k = self._normal_constants()
+        out = x * x
+        out *= k["curv"]
+        return out
+
+    # -- expected sales and marginal sales --------------------------------------
+    def expected_sales(self, x):
+        """S_j(x_j) for every product (demand floored at zero)."""
+        x = np.asarray(x, dtype=np.float64)
+        if self.all_normal:
+            return normal.expected_sales(x, self.mean, self.std)
+        out = np.zeros(self.n)
+        if len(self.i_norm):
+            i = self.i_norm
+            out[i] = normal.expected_sales(x[i], self.n_m, self.n_s)
+        if len(self.i_gam):
+            out[self.i_gam] = gamma_expected_sales(x[self.i_gam], self.g_m, self.g_s)
+        if len(self.i_dis):
+            out[self.i_dis] = discrete_expected_sales(x[self.i_dis], self.d_fam, self.d_m, self.d_s)
+        if len(self.i_det):
+            out[self.i_det] = np.minimum(x[self.i_det], self.t_m)
+        return out
+
+    def marginal_sales(self, x):
+        """(right, left) derivatives of S_j at x_j: S'(x+) <= S'(x-) (equal where smooth)."""
+        x = np.asarray(x, dtype=np.float64)
+        if self.all_normal:
+            d = normal.marginal_sales(x, self.mean, self.std)
+            return d, d
+        lo = np.zeros(self.n)
+        hi = np.zeros(self.n)
+        if len(self.i_norm):
+            i = self.i_norm
+            lo[i] = hi[i] = normal.marginal_sales(x[i], self.n_m, self.n_s)
+        if len(self.i_gam):
+            i = self.i_gam
+            k, theta = gamma_params(self.g_m, self.g_s)
+            lo[i] = hi[i] = special.gammaincc(k, x[i] / theta)
+        if len(self.i_dis):
+            i = self.i_dis
+            xi = np.maximum(x[i], 0.0)
+            fl = np.floor(xi)
+            lo[i] = discrete_sf(fl, self.d_fam, self.d_m, self.d_s)
+            at_int = xi == fl
+            hi[i] = np.where(at_int, discrete_sf(fl - 1, self.d_fam, self.d_m, self.d_s), lo[i])
+        if len(self.i_det):
+            i = self.i_det
+            xi, m = x[i], self.t_m
+            lo[i] = (xi < m).astype(float)
+            hi[i] = (xi <= m).astype(float) * (m > 0)
+        return lo, hi
+
+    def zero_threshold(self):
+        """a above which x_j = 0 is optimal: f_j S_j'(0+)."""
+        d, _ = self.marginal_sales(np.zeros(self.n))
+        return self.fare * d
+
+
+# ---------------------------------------------------------------------------
+# Instance-level helpers (stateless; used by decomp.dual and decomp.certify)
+# ---------------------------------------------------------------------------
 def subproblems(instance, a):
-    _check_normal(instance)
-    x, dxda, _ = normal.fractile(a, instance.fare, instance.mean, instance.std)
-    return x, dxda
+    """Per-product solutions x_j(a_j) and dx_j/da_j, by each product's distribution."""
+    v = Subproblems.from_instance(instance).evaluate(a)
+    return v.x, -v.w
 
 
 def expected_sales(instance, x):
-    _check_normal(instance)
-    return normal.expected_sales(x, instance.mean, instance.std)
+    return Subproblems.from_instance(instance).expected_sales(x)
 
 
 def marginal_sales(instance, x):
-    _check_normal(instance)
-    return normal.marginal_sales(x, instance.mean, instance.std)
+    """S_j'(x_j) (the right derivative where S_j has a kink)."""
+    return Subproblems.from_instance(instance).marginal_sales(x)[0]

@@ -16,7 +16,6 @@ import dataclasses
 
 import numpy as np
 
-from . import normal
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -34,23 +33,28 @@ class DualPoint:
 
 def subproblems(instance, a):
     """Per-product solutions x_j(a_j) and dx_j/da_j, by each product's distribution."""
-    from . import distributions  # noqa: F401  (other distributions, if present)
+    from . import distributions
 
     return distributions.subproblems(instance, a)
 
 
-def evaluate(instance, pi) -> DualPoint:
-    """The dual function, its gradient and the subproblem solutions at ``pi``."""
+def evaluate(instance, pi, subproblems=None) -> DualPoint:
+    """The dual function, its gradient and the subproblem solutions at ``pi``.
+
+    ``subproblems``: a prebuilt :class:`decomp.distributions.Subproblems` of the
+    instance (saves its set-up when evaluating many times).
+    """
     from . import distributions
 
     pi = np.asarray(pi, dtype=np.float64)
+    if subproblems is None:
+        subproblems = distributions.Subproblems.from_instance(instance)
     a = instance.leg_sum(pi)
-    x, dxda = distributions.subproblems(instance, a)
-    revenue_terms = instance.fare * distributions.expected_sales(instance, x)
-    value = float(np.sum(revenue_terms - a * x) + instance.capacity @ pi)
-    gradient = instance.capacity - instance.leg_load(x)
-    return DualPoint(pi=pi, value=value, gradient=gradient, x=x, dxda=dxda, a=a,
-                     revenue=float(np.sum(revenue_terms)))
+    v = subproblems.evaluate(a)
+    value = float(v.value + instance.capacity @ pi)
+    gradient = instance.capacity - instance.leg_load(v.x)
+    return DualPoint(pi=pi, value=value, gradient=gradient, x=v.x, dxda=-v.w, a=a,
+                     revenue=float(v.revenue))
 
 
 def dual_value(instance, pi) -> float:
