@@ -223,6 +223,19 @@ def test_timing_regression_with_fake_clock(tmp_path):
     slow = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0))
     assert slow.regression and slow.cases[0].metrics["time_ratio"] == pytest.approx(3.0)
     assert [f["kind"] for f in slow.cases[0].findings] == ["time"]
+    assert slow.cases[0].metrics["time_runs"] == 3          # the slow time was confirmed by 2 more runs
+    # One slow run followed by normal ones is noise: confirmed away by the best of the extra runs.
+    durations = iter([3.0, 1.0, 1.0, 1.0, 1.0])
+
+    class NoisyClock(FakeClock):
+        def __call__(self):
+            self.calls += 1
+            if self.calls % 2 == 0:
+                self.t += next(durations)
+            return self.t
+
+    noisy = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=NoisyClock(None), warmup=False)
+    assert not noisy.regression and noisy.cases[0].metrics["time_new"] == pytest.approx(1.0)
     lenient = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0),
                        thresholds=bl.Thresholds(time_ratio=4.0))
     assert not lenient.regression

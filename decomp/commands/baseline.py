@@ -36,6 +36,8 @@ def register(sub):
     c.add_argument("--out", help="folder for check.json and check.md (default: print the Markdown only)")
     c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable)")
     c.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    c.add_argument("--confirm-runs", type=int, default=2,
+                   help="time a case over the time ratio this many more times, judge the best run (default 2)")
     c.add_argument("--no-warmup", action="store_true",
                    help="do not solve the first case of each (model, method) once untimed before timing it")
     g = c.add_argument_group("thresholds (defaults fit each case's model and recorded tolerance)")
@@ -138,7 +140,8 @@ def run_check(args) -> int:
               flush=True)
 
     report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
-                            repeat=args.repeat, warmup=not args.no_warmup, only=args.cases,
+                            repeat=args.repeat, warmup=not args.no_warmup,
+                            confirm_runs=args.confirm_runs, only=args.cases,
                             progress=progress)
     print()
     print(report.to_markdown())
