@@ -200,20 +200,11 @@ def _available_pairs() -> list:
     return out
 
 
-def _ladder_spec(rung: str) -> InstanceSpec:
-    try:
-        from . import ladder  # noqa: F401
-    except ImportError:
-        sizes = {"p100": 100, "p1k": 1000, "p10k": 10000}
-        return InstanceSpec(rung, "generator", {"n_products": sizes[rung], "seed": 0})
-    return InstanceSpec(rung, "ladder", {"rung": rung})
-
-
 def _suite_quick() -> list:
     cases = []
     pairs = _available_pairs()
     for k, rung in enumerate(_QUICK_RUNGS):
-        spec = _ladder_spec(rung)
+        spec = InstanceSpec(rung, "ladder", {"rung": rung})
         for model, method in pairs:
             limit = _QUICK_MAX_RUNG.get((model, method), _QUICK_MAX_RUNG.get(method))
             if limit is not None and k > _QUICK_RUNGS.index(limit):

@@ -18,7 +18,6 @@ import pytest
 
 from decomp import baseline as bl
 from decomp.instance import Instance
-from decomp.options import SolverOptions
 from decomp.result import SolutionStatus, Termination
 
 
@@ -451,3 +450,20 @@ def test_environment_change_is_reported(recorded, monkeypatch):
     assert ("highs_library", real["highs_library"], "99.0.0") in rep.environment_changes
     assert not rep.regression                     # a version change alone is not a regression
     assert "| highs_library | " + str(real["highs_library"]) + " | 99.0.0 |" in rep.to_markdown()
+
+
+@pytest.mark.solver
+def test_cli_record_then_check_exit_codes(tmp_path, monkeypatch, capsys):
+    _need("pnlp", "ipopt")
+    from decomp.cli import main
+
+    monkeypatch.setitem(bl.SUITES, "one", ("micro1 by Ipopt", lambda: [bl.Case(MICRO1, "pnlp", "ipopt")]))
+    out = tmp_path / "base"
+    assert main(["baseline", "record", "--suite", "one", "--out", str(out)]) == 0
+    assert main(["baseline", "record", "--suite", "one", "--out", str(out)]) == 2     # exists, no --force
+    assert main(["baseline", "check", str(out), "--out", str(tmp_path / "same")]) == 0
+    assert main(["baseline", "check", str(out), "--override", "tol=1e-3", "--out", str(tmp_path / "loose")]) == 1
+    text = (tmp_path / "loose" / "check.md").read_text()
+    assert "micro1-pnlp-ipopt | regression" in text and "tol 1e-09 -> 0.001" in text
+    assert main(["baseline", "check", str(out), "--override", "nonsense"]) == 2
+    capsys.readouterr()
