@@ -124,12 +124,16 @@ _SPECS = (
           {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
     _Spec("pnlp", "lagrangian", ({"dual_method": "subgradient", "tol": 1e-3, "time_limit": 20.0},),
           {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
-    _Spec("pnlp", "ipopt", ({"tol": 1e-6}, {"tol": 1e-9}), {"quick": "p100k", "full": "p1m"}),
-    _Spec("pnlp", "pyomo-ipopt", ({"tol": 1e-9},), {"quick": "p10k", "full": "p100k"}, rounds_cap=1),
+    # Ipopt on arrays: ~15 s at p100k on a quiet machine (90 s seen under load), ~2 min at p1m.
+    _Spec("pnlp", "ipopt", ({"tol": 1e-6},), {"quick": "p10k", "full": "p100k"}, rounds_cap=2),
+    _Spec("pnlp", "ipopt", ({"tol": 1e-9},), {"quick": "p100k", "full": "p1m"}, rounds_cap=2),
+    # Pyomo + Ipopt: NL writing and ASL loading dominate (20-80 s at p10k, minutes at p100k).
+    _Spec("pnlp", "pyomo-ipopt", ({"tol": 1e-9},), {"quick": "p1k", "full": "p100k"}, rounds_cap=1),
     _Spec("dlp", "highs", ({},), {"quick": "p100k", "full": "p1m"}),
     _Spec("dlp", "pyomo-highs", ({},), {"quick": "p10k", "full": "p100k"}, rounds_cap=1),
-    _Spec("pwl", "highs", ({"segments": 4}, {"segments": 16}, {"segments": 64}),
-          {"quick": "p10k", "full": "p100k"}),
+    # PWL: K segments per product make K times the columns; K=64 takes ~25 s at p10k.
+    _Spec("pwl", "highs", ({"segments": 4}, {"segments": 16}), {"quick": "p10k", "full": "p100k"}, rounds_cap=2),
+    _Spec("pwl", "highs", ({"segments": 64},), {"quick": "p1k", "full": "p10k"}, rounds_cap=2),
     _Spec("pwl", "pyomo-highs", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, rounds_cap=1),
     # The Pyomo model build on its own (method field: the builder family).
     _Spec("pnlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
@@ -138,7 +142,7 @@ _SPECS = (
 )
 
 #: Rounds by rung (each round is one solve; the report uses the minimum and the median).
-_ROUNDS = {"tiny": 1, "p100": 5, "p1k": 3, "p10k": 2, "p100k": 1, "p1m": 1}
+_ROUNDS = {"tiny": 1, "p100": 3, "p1k": 3, "p10k": 2, "p100k": 1, "p1m": 1}
 
 #: The Pyomo method whose builders a build case times, by model.
 BUILD_METHOD = {"pnlp": "pyomo-ipopt", "dlp": "pyomo-highs", "pwl": "pyomo-highs"}
@@ -161,6 +165,10 @@ def suite_cases(suite: str, registry_pairs, available) -> list:
         if not _method_ok(method_for_check, spec.model, registry_pairs, available):
             continue
         if suite == "micro":
+            if spec.method == "ipopt" and spec.knob_sets[0].get("tol", 1e-9) > 1e-9:
+                continue
+            if spec.model == "pwl" and spec.method == "highs" and spec.knob_sets[0]["segments"] > 16:
+                continue
             rungs, knob_sets = ("tiny",), spec.knob_sets[-1:]
         else:
             rungs, knob_sets = _upto(spec.max_rung.get(suite)), spec.knob_sets
@@ -180,7 +188,9 @@ def thresholds(case: Case) -> dict:
     """Accuracy limits asserted after timing (None: recorded, not asserted).
 
     * ``max_violation_rel``: capacity violation relative to max(1, c_i).
-    * ``gap``: the certified gap, when the case expects an optimal finish.
+    * ``gap``: the certified gap, when the case expects an optimal finish;
+      ``gap_if_optimal`` for cases that may stop at a limit: checked only
+      when the method claims an optimal finish.
     * ``objective_error``: relative objective error against the reference.
       For PNLP methods it may not exceed the certified gap (weak duality: for
       a feasible allocation, optimum - primal <= dual - primal) plus slack.
@@ -199,6 +209,9 @@ def thresholds(case: Case) -> dict:
         t = tol if tol is not None else 1e-9
         if case.expect_optimal:
             out["gap"] = 10 * t + 1e-10
+        else:
+            # may stop at a limit (reported by status); when it claims optimal, the claim must hold
+            out["gap_if_optimal"] = 10 * t + 1e-10
         out["objective_error"] = "gap"   # <= the case's own certified gap (+ 1e-8)
         if case.expect_optimal and t <= 1e-8:
             out["bid_price_error"] = 1e-5
@@ -208,9 +221,10 @@ def thresholds(case: Case) -> dict:
     elif case.model == "pwl":
         out["gap"] = 1e-6
         k = int(o.get("segments", 16))
-        # The K-segment approximation's own error against the exact PNLP;
-        # measured near 0.5/K^2 on the generator's networks (see bench/README.md).
-        out["objective_error"] = 4.0 / (k * k)
+        # The K-segment approximation's own error against the exact PNLP:
+        # measured 0.07/K^2 to 0.08/K^2 (K = 4, 16, 64; p100 to p10k), so the
+        # error falls as K^-2; 0.5/K^2 leaves a factor of six.
+        out["objective_error"] = 0.5 / (k * k)
     return out
 
 

@@ -199,6 +199,9 @@ def check(acc: dict, limits: dict) -> list:
     lim = limits.get("gap")
     if lim is not None and (acc["gap"] is None or acc["gap"] > lim):
         fails.append(f"certified gap {acc['gap']} > {lim}")
+    lim = limits.get("gap_if_optimal")
+    if lim is not None and acc["termination"] == "optimal" and (acc["gap"] is None or acc["gap"] > lim):
+        fails.append(f"claims optimal with certified gap {acc['gap']} > {lim}")
     lim = limits.get("objective_error")
     if lim == "gap":
         g = acc["gap"]
