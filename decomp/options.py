@@ -58,6 +58,7 @@ class SolverOptions:
         return dataclasses.replace(self, **changes)
 
     def to_dict(self) -> dict:
-        d = dataclasses.asdict(self)
+        # not dataclasses.asdict: it deep-copies, and a mappingproxy cannot be copied
+        d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         d["solver_options"] = dict(self.solver_options)
         return d
