@@ -82,20 +82,36 @@ def tail_continued_fraction(t, be=_Pyomo):
     return be.exp(-t * t / 2.0) / b / _SQRT_2PI
 
 
-def _tail_nonneg(t, be):
-    """Q(t) for t >= 0 (t an expression known to be >= 0 on the branch that uses it)."""
+def tail_nonneg(t, be=_Pyomo):
+    """Q(t) for t >= 0: the rational function below 7.07, the continued fraction up to 37, then 0."""
     return be.where(t < _SPLIT, tail_rational(t, be),
                     be.where(t <= _CUTOFF, tail_continued_fraction(t, be), 0.0))
 
 
+def abs_by_sign(z, be=_Pyomo):
+    """|z| as ``Expr_if(z < 0, -z, z)``."""
+    return be.where(z < 0, -z, z)
+
+
+def upper_tail_given(z, tail_abs, be=_Pyomo):
+    """P(Z > z) from Q(|z|) (``tail_abs``): Q(|z|) for z >= 0, 1 - Q(|z|) for z < 0.
+
+    Lets a model hold |z| and Q(|z|) in named Expressions, which the NL writer
+    emits once as shared subexpressions: one rational function per product."""
+    return be.where(z < 0, 1.0 - tail_abs, tail_abs)
+
+
 def upper_tail(z, be=_Pyomo):
-    """P(Z > z) = 1 - Phi(z), with ``Expr_if`` on the sign of z."""
-    return be.where(z < 0, 1.0 - _tail_nonneg(-z, be), _tail_nonneg(z, be))
+    """P(Z > z) = 1 - Phi(z), with ``Expr_if`` on the sign of z.
+
+    (Each branch carries its own copy of Q: the NL writer inlines shared
+    unnamed subexpressions, so an inline |z| would be repeated at every use.)"""
+    return be.where(z < 0, 1.0 - tail_nonneg(-z, be), tail_nonneg(z, be))
 
 
 def cdf(z, be=_Pyomo):
     """Phi(z), with ``Expr_if`` on the sign of z."""
-    return be.where(z < 0, _tail_nonneg(-z, be), 1.0 - _tail_nonneg(z, be))
+    return be.where(z < 0, tail_nonneg(-z, be), 1.0 - tail_nonneg(z, be))
 
 
 def pdf(z, be=_Pyomo):
@@ -103,9 +119,13 @@ def pdf(z, be=_Pyomo):
     return _INV_SQRT_2PI * be.exp(-z * z / 2.0)
 
 
-def loss(z, be=_Pyomo):
-    """Standard normal loss G(z) = E[(Z - z)^+] = phi(z) - z (1 - Phi(z))."""
-    return pdf(z, be) - z * upper_tail(z, be)
+def loss(z, be=_Pyomo, tail_abs=None):
+    """Standard normal loss G(z) = E[(Z - z)^+] = phi(z) - z (1 - Phi(z)).
+
+    ``tail_abs``: Q(|z|) when the caller holds it already (a named Expression)."""
+    if tail_abs is None:
+        return pdf(z, be) - z * upper_tail(z, be)
+    return pdf(z, be) - z * upper_tail_given(z, tail_abs, be)
 
 
 # -- numpy twins: the same formulas through the numpy backend -----------------

@@ -9,7 +9,9 @@ with expected sales, demand floored at zero (see :mod:`decomp.normal`),
     expected_sales[j] = std[j] * (G(-mean[j]/std[j]) - G(z[j])),   z[j] = (x[j] - mean[j]) / std[j]
 
 where G is the standard normal loss function built from the Pyomo normal CDF
-of :mod:`models.normal_cdf` (no erf in Pyomo). G(-mean/std) is a constant
+of :mod:`models.normal_cdf` (no erf in Pyomo); the named Expressions ``z``,
+``abs_z`` and ``tail_abs_z`` = Q(|z|) keep the NL file at one rational
+function per product. G(-mean/std) is a constant
 (Param ``sales_offset``): it changes neither the optimum nor the bid prices.
 Products with std = 0 have S(x) = min(x, mean): modelled as x[j] <= mean[j]
 with ``expected_sales[j] = x[j]``.
@@ -60,10 +62,13 @@ def build(instance, x0=None):
         m.x = pyo.Var(m.PRODUCTS, initialize=dict(zip(pids, start)),
                       bounds=lambda m, j: (0.0, None if upper[j] == np.inf else upper[j]))
         m.z = pyo.Expression(m.SMOOTH, rule=lambda m, j: (m.x[j] - m.mean[j]) / m.std[j])
+        # Q(|z|), held once per product (named Expressions become shared NL subexpressions)
+        m.abs_z = pyo.Expression(m.SMOOTH, rule=lambda m, j: normal_cdf.abs_by_sign(m.z[j]))
+        m.tail_abs_z = pyo.Expression(m.SMOOTH, rule=lambda m, j: normal_cdf.tail_nonneg(m.abs_z[j]))
 
         def sales(m, j):
             if j in m.SMOOTH:
-                return m.std[j] * (m.sales_offset[j] - normal_cdf.loss(m.z[j]))
+                return m.std[j] * (m.sales_offset[j] - normal_cdf.loss(m.z[j], tail_abs=m.tail_abs_z[j]))
             return m.x[j]
         m.expected_sales = pyo.Expression(m.PRODUCTS, rule=sales)
         m.capacity = pyo.Constraint(m.LEGS, rule=capacity_rule(_leg_products(instance), lambda m, j: m.x[j]))

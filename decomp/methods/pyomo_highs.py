@@ -105,7 +105,6 @@ class PyomoHighs:
         finally:
             if enabled:
                 gc.enable()
-        t2 = time.perf_counter()
         term = termination(res.termination_condition)
         x = pi = cert = None
         iters = None
@@ -124,6 +123,7 @@ class PyomoHighs:
             pi = dlp.bid_prices(m, instance, opt.get_duals())
         except RuntimeError:
             pi = None
+        t2 = time.perf_counter()                          # solve includes loading the answer
         if x is not None and np.all(np.isfinite(x)):
             cert = _certify.certify(instance, model, x, np.zeros(instance.n_legs) if pi is None else pi,
                                     segments=options.segments)
