@@ -22,6 +22,8 @@ from .fit import fit_power_law
 
 #: Values of exactly zero are drawn at this floor on log axes.
 LOG_FLOOR = 1e-16
+#: Slopes are fitted over rungs from this size up (fixed overheads dominate below).
+FIT_MIN_N = 1000
 
 
 def _plt():
@@ -90,24 +92,28 @@ def _knob_text(row) -> str:
 def plot_time_vs_products(run, path, stat="min"):
     plt = _plt()
     series = headline_series(run, stat)
-    fig, ax = plt.subplots(figsize=(8, 5.5))
-    for (model, label), pts in sorted(series.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1]))):
+    fig, ax = plt.subplots(figsize=(9, 6))
+    colors = plt.get_cmap("tab20").colors
+    markers = {"pnlp": "o", "dlp": "s", "pwl": "^"}
+    for i, ((model, label), pts) in enumerate(sorted(series.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1])))):
         if not pts:
             continue
         n = [p[0] for p in pts]
         t = [p[1] for p in pts]
         name = f"{model} {label} {_knob_text(pts[0][2])}".strip()
-        if len(set(n)) >= 2:
-            fit = fit_power_law(n, t)
+        big = [(a, b) for a, b in zip(n, t) if a >= FIT_MIN_N]
+        if len({a for a, _ in big}) >= 2:
+            fit = fit_power_law([a for a, _ in big], [b for _, b in big])
             se = fit.stderr.get("b")
             name += f": b={fit.b:.2f}" + (f"±{se:.2f}" if se is not None else "")
         style = "--" if label and str(label).endswith("build") else "-"
-        ax.plot(n, t, style, marker="o", label=name)
+        ax.plot(n, t, style, marker=markers.get(model, "o"), color=colors[(2 * i) % 20 if i < 10 else (2 * i + 1) % 20],
+                label=name)
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel("products")
     ax.set_ylabel(f"time per call, s ({stat} of rounds)")
-    ax.set_title("Solve time against network size (slope b of t = a n^b)")
+    ax.set_title(f"Time against network size; b: fitted slope of t = a n^b over rungs >= {FIT_MIN_N:,} products")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=7, loc="upper left")
     try:
@@ -151,10 +157,18 @@ def _scatter(ax, rows, field, stat, title):
     ax.step(fx, fy, where="post", color="k", lw=1, alpha=0.6, label="Pareto front")
     ax.set_xscale("log")
     ax.set_yscale("log")
+    _no_minor_labels(ax)
     ax.set_xlabel(f"time, s ({stat} of rounds)")
     ax.set_title(title, fontsize=9)
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=6)
+
+
+def _no_minor_labels(ax):
+    from matplotlib.ticker import NullFormatter
+
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.yaxis.set_minor_formatter(NullFormatter())
 
 
 def _knob_text_from(label: str) -> str:
@@ -178,23 +192,45 @@ def plot_pareto(run, rung, path, stat="min"):
 
 
 def plot_lagrangian_gap(run, path):
+    """Each dual method on the largest rung it ran (tightest tol), and Newton on every rung (dashed)."""
     rows = [r for r in run.rows if r.get("method") == "lagrangian" and r.get("history")]
     if not rows:
         return None
     order = {r: i for i, r in enumerate(RUNG_ORDER)}
-    top = max(rows, key=lambda r: order.get(r.get("rung"), -1)).get("rung")
+
+    def tol(r):
+        return (r.get("knobs") or {}).get("tol", 1.0)
+
+    chosen = {}
+    for r in rows:
+        key = r.get("label")
+        cur = chosen.get(key)
+        if cur is None or (order.get(r.get("rung"), -1), -tol(r)) > (order.get(cur.get("rung"), -1), -tol(cur)):
+            chosen[key] = r
     plt = _plt()
     fig, ax = plt.subplots(figsize=(8, 5))
-    for r in sorted((r for r in rows if r.get("rung") == top), key=lambda r: r.case):
+
+    def draw(r, style, lw, label):
         h = [x for x in r.get("history") if x.get("gap") is not None]
-        if not h:
-            continue
-        ax.plot([x["iteration"] for x in h], [max(float(x["gap"]), LOG_FLOOR) for x in h],
-                marker=".", label=f"{r.get('label')} {_knob_text(r)}")
+        if h:
+            ax.plot([x["iteration"] for x in h], [max(float(x["gap"]), LOG_FLOOR) for x in h],
+                    style, marker=".", lw=lw, label=label)
+
+    for label, r in sorted(chosen.items()):
+        draw(r, "-", 1.8, f"{label} {_knob_text(r)}, {r.get('rung')} ({r.get('n_products')} products)")
+    newton = {}
+    for r in rows:
+        top = chosen.get("lagrangian-newton")
+        if r.get("label") == "lagrangian-newton" and top is not None and r.get("rung") != top.get("rung"):
+            if r.get("rung") not in newton or tol(r) < tol(newton[r.get("rung")]):
+                newton[r.get("rung")] = r
+    for rung in sorted(newton, key=lambda x: order.get(x, -1)):
+        draw(newton[rung], "--", 0.9, f"newton {_knob_text(newton[rung])}, {rung}")
     ax.set_yscale("log")
-    ax.set_xlabel("iteration")
+    ax.set_xscale("symlog", linthresh=10)
+    ax.set_xlabel("iteration (linear to 10, log beyond)")
     ax.set_ylabel("certified relative gap")
-    ax.set_title(f"Lagrangian dual: gap against iteration, rung {top}")
+    ax.set_title("Lagrangian dual: certified gap against iteration")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=7)
     try:

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from .cases import RUNG_ORDER
-from .plots import slopes
+from .plots import FIT_MIN_N, slopes
 
 #: Methods the speed-up columns compare against, measured in the same run.
 BASELINES = ("ipopt", "pyomo-ipopt")
@@ -142,7 +142,7 @@ def render(run, plots=(), stat: str = "min") -> str:
                 _g(r.get("peak_memory_mib"), "{:.0f}"), status,
                 _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
         out.append("")
-    fits = slopes(run, stat, min_n=1000)
+    fits = slopes(run, stat, min_n=FIT_MIN_N)
     if fits:
         out += ["## Fitted scaling t = a n^b (rungs from 1,000 products, headline knob)", "",
                 "| model | method | b | stderr of b | a | sizes |", "|---|---|---:|---:|---:|---|"]
