@@ -51,6 +51,8 @@ FAMILIES = ("normal", "gamma", "poisson", "negbin")
 #: Smallest ratio a/f used in a fractile (a = 0 would mean an unbounded allocation).
 MIN_RATIO = normal.MIN_RATIO
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
+#: 1 - (largest double below 1): the closest a/f gets to 1 short of it.
+_TOP_RATIO_GAP = 2.0 ** -53
 
 
 # ---------------------------------------------------------------------------
@@ -244,7 +246,7 @@ class Subproblems:
             self._set_normal(fare, mean, std)
             empty = np.zeros(0, dtype=np.int64)
             self.i_gam = self.i_dis = self.i_det = empty
-            self.nonsmooth = False
+            self.nonsmooth = self.n_has_jump
             return
         if codes is None:
             codes = np.zeros(n, dtype=np.int8)
@@ -274,11 +276,17 @@ class Subproblems:
         self.i_det = np.nonzero(det)[0]
         self.t_f = fare[self.i_det]
         self.t_m = np.maximum(mean[self.i_det], 0.0)
-        self.nonsmooth = bool(len(self.i_dis) or len(self.i_det))
+        self.nonsmooth = bool(len(self.i_dis) or len(self.i_det) or self.n_has_jump)
 
     def _set_normal(self, f, m, s):
         self.n_f, self.n_m, self.n_s = f, m, s
         self._n_const = None
+        # In double precision a/f cannot come closer to 1 than 2^-53, so the
+        # fractile cannot go below m + s ndtri(2^-53) = m - 8.2 s before it drops
+        # to 0 at a = f: for std < mean / 8.2 that is a jump, and the dual has a
+        # kink there like a deterministic product's (smoothed the same way).
+        self.n_jump = np.maximum(m + s * special.ndtri(_TOP_RATIO_GAP), 0.0)
+        self.n_has_jump = bool(np.any(self.n_jump > 0))
 
     def _normal_constants(self):
         """Per-product constants of the normal fast path (computed on first use)."""
@@ -290,7 +298,8 @@ class Subproblems:
                 fs_pdf=fs * _INV_SQRT_2PI,                                   # f s / sqrt(2 pi)
                 fsG0=fs * normal.loss(-m / s) if len(f) else f.copy(),       # f s G(-m/s)
                 sof_pdf=(s / f) * np.sqrt(2.0 * np.pi),                       # w = this / exp(-z^2/2)
-                curv=f * _INV_SQRT_2PI / s,                                  # f max pdf (bounds S'')
+                curv=f * _INV_SQRT_2PI / s,                                  # f max pdf (bounds f |S''|)
+                invs=1.0 / s,
             )
         return self._n_const
 
@@ -307,12 +316,12 @@ class Subproblems:
         """Solve every subproblem at bid-price sums ``a`` (one per product)."""
         a = np.asarray(a, dtype=np.float64)
         if self.all_normal:
-            x, w, value, rev = self._normal(a)
-            return SubproblemValues(x, w, value, rev, value)
+            x, w, value, rev, exact = self._normal(a, smoothing)
+            return SubproblemValues(x, w, value, rev, exact)
         x = np.zeros(self.n)
         w = np.zeros(self.n)
         rev = value = exact = 0.0
-        for idx, fn in ((self.i_norm, self._normal), (self.i_gam, self._gamma),
+        for idx, fn in ((self.i_norm, lambda aa: self._normal(aa, smoothing)), (self.i_gam, self._gamma),
                         (self.i_dis, lambda aa: self._discrete(aa, smoothing)),
                         (self.i_det, lambda aa: self._deterministic(aa, smoothing))):
             if len(idx):
@@ -323,7 +332,7 @@ class Subproblems:
                 exact += ex[0] if ex else v
         return SubproblemValues(x, w, value, rev, exact)
 
-    def _normal(self, a):
+    def _normal(self, a, smoothing=0.0):
         """x = max(0, m - s ndtri(a/f)) and, on the inside (x > 0, f ratio = a),
         f S(x) - a x = f s (G(-m/s) - pdf(z)) - a m, w = s / (f pdf(z))."""
         k = self._normal_constants()
@@ -343,7 +352,22 @@ class Subproblems:
         w = np.zeros_like(e)
         np.divide(k["sof_pdf"], e, out=w, where=inside)
         np.minimum(w, 1e300, out=w)
-        return x, w, value, rev
+        exact = value
+        if smoothing > 0 and self.n_has_jump:
+            # average the jump of height J at a = f over a +- eps (see _set_normal)
+            f, J = self.n_f, self.n_jump
+            u = f - a
+            eps = smoothing * f
+            band = np.nonzero((np.abs(u) < eps) & (J > 0))[0]
+            if len(band):
+                ub, eb, Jb = u[band], eps[band], J[band]
+                xb = Jb * np.clip((ub + eb) / (2 * eb), 0.0, 1.0)
+                # S(x) <= x, and S(x) >= x (1 - 2^-53) for x <= J: a lower bound on the change
+                rev += float(f[band] @ (xb * (1.0 - 2.0 ** -52) - x[band]))
+                x[band] = xb
+                w[band] = Jb / (2 * eb)
+                value += float(np.sum(Jb * (eb - np.abs(ub)) ** 2 / (4 * eb)))
+        return x, w, value, rev, exact
 
     def _gamma(self, a):
         ratio = a / self.g_f
@@ -393,15 +417,25 @@ class Subproblems:
         rev = float(f @ discrete_expected_sales(x, fam, m, s))
         return x, w, exact + float(np.sum(extra)), rev, exact
 
-    def curvature(self, x):
-        """Per product f_j max pdf_j x_j^2 (normal fast path): with it,
-        f S(y) >= f S(x) - (x - y) a - (x - y)^2 f max pdf for y <= x, because
-        S(x) - S(y) <= (x - y) S'(y) <= (x - y) (S'(x) + (x - y) max pdf)
-        (S concave, -S'' the density) and f S'(x) = a at the fractile."""
+    def curvature_bound(self, x, y):
+        """Per product f_j max |S_j''| over the interval between x_j and y_j
+        (normal fast path): the density is unimodal, so its largest value on the
+        interval is at the point closest to the mean. With it, by Taylor's
+        theorem with remainder,
+        f S(y) >= f S(x) + f S'(x) (y - x) - bound (y - x)^2 / 2,
+        and f S'(x) = a at an inside fractile."""
         k = self._normal_constants()
-        out = x * x
-        out *= k["curv"]
-        return out
+        m = self.n_m
+        lo = np.minimum(x, y)
+        hi = np.maximum(x, y)
+        dist = np.maximum(lo - m, 0.0)
+        dist += np.maximum(m - hi, 0.0)        # 0 when the mean lies in [lo, hi]
+        dist *= k["invs"]
+        np.square(dist, out=dist)
+        dist *= -0.5
+        np.exp(dist, out=dist)
+        dist *= k["curv"]
+        return dist
 
     # -- expected sales and marginal sales --------------------------------------
     def expected_sales(self, x):

@@ -35,13 +35,16 @@ The loop, one small step at a time:
        projected subgradient steps with the Polyak rule toward the best primal
        value; slow, for comparison.
 
-Non-smooth products (std = 0, Poisson, negative binomial) make the dual
-piecewise linear in their a_j. Newton then works on a smoothed dual (each such
-term averaged over a_j +- eps, eps = delta * f_j, see
-:meth:`decomp.distributions.Subproblems.evaluate`) with delta lowered from
-1e-3 by 10x per accepted full step down to 1e-3 * tol; the gap is always
-certified with the exact dual, so smoothing never makes an answer look better
-than it is. Legs whose Hessian row vanishes (all their products flat) take a
+Non-smooth products (std = 0, Poisson, negative binomial, and normal ones with
+std < mean / 8.2, whose fractile jumps to 0 at a = f in double precision) make
+the dual piecewise linear in their a_j. Newton then works on a smoothed dual
+(each such term averaged over a_j +- eps, eps = delta * f_j, see
+:meth:`decomp.distributions.Subproblems.evaluate`): delta starts at 0.1 and
+drops 10x whenever the smoothed dual is nearly minimized (Newton decrement
+below 1e-2 delta |q|) or the line search stalls, down to 1e-3 * tol. The gap
+is always certified with the exact dual and the exact expected sales (and
+again by :func:`decomp.certify.certify`), so smoothing never makes an answer
+look better than it is. Legs whose Hessian row vanishes (all their products flat) take a
 halving or doubling step in the gradient's direction, safeguarded by the line
 search.
 
@@ -212,6 +215,7 @@ class _Network:
         self.diag_pair[self.p_row[isdiag]] = np.nonzero(isdiag)[0]
         self.off = np.nonzero(~isdiag)[0]
         self._setup_linear_solver(linear_solver)
+        self.leg_curvature_scale = self.A_g @ self.to_groups(np.maximum(self.sub.mean, 1e-12) / self.sub.fare)
 
     # -- linear algebra set-up -----------------------------------------------------------
     def _setup_linear_solver(self, choice):
@@ -284,32 +288,74 @@ class _Network:
                       grad=self.cap - load, value=v.value + cp, exact=v.exact_value + cp,
                       smoothing=smoothing)
 
-    def recover(self, pt, want_y=True):
-        """A feasible allocation y from x(pi) (each product scaled down by the
-        smallest capacity / load over its legs) and a lower bound on its
-        revenue; y is None unless ``want_y``."""
-        over = pt.load > self.cap
+    def _scale_to_capacity(self, load):
+        """Per-group factor: the smallest capacity / load over the group's legs (<= 1)."""
+        over = load > self.cap
         if not np.any(over):
-            return (pt.x if want_y else None), pt.revenue
+            return None
         ratio = self._ratio_buf
         ratio[:-1] = 1.0
-        ratio[:-1][over] = self.cap[over] / pt.load[over] * (1.0 - 1e-14)
-        scale_g = ratio[self.Mg - 1].min(axis=1)
-        y = pt.x * self.to_products(scale_g) if (want_y or not self.sub.all_normal) else None
-        if self.sub.all_normal:
-            # group-level bound (see Subproblems.curvature): products of a group
-            # share a and the scale factor
-            cut = 1.0 - scale_g
-            curv_g = self.to_groups(self.sub.curvature(pt.x))
-            loss = float(cut @ (pt.a_g * pt.x_g)) + float((cut * cut) @ curv_g)
-            return y, pt.revenue - loss
-        return y, float(self.sub.fare @ self.sub.expected_sales(y))
+        ratio[:-1][over] = self.cap[over] / load[over] * (1.0 - 1e-14)
+        return ratio[self.Mg - 1].min(axis=1)
+
+    def recover(self, pt, d=None, want_y=True):
+        """A feasible allocation y and a lower bound on its expected revenue.
+
+        Without ``d``: y = x(pi), each product scaled down by the smallest
+        capacity / load over its legs. With the Newton direction ``d`` at pt:
+        y = max(0, x - w (A^T d)), the allocation Newton's linear model predicts
+        at pi + d (A y = c on every leg, so it is feasible up to rounding and
+        its revenue is within second order of the optimum), then scaled the
+        same way. The bound: exact expected sales for non-normal families; for
+        normal ones f S(y) >= f S(x) + a (y - x) - c (y - x)^2 / 2 with c the
+        largest f |S''| between x and y
+        (:meth:`decomp.distributions.Subproblems.curvature_bound`), no
+        special function needed but one exp. y is None unless ``want_y`` (or needed).
+        """
+        sub = self.sub
+        if d is None:
+            scale_g = self._scale_to_capacity(pt.load)
+            if scale_g is None:
+                return (pt.x if want_y else None), pt.revenue
+            if sub.all_normal:
+                # products of a group share a and the factor: first-order part per group
+                cut = scale_g - 1.0
+                dy_g = cut * pt.x_g
+                dy = pt.x * self.to_products(cut)
+                y = pt.x + dy if want_y else None
+            else:
+                y = pt.x * self.to_products(scale_g)
+        else:
+            y = self.to_products(self.AT_g @ d)
+            y *= pt.w
+            np.subtract(pt.x, y, out=y)
+            np.maximum(y, 0.0, out=y)
+            scale_g = self._scale_to_capacity(self.A_g @ self.to_groups(y))
+            if scale_g is not None:
+                y *= self.to_products(scale_g)
+            if sub.all_normal:
+                dy = y - pt.x
+                dy_g = self.to_groups(dy)
+        if not sub.all_normal:
+            return y, float(sub.fare @ sub.expected_sales(y))
+        lin = float(pt.a_g @ dy_g)
+        yy = pt.x + dy if y is None else y
+        bound = sub.curvature_bound(pt.x, yy)
+        np.square(dy, out=dy)
+        quad = 0.5 * float(bound @ dy)
+        return y, pt.revenue + lin - quad
 
     # -- Newton ------------------------------------------------------------------------------------
-    def newton_direction(self, pt, ridge=1e-12):
-        n = self.n
+    def newton_direction(self, pt, ridge=1e-12, damping=0.0):
+        """Newton's direction, or with ``damping`` mu > 0 the Levenberg-Marquardt
+        one, (H + mu diag(r)) d = -g with r_i = sum of mean_j / f_j over the
+        leg's products (the curvature of their terms smoothed over a window
+        of width f): used for non-smooth products, whose Hessian is zero
+        between breakpoints."""
         wg = self.to_groups(pt.w)
         hv = np.bincount(self.e_pair, weights=wg[self.e_group], minlength=self.n_pairs)
+        if damping > 0:
+            hv[self.diag_pair] += damping * self.leg_curvature_scale
         diag = hv[self.diag_pair]
         flat = ~(diag > 0) | ~np.isfinite(diag)
         dsc = np.where(flat, 1.0, 1.0 / np.sqrt(np.where(flat, 1.0, diag)))
@@ -417,14 +463,14 @@ class LagrangianMethod:
         if model != "pnlp":
             raise ConfigError(f"method 'lagrangian' solves the 'pnlp' model only, not {model!r}")
         so = dict(options.solver_options)
-        known = {"start", "linear_solver", "smoothing"}
+        known = {"start", "linear_solver", "smoothing", "damping"}
         unknown = set(so) - known
         if unknown:
             raise ConfigError(f"unknown lagrangian solver option(s) {sorted(unknown)}; valid: {sorted(known)}")
         linear_solver = so.get("linear_solver", "auto")
         if linear_solver not in ("auto", "dense", "schur"):
             raise ConfigError(f"linear_solver must be 'auto', 'dense' or 'schur', got {linear_solver!r}")
-        start_kind = so.get("start", "heuristic")
+        start_kind = so.get("start", "fare")
         if start_kind not in ("heuristic", "fare"):
             raise ConfigError(f"start must be 'heuristic' or 'fare', got {start_kind!r}")
 
@@ -559,13 +605,31 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     history = []
     pt = net.evaluate(pi, delta)
     term, raw, msg = Termination.ITERATION_LIMIT, "iteration_limit", None
-    _, primal = net.recover(pt, want_y=False)
-    gap = _gap(pt.exact, primal)
-    history.append(_record(0, pt, primal, gap, 0.0, t_start))
     it = 0
+    t = 0.0
+    final_pi = None
+    mu = float(so.get("damping", 0.0))
     while True:
+        d, n_flat = net.newton_direction(pt, damping=mu)
+        # two recoveries: the scaled x(pi) and the Newton-predicted allocation
+        _, p_scaled = net.recover(pt, want_y=False)
+        _, p_newton = net.recover(pt, d, want_y=False)
+        use_newton = p_newton >= p_scaled
+        primal = max(p_scaled, p_newton)
+        gap = _gap(pt.exact, primal)
+        history.append(_record(it, pt, primal, gap, t, t_start))
+        log.debug("newton %d: q=%.12g primal=%.12g (scaled %.12g) gap=%.3g step=%g flat=%d delta=%g",
+                  it, pt.exact, primal, p_scaled, gap, t, n_flat, pt.smoothing)
         if gap <= tol:
             term, raw, msg = Termination.OPTIMAL, "optimal", f"certified gap {gap:.3g} <= tol {tol:g}"
+            # The Newton-predicted allocation belongs to pi + d: return that pi
+            # too when its dual value is no worse (one more evaluation, no
+            # factorization). On flat directions of the dual, pi + d is far
+            # closer to the optimal bid prices than pi (quadratic convergence).
+            trial = net.evaluate(_step(pt.pi, d / pt.pi, 1.0), 0.0)
+            if use_newton and trial.exact <= pt.exact:
+                final_pi = trial.pi
+                gap = _gap(trial.exact, primal)
             break
         if it >= limit:
             msg = f"iteration limit {limit} reached at gap {gap:.3g}"
@@ -574,7 +638,6 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             term, raw, msg = Termination.TIME_LIMIT, "time_limit", f"time limit reached at gap {gap:.3g}"
             break
         it += 1
-        d, n_flat = net.newton_direction(pt)
         rel = d / pt.pi
         slope = float(pt.grad @ d)
         t = 1.0
@@ -593,15 +656,17 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             msg = f"line search found no decrease (directional derivative {slope:.3g}) at gap {gap:.3g}"
             break
         pt = accepted
-        if nonsmooth and delta > delta_min and t == 1.0:
+        if mu > 0:        # Levenberg-Marquardt damping follows the step length
+            mu = mu * 10.0 if t < 0.1 else (mu * 0.1 if t == 1.0 else mu)
+            mu = min(max(mu, 1e-12), 1e12)
+        # continuation: lower the smoothing once the smoothed dual is nearly
+        # minimized (its Newton decrement small against the smoothing's own
+        # error, about delta |q|) or the line search stalls
+        if nonsmooth and delta > delta_min and (t == 1.0 or -slope <= 1e-2 * delta * abs(pt.value)):
             delta = max(delta_min, 0.1 * delta)
             pt = net.evaluate(pt.pi, delta)
-        _, primal = net.recover(pt, want_y=False)
-        gap = _gap(pt.exact, primal)
-        history.append(_record(it, pt, primal, gap, t, t_start))
-        log.debug("newton %d: q=%.12g primal=%.12g gap=%.3g step=%g flat=%d", it, pt.exact, primal, gap, t, n_flat)
-    y, _ = net.recover(pt)
-    return dict(pi=pt.pi, x=y, gap=gap, termination=term, raw_status=raw, message=msg,
+    y, _ = net.recover(pt, d if use_newton else None)
+    return dict(pi=pt.pi if final_pi is None else final_pi, x=y, gap=gap, termination=term, raw_status=raw, message=msg,
                 iterations=it, history=tuple(history))
 
 

@@ -1,0 +1,200 @@
+"""The Lagrangian method (PNLP): agreement with Ipopt, strong duality, the DLP limit,
+warm starts, the other dual methods and their statuses."""
+
+import json
+
+import numpy as np
+import pytest
+
+from decomp import SolutionStatus, SolverOptions, Termination, ladder, solve
+from decomp import dual as _dual
+from decomp.generator import generate
+from decomp.methods import lagrangian as m_lagr
+from decomp.result import IterationRecord
+
+pytestmark = pytest.mark.solver
+
+
+@pytest.fixture(scope="module")
+def rungs():
+    return {name: ladder.load_rung(name) for name in ("p100", "p1k", "p10k")}
+
+
+@pytest.fixture(scope="module")
+def lagr(rungs):
+    return {name: solve(inst, "pnlp", "lagrangian") for name, inst in rungs.items()}
+
+
+def _close_bid_prices(ref, got, rel=1e-6):
+    """Bid prices agree to ``rel`` where they are at least 1e-3 of the largest."""
+    big = ref >= 1e-3 * ref.max()
+    err = np.abs(got[big] - ref[big]) / ref[big]
+    return float(err.max()) if big.any() else 0.0
+
+
+# -- agreement with Ipopt -------------------------------------------------------------
+
+@pytest.mark.parametrize("name", ["p100", "p1k", "p10k"])
+def test_agrees_with_ipopt_on_the_ladder(rungs, lagr, name):
+    # Reference: Ipopt (interior point, via the 'ipopt' method) with bound_relax_factor = 0
+    # (its default there), run to tol 1e-12 so that its multipliers are accurate enough
+    # to compare bid prices at 1e-6.
+    inst = rungs[name]
+    ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-12))
+    got = lagr[name]
+    assert ref.termination is Termination.OPTIMAL
+    assert got.ok
+    assert abs(got.objective - ref.objective) <= 1e-8 * abs(ref.objective)
+    assert _close_bid_prices(ref.bid_price_array, got.bid_price_array) <= 1e-6
+
+
+@pytest.mark.parametrize("name", ["p100", "p1k", "p10k"])
+def test_strong_duality_certified(rungs, lagr, name):
+    # Strong duality of the concave PNLP with linear constraints (mathematical fact):
+    # the dual value at the returned bid prices meets the primal value of the feasible
+    # allocation; the certificate is computed by decomp.certify, not by the loop.
+    r = lagr[name]
+    c = r.certificate
+    assert r.termination is Termination.OPTIMAL and r.solution_status is SolutionStatus.OPTIMAL
+    assert c.max_violation_rel <= 1e-9
+    assert 0 <= c.gap <= 1e-9 or abs(c.gap) <= 1e-12
+    assert c.kkt_residual <= 1e-6
+    assert c.min_bid_price > 0               # normal demand: every used leg priced
+    # the bound on the result is the independent dual value
+    assert r.bound == pytest.approx(_dual.dual_value(rungs[name], r.bid_price_array), rel=1e-14)
+
+
+def test_history_records_every_iteration(lagr):
+    r = lagr["p1k"]
+    assert len(r.history) == r.iterations + 1
+    assert all(isinstance(h, IterationRecord) for h in r.history)
+    gaps = [h.gap for h in r.history]
+    assert gaps[-1] <= 1e-9 < gaps[0]
+    duals = [h.dual_value for h in r.history]
+    # Armijo line search on the exact dual: the dual value never increases
+    assert all(b <= a * (1 + 1e-14) for a, b in zip(duals, duals[1:]))
+    assert all(h.seconds >= 0 and h.pi_norm > 0 for h in r.history)
+    json.dumps(r.to_json_dict())
+
+
+def test_dlp_limit_as_std_goes_to_zero(rungs):
+    # As std -> 0 the expected sales S(x) -> min(x, mean), so the PNLP optimum tends to
+    # the DLP optimum (solved here by HiGHS), from below (Jensen, mathematical fact).
+    inst = rungs["p100"]
+    dlp = solve(inst, "dlp", "highs").objective
+    errs = []
+    # Near-deterministic demand makes the dual nearly piecewise linear: Newton needs
+    # many more (cheap, 100-product) iterations there, hence the larger limit.
+    for eps in (1e-1, 1e-2, 1e-5):
+        r = solve(inst.with_forecast(std=inst.std * eps), "pnlp", "lagrangian",
+                  SolverOptions(iteration_limit=1000))
+        assert r.ok, (eps, r.message)
+        errs.append(dlp - r.objective)
+    assert all(e >= -1e-9 * dlp for e in errs)
+    assert errs[0] > errs[1] > errs[2]
+    assert errs[2] <= 1e-4 * dlp
+
+
+# -- warm starts --------------------------------------------------------------------------
+
+def test_warm_start_after_a_five_percent_forecast_change(rungs, lagr):
+    inst = rungs["p10k"]
+    rng = np.random.default_rng(5)
+    moved = inst.with_forecast(mean=inst.mean * rng.uniform(0.95, 1.05, inst.n_products))
+    cold = solve(moved, "pnlp", "lagrangian")
+    warm = solve(moved, "pnlp", "lagrangian", warm_start=lagr["p10k"].bid_prices)
+    assert cold.ok and warm.ok
+    assert warm.iterations <= 5 < cold.iterations
+    assert warm.objective == pytest.approx(cold.objective, rel=1e-9)
+
+
+def test_warm_start_array_and_partial_dict(rungs, lagr):
+    inst = rungs["p1k"]
+    base = lagr["p1k"]
+    r = solve(inst, "pnlp", "lagrangian", warm_start=base.bid_price_array)
+    assert r.ok and r.iterations <= 2
+    partial = dict(list(base.bid_prices.items())[: inst.n_legs // 2])   # other legs: cold start
+    r2 = solve(inst, "pnlp", "lagrangian", warm_start=partial)
+    assert r2.ok
+    assert r2.objective == pytest.approx(base.objective, rel=1e-9)
+    with pytest.raises(ValueError):
+        solve(inst, "pnlp", "lagrangian", warm_start=np.ones(3))
+
+
+# -- other dual methods, limits and statuses ----------------------------------------------
+
+def test_lbfgsb_does_not_claim_optimality_without_a_certificate(rungs):
+    inst = rungs["p1k"]
+    r = solve(inst, "pnlp", "lagrangian", SolverOptions(dual_method="lbfgsb", iteration_limit=40))
+    assert r.termination in (Termination.ITERATION_LIMIT, Termination.NUMERICAL_ERROR, Termination.OPTIMAL)
+    if r.termination is not Termination.OPTIMAL:
+        assert r.solution_status is not SolutionStatus.OPTIMAL
+    # whatever it reached is a valid bound pair: dual above primal
+    assert r.certificate.gap >= -1e-12
+    assert r.certificate.max_violation_rel <= 1e-9
+
+
+def test_lbfgsb_reaches_a_loose_tolerance(rungs, lagr):
+    r = solve(rungs["p100"], "pnlp", "lagrangian", SolverOptions(dual_method="lbfgsb", tol=1e-5))
+    assert r.ok and r.gap <= 1e-5
+    assert r.objective == pytest.approx(lagr["p100"].objective, rel=1e-5)
+
+
+def test_subgradient_hits_its_iteration_limit_honestly(rungs):
+    r = solve(rungs["p100"], "pnlp", "lagrangian", SolverOptions(dual_method="subgradient", iteration_limit=30))
+    assert r.termination is Termination.ITERATION_LIMIT
+    assert r.solution_status is SolutionStatus.FEASIBLE      # feasible, not certified
+    assert r.certificate.gap > 1e-9
+    assert r.iterations == 30
+
+
+def test_newton_iteration_and_time_limits(rungs):
+    inst = rungs["p10k"]
+    r = solve(inst, "pnlp", "lagrangian", SolverOptions(iteration_limit=2))
+    assert r.termination is Termination.ITERATION_LIMIT
+    assert r.solution_status is SolutionStatus.FEASIBLE and r.certificate.max_violation_rel <= 1e-9
+    r = solve(inst, "pnlp", "lagrangian", SolverOptions(time_limit=1e-6))
+    assert r.termination is Termination.TIME_LIMIT
+    assert r.solution_status is SolutionStatus.FEASIBLE
+
+
+def test_dense_and_schur_factorizations_agree():
+    inst = generate(3000, seed=3)
+    a = solve(inst, "pnlp", "lagrangian", SolverOptions(solver_options={"linear_solver": "dense"}))
+    b = solve(inst, "pnlp", "lagrangian", SolverOptions(solver_options={"linear_solver": "schur"}))
+    assert a.ok and b.ok and b.options["linear_solver"] == "schur"
+    assert a.objective == pytest.approx(b.objective, rel=1e-12)
+    assert np.allclose(a.bid_price_array, b.bid_price_array, rtol=1e-7, atol=1e-9 * a.bid_price_array.max())
+
+
+def test_bad_options_are_rejected(rungs):
+    from decomp.errors import ConfigError
+
+    with pytest.raises(ConfigError, match="unknown lagrangian solver option"):
+        solve(rungs["p100"], "pnlp", "lagrangian", SolverOptions(solver_options={"nope": 1}))
+    with pytest.raises(ConfigError):
+        solve(rungs["p100"], "pnlp", "lagrangian", SolverOptions(solver_options={"linear_solver": "lu"}))
+
+
+def test_lbfgsb_message_table():
+    # scipy's L-BFGS-B messages (scipy.optimize._lbfgsb_py, quoted from its source).
+    assert m_lagr.lbfgsb_termination("CONVERGENCE: REL_REDUCTION_OF_F_<=_FACTR*EPSMCH") is Termination.NUMERICAL_ERROR
+    assert m_lagr.lbfgsb_termination("STOP: TOTAL NO. OF ITERATIONS REACHED LIMIT") is Termination.ITERATION_LIMIT
+    assert m_lagr.lbfgsb_termination("ABNORMAL_TERMINATION_IN_LNSRCH") is Termination.NUMERICAL_ERROR
+    assert m_lagr.lbfgsb_termination("something new") is Termination.UNKNOWN
+
+
+def test_solve_command_writes_a_result(tmp_path, rungs):
+    from decomp.cli import main
+
+    out = tmp_path / "r.json"
+    code = main(["solve", str(ladder.rung_path("p100")), "--model", "pnlp", "--method", "lagrangian",
+                 "--out", str(out)])
+    assert code == 0
+    data = json.loads(out.read_text())
+    assert data["status"] == "optimal" and data["method"] == "lagrangian"
+    warm = tmp_path / "w.json"
+    code = main(["solve", str(ladder.rung_path("p100")), "--model", "pnlp", "--method", "lagrangian",
+                 "--warm-start", str(out), "--out", str(warm)])
+    assert code == 0
+    assert json.loads(warm.read_text())["iterations"] <= 1
