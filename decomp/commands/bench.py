@@ -55,6 +55,10 @@ def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True) -> 
     out = pathlib.Path(out or f"bench/results/{suite}")
     command = f"decomp bench --suite {suite} --out {out}" + (f" -k {k!r}" if k else "")
     res = _run(suite, out, k=k, progress=progress, command=command)
+    if res.returncode == 5:   # pytest: no tests collected
+        print("decomp bench: no case matched (suite, -k expression, or no method available); "
+              f"see {out / 'pytest.log'}", file=sys.stderr)
+        return 2
     if res.json_path is None:
         print(f"decomp bench: pytest did not produce benchmark results (exit code {res.returncode}); "
               f"see {out / 'pytest.log'}", file=sys.stderr)
