@@ -1,0 +1,216 @@
+"""Demand distributions of the subproblems: expected sales and fractiles against
+scipy.stats, the subproblem optimality conditions, the smoothing used by Newton, and
+the Lagrangian method on gamma / Poisson / negative-binomial instances against LPs
+solved by HiGHS (scipy.optimize.linprog)."""
+
+import numpy as np
+import pytest
+from scipy import integrate, optimize, stats
+
+from decomp import Instance, SolverOptions, solve
+from decomp import distributions as D
+from decomp import normal
+from decomp.errors import InstanceError
+
+
+# -- gamma -------------------------------------------------------------------------
+
+@pytest.mark.parametrize("mean,std", [(10.0, 3.0), (0.05, 0.02), (4.0, 10.0), (2.0, 5.0)])
+def test_gamma_expected_sales_and_fractile_match_scipy(mean, std):
+    # Reference: scipy.stats.gamma with shape (mean/std)^2 and scale std^2/mean, its
+    # isf() for the fractile and quadrature of its sf() for E[min(D, x)].
+    # (4, 10) and (2, 5) have coefficients of variation 2.5 > 2.
+    k, theta = (mean / std) ** 2, std * std / mean
+    ref = stats.gamma(k, scale=theta)
+    assert ref.mean() == pytest.approx(mean) and ref.std() == pytest.approx(std)
+    for q in (0.9, 0.5, 0.1, 1e-3):
+        x = ref.isf(q)
+        got_x, _ = D.gamma_fractile(np.array([q]), mean, std)
+        assert got_x[0] == pytest.approx(x, rel=1e-9)
+        # E[min(D, x)] = int_0^x P(D > t) dt (identity for D >= 0), by adaptive quadrature
+        # of scipy's sf (its expect() is inaccurate here: the density is singular at 0
+        # for shape < 1)
+        es, err = integrate.quad(ref.sf, 0.0, x, epsabs=0.0, epsrel=1e-12, limit=200)
+        assert D.gamma_expected_sales(x, mean, std) == pytest.approx(es, rel=1e-9)
+
+
+def test_gamma_fractile_derivative_is_minus_one_over_the_density():
+    # dx/dr for P(D > x) = r: -1 / pdf(x) (inverse function rule), pdf from scipy.stats.
+    mean, std = 3.0, 7.0
+    ref = stats.gamma((mean / std) ** 2, scale=std * std / mean)
+    r = np.array([0.7, 0.2, 0.01])
+    x, dxdr = D.gamma_fractile(r, mean, std)
+    assert np.allclose(dxdr, -1.0 / ref.pdf(x), rtol=1e-9)
+
+
+# -- discrete ---------------------------------------------------------------------------
+
+def _poisson_nb(mean, std):
+    r, p = D.negbin_params(mean, std)
+    return stats.nbinom(r, p)
+
+
+@pytest.mark.parametrize("family,mean,std", [(D.POISSON, 2.5, 0.0), (D.POISSON, 0.08, 0.0),
+                                             (D.NEGBIN, 4.0, 3.0), (D.NEGBIN, 0.3, 0.8)])
+def test_discrete_expected_sales_and_fractile_match_scipy(family, mean, std):
+    # Reference: scipy.stats.poisson / nbinom (nbinom(r, p) with r = mean^2/(var - mean),
+    # p = mean/var has this mean and variance); E[min(D, n)] = sum_{k<n} P(D > k).
+    ref = stats.poisson(mean) if family == D.POISSON else _poisson_nb(mean, std)
+    assert ref.mean() == pytest.approx(mean)
+    for n in range(0, 12):
+        es = float(np.sum(ref.sf(np.arange(n))))
+        got = D.discrete_expected_sales(np.array([float(n)]), np.array([family]), mean, std)[0]
+        assert got == pytest.approx(es, rel=1e-12, abs=1e-15)
+        assert D.discrete_sf(n, family, mean, std) == pytest.approx(ref.sf(n), rel=1e-12, abs=1e-300)
+    # piecewise linear between integers
+    s3, s4 = (D.discrete_expected_sales(np.array([v]), np.array([family]), mean, std)[0] for v in (3.0, 4.0))
+    s35 = D.discrete_expected_sales(np.array([3.25]), np.array([family]), mean, std)[0]
+    assert s35 == pytest.approx(0.75 * s3 + 0.25 * s4, rel=1e-14)
+    # fractile: the smallest n with P(D > n) <= r, checked by its definition
+    for r in (0.5, 0.1, 1e-4, 1e-12):
+        n = D.discrete_fractile(np.array([r]), np.array([family]), mean, std)[0]
+        assert ref.sf(n) <= r * (1 + 1e-12)
+        assert n == 0 or ref.sf(n - 1) > r
+
+
+def test_discrete_subproblem_is_solved_at_that_integer():
+    # max_x f S(x) - a x over a fine grid (brute force) is attained at the fractile
+    f, mean, std = 100.0, 3.0, 2.5
+    fam = np.array([D.NEGBIN])
+    grid = np.linspace(0, 20, 20001)
+    for a in (5.0, 30.0, 70.0, 99.0):
+        sub = D.Subproblems(np.array([f]), np.array([mean]), np.array([std]), fam)
+        v = sub.evaluate(np.array([a]))
+        vals = f * D.discrete_expected_sales(grid, np.full(grid.shape, D.NEGBIN), mean, std) - a * grid
+        assert v.exact_value == pytest.approx(vals.max(), rel=1e-12)
+        assert f * D.discrete_expected_sales(v.x, fam, mean, std)[0] - a * v.x[0] == pytest.approx(vals.max())
+
+
+def test_negbin_needs_overdispersion():
+    with pytest.raises(InstanceError, match="std"):
+        D.Subproblems(np.array([10.0]), np.array([4.0]), np.array([1.0]), np.array([D.NEGBIN]))
+
+
+# -- normal fast path and smoothing ------------------------------------------------------
+
+def test_normal_dual_terms_match_the_direct_formula():
+    # f S(x) - a x from the fast path (no loss function per iteration) equals the
+    # direct evaluation with decomp.normal.expected_sales (checked there against scipy).
+    rng = np.random.default_rng(0)
+    n = 2000
+    f = rng.uniform(10, 500, n)
+    m = rng.uniform(0.05, 50, n)
+    s = m * rng.uniform(0.1, 3.0, n)
+    a = f * rng.uniform(0, 1.2, n)
+    sub = D.Subproblems(f, m, s)
+    v = sub.evaluate(a)
+    direct = f * normal.expected_sales(v.x, m, s) - a * v.x
+    assert v.value == pytest.approx(direct.sum(), rel=1e-12)
+    assert v.revenue == pytest.approx(float(f @ normal.expected_sales(v.x, m, s)), rel=1e-12)
+    # x is the fractile: P(D > x) = a / f where x > 0 (scipy.stats.norm.sf)
+    inside = v.x > 0
+    assert np.allclose(stats.norm.sf(v.x[inside], m[inside], s[inside]), (a / f)[inside], rtol=1e-8, atol=1e-14)
+    # w = -dx/da by central differences
+    h = 1e-6 * f
+    vp, vm = sub.evaluate(a + h), sub.evaluate(a - h)
+    fd = -(vp.x - vm.x) / (2 * h)
+    ok = inside & (vm.x > 0) & (vp.x > 0)
+    assert np.allclose(v.w[ok], fd[ok], rtol=1e-4)
+
+
+def test_smoothing_is_an_upper_bound_equal_away_from_breakpoints():
+    # The window average of a convex function lies above it (Jensen) and equals it where
+    # the function is linear on the window; x_s averages the step.
+    f = np.array([100.0, 100.0, 80.0])
+    m = np.array([10.0, 10.0, 3.0])
+    s = np.array([0.0, 0.0, 2.0])
+    fam = np.array([D.NORMAL, D.NORMAL, D.POISSON])
+    sub = D.Subproblems(f, m, s, fam)
+    a = np.array([50.0, 99.99, 30.0])
+    exact = sub.evaluate(a, 0.0)
+    smooth = sub.evaluate(a, 1e-3)
+    assert smooth.value >= exact.exact_value
+    assert smooth.exact_value == pytest.approx(exact.exact_value, rel=1e-15)
+    assert smooth.x[0] == exact.x[0] == 10.0              # 50 is far from the kink at 100
+    assert smooth.x[1] == pytest.approx(10.0 * (0.01 + 0.1) / 0.2)  # inside the band
+    assert smooth.w[1] == pytest.approx(10.0 / 0.2)
+
+
+def test_family_names_are_validated():
+    legs = [("L1", "AA", "BB", 10.0)]
+    inst = Instance.from_lists(legs, [("P1", ["L1"], 10.0, 3.0, 1.0)], distribution=["weibull"])
+    with pytest.raises(InstanceError, match="row 1"):
+        D.family_codes(inst)
+    inst = Instance.from_lists(legs, [("P1", ["L1"], 10.0, 3.0, 1.0)], distribution=[" Gamma"])
+    assert D.family_codes(inst).tolist() == [D.GAMMA]
+
+
+# -- the Lagrangian method on non-normal instances ------------------------------------------
+
+LEGS = [("L1", "S1", "HB", 30.0), ("L2", "S2", "HB", 20.0), ("L3", "HB", "S3", 25.0)]
+ITS = [["L1"], ["L2"], ["L3"], ["L1", "L3"], ["L2", "L3"]]
+
+
+def _instance(family, n=25, seed=0):
+    rng = np.random.default_rng(seed)
+    prods, dist = [], []
+    for j in range(n):
+        legs = ITS[j % len(ITS)]
+        m = rng.uniform(0.5, 8.0)
+        std = m * rng.uniform(0.6, 2.5) if family == "gamma" else (np.sqrt(m) * rng.uniform(1.2, 2.0)
+                                                                    if family == "negbin" else 0.0)
+        prods.append((f"P{j}", legs, rng.uniform(50, 300) * len(legs), m, std))
+        dist.append(family)
+    return Instance.from_lists(LEGS, prods, distribution=dist)
+
+
+def _pwl_lp(inst, breakpoints):
+    """max sum_j f_j S_j(x_j) with S_j interpolated at ``breakpoints`` (P x (K+1)), by HiGHS."""
+    S = np.stack([D.expected_sales(inst, breakpoints[:, k]) for k in range(breakpoints.shape[1])], axis=1)
+    width = np.diff(breakpoints, axis=1)
+    slope = np.diff(S, axis=1) / np.where(width > 0, width, 1.0)
+    P, K = width.shape
+    c = -(inst.fare[:, None] * slope).ravel()
+    A = (inst.A.toarray()[:, :, None] * np.ones((1, 1, K))).reshape(inst.n_legs, P * K)
+    res = optimize.linprog(c, A_ub=A, b_ub=inst.capacity, bounds=list(zip(np.zeros(P * K), width.ravel())),
+                           method="highs")
+    assert res.status == 0
+    return -res.fun
+
+
+@pytest.mark.solver
+@pytest.mark.parametrize("family", ["poisson", "negbin"])
+def test_discrete_instance_equals_the_exact_integer_breakpoint_lp(family):
+    # With S piecewise linear between integers the PNLP *is* an LP with one segment per
+    # integer (slope P(D > n)); HiGHS solves it exactly, so the Lagrangian optimum must
+    # match it to the tolerance (strong duality for the LP).
+    inst = _instance(family)
+    r = solve(inst, "pnlp", "lagrangian", SolverOptions(iteration_limit=1000))
+    assert r.ok, r.message
+    nmax = 60                                    # P(D > 60) < 1e-16 for these means
+    bps = np.tile(np.arange(nmax + 1, dtype=float), (inst.n_products, 1))
+    lp = _pwl_lp(inst, bps)
+    assert r.objective == pytest.approx(lp, rel=1e-8)
+
+
+@pytest.mark.solver
+def test_gamma_instance_agrees_with_pwl_lps_as_segments_grow():
+    # The PWL model interpolates the concave S at breakpoints, so its optimum is below the
+    # PNLP's and converges to it as K grows (error O(K^-2) for equal-probability
+    # breakpoints, a known property of PWL interpolation). The breakpoints here are gamma
+    # quantiles (decomp's own PWL model uses normal quantiles, so this test builds its LP
+    # with scipy.optimize.linprog(method="highs")).
+    inst = _instance("gamma")
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.ok
+    k_shape, theta = D.gamma_params(inst.mean, inst.std)
+    errs = []
+    for K in (8, 32, 128):
+        levels = np.arange(1, K + 1) / (K + 1)
+        q = stats.gamma.ppf(levels[None, :], k_shape[:, None], scale=theta[:, None])
+        bps = np.concatenate([np.zeros((inst.n_products, 1)), q], axis=1)
+        lp = _pwl_lp(inst, bps)
+        assert lp <= r.objective * (1 + 1e-9)
+        errs.append((r.objective - lp) / r.objective)
+    assert errs[0] > errs[1] > errs[2]
+    assert errs[2] < 2e-3
