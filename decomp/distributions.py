@@ -53,6 +53,8 @@ MIN_RATIO = normal.MIN_RATIO
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 #: 1 - (largest double below 1): the closest a/f gets to 1 short of it.
 _TOP_RATIO_GAP = 2.0 ** -53
+#: Most breakpoints of a discrete product smoothed in one window.
+_MAX_JUMP = 16
 
 
 # ---------------------------------------------------------------------------
@@ -399,9 +401,15 @@ class Subproblems:
         exact = float(np.sum(exact_terms))
         if smoothing <= 0:
             return n, np.zeros(len(a)), exact, exact + float(a @ n), exact
+        # The window must stay in a > 0 (for a <= 0 the subproblem is unbounded):
+        # products with a <= eps keep the exact step (w = 0), and so do the rare
+        # ones whose window holds more than _MAX_JUMP breakpoints.
         eps = smoothing * f
         n1 = discrete_fractile((a - eps) / f, fam, m, s)  # x(a - eps) >= x(a + eps)
         n2 = discrete_fractile((a + eps) / f, fam, m, s)
+        keep = (a <= eps) | (n1 - n2 > _MAX_JUMP)
+        n1 = np.where(keep, n, n1)
+        n2 = np.where(keep, n, n2)
         x = n2.copy()
         extra = np.zeros(len(a))
         jump = n1 - n2
