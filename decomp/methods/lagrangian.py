@@ -54,8 +54,14 @@ A zero-capacity leg gets the smallest bid price that closes all its products:
 max_j (f_j S_j'(0) - the product's other bid prices)^+.
 
 Solver-specific options (``SolverOptions.solver_options``): ``start``
-("heuristic" default, or "fare"), ``linear_solver`` ("auto", "dense",
-"schur"), ``smoothing`` (initial delta).
+("fare" default: half the demand-weighted fare per leg of the products on
+each leg, measured fewer iterations than "heuristic"), ``linear_solver`` ("auto", "dense",
+"schur"), ``smoothing`` (initial delta), ``bid_tol`` (Newton stops when the gap
+is within tol and its next step moves no bid price of at least 1e-3 of the
+largest by more than bid_tol relative, default 1e-5; the step is then taken,
+and measured errors against Ipopt at tol 1e-12 were below 1e-6; not applied
+with non-smooth products, whose optimal bid prices need not be unique),
+``damping`` (Levenberg-Marquardt factor for non-smooth products, default 0).
 """
 
 from __future__ import annotations
@@ -463,7 +469,7 @@ class LagrangianMethod:
         if model != "pnlp":
             raise ConfigError(f"method 'lagrangian' solves the 'pnlp' model only, not {model!r}")
         so = dict(options.solver_options)
-        known = {"start", "linear_solver", "smoothing", "damping"}
+        known = {"start", "linear_solver", "smoothing", "damping", "bid_tol"}
         unknown = set(so) - known
         if unknown:
             raise ConfigError(f"unknown lagrangian solver option(s) {sorted(unknown)}; valid: {sorted(known)}")
@@ -572,14 +578,20 @@ def _price_zero_legs(instance, net, pi_full):
 
 
 def _step(pi, rel, t):
-    """pi * exp(t d / pi): Newton's step d to first order, never leaving pi > 0.
+    """The trial point along Newton's direction d (rel = d / pi), kept > 0.
 
-    This is the Newton step taken in u = log(pi). Slack legs, whose load grows
-    like sqrt(log(1 / pi)), converge in a few steps this way instead of
-    overshooting to the floor and creeping back (measured: 15 instead of 60+
-    iterations at 100,000 products)."""
-    out = np.clip(t * rel, -700.0, 50.0)
+    Decreases are taken in u = log(pi), pi exp(t d / pi): slack legs, whose load
+    grows like sqrt(log(1 / pi)), then fall in a few steps instead of
+    overshooting below zero; increases are the plain Newton step pi + t d (in
+    log space a leg rising from 1e-40 would force a tiny t on every leg).
+    Both agree with pi + t d to first order. Measured at 10,000 / 100,000
+    products: 9 / 8 iterations, against 12 / 12 with log steps both ways and
+    60+ with projected (floored) plain steps.
+    """
+    r = t * rel
+    out = np.clip(r, -700.0, 0.0)
     np.exp(out, out=out)
+    np.copyto(out, 1.0 + r, where=r > 0)
     out *= pi
     return np.maximum(out, 1e-300, out=out)
 
@@ -609,6 +621,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     t = 0.0
     final_pi = None
     mu = float(so.get("damping", 0.0))
+    bid_tol = float(so.get("bid_tol", 1e-5))
     while True:
         d, n_flat = net.newton_direction(pt, damping=mu)
         # two recoveries: the scaled x(pi) and the Newton-predicted allocation
@@ -620,7 +633,12 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         history.append(_record(it, pt, primal, gap, t, t_start))
         log.debug("newton %d: q=%.12g primal=%.12g (scaled %.12g) gap=%.3g step=%g flat=%d delta=%g",
                   it, pt.exact, primal, p_scaled, gap, t, n_flat, pt.smoothing)
-        if gap <= tol:
+        # bid prices settled: Newton's step is below bid_tol relative on every leg
+        # priced at least 1e-3 of the largest (the dual is flat in some directions,
+        # so a small gap alone does not pin the bid prices down)
+        big = pt.pi >= 1e-3 * pt.pi.max(initial=0.0)
+        settled = nonsmooth or not np.any(np.abs(d[big]) > bid_tol * pt.pi[big])
+        if gap <= tol and settled:
             term, raw, msg = Termination.OPTIMAL, "optimal", f"certified gap {gap:.3g} <= tol {tol:g}"
             # The Newton-predicted allocation belongs to pi + d: return that pi
             # too when its dual value is no worse (one more evaluation, no
