@@ -12,7 +12,9 @@ without binary variables: sum_k s_jk y_jk is the interpolant at x_j = sum_k
 y_jk. The interpolant lies below S_j (chords of a concave curve) and stops at
 b_K, so the PWL optimum is at most the PNLP optimum and approaches it as K
 grows. Products with std = 0 get one segment [0, mean] of slope 1 (their
-other segments have width 0).
+other segments have width 0). For products of another demand family the
+breakpoints are still placed at normal quantiles of their mean and std, and
+S_j is that family's expected sales (chords of a concave curve all the same).
 
 :func:`segments` is the numpy table that the array method
 (:mod:`decomp.methods.highs`) and the certificate use; :func:`build` is the

@@ -235,3 +235,13 @@ def test_results_carry_versions_and_phases(rungs):
     r = solve(rungs["p100"], "pnlp", "ipopt")
     assert r.solver_version.startswith("Ipopt 3.")
     assert r.options["ipopt"]["bound_relax_factor"] == 0.0
+
+
+def test_direct_pnlp_methods_refuse_other_distributions():
+    from decomp import InstanceError
+
+    inst = Instance.from_lists([("A", "AAA", "BBB", 10.0)], [("p", ["A"], 100.0, 12.0, 4.0)],
+                               distribution=["gamma"])
+    for method in ("ipopt", "pyomo-ipopt"):
+        with pytest.raises(InstanceError, match="normal demand only"):
+            solve(inst, "pnlp", method)

@@ -31,7 +31,7 @@ import numpy as np
 
 from .. import certify as _certify
 from .. import distributions, normal
-from ..errors import ConfigError, SolverUnavailableError
+from ..errors import ConfigError, InstanceError, SolverUnavailableError
 from ..registry import register
 from ..result import SolveResult, Termination
 from .highs import options_record
@@ -171,6 +171,18 @@ def start_point(instance, warm_start_pi=None):
     return 0.5 * m * per_product
 
 
+def require_normal(instance, method: str) -> None:
+    """The PNLP of the direct methods is written for normal demand: refuse anything else."""
+    names = instance.distributions()
+    other = names != "normal"
+    if np.any(other):
+        j = int(np.flatnonzero(other)[0])
+        raise InstanceError(
+            f"method {method!r} models normal demand only; {int(other.sum())} products have other "
+            f"distributions (first: product {instance.product_ids[j]!r}, {names[j]!r}); "
+            "use method 'lagrangian' for those", column="distribution", value=names[j])
+
+
 def warm_start_array(instance, warm_start):
     """Bid prices aligned with the legs from a dict by leg id or an array; None if not given."""
     if warm_start is None:
@@ -210,6 +222,7 @@ class IpoptArrays:
             raise SolverUnavailableError("cyipopt is not installed; pip install cyipopt") from exc
         if model != "pnlp":
             raise ConfigError(f"method 'ipopt' solves the pnlp, not {model!r}")
+        require_normal(instance, self.name)
         t0 = time.perf_counter()
         P, L = instance.n_products, instance.n_legs
         cb = PnlpArrays(instance)

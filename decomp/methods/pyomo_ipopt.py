@@ -28,7 +28,7 @@ from ..registry import register
 from ..result import SolveResult, Termination
 from .highs import options_record
 from .ipopt import ipopt_options, ipopt_version, start_point, termination as ipopt_termination
-from .ipopt import warm_start_array
+from .ipopt import require_normal, warm_start_array
 
 log = logging.getLogger(__name__)
 
@@ -111,6 +111,7 @@ class PyomoIpopt:
 
         if model != "pnlp":
             raise ConfigError(f"method 'pyomo-ipopt' solves the pnlp, not {model!r}")
+        require_normal(instance, self.name)
         t0 = time.perf_counter()
         pi0 = warm_start_array(instance, warm_start)
         x0 = start_point(instance, pi0)
