@@ -175,6 +175,18 @@ def discrete_fractile(ratio, family, mean, std):
 # ---------------------------------------------------------------------------
 # Per-product dispatch
 # ---------------------------------------------------------------------------
+def _loss_at_minus(t):
+    """G(-t) = pdf(t) + t Phi(t) (normal loss); direct where t >= 0 (no cancellation)."""
+    t = np.asarray(t, dtype=np.float64)
+    out = np.exp(-0.5 * t * t)
+    out *= _INV_SQRT_2PI
+    out += t * special.ndtr(t)
+    neg = t < 0
+    if np.any(neg):
+        out[neg] = normal.loss(-t[neg])
+    return out
+
+
 def family_codes(instance) -> np.ndarray | None:
     """Per-product family code (int8), or None when every product is normal.
 
@@ -223,6 +235,7 @@ class SubproblemValues:
     value: float
     revenue: float
     exact_value: float
+    density: np.ndarray | None = None   # all-normal: exp(-z^2/2) at x (0 where x = 0)
 
 
 class Subproblems:
@@ -295,12 +308,15 @@ class Subproblems:
         if self._n_const is None:
             f, m, s = self.n_f, self.n_m, self.n_s
             fs = f * s
+            sof = (s / f) * np.sqrt(2.0 * np.pi)
             self._n_const = dict(
+                cap_w=bool(len(f) and sof.max() > 1.0),
                 invf=1.0 / f,
                 fs_pdf=fs * _INV_SQRT_2PI,                                   # f s / sqrt(2 pi)
-                fsG0=fs * normal.loss(-m / s) if len(f) else f.copy(),       # f s G(-m/s)
+                fsG0=fs * _loss_at_minus(m / s),                             # f s G(-m/s)
                 sof_pdf=(s / f) * np.sqrt(2.0 * np.pi),                       # w = this / exp(-z^2/2)
                 curv=f * _INV_SQRT_2PI / s,                                  # f max pdf (bounds f |S''|)
+                invs2=1.0 / (s * s),
                 invs=1.0 / s,
             )
         return self._n_const
@@ -318,8 +334,8 @@ class Subproblems:
         """Solve every subproblem at bid-price sums ``a`` (one per product)."""
         a = np.asarray(a, dtype=np.float64)
         if self.all_normal:
-            x, w, value, rev, exact = self._normal(a, smoothing)
-            return SubproblemValues(x, w, value, rev, exact)
+            x, w, value, rev, exact, dens = self._normal(a, smoothing)
+            return SubproblemValues(x, w, value, rev, exact, dens)
         x = np.zeros(self.n)
         w = np.zeros(self.n)
         rev = value = exact = 0.0
@@ -348,12 +364,16 @@ class Subproblems:
         np.square(z, out=z)
         z *= -0.5
         e = np.exp(z, out=z)                 # exp(-z^2/2) = sqrt(2 pi) pdf(z)
-        np.multiply(e, inside, out=e)
-        value = float(k["fsG0"] @ inside) - float(k["fs_pdf"] @ e) - float((a * self.n_m) @ inside)
+        insf = inside.astype(np.float64)
+        e *= insf
+        am = a * self.n_m
+        value = float(k["fsG0"] @ insf) - float(k["fs_pdf"] @ e) - float(am @ insf)
         rev = value + float(a @ x)
-        w = np.zeros_like(e)
-        np.divide(k["sof_pdf"], e, out=w, where=inside)
-        np.minimum(w, 1e300, out=w)
+        w = np.maximum(e, 1e-300, out=am)    # reuse the buffer; w = 0 outside
+        np.divide(k["sof_pdf"], w, out=w)
+        w *= insf
+        if k["cap_w"]:
+            np.minimum(w, 1e300, out=w)
         exact = value
         if smoothing > 0 and self.n_has_jump:
             # average the jump of height J at a = f over a +- eps (see _set_normal)
@@ -369,7 +389,8 @@ class Subproblems:
                 x[band] = xb
                 w[band] = Jb / (2 * eb)
                 value += float(np.sum(Jb * (eb - np.abs(ub)) ** 2 / (4 * eb)))
-        return x, w, value, rev, exact
+                e = None                     # x moved: the density no longer belongs to it
+        return x, w, value, rev, exact, e
 
     def _gamma(self, a):
         ratio = a / self.g_f
@@ -424,6 +445,28 @@ class Subproblems:
         w = jump / (2 * eps)
         rev = float(f @ discrete_expected_sales(x, fam, m, s))
         return x, w, exact + float(np.sum(extra)), rev, exact
+
+    def curvature(self):
+        """Per product f_j max_x pdf_j(x): bounds f |S''| everywhere."""
+        return self._normal_constants()["curv"]
+
+    def curvature_bound_at(self, x, y, density):
+        """Like :meth:`curvature_bound` from ``density`` = exp(-z^2/2) at x
+        (``last_density`` of the evaluation that gave x), without an exp: on
+        the interval, -z^2/2 <= -z_x^2/2 + |z_x| |z - z_x|, and
+        exp(t) <= 1 / (1 - t) for 0 <= t < 1 (the global maximum otherwise)."""
+        k = self._normal_constants()
+        t = np.abs(x - self.n_m)
+        t *= np.abs(y - x)
+        t *= k["invs2"]
+        small = t < 1.0
+        np.subtract(1.0, t, out=t)
+        np.maximum(t, 1e-300, out=t)
+        np.divide(density, t, out=t)
+        np.minimum(t, 1.0, out=t)
+        t[~small] = 1.0
+        t *= k["curv"]
+        return t
 
     def curvature_bound(self, x, y):
         """Per product f_j max |S_j''| over the interval between x_j and y_j

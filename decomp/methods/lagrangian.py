@@ -58,10 +58,13 @@ Solver-specific options (``SolverOptions.solver_options``): ``start``
 each leg, measured fewer iterations than "heuristic"), ``linear_solver`` ("auto", "dense",
 "schur"), ``smoothing`` (initial delta), ``bid_tol`` (Newton stops when the gap
 is within tol and its next step moves no bid price of at least 1e-3 of the
-largest by more than bid_tol relative, default 1e-5; the step is then taken,
+largest by more than bid_tol relative, default 1e-4; the step is then taken,
 and measured errors against Ipopt at tol 1e-12 were below 1e-6; not applied
 with non-smooth products, whose optimal bid prices need not be unique),
-``damping`` (Levenberg-Marquardt factor for non-smooth products, default 0).
+``damping`` (Levenberg-Marquardt factor for non-smooth products, default 0),
+``precision`` ("mixed" default: the Schur complement is formed and factored in
+single precision and the solve refined in double precision to a residual of
+1e-12, falling back to double precision when refinement stalls; "double").
 """
 
 from __future__ import annotations
@@ -127,27 +130,31 @@ class _Point:
     value: float          # the (possibly smoothed) dual value the line search uses
     exact: float          # the exact dual value q(pi) (an upper bound)
     smoothing: float
+    density: np.ndarray | None = None   # normal fast path: exp(-z^2/2) at x
 
 
 class _Network:
     """The problem left after pre-processing, with everything precomputed that
     does not depend on pi (built once per solve)."""
 
-    def __init__(self, instance, linear_solver="auto"):
+    def __init__(self, instance, linear_solver="auto", mixed=True, tol=1e-9):
+        self.mixed = bool(mixed)
+        self.tol = float(tol)
         P, L = instance.n_products, instance.n_legs
         self.instance = instance
         cap = instance.capacity
         lpp = instance.legs_per_product
         leg_index = instance.leg_index
         zero_leg = cap <= 0
-        prod_of_nnz = np.repeat(np.arange(P, dtype=np.int64), lpp)
         if np.any(zero_leg):
+            prod_of_nnz = np.repeat(np.arange(P, dtype=np.int64), lpp)
             dead = np.bincount(prod_of_nnz, weights=zero_leg[leg_index], minlength=P) > 0
+            live_nnz = ~dead[prod_of_nnz]
+            used = np.bincount(leg_index[live_nnz], minlength=L) > 0
         else:
             dead = np.zeros(P, dtype=bool)
+            used = np.bincount(leg_index, minlength=L) > 0
         self.dead = dead
-        live_nnz = ~dead[prod_of_nnz]
-        used = np.bincount(leg_index[live_nnz], minlength=L) > 0
         self.zero_leg = zero_leg
         self.legs = np.nonzero(used)[0]            # active legs (positive capacity, used)
         self.n = n = len(self.legs)
@@ -170,9 +177,11 @@ class _Network:
         K = max(K, 1)
         ptr = np.zeros(Pl + 1, dtype=np.int64)
         np.cumsum(lpp_l, out=ptr[1:])
-        pos = np.arange(len(idx_l)) - np.repeat(ptr[:-1], lpp_l)
-        M = np.zeros((Pl, K), dtype=np.int64)
-        M[np.repeat(np.arange(Pl), lpp_l), pos] = idx_l + 1       # 0 = no leg
+        M = np.zeros((Pl, K), dtype=np.int64)                      # 0 = no leg
+        last = max(len(idx_l) - 1, 0)
+        for k in range(K):                                         # a loop over leg positions
+            col = idx_l[np.minimum(ptr[:-1] + k, last)] + 1 if len(idx_l) else np.zeros(Pl, np.int64)
+            M[:, k] = np.where(lpp_l > k, col, 0)
         if Pl:
             same = np.all(M[1:] == M[:-1], axis=1)
             starts = np.concatenate([[0], np.nonzero(~same)[0] + 1])
@@ -211,7 +220,16 @@ class _Network:
                 rows.append(r[keep]); cols.append(c[keep]); egrp.append(np.nonzero(ok)[0][keep])
         rows = np.concatenate(rows); cols = np.concatenate(cols); egrp = np.concatenate(egrp)
         key = rows * n + cols
-        ukey, self.e_pair = np.unique(key, return_inverse=True)
+        if n * n <= 64 * max(len(key), 1) + 2 ** 24:
+            # distinct pairs by marking a dense table (no sort): O(n^2 + entries)
+            mark = np.zeros(n * n, dtype=bool)
+            mark[key] = True
+            ukey = np.flatnonzero(mark)
+            rank = np.cumsum(mark, dtype=np.int64)
+            self.e_pair = rank[key] - 1
+            del mark, rank
+        else:
+            ukey, self.e_pair = np.unique(key, return_inverse=True)
         self.e_group = egrp
         self.p_row = ukey // n
         self.p_col = ukey % n
@@ -262,6 +280,8 @@ class _Network:
             self.s_ir_flat = iI + nI * iR                     # MT (nI x nR), Fortran order
             self.MT = np.zeros((nI, nR), order="F")
             self.S = np.zeros((nR, nR), order="F")
+            self.MT32 = np.zeros((nI, nR), dtype=np.float32, order="F")
+            self.S32 = np.zeros((nR, nR), dtype=np.float32, order="F")
         else:
             self.flat = self.p_row + n * self.p_col            # Fortran order, lower triangle
             self.Hbuf = np.zeros((n, n), order="F")
@@ -292,7 +312,8 @@ class _Network:
         cp = float(self.cap @ pi)
         return _Point(pi=pi, a_g=a_g, x=v.x, x_g=x_g, w=v.w, revenue=v.revenue, load=load,
                       grad=self.cap - load, value=v.value + cp, exact=v.exact_value + cp,
-                      smoothing=smoothing)
+                      smoothing=smoothing,
+                      density=v.density)
 
     def _scale_to_capacity(self, load):
         """Per-group factor: the smallest capacity / load over the group's legs (<= 1)."""
@@ -346,9 +367,15 @@ class _Network:
             return y, float(sub.fare @ sub.expected_sales(y))
         lin = float(pt.a_g @ dy_g)
         yy = pt.x + dy if y is None else y
-        bound = sub.curvature_bound(pt.x, yy)
-        np.square(dy, out=dy)
-        quad = 0.5 * float(bound @ dy)
+        dy2 = np.square(dy)
+        # the cheap bound (largest density anywhere) first; the tighter one
+        # (largest density between x and y, one exp) only when it matters
+        quad = 0.5 * float(sub.curvature() @ dy2)
+        if quad > 1e-4 * self.tol * abs(pt.revenue):
+            if pt.density is not None:
+                quad = 0.5 * float(sub.curvature_bound_at(pt.x, yy, pt.density) @ dy2)
+            else:
+                quad = 0.5 * float(sub.curvature_bound(pt.x, yy) @ dy2)
         return y, pt.revenue + lin - quad
 
     # -- Newton ------------------------------------------------------------------------------------
@@ -369,8 +396,9 @@ class _Network:
         sv *= dsc[self.p_col]
         # Couplings of a leg with slack (diagonal up to 1e300) scale to 1e-150 and
         # below; their products would be subnormal and slow the factorization
-        # a hundredfold. Below 1e-30 of the unit diagonal they change nothing.
-        sv[np.abs(sv) < 1e-30] = 0.0
+        # a hundredfold. Below 1e-30 of the unit diagonal they change nothing
+        # (1e-15 in single precision, where subnormals start near 1e-38).
+        sv[np.abs(sv) < (1e-15 if self.mixed else 1e-30)] = 0.0
         sv[self.diag_pair] = 1.0 + ridge
         b = -pt.grad * dsc
         b[flat] = 0.0
@@ -396,20 +424,64 @@ class _Network:
             H.ravel(order="F")[self.flat] = sv
             c = sla.cho_factor(H, lower=True, overwrite_a=True, check_finite=False)
             return sla.cho_solve(c, b, check_finite=False)
+        if self.mixed:
+            try:
+                return self._solve_schur_mixed(sv, b)
+            except (np.linalg.LinAlgError, sla.LinAlgError, FloatingPointError):
+                pass                     # fall back to double precision
         MT, S = self.MT, self.S
         MT.fill(0.0)
         S.fill(0.0)
         MT.ravel(order="F")[self.s_ir_flat] = sv[self.s_ir]
         S.ravel(order="F")[self.s_rr_flat] = sv[self.s_rr]
-        bI, bR = b[self.I], b[self.R]
         # S <- H_RR - M M^T (M = MT^T), then Cholesky of the Schur complement
         S = blas.dsyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
         c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
+        return self._schur_apply_inverse(c, MT, b)
+
+    def _schur_apply_inverse(self, c, MT, b):
+        """H^{-1} b from the Cholesky factor c of the Schur complement (unit I block)."""
+        dt = MT.dtype
+        bI, bR = b[self.I].astype(dt), b[self.R].astype(dt)
         uR = sla.cho_solve(c, bR - MT.T @ bI, check_finite=False)
         u = np.empty(self.n)
         u[self.R] = uR
         u[self.I] = bI - MT @ uR
         return u
+
+    def _apply_scaled(self, sv, u):
+        """Hs u from the lower-triangle pairs of the scaled Hessian (float64)."""
+        r, c = self.p_row, self.p_col
+        out = np.bincount(r, weights=sv * u[c], minlength=self.n)
+        off = self.off
+        out += np.bincount(c[off], weights=sv[off] * u[r[off]], minlength=self.n)
+        return out
+
+    def _solve_schur_mixed(self, sv, b):
+        """The Schur-complement solve in single precision (half the time of the
+        dominant syrk and Cholesky), then iterative refinement in double
+        precision against the exact scaled Hessian until the residual is
+        1e-12 of b (falls back to double precision if it does not get there)."""
+        MT, S = self.MT32, self.S32
+        MT.fill(0.0)
+        S.fill(0.0)
+        MT.ravel(order="F")[self.s_ir_flat] = sv[self.s_ir]
+        S.ravel(order="F")[self.s_rr_flat] = sv[self.s_rr]
+        S = blas.ssyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
+        c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
+        u = self._schur_apply_inverse(c, MT, b)
+        bn = float(np.abs(b).max()) or 1.0
+        prev = np.inf
+        for _ in range(8):
+            res = b - self._apply_scaled(sv, u)
+            rn = float(np.abs(res).max())
+            if not np.isfinite(rn) or rn > 0.5 * prev:
+                raise FloatingPointError("refinement stalled")
+            if rn <= 1e-12 * bn:
+                return u
+            u += self._schur_apply_inverse(c, MT, res)
+            prev = rn
+        raise FloatingPointError("refinement did not converge")
 
     # -- starting points ----------------------------------------------------------------------
     def start(self, kind="heuristic"):
@@ -469,7 +541,7 @@ class LagrangianMethod:
         if model != "pnlp":
             raise ConfigError(f"method 'lagrangian' solves the 'pnlp' model only, not {model!r}")
         so = dict(options.solver_options)
-        known = {"start", "linear_solver", "smoothing", "damping", "bid_tol"}
+        known = {"start", "linear_solver", "smoothing", "damping", "bid_tol", "precision"}
         unknown = set(so) - known
         if unknown:
             raise ConfigError(f"unknown lagrangian solver option(s) {sorted(unknown)}; valid: {sorted(known)}")
@@ -477,12 +549,15 @@ class LagrangianMethod:
         if linear_solver not in ("auto", "dense", "schur"):
             raise ConfigError(f"linear_solver must be 'auto', 'dense' or 'schur', got {linear_solver!r}")
         start_kind = so.get("start", "fare")
+        precision = so.get("precision", "mixed")
+        if precision not in ("mixed", "double"):
+            raise ConfigError(f"precision must be 'mixed' or 'double', got {precision!r}")
         if start_kind not in ("heuristic", "fare"):
             raise ConfigError(f"start must be 'heuristic' or 'fare', got {start_kind!r}")
 
         t0 = time.perf_counter()
         with _blas_threads(options.threads or 1):
-            net = _Network(instance, linear_solver)
+            net = _Network(instance, linear_solver, mixed=precision == "mixed", tol=options.tol)
         pi_full0 = np.zeros(instance.n_legs)
         pi_full0[net.legs] = net.start(start_kind)
         if warm_start is not None:
@@ -621,12 +696,13 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     t = 0.0
     final_pi = None
     mu = float(so.get("damping", 0.0))
-    bid_tol = float(so.get("bid_tol", 1e-5))
+    bid_tol = float(so.get("bid_tol", 1e-4))
     while True:
         d, n_flat = net.newton_direction(pt, damping=mu)
         # two recoveries: the scaled x(pi) and the Newton-predicted allocation
-        _, p_scaled = net.recover(pt, want_y=False)
+        # (only the latter for normal demand, where it is measured better)
         _, p_newton = net.recover(pt, d, want_y=False)
+        p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
         use_newton = p_newton >= p_scaled
         primal = max(p_scaled, p_newton)
         gap = _gap(pt.exact, primal)
