@@ -74,7 +74,8 @@ def _load(name: str):
 def run(args) -> int:
     import logging
 
-    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core"):
+    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
+                 "distributed.batched", "distributed.worker", "distributed.diskutils", "distributed.http.proxy"):
         logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
     from ..simulation import ForecastError, SimulationConfig, parse_policies, simulate
     from ..simulation import report
