@@ -446,6 +446,15 @@ class Subproblems:
         rev = float(f @ discrete_expected_sales(x, fam, m, s))
         return x, w, exact + float(np.sum(extra)), rev, exact
 
+    def revenue(self, y):
+        """sum_j f_j S_j(y_j), exactly (normal fast path: f s (G(-m/s) - G(z)))."""
+        if not self.all_normal:
+            return float(self.fare @ self.expected_sales(y))
+        k = self._normal_constants()
+        z = y - self.n_m
+        z *= k["invs"]
+        return float(k["fsG0"].sum() - self.n_f @ (self.n_s * normal.loss(z)))
+
     def curvature(self):
         """Per product f_j max_x pdf_j(x): bounds f |S''| everywhere."""
         return self._normal_constants()["curv"]

@@ -325,6 +325,30 @@ class _Network:
         ratio[:-1][over] = self.cap[over] / load[over] * (1.0 - 1e-14)
         return ratio[self.Mg - 1].min(axis=1)
 
+    def _close_slack(self, pt, y):
+        """One more Newton correction of the predicted allocation: legs left
+        with slack or overload (clipping at 0, products held at the clip) get
+        A W A^T lam = c - A y solved with the factorization of this iteration,
+        and y += W A^T lam (W = diag(w))."""
+        last = getattr(self, "_last", None)
+        if last is None or last[0] is not pt or getattr(self, "_inv", None) is None:
+            return y
+        _, dsc, flat = last
+        r = self.cap - self.A_g @ self.to_groups(y)
+        rhs = r * dsc
+        rhs[flat] = 0.0
+        try:
+            lam = self._inv(rhs) * dsc
+        except (np.linalg.LinAlgError, sla.LinAlgError, FloatingPointError):
+            return y
+        lam[flat] = 0.0
+        dy = self.to_products(self.AT_g @ lam)
+        dy *= pt.w
+        if pt.density is not None:
+            dy[pt.density <= _clip_density()] = 0.0
+        y = y + dy
+        return np.maximum(y, 0.0, out=y)
+
     def recover(self, pt, d=None, want_y=True):
         """A feasible allocation y and a lower bound on its expected revenue.
 
@@ -355,8 +379,14 @@ class _Network:
         else:
             y = self.to_products(self.AT_g @ d)
             y *= pt.w
+            if pt.density is not None:
+                # products held at the fractile's clip (a/f = MIN_RATIO) do not
+                # move with a: their w (kept for the Hessian) would predict huge
+                # changes from tiny ones in a
+                y[pt.density <= _clip_density()] = 0.0
             np.subtract(pt.x, y, out=y)
             np.maximum(y, 0.0, out=y)
+            y = self._close_slack(pt, y)
             scale_g = self._scale_to_capacity(self.A_g @ self.to_groups(y))
             if scale_g is not None:
                 y *= self.to_products(scale_g)
@@ -412,6 +442,7 @@ class _Network:
         else:
             u = b.copy()                 # steepest descent in the scaled space
         d = u * dsc
+        self._last = (pt, dsc, flat)
         if np.any(flat):
             g = pt.grad[flat]
             d[flat] = np.where(g > 0, -0.5 * pt.pi[flat], np.where(g < 0, pt.pi[flat], 0.0))
@@ -423,7 +454,8 @@ class _Network:
             H.fill(0.0)
             H.ravel(order="F")[self.flat] = sv
             c = sla.cho_factor(H, lower=True, overwrite_a=True, check_finite=False)
-            return sla.cho_solve(c, b, check_finite=False)
+            self._inv = lambda rhs: sla.cho_solve(c, rhs, check_finite=False)
+            return self._inv(b)
         if self.mixed:
             try:
                 return self._solve_schur_mixed(sv, b)
@@ -437,7 +469,8 @@ class _Network:
         # S <- H_RR - M M^T (M = MT^T), then Cholesky of the Schur complement
         S = blas.dsyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
         c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
-        return self._schur_apply_inverse(c, MT, b)
+        self._inv = lambda rhs: self._schur_apply_inverse(c, MT, rhs)
+        return self._inv(b)
 
     def _schur_apply_inverse(self, c, MT, b):
         """H^{-1} b from the Cholesky factor c of the Schur complement (unit I block)."""
@@ -469,6 +502,11 @@ class _Network:
         S.ravel(order="F")[self.s_rr_flat] = sv[self.s_rr]
         S = blas.ssyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
         c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
+        u = self._refined(c, MT, sv, b)
+        self._inv = lambda rhs: self._refined(c, MT, sv, rhs)
+        return u
+
+    def _refined(self, c, MT, sv, b):
         u = self._schur_apply_inverse(c, MT, b)
         bn = float(np.abs(b).max()) or 1.0
         prev = np.inf
@@ -503,6 +541,14 @@ class _Network:
         lf = dem / np.maximum(self.cap, 1e-300)
         pi = avg * np.clip(1.0 - 1.0 / np.maximum(lf, 1e-12), 0.0, 1.0)
         return np.maximum(pi, 1e-3 * avg)
+
+
+def _clip_density():
+    """exp(-z^2/2) at the fractile's clip z = -ndtri(MIN_RATIO), times 1 + 1e-9."""
+    from scipy import special
+
+    z = special.ndtri(distributions.MIN_RATIO)
+    return float(np.exp(-0.5 * z * z)) * (1.0 + 1e-9)
 
 
 def _warm_pi(instance, warm_start, default):
@@ -701,8 +747,12 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         d, n_flat = net.newton_direction(pt, damping=mu)
         # two recoveries: the scaled x(pi) and the Newton-predicted allocation
         # (only the latter for normal demand, where it is measured better)
-        _, p_newton = net.recover(pt, d, want_y=False)
+        y_n, p_newton = net.recover(pt, d, want_y=True)
         p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
+        if net.sub.all_normal and tol < _gap(pt.exact, p_newton) <= 1e-3:
+            # final phase: the exact revenue of y (one loss-function pass) instead
+            # of its Taylor bound, which lags the dual by orders of magnitude
+            p_newton = max(p_newton, net.sub.revenue(y_n))
         use_newton = p_newton >= p_scaled
         primal = max(p_scaled, p_newton)
         gap = _gap(pt.exact, primal)
