@@ -101,8 +101,10 @@ def fractile(a, fare, mean, std):
     a, fare, mean, std = np.broadcast_arrays(*(np.asarray(v, dtype=np.float64) for v in (a, fare, mean, std)))
     ratio = np.clip(a / fare, MIN_RATIO, 1.0)
     z = -special.ndtri(ratio)
-    x = mean + std * z
-    dxda = -std / (fare * pdf(z))
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        # std = 0 meets z = +-inf at the ends; those entries are replaced below
+        x = mean + std * z
+        dxda = -std / (fare * pdf(z))
     inside = (x > 0) & (ratio < 1.0)
     x = np.where(inside, x, 0.0)
     dxda = np.where(inside, dxda, 0.0)

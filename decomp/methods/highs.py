@@ -16,8 +16,11 @@ certificate projects and reports the smallest).
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import logging
+import os
+import sys
 import time
 
 import numpy as np
@@ -55,6 +58,39 @@ STATUS = {
     "kHighsInterrupt": Termination.ERROR,
     "kMemoryLimit": Termination.ERROR,
 }
+
+
+@contextlib.contextmanager
+def quiet_stdout(quiet: bool = True):
+    """Send the process's standard output (file descriptor 1) to /dev/null.
+
+    highspy prints its banner from C++ when a ``Highs`` object is created,
+    before any option can turn output off; this keeps command output readable.
+    """
+    if not quiet:
+        yield
+        return
+    sys.stdout.flush()
+    saved = os.dup(1)
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(devnull, 1)
+        yield
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+        os.close(devnull)
+
+
+def new_highs(verbose: bool = False):
+    """A ``highspy.Highs`` with its banner and log silenced unless ``verbose``."""
+    import highspy
+
+    with quiet_stdout(not verbose):
+        h = highspy.Highs()
+    if not verbose:
+        h.setOptionValue("output_flag", False)
+    return h
 
 
 def termination(model_status) -> Termination:
@@ -164,7 +200,7 @@ class HighsArrays:
         lp.a_matrix_.index_ = M.indices.astype(np.int32)
         lp.a_matrix_.value_ = M.data.astype(np.float64)
         lp.sense_ = highspy.ObjSense.kMaximize
-        h = highspy.Highs()
+        h = new_highs(options.verbose)
         apply_options(h, options)
         status = h.passModel(lp)
         if status == highspy.HighsStatus.kError:
