@@ -10,7 +10,7 @@ a per-date demand variation):
 1. throughput: --throughput-tasks dates cold on 1 worker, then on --workers
    workers (ratio of tasks per second, cluster start excluded);
 2. benchmark data for sizing: --bench FILE, or ``decomp bench --suite quick
-   -k "pnlp and lagrangian"`` run into OUT/bench;
+   -k "pnlp and lagrangian and newton"`` run into OUT/bench;
 3. sizing: ``decomp size`` for --dates tasks on --workers, with the per-task
    overhead and start-up measured in step 1's multi-worker run (not in the
    run it predicts);
@@ -74,6 +74,8 @@ def main(argv=None) -> int:
     ap.add_argument("--window", default="3m", help="the target wall time (default: %(default)s)")
     ap.add_argument("--throughput-tasks", type=int, default=24)
     ap.add_argument("--bench", help="decomp bench output to size from (default: run the quick suite's lagrangian cases)")
+    ap.add_argument("--fit-min-products", type=int, default=1000,
+                    help="fit only benchmark cases this large (default: %(default)s)")
     ap.add_argument("--skip", nargs="*", default=[], choices=("throughput", "sizing", "cold", "warm"))
     ap.add_argument("--warm-same", action="store_true", help="also a warm run on unchanged forecasts")
     args = ap.parse_args(argv)
@@ -110,7 +112,7 @@ def main(argv=None) -> int:
         if bench is None:
             bench = str(out / "bench")
             if not (out / "bench" / "benchmark.json").exists():
-                cmd = [sys.executable, "-m", "decomp.cli", "bench", "--suite", "quick", "-k", "pnlp and lagrangian",
+                cmd = [sys.executable, "-m", "decomp.cli", "bench", "--suite", "quick", "-k", "pnlp and lagrangian and newton",
                        "--out", bench, "--no-progress"]
                 print("   " + " ".join(cmd), flush=True)
                 subprocess.run(cmd, check=False)
@@ -122,7 +124,7 @@ def main(argv=None) -> int:
         s = sizing.size_run(cases, model="pnlp", method=args.method, tol=args.tol,
                             task_products=sizing.task_sizes(args.dates, args.products), workers=args.workers,
                             window=parse_duration(args.window), overhead=tp["overhead_per_task_seconds"],
-                            startup=tp["cluster_start_seconds"])
+                            startup=tp["cluster_start_seconds"], fit_min_products=args.fit_min_products)
         rep["sizing"] = {"bench": bench, "fit": s["result"]["fit"], "projected_seconds": s["result"]["wall_seconds"],
                          "interval": [s["result"]["wall_low"], s["result"]["wall_high"]],
                          "per_task_solve_seconds": s["result"]["per_task_solve_seconds"],

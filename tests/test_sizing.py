@@ -12,11 +12,13 @@ from decomp.errors import ConfigError, InstanceError
 from decomp.production import sizing
 
 
-def _case(n, t, tol=1e-9, method="lagrangian", model="pnlp", label=None, kind="solve", failures=()):
+def _case(n, t, tol=1e-9, method="lagrangian", model="pnlp", label=None, kind="solve", failures=(),
+          termination="optimal"):
     return {"name": f"test_solve[{model}-{method}-{n}-{tol:g}]",
             "extra_info": {"kind": kind, "model": model, "method": method,
                            "label": label or (f"{method}-newton" if method == "lagrangian" else method),
-                           "knobs": {"tol": tol}, "n_products": n, "accuracy_failures": list(failures)},
+                           "knobs": {"tol": tol}, "n_products": n, "accuracy_failures": list(failures),
+                           "termination": termination},
             "stats": {"median": t, "mean": t * 1.1, "min": t * 0.9}}
 
 
@@ -30,9 +32,11 @@ def _write(tmp_path, cases, name="benchmark.json"):
 def exact(tmp_path):
     """t = 2e-6 * n exactly at tol 1e-9, and t = 1e-6 * n at the looser tol 1e-6."""
     sizes = (1_000, 10_000, 100_000, 1_000_000)
-    cases = [_case(n, 2e-6 * n) for n in sizes] + [_case(n, 1e-6 * n, tol=1e-6) for n in sizes]
+    cases = [_case(n, 2e-6 * n) for n in sizes[:-1]] + [_case(n, 1e-6 * n, tol=1e-6) for n in sizes]
+    # converged, but missed an accuracy check: its time is kept
+    cases.append(_case(sizes[-1], 2e-6 * sizes[-1], failures=["bid-price error 1e-3 > 1e-5"]))
     cases.append(_case(10_000, 99.0, kind="build"))                         # not a solve: ignored
-    cases.append(_case(10_000, 99.0, failures=["gap too large"]))           # failed accuracy: ignored
+    cases.append(_case(10_000, 99.0, termination="time_limit"))             # stopped by a limit: ignored
     return _write(tmp_path, cases)
 
 
@@ -44,6 +48,7 @@ def test_fit_recovers_exact_power_law(exact):
     tm = sizing.TimeModel.fit([c.n_products for c in groups[1e-9]], [c.seconds for c in groups[1e-9]])
     assert tm.a == pytest.approx(2e-6, rel=1e-9) and tm.b == pytest.approx(1.0, abs=1e-12)
     assert tm.predict(100_000) == pytest.approx(0.2, rel=1e-9)
+    assert sum(c.accuracy_failures for c in groups[1e-9]) == 1
 
 
 def test_projection_by_hand(exact):

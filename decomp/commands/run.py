@@ -89,6 +89,10 @@ def run(args) -> int:
     try:
         s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
                       window=window, on_event=on_event)
+    except (OSError, TimeoutError) as exc:
+        where = f"the scheduler at {args.scheduler}" if args.scheduler else "the embedded cluster"
+        print(f"decomp run: error: could not use {where}: {type(exc).__name__}: {exc}", file=sys.stderr)
+        return 1
     finally:
         if "b" in bar:
             bar["b"].close()

@@ -22,6 +22,8 @@ def register(sub):
     p.add_argument("--method", default="lagrangian")
     p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
     p.add_argument("--tol", type=float, default=1e-9)
+    p.add_argument("--fit-min-products", type=int, metavar="N",
+                   help="fit only benchmark cases of at least N products (small ones carry fixed costs)")
     p.add_argument("--workers", type=int, default=2)
     p.add_argument("--window", required=True, help="optimization window, e.g. 2h, 90m, 180s")
     p.add_argument("--overhead", type=float, help="seconds per task beyond the solve")
@@ -57,7 +59,7 @@ def run(args) -> int:
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
     s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
                         workers=args.workers, window=window, overhead=overhead, startup=startup,
-                        variant=args.variant)
+                        variant=args.variant, fit_min_products=args.fit_min_products)
     s["overhead_source"] = source
     r, f = s["result"], s["result"]["fit"]
     out = pathlib.Path(args.out)
@@ -69,6 +71,9 @@ def run(args) -> int:
     bse = "-" if f["b_stderr"] is None else f"{f['b_stderr']:.3f}"
     print(f"  fit: t = {f['a']:.3g} * n^{f['b']:.3f} (stderr of b {bse}; {f['n_points']} cases, "
           f"n {f['n_range'][0]:,.0f}..{f['n_range'][1]:,.0f}{'; EXTRAPOLATED' if r['extrapolated'] else ''})")
+    if r["cases_with_accuracy_failures"]:
+        print(f"  note: {r['cases_with_accuracy_failures']} fitted case(s) converged but failed an accuracy "
+              f"check in the benchmark (their times are kept)")
     print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {overhead:.3f} s ({source}); "
           f"start-up {startup:.1f} s")
     rows = [("tol", "wall", "95% interval", "fits", "margin", "fewest workers (central/high)")]

@@ -35,6 +35,7 @@ import pathlib
 import socket
 import time
 import traceback
+import uuid
 
 import numpy as np
 
@@ -338,8 +339,11 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
                 on_event("start", None, progress)
             by_key = {}
             futures = []
+            # Dask keys are unique per invocation, so a rerun on the same cluster never meets
+            # the cancelled futures of an interrupted one; the results do not depend on them.
+            nonce = uuid.uuid4().hex[:8]
             for rank, spec in enumerate(todo):
-                fut = client.submit(run_task, spec, cfg, fps[spec.key], key=f"decomp-task-{spec.key}-{fps[spec.key]}",
+                fut = client.submit(run_task, spec, cfg, fps[spec.key], key=f"decomp-task-{spec.key}-{nonce}",
                                     retries=retries, pure=False, priority=len(todo) - rank)
                 by_key[fut.key] = spec
                 futures.append(fut)
