@@ -9,11 +9,15 @@ duality holds, so minimizing it gives the exact PNLP optimum.
 The loop, one small step at a time:
 
 1. relax: subproblems at a = A^T pi (:class:`_Network.evaluate`);
-2. recover a feasible allocation: scale each product down by the smallest
-   capacity / load over its overloaded legs;
+2. recover a feasible allocation: the allocation Newton's linear model
+   predicts at pi + d, y = x - w (A^T d), corrected once more on the same
+   factorization so that A y = c, clipped at 0 and scaled down by the smallest
+   capacity / load over each product's legs (other dual methods, and
+   non-normal demand: x(pi) scaled the same way);
 3. certify: gap = (q(pi) - primal) / max(1, |primal|), q(pi) an upper bound
-   on the optimum and primal (a lower bound on the recovered allocation's
-   expected revenue) a lower bound; stop at gap <= ``options.tol``;
+   on the optimum and primal a lower bound on the recovered allocation's
+   expected revenue (a Taylor bound, or the exact value in the final phase);
+   stop at gap <= ``options.tol`` (and settled bid prices, see ``bid_tol``);
 4. step: a new pi by the chosen dual method (``SolverOptions.dual_method``):
 
    ``newton`` (default)
@@ -24,9 +28,11 @@ The loop, one small step at a time:
        diagonal spans 1 to 1e300: legs with slack get pi far below 1) and
        factored by dense Cholesky, either whole or, when an independent set of
        legs (no product uses two of them) is large, through its Schur
-       complement. pi stays strictly positive: the step is taken in log(pi),
-       pi <- pi exp(t d / pi) (projecting a slack leg to 0 would send its
-       products to the clip of the fractile).
+       complement (in mixed precision, refined in double). pi stays strictly
+       positive: decreases are taken in log(pi), pi <- pi exp(t d / pi),
+       increases as pi + t d (projecting a slack leg to 0 would send its
+       products to the clip of the fractile). At convergence pi + d is
+       returned with the allocation predicted for it.
    ``lbfgsb``
        scipy's L-BFGS-B with bounds pi >= 0. It stalls on the flat dual at
        large sizes and then reports ITERATION_LIMIT (or NUMERICAL_ERROR when its
@@ -39,14 +45,17 @@ Non-smooth products (std = 0, Poisson, negative binomial, and normal ones with
 std < mean / 8.2, whose fractile jumps to 0 at a = f in double precision) make
 the dual piecewise linear in their a_j. Newton then works on a smoothed dual
 (each such term averaged over a_j +- eps, eps = delta * f_j, see
-:meth:`decomp.distributions.Subproblems.evaluate`): delta starts at 0.1 and
-drops 10x whenever the smoothed dual is nearly minimized (Newton decrement
-below 1e-2 delta |q|) or the line search stalls, down to 1e-3 * tol. The gap
+:meth:`decomp.distributions.Subproblems.evaluate`): delta starts at 1e-3 and
+drops 10x after every full Newton step or once the smoothed dual is nearly
+minimized (Newton decrement below 1e-2 delta |q|), down to 1e-3 * tol. The gap
 is always certified with the exact dual and the exact expected sales (and
 again by :func:`decomp.certify.certify`), so smoothing never makes an answer
-look better than it is. Legs whose Hessian row vanishes (all their products flat) take a
-halving or doubling step in the gradient's direction, safeguarded by the line
-search.
+look better than it is. Legs whose Hessian row vanishes (all their products
+flat) take a halving or doubling step in the gradient's direction, safeguarded
+by the line search. This works (tests: std = 0 products mixed with random
+ones, Poisson and negative-binomial networks, the std -> 0 limit) but needs
+tens to hundreds of iterations when most demand is near-deterministic, and
+an all-deterministic instance (the DLP itself) is not solved: use 'highs'.
 
 Pre-processing: products on a leg of zero capacity get x = 0 and leave the
 problem; so do legs no remaining product uses (pi = 0, the gradient is c > 0).
@@ -55,8 +64,8 @@ max_j (f_j S_j'(0) - the product's other bid prices)^+.
 
 Solver-specific options (``SolverOptions.solver_options``): ``start``
 ("fare" default: half the demand-weighted fare per leg of the products on
-each leg, measured fewer iterations than "heuristic"), ``linear_solver`` ("auto", "dense",
-"schur"), ``smoothing`` (initial delta), ``bid_tol`` (Newton stops when the gap
+each leg, measured fewer iterations than "heuristic"), ``linear_solver``
+("auto", "dense", "schur"), ``smoothing`` (initial delta), ``bid_tol`` (Newton stops when the gap
 is within tol and its next step moves no bid price of at least 1e-3 of the
 largest by more than bid_tol relative, default 1e-4; the step is then taken,
 and measured errors against Ipopt at tol 1e-12 were below 1e-6; not applied
@@ -522,7 +531,7 @@ class _Network:
         raise FloatingPointError("refinement did not converge")
 
     # -- starting points ----------------------------------------------------------------------
-    def start(self, kind="heuristic"):
+    def start(self, kind="fare"):
         """A cold-start pi (strictly positive)."""
         n = self.n
         if n == 0:
