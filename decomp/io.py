@@ -126,9 +126,14 @@ def _parse_csv(path, names, threads):
 def _read_parquet(path: pathlib.Path, required) -> pa.Table:
     try:
         table = pq.read_table(path)
+        names = table.column_names             # a damaged footer can hold names that are not UTF-8
+        table.validate(full=True)              # and string data that is not (checked once, here)
     except (pa.ArrowException, OSError) as exc:
         raise InstanceError(f"cannot read the Parquet file: {exc}", file=path) from exc
-    _check_names(table.column_names, required, path)
+    except UnicodeDecodeError as exc:
+        raise InstanceError(f"the Parquet file holds text that is not valid UTF-8 ({exc.reason})",
+                            file=path) from exc
+    _check_names(names, required, path)
     return table
 
 

@@ -406,3 +406,18 @@ def test_damaged_parquet_never_escapes_as_a_library_traceback(tmp_path_factory, 
         read_instance(d)
     except InstanceError:
         pass
+
+
+@pytest.mark.parametrize("damaged", [b"f\x80re", b"P\x80"])
+def test_parquet_with_invalid_utf8_is_an_instance_error(tmp_path, damaged):
+    # Found by the random-damage test above: a column name (b"fare") or a string value
+    # (b"P1") in the file that is not UTF-8 made pyarrow raise UnicodeDecodeError.
+    pq.write_table(pa.table(LEGS_D), tmp_path / "legs.parquet")
+    pq.write_table(pa.table(PRODS_D), tmp_path / "products.parquet", compression="none")
+    f = tmp_path / "products.parquet"
+    raw = f.read_bytes()
+    target = b"fare" if damaged.startswith(b"f") else b"P1"
+    assert target in raw
+    f.write_bytes(raw.replace(target, damaged[:len(target)].ljust(len(target), b"1")))
+    with pytest.raises(InstanceError, match="products.parquet"):
+        read_instance(tmp_path)
