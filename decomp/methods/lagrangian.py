@@ -74,7 +74,7 @@ with non-smooth products, whose optimal bid prices need not be unique),
 ``damping`` (Levenberg-Marquardt factor for non-smooth products, default 0),
 ``precision`` ("mixed" default: the Schur complement is formed and factored in
 single precision and the solve refined in double precision to a residual of
-1e-12, falling back to double precision when refinement stalls; "double").
+1e-11, falling back to double precision when refinement stalls; "double").
 """
 
 from __future__ import annotations
@@ -504,7 +504,7 @@ class _Network:
         """The Schur-complement solve in single precision (half the time of the
         dominant syrk and Cholesky), then iterative refinement in double
         precision against the exact scaled Hessian until the residual is
-        1e-12 of b (falls back to double precision if it does not get there)."""
+        1e-11 of b (falls back to double precision if it does not get there)."""
         MT, S = self.MT32, self.S32
         MT.fill(0.0)
         S.fill(0.0)
@@ -525,7 +525,7 @@ class _Network:
             rn = float(np.abs(res).max())
             if not np.isfinite(rn) or rn > 0.5 * prev:
                 raise FloatingPointError("refinement stalled")
-            if rn <= 1e-12 * bn:
+            if rn <= 1e-11 * bn:
                 return u
             u += self._schur_apply_inverse(c, MT, res)
             prev = rn
@@ -759,9 +759,12 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         # (only the latter for normal demand, where it is measured better)
         y_n, p_newton = net.recover(pt, d, want_y=True)
         p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
-        if net.sub.all_normal and tol < _gap(pt.exact, p_newton) <= 1e-3:
-            # final phase: the exact revenue of y (one loss-function pass) instead
-            # of its Taylor bound, which lags the dual by orders of magnitude
+        last_drop = (history[-1].dual_value - pt.exact) / max(1.0, abs(pt.exact)) if history else np.inf
+        if (net.sub.all_normal and tol < _gap(pt.exact, p_newton) <= 1e-3
+                and last_drop <= 10.0 * tol):
+            # final phase (the dual has almost stopped moving): the exact revenue
+            # of y (one loss-function pass) instead of its Taylor bound, which
+            # lags the dual by orders of magnitude
             p_newton = max(p_newton, net.sub.revenue(y_n))
         use_newton = p_newton >= p_scaled
         primal = max(p_scaled, p_newton)
