@@ -17,19 +17,17 @@ certificate projects and reports the smallest).
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import logging
 import os
 import sys
 import time
 
 import numpy as np
-import scipy.sparse as sp
 
-from .. import certify as _certify
 from ..errors import ConfigError, SolverUnavailableError
 from ..registry import register
-from ..result import SolutionStatus, SolveResult, Termination
+from ..result import Termination
+from .common import certified_result, map_status
 
 log = logging.getLogger(__name__)
 
@@ -95,11 +93,7 @@ def new_highs(verbose: bool = False):
 
 def termination(model_status) -> Termination:
     """Map a HiGHS model status (enum member or its name) to a Termination."""
-    name = getattr(model_status, "name", str(model_status))
-    if name not in STATUS:
-        log.warning("HiGHS model status %r has no mapping; reported as unknown", name)
-        return Termination.UNKNOWN
-    return STATUS[name]
+    return map_status(STATUS, model_status, "HiGHS model status")
 
 
 def lp_arrays(instance, model: str, segments: int):
@@ -131,11 +125,8 @@ def _set(h, name, value):
 
 
 def options_record(options) -> dict:
-    """The options as a plain dict for the result (``SolverOptions.to_dict`` cannot deep-copy
-    its mappingproxy on this Python)."""
-    d = {f.name: getattr(options, f.name) for f in dataclasses.fields(options)}
-    d["solver_options"] = dict(options.solver_options)
-    return d
+    """The options as a plain dict for the result (kept for callers; same as ``options.to_dict()``)."""
+    return options.to_dict()
 
 
 def highs_version() -> str:
@@ -144,21 +135,29 @@ def highs_version() -> str:
     return f"HiGHS {highspy.HIGHS_VERSION_MAJOR}.{highspy.HIGHS_VERSION_MINOR}.{highspy.HIGHS_VERSION_PATCH}"
 
 
+def highs_option_values(options) -> dict:
+    """HiGHS option values for ``options``, shared by both HiGHS paths (``solver_options``
+    last, so they win). Output and the time limit are set by each path its own way."""
+    values = {}
+    if options.iteration_limit is not None:
+        values["simplex_iteration_limit"] = int(options.iteration_limit)
+        values["ipm_iteration_limit"] = int(options.iteration_limit)
+    if options.threads is not None:
+        values["threads"] = int(options.threads)
+    # HiGHS' feasibility tolerances accept [1e-10, ...]; never looser than its 1e-7 default.
+    ftol = float(min(1e-7, max(1e-10, options.tol)))
+    values["primal_feasibility_tolerance"] = ftol
+    values["dual_feasibility_tolerance"] = ftol
+    values.update(dict(options.solver_options))
+    return values
+
+
 def apply_options(h, options):
-    """Options common to both HiGHS paths (highspy object ``h``)."""
+    """Set ``options`` on the highspy object ``h`` (every return code checked)."""
     _set(h, "output_flag", bool(options.verbose))
     if options.time_limit is not None:
         _set(h, "time_limit", float(options.time_limit))
-    if options.iteration_limit is not None:
-        _set(h, "simplex_iteration_limit", int(options.iteration_limit))
-        _set(h, "ipm_iteration_limit", int(options.iteration_limit))
-    if options.threads is not None:
-        _set(h, "threads", int(options.threads))
-    # HiGHS' feasibility tolerances accept [1e-10, ...]; never looser than its 1e-7 default.
-    ftol = float(min(1e-7, max(1e-10, options.tol)))
-    _set(h, "primal_feasibility_tolerance", ftol)
-    _set(h, "dual_feasibility_tolerance", ftol)
-    for k, v in dict(options.solver_options).items():
+    for k, v in highs_option_values(options).items():
         _set(h, k, v)
 
 
@@ -213,7 +212,7 @@ class HighsArrays:
         info = h.getInfo()
         iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
         sol = h.getSolution()
-        x, pi, cert = None, None, None
+        x = pi = None
         if sol.value_valid and n == len(sol.col_value):
             y = np.asarray(sol.col_value, dtype=np.float64)
             x = np.bincount(cols, weights=y, minlength=instance.n_products) if model == "pwl" else y
@@ -221,22 +220,7 @@ class HighsArrays:
             pi = np.asarray(sol.row_dual, dtype=np.float64)
         elif L == 0:
             pi = np.zeros(0)
-        if x is not None:
-            cert = _certify.certify(instance, model, x, np.zeros(L) if pi is None else pi,
-                                    segments=options.segments)
-        t3 = time.perf_counter()
-        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
-                                           have_solution=x is not None)
-        if pi is None and sstatus is SolutionStatus.OPTIMAL:
-            sstatus = SolutionStatus.FEASIBLE      # no duals: the bound is not the solver's
-        return SolveResult(
-            model=model, method=self.name, termination=term, solution_status=sstatus,
-            objective=None if cert is None else cert.primal_value,
-            bound=None if cert is None or pi is None else cert.dual_value,
-            gap=None if cert is None or pi is None else cert.gap,
-            leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
-            allocation=x, iterations=iters,
-            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
-            solver="highspy", solver_version=highs_version(),
-            raw_status=ms.name, message=h.modelStatusToString(ms),
-            certificate=cert, options=options_record(options))
+        return certified_result(
+            instance, model, self.name, options, termination=term, x=x, pi=pi, marks=(t0, t1, t2),
+            iterations=iters, solver="highspy", solver_version=highs_version(),
+            raw_status=ms.name, message=h.modelStatusToString(ms))

@@ -23,18 +23,16 @@ matches an exact dual solve to about 5e-9. It can be set back through
 
 from __future__ import annotations
 
-import dataclasses
 import logging
 import time
 
 import numpy as np
 
-from .. import certify as _certify
 from .. import distributions, normal
 from ..errors import ConfigError, InstanceError, SolverUnavailableError
 from ..registry import register
-from ..result import SolveResult, Termination
-from .highs import options_record
+from ..result import Termination
+from .common import certified_result
 
 log = logging.getLogger(__name__)
 
@@ -250,24 +248,13 @@ class IpoptArrays:
         name, term = termination(info["status"])
         x = np.asarray(x, dtype=np.float64)
         pi = np.asarray(info["mult_g"], dtype=np.float64)
-        finite = np.all(np.isfinite(x)) and np.all(np.isfinite(pi))
-        cert = _certify.certify(instance, "pnlp", x, pi) if finite else None
-        t3 = time.perf_counter()
-        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
-                                           have_solution=finite)
+        finite = bool(np.all(np.isfinite(x)) and np.all(np.isfinite(pi)))
         msg = info.get("status_msg", b"")
         msg = msg.decode(errors="replace") if isinstance(msg, bytes) else str(msg)
         if msg == "Unknown status":
             msg = name
-        return SolveResult(
-            model=model, method=self.name, termination=term, solution_status=sstatus,
-            objective=None if cert is None else cert.primal_value,
-            bound=None if cert is None else cert.dual_value,
-            gap=None if cert is None else cert.gap,
-            leg_ids=instance.leg_ids, bid_price_array=pi if finite else None,
-            product_ids=instance.product_ids, allocation=x if finite else None,
-            iterations=cb.iterations,
-            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
-            solver="cyipopt", solver_version=ipopt_version(),
-            raw_status=f"{int(info['status'])} {name}", message=msg,
-            certificate=cert, options={**options_record(options), "ipopt": opts})
+        return certified_result(
+            instance, model, self.name, options, termination=term, x=x if finite else None,
+            pi=pi if finite else None, marks=(t0, t1, t2), iterations=cb.iterations,
+            solver="cyipopt", solver_version=ipopt_version(), raw_status=f"{int(info['status'])} {name}",
+            message=msg, extra_options={"ipopt": opts})

@@ -8,17 +8,16 @@ for this maximization HiGHS reports them >= 0 (the same values as
 
 from __future__ import annotations
 
-import gc
 import logging
 import time
 
 import numpy as np
 
-from .. import certify as _certify
 from ..errors import ConfigError, SolverUnavailableError
 from ..registry import register
-from ..result import SolutionStatus, SolveResult, Termination
-from .highs import highs_version, options_record
+from ..result import Termination
+from .common import certified_result, map_status
+from .highs import highs_option_values, highs_version
 
 log = logging.getLogger(__name__)
 
@@ -40,25 +39,7 @@ STATUS = {
 
 
 def termination(cond) -> Termination:
-    name = getattr(cond, "name", str(cond))
-    if name not in STATUS:
-        log.warning("APPSI termination condition %r has no mapping; reported as unknown", name)
-        return Termination.UNKNOWN
-    return STATUS[name]
-
-
-def highs_options(options) -> dict:
-    opts = {}
-    if options.iteration_limit is not None:
-        opts["simplex_iteration_limit"] = int(options.iteration_limit)
-        opts["ipm_iteration_limit"] = int(options.iteration_limit)
-    if options.threads is not None:
-        opts["threads"] = int(options.threads)
-    ftol = float(min(1e-7, max(1e-10, options.tol)))
-    opts["primal_feasibility_tolerance"] = ftol
-    opts["dual_feasibility_tolerance"] = ftol
-    opts.update(dict(options.solver_options))
-    return opts
+    return map_status(STATUS, cond, "APPSI termination condition")
 
 
 @register
@@ -86,6 +67,7 @@ class PyomoHighs:
         except ImportError as exc:
             raise SolverUnavailableError("Pyomo's APPSI HiGHS interface is missing; pip install pyomo highspy") from exc
         from models import dlp, pwl
+        from models.common import paused_gc
 
         if model not in self.models:
             raise ConfigError(f"method 'pyomo-highs' solves {self.models}, not {model!r}")
@@ -96,17 +78,12 @@ class PyomoHighs:
         opt.config.stream_solver = bool(options.verbose)
         if options.time_limit is not None:
             opt.config.time_limit = float(options.time_limit)
-        opt.highs_options = highs_options(options)
+        opt.highs_options = highs_option_values(options)
         t1 = time.perf_counter()
-        enabled = gc.isenabled()
-        gc.disable()
-        try:
+        with paused_gc():
             res = opt.solve(m)
-        finally:
-            if enabled:
-                gc.enable()
         term = termination(res.termination_condition)
-        x = pi = cert = None
+        x = pi = None
         iters = None
         raw = getattr(opt, "_solver_model", None)        # the highspy object, for counts only
         if raw is not None:
@@ -124,24 +101,9 @@ class PyomoHighs:
         except RuntimeError:
             pi = None
         t2 = time.perf_counter()                          # solve includes loading the answer
-        if x is not None and np.all(np.isfinite(x)):
-            cert = _certify.certify(instance, model, x, np.zeros(instance.n_legs) if pi is None else pi,
-                                    segments=options.segments)
-        else:
+        if x is not None and not np.all(np.isfinite(x)):
             x = None
-        t3 = time.perf_counter()
-        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
-                                           have_solution=x is not None)
-        if pi is None and sstatus is SolutionStatus.OPTIMAL:
-            sstatus = SolutionStatus.FEASIBLE
-        return SolveResult(
-            model=model, method=self.name, termination=term, solution_status=sstatus,
-            objective=None if cert is None else cert.primal_value,
-            bound=None if cert is None or pi is None else cert.dual_value,
-            gap=None if cert is None or pi is None else cert.gap,
-            leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
-            allocation=x, iterations=iters,
-            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
-            solver="pyomo appsi_highs", solver_version=highs_version(),
-            raw_status=res.termination_condition.name, message=None,
-            certificate=cert, options=options_record(options))
+        return certified_result(
+            instance, model, self.name, options, termination=term, x=x, pi=pi, marks=(t0, t1, t2),
+            iterations=iters, solver="pyomo appsi_highs", solver_version=highs_version(),
+            raw_status=res.termination_condition.name, message=None)

@@ -16,17 +16,15 @@ logger is raised to ERROR while the solution is loaded.
 from __future__ import annotations
 
 import contextlib
-import gc
 import logging
 import time
 
 import numpy as np
 
-from .. import certify as _certify
 from ..errors import ConfigError, SolverUnavailableError
 from ..registry import register
-from ..result import SolveResult, Termination
-from .highs import options_record
+from ..result import Termination
+from .common import certified_result, map_status
 from .ipopt import ipopt_options, ipopt_version, start_point, termination as ipopt_termination
 from .ipopt import require_normal, warm_start_array
 
@@ -62,11 +60,7 @@ PYOMO_STATUS = {
 
 
 def pyomo_termination(cond) -> Termination:
-    name = getattr(cond, "name", str(cond))
-    if name not in PYOMO_STATUS:
-        log.warning("Pyomo termination condition %r has no mapping; reported as unknown", name)
-        return Termination.UNKNOWN
-    return PYOMO_STATUS[name]
+    return map_status(PYOMO_STATUS, cond, "Pyomo termination condition")
 
 
 @contextlib.contextmanager
@@ -108,6 +102,7 @@ class PyomoIpopt:
         import pyomo.environ as pyo
 
         from models import dlp, pnlp
+        from models.common import paused_gc
 
         if model != "pnlp":
             raise ConfigError(f"method 'pyomo-ipopt' solves the pnlp, not {model!r}")
@@ -130,15 +125,9 @@ class PyomoIpopt:
             counter["iterations"] = int(iter_count)
             return True
         t1 = time.perf_counter()
-        enabled = gc.isenabled()
-        gc.disable()
-        try:
-            with quiet_pyomo_load():
-                res = solver.solve(m, tee=bool(options.verbose), options=opts,
-                                   intermediate_callback=on_iteration)
-        finally:
-            if enabled:
-                gc.enable()
+        with paused_gc(), quiet_pyomo_load():
+            res = solver.solve(m, tee=bool(options.verbose), options=opts,
+                               intermediate_callback=on_iteration)
         t2 = time.perf_counter()
         code = getattr(res.solver, "return_code", None)
         if code is not None:
@@ -150,21 +139,10 @@ class PyomoIpopt:
         x = dlp.allocation(m, instance)
         pi = dlp.bid_prices(m, instance, m.dual)
         finite = bool(np.all(np.isfinite(x)) and np.all(np.isfinite(pi)))
-        cert = _certify.certify(instance, "pnlp", x, pi) if finite else None
-        t3 = time.perf_counter()
-        sstatus = _certify.solution_status(term, cert, gap_tol=_certify.gap_tolerance(options.tol),
-                                           have_solution=finite)
         msg = res.solver.message
         msg = msg.decode(errors="replace") if isinstance(msg, bytes) else (None if msg is None else str(msg))
-        return SolveResult(
-            model=model, method=self.name, termination=term, solution_status=sstatus,
-            objective=None if cert is None else cert.primal_value,
-            bound=None if cert is None else cert.dual_value,
-            gap=None if cert is None else cert.gap,
-            leg_ids=instance.leg_ids, bid_price_array=pi if finite else None,
-            product_ids=instance.product_ids, allocation=x if finite else None,
-            iterations=counter["iterations"],
-            seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
-            solver="pyomo cyipopt", solver_version=ipopt_version(),
-            raw_status=raw, message=msg, certificate=cert,
-            options={**options_record(options), "ipopt": opts})
+        return certified_result(
+            instance, model, self.name, options, termination=term, x=x if finite else None,
+            pi=pi if finite else None, marks=(t0, t1, t2), iterations=counter["iterations"],
+            solver="pyomo cyipopt", solver_version=ipopt_version(), raw_status=raw, message=msg,
+            extra_options={"ipopt": opts})

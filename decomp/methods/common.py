@@ -1,0 +1,62 @@
+"""What every direct method does after its solver returns: certify, rate, assemble the result.
+
+One place for the rules that all methods share: the certificate is computed
+from the instance (:func:`decomp.certify.certify`), the solution status from
+the termination and the certificate, an answer without bid prices is never
+rated optimal (its bound would not be the solver's), and ``bound``/``gap`` are
+left None when there are no bid prices to evaluate the dual at.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+
+import numpy as np
+
+from .. import certify as _certify
+from ..result import SolutionStatus, SolveResult, Termination
+
+log = logging.getLogger(__name__)
+
+
+def certified_result(instance, model: str, method: str, options, *, termination, x, pi, marks,
+                     iterations, solver: str, solver_version, raw_status, message,
+                     extra_options=None) -> SolveResult:
+    """The :class:`SolveResult` of allocation ``x`` and bid prices ``pi`` (either may be None).
+
+    ``marks``: ``time.perf_counter()`` at the start, after the build and after
+    the solve; the certificate's time is measured here. ``extra_options``: a
+    mapping added to the recorded options (e.g. the Ipopt option values used).
+    """
+    t0, t1, t2 = marks
+    cert = None
+    if x is not None:
+        cert = _certify.certify(instance, model, x, np.zeros(instance.n_legs) if pi is None else pi,
+                                segments=options.segments)
+    t3 = time.perf_counter()
+    status = _certify.solution_status(termination, cert, gap_tol=_certify.gap_tolerance(options.tol),
+                                      have_solution=x is not None)
+    if pi is None and status is SolutionStatus.OPTIMAL:
+        status = SolutionStatus.FEASIBLE          # no duals: the bound is not the solver's
+    dual_known = cert is not None and pi is not None
+    return SolveResult(
+        model=model, method=method, termination=termination, solution_status=status,
+        objective=None if cert is None else cert.primal_value,
+        bound=cert.dual_value if dual_known else None,
+        gap=cert.gap if dual_known else None,
+        leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
+        allocation=x, iterations=iterations,
+        seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
+        solver=solver, solver_version=solver_version, raw_status=raw_status, message=message,
+        certificate=cert, options={**options.to_dict(), **dict(extra_options or {})})
+
+
+def map_status(table, code, what: str):
+    """``table[name]`` for a solver status given as an enum member or its name; an
+    unknown name maps to ``Termination.UNKNOWN`` with a warning naming ``what``."""
+    name = getattr(code, "name", str(code))
+    if name not in table:
+        log.warning("%s %r has no mapping; reported as unknown", what, name)
+        return Termination.UNKNOWN
+    return table[name]
