@@ -17,36 +17,9 @@ maximization). ``expected_sales[j]`` is x[j] here (demand at its mean).
 
 from __future__ import annotations
 
-import gc
-
 import numpy as np
 
-
-def _leg_products(instance) -> dict:
-    """Leg id -> list of (product id, coefficient) on that leg (coefficient > 1 when a
-    product uses the same leg twice). One loop over legs, none over products."""
-    A = instance.A
-    pids = instance.product_ids
-    out = {}
-    for i, leg in enumerate(instance.leg_ids.tolist()):
-        lo, hi = A.indptr[i], A.indptr[i + 1]
-        out[leg] = list(zip(pids[A.indices[lo:hi]].tolist(), A.data[lo:hi].tolist()))
-    return out
-
-
-def _term(coef, v):
-    return v if coef == 1.0 else coef * v
-
-
-def capacity_rule(on_leg, alloc):
-    """Rule for ``capacity[leg]``: the seats the products on the leg take, at most its capacity."""
-    import pyomo.environ as pyo
-
-    def rule(m, i):
-        if not on_leg[i]:
-            return pyo.Constraint.Skip
-        return sum(_term(a, alloc(m, j)) for j, a in on_leg[i]) <= m.capacity_seats[i]
-    return rule
+from .common import add_capacity_and_revenue, paused_gc
 
 
 def build(instance, x0=None):
@@ -57,9 +30,7 @@ def build(instance, x0=None):
     lids = instance.leg_ids.tolist()
     mean = np.maximum(instance.mean, 0.0).tolist()
     start = dict(zip(pids, (np.zeros(len(pids)) if x0 is None else np.asarray(x0, dtype=float)).tolist()))
-    enabled = gc.isenabled()
-    gc.disable()                  # Pyomo's build is quadratic with the cyclic GC on
-    try:
+    with paused_gc():            # Pyomo's build is quadratic with the cyclic GC on
         m = pyo.ConcreteModel(name=f"dlp[{instance.name}]")
         m.LEGS = pyo.Set(initialize=lids, ordered=True)
         m.PRODUCTS = pyo.Set(initialize=pids, ordered=True)
@@ -68,12 +39,7 @@ def build(instance, x0=None):
         m.capacity_seats = pyo.Param(m.LEGS, initialize=dict(zip(lids, instance.capacity.tolist())))
         m.x = pyo.Var(m.PRODUCTS, bounds=lambda m, j: (0.0, m.mean[j]), initialize=start)
         m.expected_sales = pyo.Expression(m.PRODUCTS, rule=lambda m, j: m.x[j])
-        m.capacity = pyo.Constraint(m.LEGS, rule=capacity_rule(_leg_products(instance), lambda m, j: m.x[j]))
-        m.revenue = pyo.Objective(expr=sum(m.fare[j] * m.expected_sales[j] for j in m.PRODUCTS),
-                                  sense=pyo.maximize)
-    finally:
-        if enabled:
-            gc.enable()
+        add_capacity_and_revenue(m, instance, lambda m, j: m.x[j])
     return m
 
 

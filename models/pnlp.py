@@ -24,14 +24,12 @@ of leg i is the dual of ``m.capacity[i]``.
 
 from __future__ import annotations
 
-import gc
-
 import numpy as np
 
 from decomp import normal
 
 from . import normal_cdf
-from .dlp import _leg_products, capacity_rule
+from .common import add_capacity_and_revenue, paused_gc
 
 
 def build(instance, x0=None):
@@ -45,9 +43,7 @@ def build(instance, x0=None):
     safe = np.where(smooth, std, 1.0)
     offset = np.where(smooth, normal.loss(-instance.mean / safe), 0.0)
     start = (np.zeros(len(pids)) if x0 is None else np.asarray(x0, dtype=float)).tolist()
-    enabled = gc.isenabled()
-    gc.disable()                  # Pyomo's build is quadratic with the cyclic GC on
-    try:
+    with paused_gc():            # Pyomo's build is quadratic with the cyclic GC on
         m = pyo.ConcreteModel(name=f"pnlp[{instance.name}]")
         m.LEGS = pyo.Set(initialize=lids, ordered=True)
         m.PRODUCTS = pyo.Set(initialize=pids, ordered=True)
@@ -71,10 +67,5 @@ def build(instance, x0=None):
                 return m.std[j] * (m.sales_offset[j] - normal_cdf.loss(m.z[j], tail_abs=m.tail_abs_z[j]))
             return m.x[j]
         m.expected_sales = pyo.Expression(m.PRODUCTS, rule=sales)
-        m.capacity = pyo.Constraint(m.LEGS, rule=capacity_rule(_leg_products(instance), lambda m, j: m.x[j]))
-        m.revenue = pyo.Objective(expr=sum(m.fare[j] * m.expected_sales[j] for j in m.PRODUCTS),
-                                  sense=pyo.maximize)
-    finally:
-        if enabled:
-            gc.enable()
+        add_capacity_and_revenue(m, instance, lambda m, j: m.x[j])
     return m

@@ -23,12 +23,12 @@ Pyomo model on top of it.
 
 from __future__ import annotations
 
-import gc
-
 import numpy as np
 from scipy import special
 
 from decomp import distributions
+
+from .common import add_capacity_and_revenue, paused_gc
 
 
 def segments(instance, K: int):
@@ -74,17 +74,13 @@ def build(instance, K: int = 16):
     """
     import pyomo.environ as pyo
 
-    from .dlp import _leg_products, capacity_rule
-
     _, width, slope = segments(instance, K)
     pids = instance.product_ids.tolist()
     lids = instance.leg_ids.tolist()
     fare = instance.fare.tolist()
     w = width.tolist()
     s = slope.tolist()
-    enabled = gc.isenabled()
-    gc.disable()
-    try:
+    with paused_gc():            # Pyomo's build is quadratic with the cyclic GC on
         m = pyo.ConcreteModel(name=f"pwl[{instance.name}, K={K}]")
         m.LEGS = pyo.Set(initialize=lids, ordered=True)
         m.PRODUCTS = pyo.Set(initialize=pids, ordered=True)
@@ -100,13 +96,7 @@ def build(instance, K: int = 16):
         m.allocation = pyo.Expression(m.PRODUCTS, rule=lambda m, j: sum(m.y[j, k] for k in m.SEGMENTS))
         m.expected_sales = pyo.Expression(
             m.PRODUCTS, rule=lambda m, j: sum(m.slope[j, k] * m.y[j, k] for k in m.SEGMENTS))
-        m.capacity = pyo.Constraint(
-            m.LEGS, rule=capacity_rule(_leg_products(instance), lambda m, j: m.allocation[j]))
-        m.revenue = pyo.Objective(expr=sum(m.fare[j] * m.expected_sales[j] for j in m.PRODUCTS),
-                                  sense=pyo.maximize)
-    finally:
-        if enabled:
-            gc.enable()
+        add_capacity_and_revenue(m, instance, lambda m, j: m.allocation[j])
     return m
 
 
