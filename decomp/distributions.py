@@ -566,3 +566,13 @@ def expected_sales(instance, x):
 def marginal_sales(instance, x):
     """S_j'(x_j) (the right derivative where S_j has a kink)."""
     return Subproblems.from_instance(instance).marginal_sales(x)[0]
+
+
+def marginal_sales_bounds(instance, x):
+    """(S_j'(x_j+), S_j'(x_j-)): the right and left derivatives of expected sales.
+
+    They differ where S_j has a kink: at the integers for Poisson and negative
+    binomial demand (S piecewise linear), at the mean for std = 0. The
+    subproblem's optimality condition there is S'(x+) <= a/f <= S'(x-).
+    """
+    return Subproblems.from_instance(instance).marginal_sales(x)
