@@ -503,10 +503,8 @@ def _default_solve():
 
 
 def options_dict(options: SolverOptions) -> dict:
-    """The options as a plain dict (field by field; solver_options copied to a dict)."""
-    d = {f.name: getattr(options, f.name) for f in dataclasses.fields(options)}
-    d["solver_options"] = dict(d["solver_options"])
-    return d
+    """The options as a plain dict (:meth:`SolverOptions.to_dict`: solver_options copied to a dict)."""
+    return options.to_dict()
 
 
 def _result_record(case: Case, result, wall: float, fingerprint: str, options: SolverOptions) -> dict:
