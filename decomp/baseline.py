@@ -309,6 +309,13 @@ def environment() -> dict:
     env["decomp"] = _dist_version("decomp")
     env["decomp_source_sha256"] = _source_digest()
     env["decomp_git_commit"] = _git_commit()
+    env.update(library_versions())
+    return env
+
+
+def library_versions() -> dict:
+    """Versions of the libraries and solvers the answers depend on (no solver object is built)."""
+    env: dict = {"python": platform.python_version()}
     env["numpy"] = np.__version__
     try:
         blas = np.show_config(mode="dicts")["Build Dependencies"]["blas"]

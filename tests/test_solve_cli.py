@@ -32,6 +32,16 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
         assert key in data, key
     assert data["status"] == "optimal" and data["model"] == "pnlp" and data["method"] == "ipopt"
     assert set(data["seconds"]) == {"build", "solve", "certify"}
+    # the versions are those the libraries themselves report (numpy, cyipopt.IPOPT_VERSION, highspy's
+    # compile-time constants)
+    import cyipopt
+    import highspy
+
+    v = data["versions"]
+    assert v["numpy"] == np.__version__
+    assert v["ipopt_library"] == ".".join(map(str, cyipopt.IPOPT_VERSION))
+    assert v["highs_library"] == f"{highspy.HIGHS_VERSION_MAJOR}.{highspy.HIGHS_VERSION_MINOR}.{highspy.HIGHS_VERSION_PATCH}"
+    assert data["solver_version"] == "Ipopt " + v["ipopt_library"]
     inst = ladder.load_rung("p100")
     assert set(data["bid_prices"]) == set(inst.leg_ids.tolist())
     assert all(v >= 0 for v in data["bid_prices"].values())

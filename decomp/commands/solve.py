@@ -3,7 +3,9 @@
 INSTANCE is an instance folder (CSV or Parquet), or the name of a ladder rung
 (p100, p1k, ...) when no such folder exists. The result JSON holds the
 status, model, method, objective, bound, certified gap, bid prices by leg id,
-iterations, seconds by phase, solver name and version and the certificate;
+iterations, seconds by phase, solver name and version, the certificate and
+the versions of Python, numpy, scipy, Pyomo, highspy, cyipopt and the HiGHS and
+Ipopt libraries (``versions``);
 ``--allocation`` writes the allocation per product (CSV or Parquet by suffix).
 Exit code 0 when the answer is certified optimal, 1 when the solve stopped
 short of that (limit, numerical trouble, uncertified), 2 on bad input.
@@ -99,6 +101,7 @@ def summary(result, instance_name) -> str:
 def run(args) -> int:
     from .. import solve as _solve
     from ..atomic import write_json
+    from ..baseline import library_versions
     from ..errors import SolverUnavailableError
     from ..options import SolverOptions
     from ..result import read_bid_prices
@@ -125,10 +128,15 @@ def run(args) -> int:
         print(f"decomp solve: error: {exc}", file=sys.stderr)
         return 1
     out = result.to_json_dict()
-    out = {"instance": instance.name, "instance_path": str(args.instance), **out}
+    out = {"instance": instance.name, "instance_path": str(args.instance), **out,
+           "versions": library_versions()}
     write_json(args.out, out)
     if args.allocation and result.allocation is not None:
         write_allocation(result, args.allocation)
     print(summary(result, instance.name))
-    print(f"  wrote {args.out}" + (f" and {args.allocation}" if args.allocation and result.allocation is not None else ""))
+    wrote_alloc = bool(args.allocation) and result.allocation is not None
+    print(f"  wrote {args.out}" + (f" and {args.allocation}" if wrote_alloc else ""))
+    if args.allocation and not wrote_alloc:
+        print(f"decomp solve: {args.allocation} not written: the solve returned no allocation "
+              f"({result.termination.value})", file=sys.stderr)
     return 0 if result.ok else 1
