@@ -1,7 +1,7 @@
 """Test helper: read one of the published hub-and-spoke test problems (2009) into an Instance.
 
 The files live outside the project (``../shared/external/hub-spoke-2009/``, see
-its README.md) and are read in place, never copied. Format: tau; the number of
+``../shared/external/README.md``) and are read in place, never copied. Format: tau; the number of
 legs and one ``origin destination capacity`` line per leg; the number of
 itineraries and one ``origin destination class fare`` line per itinerary; then
 one line per period, ``t`` followed by tab-separated ``[ o d c ]  p`` pairs.

@@ -3,7 +3,7 @@
 Source: H. Topaloglu, "Using Lagrangian relaxation to compute capacity-dependent
 bid prices in network revenue management", Operations Research 57(3), 2009,
 Tables 2 and 3 (DLP optimal values, rounded to whole units), as listed in
-../shared/external/hub-spoke-2009/README.md. The files are read in place.
+../shared/external/README.md (beside the folder hub-spoke-2009/). The files are read in place.
 """
 
 import pathlib
