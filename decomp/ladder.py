@@ -110,6 +110,19 @@ def _same(a, b) -> bool:
     return a == b
 
 
+def rung_state(name: str) -> str:
+    """``"ok"`` when rung ``name``'s folder holds a meta.json that matches the manifest,
+    ``"stale"`` when it holds another (or an unreadable) one, ``"missing"`` otherwise."""
+    path = rung_path(name)
+    if not (path.is_dir() and (path / "meta.json").is_file()):
+        return "missing"
+    try:
+        meta = json.loads((path / "meta.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return "stale"
+    return "ok" if isinstance(meta, dict) and _matches(get_rung(name), meta) else "stale"
+
+
 def build_rung(name: str) -> Instance:
     """Generate rung ``name`` from the manifest (does not write it)."""
     from .generator import generate
@@ -139,12 +152,9 @@ def load_rung(name: str) -> Instance:
     from .io import read_instance, write_instance
     rung = get_rung(name)
     path = rung_path(name)
-    if path.is_dir() and (path / "meta.json").is_file():
-        try:
-            meta = json.loads((path / "meta.json").read_text(encoding="utf-8"))
-        except (OSError, json.JSONDecodeError):
-            meta = {}
-        if _matches(rung, meta):
+    state = rung_state(name)
+    if state != "missing":
+        if state == "ok":
             return read_instance(path)
         if rung.committed:
             raise InstanceError(f"the committed rung {name} does not match the manifest "

@@ -7,7 +7,6 @@ every generated rung that is missing or stale) from the manifest.
 
 from __future__ import annotations
 
-import json
 import time
 
 
@@ -19,25 +18,12 @@ def register(sub):
     p.set_defaults(func=run)
 
 
-def _state(name):
-    from .. import ladder
-    path = ladder.rung_path(name)
-    meta_path = path / "meta.json"
-    if not meta_path.is_file():
-        return "missing"
-    try:
-        meta = json.loads(meta_path.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError):
-        return "stale"
-    return "ok" if ladder._matches(ladder.get_rung(name), meta) else "stale"
-
-
 def run(args) -> int:
     from .. import ladder
 
     rungs = ladder.rungs()
     if args.build is not None:
-        names = args.build or [n for n, r in rungs.items() if not r.committed and _state(n) != "ok"]
+        names = args.build or [n for n, r in rungs.items() if not r.committed and ladder.rung_state(n) != "ok"]
         for name in names:
             t0 = time.perf_counter()
             path = ladder.write_rung(name)
@@ -54,5 +40,5 @@ def run(args) -> int:
             shown = path.relative_to(root.parent)
         except ValueError:
             shown = path
-        print(f"{name:<7} {r.products:>10,} {r.seed:>5} {kind:<10} {_state(name):<8} {shown}")
+        print(f"{name:<7} {r.products:>10,} {r.seed:>5} {kind:<10} {ladder.rung_state(name):<8} {shown}")
     return 0

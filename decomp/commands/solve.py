@@ -62,7 +62,7 @@ def write_allocation(result, path) -> None:
     suffix = path.suffix.lower()
     if suffix not in (".csv", ".parquet"):
         raise InstanceError("allocation file must end in .csv or .parquet", file=path)
-    table = pa.table({"product": pa.array(result.product_ids.astype(str).tolist(), type=pa.string()),
+    table = pa.table({"product": pa.array(result.product_ids.astype(str), type=pa.string()),
                       "allocation": pa.array(result.allocation, type=pa.float64())})
     with atomic_path(path) as tmp:
         if suffix == ".csv":
