@@ -320,7 +320,7 @@ def library_versions() -> dict:
     try:
         blas = np.show_config(mode="dicts")["Build Dependencies"]["blas"]
         env["numpy_blas"] = f"{blas.get('name')} {blas.get('version')}"
-    except Exception:  # noqa: BLE001 - numpy < 2 has no dict mode; the field is informative only
+    except (TypeError, KeyError, AttributeError):   # numpy < 2 has no dict mode; informative only
         env["numpy_blas"] = None
     for mod, dists in (("scipy", ("scipy",)), ("pyomo", ("pyomo", "Pyomo")),
                        ("highspy", ("highspy",)), ("cyipopt", ("cyipopt", "cyipopt-wheels"))):
