@@ -71,3 +71,10 @@ def test_help(cmd, capsys):
         main([cmd, "--help"])
     assert info.value.code == 0
     assert cmd in capsys.readouterr().out
+
+
+def test_inspect_rejects_a_non_positive_top(capsys):
+    with pytest.raises(SystemExit) as info:
+        main(["inspect", "any-folder", "--top", "0"])     # refused before the folder is read
+    assert info.value.code == 2
+    assert "--top" in capsys.readouterr().err

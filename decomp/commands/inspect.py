@@ -7,6 +7,7 @@ fare and demand ranges.
 
 from __future__ import annotations
 
+import argparse
 import warnings
 
 import numpy as np
@@ -16,8 +17,19 @@ def register(sub):
     p = sub.add_parser("inspect", help="summarize an instance: counts, legs per product, demand factors, fares",
                        description=__doc__)
     p.add_argument("instance", metavar="INSTANCE", help="instance folder")
-    p.add_argument("--top", type=int, default=10, metavar="K", help="how many of the most loaded legs (default: %(default)s)")
+    p.add_argument("--top", type=_positive_int, default=10, metavar="K",
+                   help="how many of the most loaded legs (default: %(default)s)")
     p.set_defaults(func=run)
+
+
+def _positive_int(text: str) -> int:
+    try:
+        k = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if k < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {k}")
+    return k
 
 
 def _q(x, qs=(0, 10, 50, 90, 100)):
