@@ -359,7 +359,7 @@ class _Network:
         y = y + dy
         return np.maximum(y, 0.0, out=y)
 
-    def recover(self, pt, d=None, want_y=True):
+    def recover(self, pt, d=None, want_y=True, cheap=False):
         """A feasible allocation y and a lower bound on its expected revenue.
 
         Without ``d``: y = x(pi), each product scaled down by the smallest
@@ -372,6 +372,9 @@ class _Network:
         largest f |S''| between x and y
         (:meth:`decomp.distributions.Subproblems.curvature_bound`), no
         special function needed but one exp. y is None unless ``want_y`` (or needed).
+        ``cheap``: skip the extra Newton correction and the tighter curvature
+        bound (a valid but looser bound, used while the dual is still far from
+        its minimum and the gap cannot be within tol anyway).
         """
         sub = self.sub
         if d is None:
@@ -396,7 +399,8 @@ class _Network:
                 y[pt.density <= _clip_density()] = 0.0
             np.subtract(pt.x, y, out=y)
             np.maximum(y, 0.0, out=y)
-            y = self._close_slack(pt, y)
+            if not cheap:
+                y = self._close_slack(pt, y)
             scale_g = self._scale_to_capacity(self.A_g @ self.to_groups(y))
             if scale_g is not None:
                 y *= self.to_products(scale_g)
@@ -411,7 +415,7 @@ class _Network:
         # the cheap bound (largest density anywhere) first; the tighter one
         # (largest density between x and y, one exp) only when it matters
         quad = 0.5 * float(sub.curvature() @ dy2)
-        if quad > 1e-4 * self.tol * abs(pt.revenue):
+        if quad > 1e-4 * self.tol * abs(pt.revenue) and not cheap:
             if pt.density is not None:
                 quad = 0.5 * float(sub.curvature_bound_at(pt.x, yy, pt.density) @ dy2)
             else:
@@ -753,30 +757,40 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     final_pi = None
     mu = float(so.get("damping", 0.0))
     bid_tol = float(so.get("bid_tol", 1e-4 if tol <= 1e-7 else np.inf))
+    certified = False          # the gap was within tol at some earlier iteration
     while True:
         d, n_flat = net.newton_direction(pt, damping=mu)
-        # two recoveries: the scaled x(pi) and the Newton-predicted allocation
-        # (only the latter for normal demand, where it is measured better)
-        y_n, p_newton = net.recover(pt, d, want_y=True)
-        p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
-        last_drop = (history[-1].dual_value - pt.exact) / max(1.0, abs(pt.exact)) if history else np.inf
-        if (net.sub.all_normal and tol < _gap(pt.exact, p_newton) <= 1e-3
-                and last_drop <= 10.0 * tol):
-            # final phase (the dual has almost stopped moving): the exact revenue
-            # of y (one loss-function pass) instead of its Taylor bound, which
-            # lags the dual by orders of magnitude
-            p_newton = max(p_newton, net.sub.revenue(y_n))
-        use_newton = p_newton >= p_scaled
-        primal = max(p_scaled, p_newton)
-        gap = _gap(pt.exact, primal)
-        history.append(_record(it, pt, primal, gap, t, t_start))
-        log.debug("newton %d: q=%.12g primal=%.12g (scaled %.12g) gap=%.3g step=%g flat=%d delta=%g",
-                  it, pt.exact, primal, p_scaled, gap, t, n_flat, pt.smoothing)
         # bid prices settled: Newton's step is below bid_tol relative on every leg
         # priced at least 1e-3 of the largest (the dual is flat in some directions,
         # so a small gap alone does not pin the bid prices down)
         big = pt.pi >= 1e-3 * pt.pi.max(initial=0.0)
         settled = nonsmooth or not np.any(np.abs(d[big]) > bid_tol * pt.pi[big])
+        # Newton's decrement -g.d / 2 estimates q(pi) - q*, a lower bound on the
+        # gap: while it is far above tol (smooth duals only), or while only the
+        # bid prices are still settling, the cheap recovery (still a certified
+        # lower bound, only looser) is enough for the record
+        dec_rel = -0.5 * float(pt.grad @ d) / max(1.0, abs(pt.exact))
+        far = net.sub.all_normal and not nonsmooth and dec_rel > 30.0 * tol
+        cheap = far or (certified and not settled)
+        # two recoveries: the scaled x(pi) and the Newton-predicted allocation
+        # (only the latter for normal demand, where it is measured better)
+        y_n, p_newton = net.recover(pt, d, want_y=True, cheap=cheap)
+        p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
+        last_drop = (history[-1].dual_value - pt.exact) / max(1.0, abs(pt.exact)) if history else np.inf
+        if (net.sub.all_normal and not cheap and tol < _gap(pt.exact, p_newton) <= 1e-3
+                and (last_drop <= 10.0 * tol or not nonsmooth)):
+            # final phase: the exact revenue of y (one loss-function pass)
+            # instead of its Taylor bound, which lags the dual by orders of
+            # magnitude (with a smooth dual this phase starts once Newton's
+            # decrement is within 30 tol, see `far`)
+            p_newton = max(p_newton, net.sub.revenue(y_n))
+        use_newton = p_newton >= p_scaled
+        primal = max(p_scaled, p_newton)
+        gap = _gap(pt.exact, primal)
+        history.append(_record(it, pt, primal, gap, t, t_start))
+        log.debug("newton %d: q=%.12g primal=%.12g (scaled %.12g) gap=%.3g step=%g flat=%d delta=%g%s",
+                  it, pt.exact, primal, p_scaled, gap, t, n_flat, pt.smoothing, " (cheap)" if cheap else "")
+        certified = certified or gap <= tol
         if gap <= tol and settled:
             term, raw, msg = Termination.OPTIMAL, "optimal", f"certified gap {gap:.3g} <= tol {tol:g}"
             # The Newton-predicted allocation belongs to pi + d: return that pi
