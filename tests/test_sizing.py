@@ -158,3 +158,21 @@ def test_size_command(exact, tmp_path, capsys):
     assert rc == 1 and "DOES NOT FIT" in capsys.readouterr().out
     assert main(["size", "--bench", str(tmp_path / "nothing.json"), "--products", "10", "--window", "1h",
                  "--out", str(out)]) == 2
+
+
+def test_calibration_from_a_pilot_run(exact, tmp_path):
+    # A pilot run whose solves took twice the benchmark fit (0.4 s at 100,000 products; by hand
+    # the fit gives 0.2 s): the fit is scaled by 2, so 183 rounds of (0.4 + 0.1) s = 91.5 s.
+    summ = tmp_path / "pilot.json"
+    summ.write_text(json.dumps({"totals": {"overhead_per_task_seconds": 0.1, "cluster_start_seconds": 0.0},
+                                "tasks": [{"status": "ok", "skipped": False, "n_products": 100_000,
+                                           "seconds_solve": s} for s in (0.38, 0.4, 0.42)]
+                                + [{"status": "failed", "n_products": 100_000, "seconds_solve": 9.0}]}))
+    pairs = sizing.read_run_solves(summ)
+    assert len(pairs) == 3
+    s = sizing.size_run(sizing.load_bench(exact), model="pnlp", method="lagrangian", tol=1e-9,
+                        task_products=sizing.task_sizes(365, 100_000), workers=2, window=60.0, overhead=0.1,
+                        calibration=pairs)
+    assert s["calibration_factor"] == pytest.approx(2.0, rel=1e-9)
+    assert s["result"]["wall_seconds"] == pytest.approx(91.5, rel=1e-9)
+    assert s["looser"][0]["wall_seconds"] == pytest.approx(183 * (0.2 + 0.1), rel=1e-9)   # 1e-6 n, scaled by 2

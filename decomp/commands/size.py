@@ -29,6 +29,9 @@ def register(sub):
     p.add_argument("--overhead", type=float, help="seconds per task beyond the solve")
     p.add_argument("--startup", type=float, help="seconds to start the cluster (default: from --run-summary, else 0)")
     p.add_argument("--run-summary", metavar="FILE", help="a decomp run summary.json to take the overhead from")
+    p.add_argument("--calibrate", action="store_true",
+                   help="scale the benchmark fit by the solve times measured in --run-summary (a pilot run "
+                        "of the same method and tolerance on the production machine)")
     p.add_argument("--out", default="sizing", help="folder for sizing.json and sizing.png (default: %(default)s)")
     p.set_defaults(func=run)
 
@@ -55,11 +58,18 @@ def run(args) -> int:
         overhead, source = args.overhead, "--overhead"
     if args.startup is not None:
         startup = args.startup
+    calibration = None
+    if args.calibrate:
+        if not args.run_summary:
+            from ..errors import ConfigError
+
+            raise ConfigError("--calibrate needs --run-summary (a decomp run summary.json)")
+        calibration = sizing.read_run_solves(args.run_summary)
     cases = sizing.load_bench(args.bench)
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
     s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
                         workers=args.workers, window=window, overhead=overhead, startup=startup,
-                        variant=args.variant, fit_min_products=args.fit_min_products)
+                        variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration)
     s["overhead_source"] = source
     r, f = s["result"], s["result"]["fit"]
     out = pathlib.Path(args.out)
@@ -74,6 +84,9 @@ def run(args) -> int:
     if r["cases_with_accuracy_failures"]:
         print(f"  note: {r['cases_with_accuracy_failures']} fitted case(s) converged but failed an accuracy "
               f"check in the benchmark (their times are kept)")
+    if s["calibration_factor"] is not None:
+        print(f"  calibrated: solve times measured in {args.run_summary} are {s['calibration_factor']:.2f}x "
+              f"the benchmark fit; the fit is scaled by that")
     print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {overhead:.3f} s ({source}); "
           f"start-up {startup:.1f} s")
     rows = [("tol", "wall", "95% interval", "fits", "margin", "fewest workers (central/high)")]

@@ -273,11 +273,29 @@ def read_run_overhead(path) -> tuple:
     return float(ov), float(st or 0.0)
 
 
+def read_run_solves(path) -> list:
+    """(products, solve seconds) of every task a ``decomp run`` summary.json ran (not skipped) to ok."""
+    try:
+        tasks = json.loads(pathlib.Path(path).read_text())["tasks"]
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="tasks") from exc
+    out = [(float(t["n_products"]), float(t["seconds_solve"])) for t in tasks
+           if t.get("status") == "ok" and not t.get("skipped")
+           and isinstance(t.get("n_products"), (int, float)) and isinstance(t.get("seconds_solve"), (int, float))]
+    if not out:
+        raise InstanceError("the summary has no task that ran to ok in it", file=path, column="tasks")
+    return out
+
+
 def size_run(cases, *, model, method, tol, task_products, workers, window, overhead=0.0, startup=0.0,
-             variant=None, fit_min_products: int | None = None) -> dict:
+             variant=None, fit_min_products: int | None = None, calibration=None) -> dict:
     """The sizing answer: fit, projection on ``workers``, fits or not, margin, smallest workers, other tols.
 
     ``fit_min_products`` leaves smaller cases out of the fit (their fixed costs bend the curve).
+    ``calibration``: (products, solve seconds) pairs measured in a pilot Dask run of the same
+    method and tolerance on the production machine; every fit is then scaled by the median of
+    measured / predicted, which carries the machine's contention (workers sharing cores and
+    memory bandwidth, other load) that a one-process benchmark does not see.
     """
     if fit_min_products:
         cases = [c for c in cases if c.n_products >= fit_min_products]
@@ -289,9 +307,17 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
                           f"tolerances there: {', '.join(f'{t:g}' for t in tols)}")
     task_products = np.asarray(task_products, dtype=np.float64)
 
+    factor = None
+    if calibration:
+        ref = TimeModel.fit([c.n_products for c in groups[match[0]]], [c.seconds for c in groups[match[0]]])
+        n_c, s_c = np.array(calibration, dtype=np.float64).T
+        factor = float(np.median(s_c / ref.predict(n_c)))
+
     def one(t):
         cs = groups[t]
         tm = TimeModel.fit([c.n_products for c in cs], [c.seconds for c in cs])
+        if factor is not None:
+            tm = dataclasses.replace(tm, a=tm.a * factor)
         pr = project(task_products, tm, workers, overhead, startup)
         per = float(tm.predict(np.max(task_products)))
         res = {"tol": t, "fit": tm.to_dict(), "per_task_solve_seconds": per, **pr,
@@ -315,7 +341,7 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
     return {"model": model, "method": method, "variant": next(iter(groups[match[0]])).variant,
             "tasks": int(task_products.size), "products_min": float(task_products.min()),
             "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
-            "overhead_per_task_seconds": overhead, "startup_seconds": startup,
+            "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
             "result": main, "looser": others, "curve": curve}
 
 
