@@ -758,6 +758,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     mu = float(so.get("damping", 0.0))
     bid_tol = float(so.get("bid_tol", 1e-4 if tol <= 1e-7 else np.inf))
     certified = False          # the gap was within tol at some earlier iteration
+    best_primal = -np.inf      # the best certified primal value so far
     while True:
         d, n_flat = net.newton_direction(pt, damping=mu)
         # bid prices settled: Newton's step is below bid_tol relative on every leg
@@ -766,16 +767,23 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         big = pt.pi >= 1e-3 * pt.pi.max(initial=0.0)
         settled = nonsmooth or not np.any(np.abs(d[big]) > bid_tol * pt.pi[big])
         # Newton's decrement -g.d / 2 estimates q(pi) - q*, a lower bound on the
-        # gap: while it is far above tol (smooth duals only), or while only the
-        # bid prices are still settling, the cheap recovery (still a certified
-        # lower bound, only looser) is enough for the record
+        # gap: while it is far above tol (smooth duals only) the cheap recovery
+        # (still a certified lower bound, only looser) is enough for the record.
+        # While only the bid prices are still settling (the gap was certified
+        # within tol before), no recovery: the record pairs q(pi) with the best
+        # allocation recovered so far (feasible, so still a certified gap), and
+        # the stopping iteration recovers again at its own point.
         dec_rel = -0.5 * float(pt.grad @ d) / max(1.0, abs(pt.exact))
         far = net.sub.all_normal and not nonsmooth and dec_rel > 30.0 * tol
-        cheap = far or (certified and not settled)
-        # two recoveries: the scaled x(pi) and the Newton-predicted allocation
-        # (only the latter for normal demand, where it is measured better)
-        y_n, p_newton = net.recover(pt, d, want_y=True, cheap=cheap)
-        p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
+        cheap = far
+        if certified and not settled:
+            y_n, p_newton, p_scaled = None, best_primal, -np.inf
+            cheap = True
+        else:
+            # two recoveries: the scaled x(pi) and the Newton-predicted allocation
+            # (only the latter for normal demand, where it is measured better)
+            y_n, p_newton = net.recover(pt, d, want_y=True, cheap=cheap)
+            p_scaled = -np.inf if net.sub.all_normal else net.recover(pt, want_y=False)[1]
         last_drop = (history[-1].dual_value - pt.exact) / max(1.0, abs(pt.exact)) if history else np.inf
         if (net.sub.all_normal and not cheap and tol < _gap(pt.exact, p_newton) <= 1e-3
                 and (last_drop <= 10.0 * tol or not nonsmooth)):
@@ -786,6 +794,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             p_newton = max(p_newton, net.sub.revenue(y_n))
         use_newton = p_newton >= p_scaled
         primal = max(p_scaled, p_newton)
+        best_primal = max(best_primal, primal)
         gap = _gap(pt.exact, primal)
         history.append(_record(it, pt, primal, gap, t, t_start))
         log.debug("newton %d: q=%.12g primal=%.12g (scaled %.12g) gap=%.3g step=%g flat=%d delta=%g%s",
