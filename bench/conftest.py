@@ -200,6 +200,8 @@ def pytest_benchmark_update_json(config, benchmarks, output_json):
         "references": state["references"],
         "load_average_at_end": _loadavg(),
         "session_seconds": time.time() - state["started"],
-        "memory_note": "peak_memory_mib: growth of the resident set over the solve "
-                       "(Linux VmHWM reset via /proc/self/clear_refs; else RSS after minus before)",
+        "memory_note": "peak_memory_mib: growth of the resident set over the solve (a lower bound: "
+                       "memory the allocator kept from earlier solves is reused without growth); "
+                       "peak_rss_mib: the process's peak resident set during the solve (an upper bound, "
+                       "instance included); Linux VmHWM reset via /proc/self/clear_refs before each round",
     }

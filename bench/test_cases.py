@@ -56,7 +56,7 @@ def test_solve(solve_case, benchmark, instances, references, warm_up):
         "method": case.method, "label": case.label, "knobs": case.options,
         "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
         **acc,
-        "peak_memory_mib": mem.peak_mib, "memory_method": mem.method,
+        "peak_memory_mib": mem.peak_mib, "peak_rss_mib": mem.peak_rss_mib, "memory_method": mem.method,
         "reference": None if ref is None else ref.summary(),
         "history": history_records(result) if case.method == "lagrangian" else [],
         "thresholds": limits, "accuracy_failures": failures,
@@ -78,7 +78,7 @@ def test_build(build_case, benchmark, instances):
         "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
         "method": case.method, "label": case.label, "knobs": case.options,
         "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
-        "peak_memory_mib": mem.peak_mib, "memory_method": mem.method,
+        "peak_memory_mib": mem.peak_mib, "peak_rss_mib": mem.peak_rss_mib, "memory_method": mem.method,
         "builder": builders.describe(case.model), **size,
         "accuracy_failures": [],
     })

@@ -22,7 +22,7 @@ from decomp.benchsuite.results import BenchmarkFileError, load_run
 
 ACCURACY_FIELDS = ("objective", "gap", "objective_error", "bid_price_error", "max_violation",
                    "max_violation_rel", "iterations", "termination", "solution_status",
-                   "peak_memory_mib", "solver_version", "n_products", "n_legs", "reference")
+                   "peak_memory_mib", "peak_rss_mib", "solver_version", "n_products", "n_legs", "reference")
 
 
 # -- pure pieces ---------------------------------------------------------------

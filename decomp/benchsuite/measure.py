@@ -9,7 +9,11 @@ call returned, against a tight reference solve of the same instance:
 * ``max_violation`` / ``max_violation_rel``: from the result's certificate,
   recomputed from the allocation when the certificate is missing.
 
-Peak memory is the growth of the process's resident set during the solve:
+Peak memory is the growth of the process's resident set during the solve
+(``peak_memory_mib``, a lower bound: memory the allocator kept from earlier
+solves is reused without growth) and the absolute peak resident set
+(``peak_rss_mib``, an upper bound: it includes the instance and the rest of
+the process):
 on Linux the high-water mark (VmHWM) is reset before the solve by writing 5
 to /proc/self/clear_refs and read after it, so C allocations (HiGHS, Ipopt)
 count; elsewhere it falls back to the RSS difference after minus before (a
@@ -46,11 +50,17 @@ def _status_kib(key: str) -> int | None:
 class PeakMemory:
     """Peak RSS growth over a region; call :meth:`start` before and :meth:`stop` after.
 
-    ``peak_mib`` keeps the largest value over several start/stop pairs (rounds).
+    ``peak_mib`` keeps the largest growth over several start/stop pairs
+    (rounds); ``peak_rss_mib`` the largest absolute resident set seen during
+    a round (instance and everything else the process holds included: an
+    upper bound on what the solve needs, where the growth is a lower bound
+    because memory freed by earlier solves and kept by the allocator is
+    reused without growing the resident set).
     """
 
     def __init__(self):
         self.peak_mib = None
+        self.peak_rss_mib = None
         self.method = None
         self._base = None
         self._hwm = os.path.exists(_CLEAR_REFS) and _status_kib("VmHWM") is not None
@@ -76,6 +86,7 @@ class PeakMemory:
             self.method = "rss_delta"       # RSS after minus before (a lower bound on the peak)
         mib = max(0.0, (peak - self._base) / 1024.0)
         self.peak_mib = mib if self.peak_mib is None else max(self.peak_mib, mib)
+        self.peak_rss_mib = peak / 1024.0 if self.peak_rss_mib is None else max(self.peak_rss_mib, peak / 1024.0)
         self._base = None
 
     def _rss_kib(self) -> int:

@@ -125,8 +125,9 @@ def render(run, plots=(), stat: str = "min") -> str:
         n, L = rows[0].get("n_products"), rows[0].get("n_legs")
         out += [f"## Rung {rung}: {n} products, {L} legs", "",
                 "| model | method | knobs | time s | median s | rounds | build s | iterations | gap | "
-                "objective err | bid-price err | violation (rel) | peak MiB | status | x ipopt | x pyomo-ipopt |",
-                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|---:|---:|"]
+                "objective err | bid-price err | violation (rel) | mem growth MiB | peak RSS MiB | status | x ipopt | "
+                "x pyomo-ipopt |",
+                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|---:|---:|"]
         for r in sorted(rows, key=lambda r: (r.get("kind") != "solve", str(r.get("model")),
                                              str(r.get("label")), _knobs(r))):
             ph = r.get("phase_seconds") or {}
@@ -139,7 +140,7 @@ def render(run, plots=(), stat: str = "min") -> str:
                 _g(r.min, "{:.4g}"), _g(r.median, "{:.4g}"), str(r.rounds), _g(ph.get("build"), "{:.3g}"),
                 _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
                 _g(r.get("bid_price_error"), "{:.2e}"), _g(r.get("max_violation_rel"), "{:.1e}"),
-                _g(r.get("peak_memory_mib"), "{:.0f}"), status,
+                _g(r.get("peak_memory_mib"), "{:.0f}"), _g(r.get("peak_rss_mib"), "{:.0f}"), status,
                 _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
         out.append("")
     fits = slopes(run, stat, min_n=FIT_MIN_N)
