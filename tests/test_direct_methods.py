@@ -245,3 +245,18 @@ def test_direct_pnlp_methods_refuse_other_distributions():
     for method in ("ipopt", "pyomo-ipopt"):
         with pytest.raises(InstanceError, match="normal demand only"):
             solve(inst, "pnlp", method)
+
+
+@pytest.mark.solver
+def test_highs_thread_count_can_change_between_solves():
+    # HiGHS fact (its global scheduler is per process): a run asking for another
+    # thread count than the first run used fails unless the scheduler is reset.
+    # Reference answer: the same LP solved with HiGHS' defaults.
+    from decomp import SolverOptions, solve
+    from decomp.generator import generate
+
+    inst = generate(200, seed=3)
+    first = solve(inst, "dlp", "highs", SolverOptions(threads=2))
+    second = solve(inst, "dlp", "highs", SolverOptions(threads=1))
+    assert first.ok and second.ok
+    assert second.objective == pytest.approx(first.objective, rel=1e-9)

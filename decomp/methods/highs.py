@@ -205,6 +205,10 @@ class HighsArrays:
         if status == highspy.HighsStatus.kError:
             raise ConfigError(f"HiGHS rejected the {model} LP of {instance.name} ({status.name})")
         t1 = time.perf_counter()
+        if options.threads is not None:
+            # HiGHS keeps one thread scheduler per process; a run asking for a
+            # different thread count than the first one fails unless it is reset.
+            h.resetGlobalScheduler(True)
         h.run()
         t2 = time.perf_counter()
         ms = h.getModelStatus()

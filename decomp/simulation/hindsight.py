@@ -18,10 +18,14 @@ class HindsightLP:
     def __init__(self, instance):
         import highspy
 
+        from ..methods.highs import new_highs
+
         self._highspy = highspy
         self.P = instance.n_products
-        h = highspy.Highs()
-        for key, value in (("output_flag", False), ("threads", 1), ("log_to_console", False)):
+        h = new_highs()
+        # No "threads" option: HiGHS keeps one thread scheduler per process, and
+        # a run asking for another thread count than the first one fails.
+        for key, value in (("output_flag", False), ("log_to_console", False)):
             status = h.setOptionValue(key, value)
             if status != highspy.HighsStatus.kOk:
                 raise SimulationConfigError(f"HiGHS rejected option {key}={value!r} ({status})")
@@ -49,7 +53,9 @@ class HindsightLP:
         hs = self._highspy
         d = np.asarray(demand, dtype=np.float64)
         self.h.changeColsBounds(self.P, self._cols, self._zeros, d)
-        self.h.run()
+        run_status = self.h.run()
+        if run_status == hs.HighsStatus.kError:
+            raise RuntimeError("hindsight LP: HiGHS run() returned an error (see HiGHS log with output_flag on)")
         status = self.h.getModelStatus()
         if status != hs.HighsModelStatus.kOptimal:
             raise RuntimeError(f"hindsight LP did not solve to optimality: {self.h.modelStatusToString(status)}")
