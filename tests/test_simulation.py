@@ -244,3 +244,13 @@ def test_cli_bad_input_exits_2(tmp_path, capsys):
                      "--out", str(tmp_path / "out"), *argv])
         assert code == 2
         assert "error" in capsys.readouterr().err
+
+
+def test_plain_bid_price_spec_accepts_ties():
+    # The plain bid-price rule (accept when fare >= sum of bid prices) is its own spec.
+    from decomp.simulation.policies import parse_policy
+
+    plain = parse_policy("plain:dlp:highs")
+    assert plain.ties == "accept" and plain.model == "dlp" and plain.method == "highs"
+    assert parse_policy("dlp:highs").ties == "allocation"
+    assert plain.label != parse_policy("dlp:highs").label

@@ -4,7 +4,9 @@ Every policy runs on the same sample paths (common random numbers); each path
 also gets its perfect-hindsight bound (the DLP on its realized demand) and
 first-come-first-served is added as a baseline. Policies (comma-separated):
 ``MODEL[:METHOD[:TOL]]`` bid-price control (e.g. ``pnlp:lagrangian:1e-9``,
-``dlp:highs``), ``partitioned:MODEL[:METHOD[:TOL]]`` booking limits from the
+``dlp:highs``; a product whose fare equals its bid-price sum is sold up to the
+model's allocation), ``plain:MODEL[:METHOD[:TOL]]`` (every request whose fare is
+at least the sum), ``partitioned:MODEL[:METHOD[:TOL]]`` booking limits from the
 model's allocation, ``fcfs``, and on single-leg instances ``emsrb`` or
 ``nested:Y1[/Y2...]`` nested protection levels. ``--reoptimize-every``,
 ``--forecast-bias`` and ``--sigma-factor`` take comma-separated lists; every

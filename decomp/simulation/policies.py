@@ -13,7 +13,8 @@ seat left, and when the smallest remaining capacity over its legs exceeds
   the model's marginal products; every binding leg of a DLP has one, and
   selling all of its requests would hand the leg to the first low fare that
   asks. By default (``ties="allocation"``) such a product is sold up to the
-  model's allocation of it; ``ties="accept"`` applies the plain rule.
+  model's allocation of it; ``ties="accept"`` (spec ``plain:MODEL[:METHOD[:TOL]]``)
+  applies the plain rule: accept whenever the fare is at least the sum.
 * :class:`PartitionedPolicy` (``partitioned:MODEL[:METHOD[:TOL]]``): each
   product may sell its (rounded) allocation from the model.
 * :class:`NestedPolicy` (``emsrb``, or ``nested:Y1[/Y2...]`` for fixed levels;
@@ -289,7 +290,8 @@ def parse_policy(spec: str) -> Policy:
     text = spec.strip()
     parts = [p.strip() for p in text.split(":")]
     head = parts[0].lower()
-    valid = ("MODEL[:METHOD[:TOL]] with MODEL in dlp, pnlp, pwl; partitioned:MODEL[:METHOD[:TOL]]; "
+    valid = ("MODEL[:METHOD[:TOL]] with MODEL in dlp, pnlp, pwl; plain:MODEL[:METHOD[:TOL]]; "
+             "partitioned:MODEL[:METHOD[:TOL]]; "
              "fcfs; emsrb; nested:Y1[/Y2...]")
     if not text:
         raise SimulationConfigError(f"empty policy specification; valid forms: {valid}")
@@ -303,12 +305,14 @@ def parse_policy(spec: str) -> Policy:
         except ValueError as exc:
             raise SimulationConfigError(f"policy {spec!r}: protection levels must be numbers separated by '/'") from exc
         return NestedPolicy(levels, spec=text)
-    if head == "partitioned" and 2 <= len(parts) <= 4:
+    if head in ("partitioned", "plain") and 2 <= len(parts) <= 4:
         model = parts[1].lower()
         if model not in MODELS:
             raise SimulationConfigError(f"policy {spec!r}: unknown model {parts[1]!r}; valid models: {', '.join(MODELS)}")
         method = parts[2] if len(parts) > 2 and parts[2] else None
         tol = _tol(parts[3], spec) if len(parts) > 3 else None
+        if head == "plain":
+            return BidPricePolicy(model, method, tol, spec=text, ties="accept")
         return PartitionedPolicy(model, method, tol, spec=text)
     if head in MODELS and 1 <= len(parts) <= 3:
         method = parts[1] if len(parts) > 1 and parts[1] else None
