@@ -16,6 +16,10 @@ def atomic_path(path):
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
+    # mkstemp creates the file private (0600); give it the usual mode for new files
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield pathlib.Path(tmp)
         os.replace(tmp, path)
