@@ -767,16 +767,18 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         big = pt.pi >= 1e-3 * pt.pi.max(initial=0.0)
         settled = nonsmooth or not np.any(np.abs(d[big]) > bid_tol * pt.pi[big])
         # Newton's decrement -g.d / 2 estimates q(pi) - q*, a lower bound on the
-        # gap: while it is far above tol (smooth duals only) the cheap recovery
-        # (still a certified lower bound, only looser) is enough for the record.
-        # While only the bid prices are still settling (the gap was certified
-        # within tol before), no recovery: the record pairs q(pi) with the best
-        # allocation recovered so far (feasible, so still a certified gap), and
-        # the stopping iteration recovers again at its own point.
+        # gap (measured: gap / decrement between 0.9 and 1.7 at 1,000,000
+        # products). While it is far above tol (smooth duals only), and while
+        # only the bid prices are still settling (the gap was certified within
+        # tol before), no recovery: the record pairs q(pi) with the best
+        # allocation recovered so far (feasible, so still a certified gap; at
+        # the first iteration the cheap recovery, without the extra correction
+        # and with the global curvature bound), and the stopping iteration
+        # recovers again at its own point.
         dec_rel = -0.5 * float(pt.grad @ d) / max(1.0, abs(pt.exact))
-        far = net.sub.all_normal and not nonsmooth and dec_rel > 30.0 * tol
+        far = net.sub.all_normal and not nonsmooth and dec_rel > 5.0 * tol
         cheap = far
-        if certified and not settled:
+        if (certified and not settled) or (far and it > 0 and np.isfinite(best_primal)):
             y_n, p_newton, p_scaled = None, best_primal, -np.inf
             cheap = True
         else:
