@@ -187,13 +187,15 @@ class _Network:
         K = max(K, 1)
         ptr = np.zeros(Pl + 1, dtype=np.int64)
         np.cumsum(lpp_l, out=ptr[1:])
-        M = np.zeros((Pl, K), dtype=np.int64)                      # 0 = no leg
+        M = np.zeros((Pl, K), dtype=np.int64, order="F")           # 0 = no leg; columns contiguous
         last = max(len(idx_l) - 1, 0)
         for k in range(K):                                         # a loop over leg positions
             col = idx_l[np.minimum(ptr[:-1] + k, last)] + 1 if len(idx_l) else np.zeros(Pl, np.int64)
             M[:, k] = np.where(lpp_l > k, col, 0)
         if Pl:
-            same = np.all(M[1:] == M[:-1], axis=1)
+            same = np.ones(Pl - 1, dtype=bool)
+            for k in range(K):                                     # column by column (contiguous)
+                same &= M[1:, k] == M[:-1, k]
             starts = np.concatenate([[0], np.nonzero(~same)[0] + 1])
         else:
             starts = np.zeros(0, dtype=np.int64)
@@ -221,13 +223,19 @@ class _Network:
         self.A_g = self.AT_g.T.tocsr()
         self._ratio_buf = np.ones(n + 1)
         # -- Hessian pattern: lower-triangle pairs of legs sharing a group --------------
+        # (each unordered pair of positions once: the diagonal, then (max, min) of
+        # two distinct legs)
         rows, cols, egrp = [], [], []
+        Mg = np.asarray(Mg, order="F")
         for p in range(K):
-            for q in range(K):
-                ok = (Mg[:, p] > 0) & (Mg[:, q] > 0)
-                r, c = Mg[ok, p] - 1, Mg[ok, q] - 1
-                keep = (r > c) | ((r == c) & (p == q))
-                rows.append(r[keep]); cols.append(c[keep]); egrp.append(np.nonzero(ok)[0][keep])
+            gp = np.flatnonzero(Mg[:, p])
+            lp = Mg[gp, p] - 1
+            rows.append(lp); cols.append(lp); egrp.append(gp)
+            for q in range(p + 1, K):
+                cq = Mg[gp, q] - 1
+                ok = (cq >= 0) & (cq != lp)
+                r, c = lp[ok], cq[ok]
+                rows.append(np.maximum(r, c)); cols.append(np.minimum(r, c)); egrp.append(gp[ok])
         rows = np.concatenate(rows); cols = np.concatenate(cols); egrp = np.concatenate(egrp)
         key = rows * n + cols
         if n * n <= 64 * max(len(key), 1) + 2 ** 24:
