@@ -873,7 +873,10 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         if nonsmooth and delta > delta_min and (t == 1.0 or -slope <= 1e-2 * delta * abs(pt.value)):
             delta = max(delta_min, 0.1 * delta)
             pt = net.evaluate(pt.pi, delta)
-    y, _ = net.recover(pt, d if use_newton else None)
+    if term is Termination.OPTIMAL and use_newton and y_n is not None:
+        y = y_n                   # recovered at this point with this d (not again)
+    else:
+        y, _ = net.recover(pt, d if use_newton else None)
     return dict(pi=pt.pi if final_pi is None else final_pi, x=y, gap=gap, termination=term, raw_status=raw, message=msg,
                 iterations=it, history=tuple(history))
 
