@@ -46,7 +46,11 @@ def run(args) -> int:
     import logging
 
     # distributed logs every worker start and stop at INFO; keep the terminal for the progress bar
-    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core"):
+    # (imported first: importing it sets its loggers' levels from its config)
+    import distributed  # noqa: F401
+
+    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
+                 "distributed.http.proxy", "distributed.diskutils", "distributed.worker"):
         logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
     from ..options import SolverOptions
     from ..production.batch import DateVariation, build_batch, date_range
