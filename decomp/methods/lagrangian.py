@@ -642,23 +642,22 @@ class LagrangianMethod:
             raise ConfigError(f"start must be 'heuristic' or 'fare', got {start_kind!r}")
 
         t0 = time.perf_counter()
-        with _blas_threads(options.threads or 1):
+        with _blas_threads(options.threads or 1, instance.n_legs):
             net = _Network(instance, linear_solver, mixed=precision == "mixed", tol=options.tol)
-        pi_full0 = np.zeros(instance.n_legs)
-        pi_full0[net.legs] = net.start(start_kind)
-        if warm_start is not None:
-            pi_full0 = _warm_pi(instance, warm_start, pi_full0)
-        pi0 = pi_full0[net.legs]
-        # strictly positive start: zero or negative bid prices go to a tiny positive value
-        floor = 1e-200 * float(net.sub.fare.max(initial=1.0))
-        pi0 = np.maximum(pi0, floor)
-        t1 = time.perf_counter()
+            pi_full0 = np.zeros(instance.n_legs)
+            pi_full0[net.legs] = net.start(start_kind)
+            if warm_start is not None:
+                pi_full0 = _warm_pi(instance, warm_start, pi_full0)
+            pi0 = pi_full0[net.legs]
+            # strictly positive start: zero or negative bid prices go to a tiny positive value
+            floor = 1e-200 * float(net.sub.fare.max(initial=1.0))
+            pi0 = np.maximum(pi0, floor)
+            t1 = time.perf_counter()
 
-        method = options.dual_method
-        limit = options.iteration_limit or ITERATION_LIMITS[method]
-        deadline = None if options.time_limit is None else t0 + options.time_limit
-        runner = {"newton": _newton, "lbfgsb": _lbfgsb, "subgradient": _subgradient}[method]
-        with _blas_threads(options.threads or 1):
+            method = options.dual_method
+            limit = options.iteration_limit or ITERATION_LIMITS[method]
+            deadline = None if options.time_limit is None else t0 + options.time_limit
+            runner = {"newton": _newton, "lbfgsb": _lbfgsb, "subgradient": _subgradient}[method]
             out = runner(net, pi0, options, limit, deadline, so, t1)
         t2 = time.perf_counter()
 
@@ -693,14 +692,21 @@ class LagrangianMethod:
                      "start": "warm" if warm_start is not None else start_kind})
 
 
-def _blas_threads(n):
+#: Below this many legs the dense factorizations are too small for BLAS threads to matter.
+_BLAS_LIMIT_FROM_LEGS = 300
+
+
+def _blas_threads(n, n_legs):
     """Limit BLAS threads for the dense factorizations (a busy 2-core machine makes
-    spinning BLAS threads 10x slower than one); a no-op without threadpoolctl."""
+    spinning BLAS threads 10x slower than one); a no-op without threadpoolctl or on
+    small networks, where the library scan (about 10 ms) would cost more than it saves."""
+    import contextlib
+
+    if n_legs < _BLAS_LIMIT_FROM_LEGS:
+        return contextlib.nullcontext()
     try:
         from threadpoolctl import threadpool_limits
     except ImportError:  # pragma: no cover - threadpoolctl is a dependency
-        import contextlib
-
         return contextlib.nullcontext()
     return threadpool_limits(limits=int(n), user_api="blas")
 
