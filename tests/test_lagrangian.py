@@ -203,3 +203,23 @@ def test_solve_command_writes_a_result(tmp_path, rungs):
                  "--warm-start", str(out), "--out", str(warm)])
     assert code == 0
     assert json.loads(warm.read_text())["iterations"] <= 1
+
+
+@pytest.mark.solver
+def test_tiny_bid_price_leg_does_not_stall_the_gap():
+    # Regression: a 100,000-product date instance whose slack leg has a bid
+    # price near 1e-87; scaling every product of that leg (including ones whose
+    # other legs are dear) left the recovered primal 1e-8 below the dual and the
+    # method ran into its iteration limit. Check: strong duality (a mathematical
+    # fact for this convex program) certified to the default tol in few iterations.
+    import datetime as dt
+
+    from decomp.generator import generate
+    from decomp.production.batch import DateVariation
+
+    inst = DateVariation(seed=1).apply(generate(100_000, seed=1), dt.date(2027, 1, 1), name="stall")
+    res = solve(inst, "pnlp", "lagrangian")
+    assert res.ok, res.message
+    assert res.gap <= 1e-9 and res.certificate.max_violation_rel <= 1e-9
+    assert res.iterations <= 30
+    assert res.bid_price_array.min() < 1e-60     # the tiny-bid-price leg is there

@@ -361,6 +361,39 @@ class _Network:
         ratio[:-1][over] = self.cap[over] / load[over] * (1.0 - 1e-14)
         return ratio[self.Mg - 1].min(axis=1)
 
+    def greedy_recover(self, pt):
+        """The last Newton-predicted allocation at ``pt`` made feasible by cutting,
+        on each overloaded leg, the groups of least marginal value a_g first
+        (instead of scaling every product of the leg by the same factor), or
+        None when it needed no cut. A leg with a tiny bid price also carries
+        products whose other legs are dear; proportional scaling cuts those too
+        and can leave a gap of 1e-8 that no further Newton step closes.
+        Vectorized over the (leg, group) pairs of overloaded legs only."""
+        last = getattr(self, "_unscaled", None)
+        if last is None or last[0] is not pt or last[1] is None:
+            return None
+        _, y, load = last
+        over = np.nonzero(load > self.cap)[0]
+        if len(over) == 0:
+            return None
+        y_g = self.to_groups(y)
+        rows_A = self.A_g[over]
+        counts = np.diff(rows_A.indptr)
+        row = np.repeat(np.arange(len(over)), counts)
+        g = rows_A.indices
+        order = np.lexsort((pt.a_g[g], row))                # by leg, then by marginal value
+        g, row = g[order], row[order]
+        amount = rows_A.data[order] * y_g[g]
+        csum = np.cumsum(amount)
+        start = np.concatenate([[0], np.cumsum(counts)[:-1]])
+        before = csum - amount - (csum[start] - amount[start])[row]
+        excess = (load[over] - self.cap[over]) * (1.0 + 1e-12) + 1e-12 * np.maximum(1.0, self.cap[over])
+        cut = np.clip(excess[row] - before, 0.0, amount)
+        frac = np.divide(cut, amount, out=np.zeros_like(cut), where=amount > 0)
+        factor = np.ones(self.G)
+        np.minimum.at(factor, g, 1.0 - frac)
+        return y * self.to_products(np.clip(factor, 0.0, 1.0))
+
     def _close_slack(self, pt, y):
         """One more Newton correction of the predicted allocation: legs left
         with slack or overload (clipping at 0, products held at the clip) get
@@ -427,7 +460,10 @@ class _Network:
             np.maximum(y, 0.0, out=y)
             if not cheap:
                 y = self._close_slack(pt, y)
-            scale_g = self._scale_to_capacity(self.A_g @ self.to_groups(y))
+            load_y = self.A_g @ self.to_groups(y)
+            scale_g = self._scale_to_capacity(load_y)
+            # kept for greedy_recover: the allocation before scaling, and its loads
+            self._unscaled = (pt, None if scale_g is None else y.copy(), load_y)
             if scale_g is not None:
                 y *= self.to_products(scale_g)
             if sub.all_normal:
@@ -826,6 +862,11 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             # magnitude (with a smooth dual this phase starts once Newton's
             # decrement is within 30 tol, see `far`)
             p_newton = max(p_newton, net.sub.revenue(y_n))
+            y_g = net.greedy_recover(pt)
+            if y_g is not None:
+                p_greedy = net.sub.revenue(y_g)
+                if p_greedy > p_newton:
+                    y_n, p_newton = y_g, p_greedy
         use_newton = p_newton >= p_scaled
         primal = max(p_scaled, p_newton)
         best_primal = max(best_primal, primal)
