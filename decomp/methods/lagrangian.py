@@ -862,7 +862,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             # magnitude (with a smooth dual this phase starts once Newton's
             # decrement is within 30 tol, see `far`)
             p_newton = max(p_newton, net.sub.revenue(y_n))
-            y_g = net.greedy_recover(pt)
+            y_g = net.greedy_recover(pt) if _gap(pt.exact, p_newton) > tol else None
             if y_g is not None:
                 p_greedy = net.sub.revenue(y_g)
                 if p_greedy > p_newton:
