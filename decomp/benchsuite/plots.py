@@ -79,14 +79,21 @@ def slopes(run, stat: str = "min", min_n: int = 0) -> dict:
     return out
 
 
-def _knob_text(row) -> str:
+def knob_parts(row, limits: bool = False) -> list:
+    """The accuracy knobs of a case as short texts (K, tol; with ``limits`` also time and iteration limits)."""
     k = row.get("knobs") or {}
     parts = []
     if "segments" in k:
         parts.append(f"K={k['segments']}")
     if "tol" in k:
         parts.append(f"tol={k['tol']:.0e}")
-    return " ".join(parts)
+    if limits:
+        parts += [f"{name}={k[name]:g}" for name in ("time_limit", "iteration_limit") if k.get(name) is not None]
+    return parts
+
+
+def _knob_text(row) -> str:
+    return " ".join(knob_parts(row))
 
 
 def plot_time_vs_products(run, path, stat="min"):

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from .cases import RUNG_ORDER
-from .plots import FIT_MIN_N, slopes
+from .plots import FIT_MIN_N, knob_parts, slopes
 
 #: Methods the speed-up columns compare against, measured in the same run.
 BASELINES = ("ipopt", "pyomo-ipopt")
@@ -18,16 +18,7 @@ def _g(v, fmt="{:.3g}"):
 
 
 def _knobs(row) -> str:
-    k = row.get("knobs") or {}
-    parts = []
-    if "segments" in k:
-        parts.append(f"K={k['segments']}")
-    if "tol" in k:
-        parts.append(f"tol={k['tol']:.0e}")
-    for name in ("time_limit", "iteration_limit"):
-        if k.get(name) is not None:
-            parts.append(f"{name}={k[name]:g}")
-    return ", ".join(parts) or "-"
+    return ", ".join(knob_parts(row, limits=True)) or "-"
 
 
 def baseline_row(rows, method: str):
@@ -123,11 +114,13 @@ def render(run, plots=(), stat: str = "min") -> str:
         if not rows:
             continue
         n, L = rows[0].get("n_products"), rows[0].get("n_legs")
+        has_rev = any(r.get("revenue_loss_rel") is not None for r in rows)
         out += [f"## Rung {rung}: {n} products, {L} legs", "",
                 "| model | method | knobs | time s | median s | rounds | build s | iterations | gap | "
-                "objective err | bid-price err | violation (rel) | mem growth MiB | peak RSS MiB | status | x ipopt | "
-                "x pyomo-ipopt |",
-                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|---:|---:|"]
+                "objective err | bid-price err | " + ("revenue loss | " if has_rev else "")
+                + "violation (rel) | mem growth MiB | peak RSS MiB | status | x ipopt | x pyomo-ipopt |",
+                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|" + ("---:|" if has_rev else "")
+                + "---:|---:|---:|---|---:|---:|"]
         for r in sorted(rows, key=lambda r: (r.get("kind") != "solve", str(r.get("model")),
                                              str(r.get("label")), _knobs(r))):
             ph = r.get("phase_seconds") or {}
@@ -139,7 +132,9 @@ def render(run, plots=(), stat: str = "min") -> str:
                 str(r.get("model")), str(r.get("label")), _knobs(r),
                 _g(r.min, "{:.4g}"), _g(r.median, "{:.4g}"), str(r.rounds), _g(ph.get("build"), "{:.3g}"),
                 _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
-                _g(r.get("bid_price_error"), "{:.2e}"), _g(r.get("max_violation_rel"), "{:.1e}"),
+                _g(r.get("bid_price_error"), "{:.2e}"),
+                *([_g(r.get("revenue_loss_rel"), "{:.2e}")] if has_rev else []),
+                _g(r.get("max_violation_rel"), "{:.1e}"),
                 _g(r.get("peak_memory_mib"), "{:.0f}"), _g(r.get("peak_rss_mib"), "{:.0f}"), status,
                 _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
         out.append("")
@@ -157,6 +152,14 @@ def render(run, plots=(), stat: str = "min") -> str:
             "Errors are relative, against the reference solve; bid-price error over legs whose reference "
             "bid price is >= 1e-3 of the largest. DLP bid prices need not be unique (degenerate LPs), so "
             "their bid-price error is informative only.", ""]
+    rev = d.get("revenue") or {}
+    if rev.get("paths"):
+        out += [f"Revenue loss: (reference revenue - case revenue) / reference revenue, the case's bid "
+                f"prices and the reference's held fixed and priced on the same {rev['paths']} seeded booking "
+                "sample paths per rung (a point estimate of the mean; negative: the case earned more on "
+                "these paths). Reference revenue per rung/model: " + "; ".join(
+                    f"{k} {_g((v or {}).get('mean'), '{:.6g}')}" for k, v in (rev.get("references") or {}).items())
+                + ".", ""]
     if plots:
         out.append("## Plots")
         out += [f"![{p}]({p})" for p in plots]
