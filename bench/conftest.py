@@ -25,13 +25,18 @@ def pytest_addoption(parser):
     group = parser.getgroup("decomp-bench")
     group.addoption("--suite", action="store", default="quick", choices=bcases.SUITES,
                     help="benchmark suite: micro (tests), quick (<= 5 min), full (to 1,000,000 products)")
+    group.addoption("--revenue-paths", action="store", type=int, default=0, metavar="N",
+                    help="price each solve case's bid prices on N booking sample paths after timing, "
+                         "against the reference's on the same paths (default 0: off)")
 
 
 def pytest_configure(config):
     config.addinivalue_line("markers", "bench_solve: a timed decomp.solve case")
     config.addinivalue_line("markers", "bench_build: a timed Pyomo model build case")
     config.stash[_STATE_KEY] = {"started": time.time(), "load_start": _loadavg(), "rung_sources": {},
-                                "references": {}}
+                                "references": {}, "revenue_references": {}}
+    if config.getoption("--revenue-paths") < 0:
+        raise pytest.UsageError("--revenue-paths must be 0 (off) or a positive number of sample paths")
 
 
 def _loadavg():
@@ -145,6 +150,51 @@ class ReferenceStore:
         return None
 
 
+class RevenueStore:
+    """Revenue of the reference bid prices by (rung, model), priced once per session.
+
+    Every case of a rung is priced on the same seeded sample paths as its
+    reference (common random numbers); ``paths == 0`` turns pricing off.
+    """
+
+    def __init__(self, paths: int, instances: InstanceStore, references: ReferenceStore, summaries: dict):
+        self.paths = int(paths)
+        self._instances = instances
+        self._references = references
+        self._summaries = summaries
+        self._refs = {}
+
+    def reference(self, rung: str, model: str):
+        from decomp.benchsuite.measure import price_bid_prices, revenue_seed
+
+        key = (rung, model)
+        if key not in self._refs:
+            ref = self._references.get(rung, model)
+            rev = None
+            if ref is not None:
+                rev = price_bid_prices(self._instances.get(rung), ref.bid_prices, self.paths, revenue_seed(rung))
+            self._refs[key] = rev
+            self._summaries[f"{rung}/{model}"] = rev
+        return self._refs[key]
+
+    def price(self, rung: str, model: str, bid_prices) -> dict:
+        """The revenue fields of a case's bid prices (empty when pricing is off)."""
+        from decomp.benchsuite.measure import price_bid_prices, revenue_fields, revenue_seed
+
+        if self.paths <= 0:
+            return {}
+        ref = self.reference(rung, model)
+        rev = price_bid_prices(self._instances.get(rung), bid_prices, self.paths, revenue_seed(rung))
+        return revenue_fields(rev, ref)
+
+
+@pytest.fixture(scope="session")
+def revenue(request, instances, references) -> RevenueStore:
+    state = request.config.stash[_STATE_KEY]
+    return RevenueStore(request.config.getoption("--revenue-paths"), instances, references,
+                        state["revenue_references"])
+
+
 @pytest.fixture(scope="session")
 def instances(request) -> InstanceStore:
     return InstanceStore(request.config.stash[_STATE_KEY]["rung_sources"])
@@ -198,6 +248,12 @@ def pytest_benchmark_update_json(config, benchmarks, output_json):
         "excluded_methods": info["excluded"],
         "rungs": state["rung_sources"],
         "references": state["references"],
+        "revenue": {"paths": config.getoption("--revenue-paths"),
+                    "references": state["revenue_references"],
+                    "note": "fixed bid prices priced by decomp.simulation.run.revenue_for_bid_prices on "
+                            "seeded sample paths (seed per rung: the same paths for every case of a rung "
+                            "and its reference); revenue_loss_rel = (reference mean - case mean) / "
+                            "reference mean, a point estimate"},
         "load_average_at_end": _loadavg(),
         "session_seconds": time.time() - state["started"],
         "memory_note": "peak_memory_mib: growth of the resident set over the solve (a lower bound: "

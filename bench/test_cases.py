@@ -37,7 +37,7 @@ def _timed(benchmark, fn, args, kwargs, rounds, mem: PeakMemory):
 
 
 @pytest.mark.bench_solve
-def test_solve(solve_case, benchmark, instances, references, warm_up):
+def test_solve(solve_case, benchmark, instances, references, warm_up, revenue):
     case = solve_case
     inst = instances.get(case.rung)
     ref = references.get(case.rung, REFERENCE_MODEL[case.model])
@@ -51,6 +51,8 @@ def test_solve(solve_case, benchmark, instances, references, warm_up):
     acc = accuracy(inst, result, ref)
     limits = thresholds(case)
     failures = check(acc, limits)
+    # Untimed, after the timed call: price the bid prices on the rung's sample paths.
+    rev = revenue.price(case.rung, REFERENCE_MODEL[case.model], result.bid_price_array)
     benchmark.extra_info.update({
         "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
         "method": case.method, "label": case.label, "knobs": case.options,
@@ -60,6 +62,7 @@ def test_solve(solve_case, benchmark, instances, references, warm_up):
         "reference": None if ref is None else ref.summary(),
         "history": history_records(result) if case.method == "lagrangian" else [],
         "thresholds": limits, "accuracy_failures": failures,
+        **rev,
     })
     assert not failures, f"{case.id}: " + "; ".join(failures)
 

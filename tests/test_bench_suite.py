@@ -91,12 +91,15 @@ def test_threshold_parsing():
 
 # -- one micro run -------------------------------------------------------------
 
+REVENUE_PATHS = 20
+
 @pytest.fixture(scope="module")
 def micro_run(tmp_path_factory):
     from decomp.benchsuite.runner import run_suite
 
     out = tmp_path_factory.mktemp("bench-micro")
-    res = run_suite("micro", out, progress=False)
+    # 20 booking paths per case: the revenue pricing is checked on the same run (about 0.1 s a case).
+    res = run_suite("micro", out, progress=False, revenue_paths=REVENUE_PATHS)
     log = (out / "pytest.log").read_text() if (out / "pytest.log").exists() else ""
     assert res.json_path is not None, log[-3000:]
     return res, out
@@ -194,3 +197,35 @@ def test_missing_and_corrupt_files_give_clear_errors(tmp_path, capsys):
     assert "corrupt.json" in err and "not valid JSON" in err
     assert cli.main(["bench", "compare", str(missing), str(good)]) == 2
     assert "nowhere" in capsys.readouterr().err
+
+
+@pytest.mark.solver
+def test_micro_run_prices_bid_prices_on_common_paths(micro_run):
+    """--revenue-paths: every solve case carries its revenue and its loss against the reference."""
+    import decomp
+    from decomp.benchsuite.measure import revenue_seed
+    from decomp.simulation.run import revenue_for_bid_prices
+
+    _, out = micro_run
+    data = json.loads((out / "benchmark.json").read_text())
+    rev = data["decomp"]["revenue"]
+    assert rev["paths"] == REVENUE_PATHS and set(rev["references"]) >= {"tiny/pnlp", "tiny/dlp"}
+    solve = [b["extra_info"] for b in data["benchmarks"] if b["extra_info"]["kind"] == "solve"]
+    for info in solve:
+        assert info["revenue_paths"] == REVENUE_PATHS and info["revenue_seed"] == revenue_seed("tiny")
+        low, high = info["revenue_ci"]
+        assert low <= info["revenue_mean"] <= high
+        ref = rev["references"][f"tiny/{bcases.REFERENCE_MODEL[info['model']]}"]["mean"]
+        assert info["revenue_reference_mean"] == ref
+        assert info["revenue_loss_rel"] == pytest.approx((ref - info["revenue_mean"]) / ref, rel=1e-12, abs=1e-15)
+    # Common random numbers (same seed, same paths): the DLP reference's bid prices from HiGHS,
+    # priced again here, give exactly the revenue the run recorded for them, and the run's HiGHS
+    # case (the same LP solved again) has the same revenue, so a loss of 0.
+    inst, _ = bcases.load_instance("tiny")
+    res = decomp.solve(inst, model="dlp", method="highs")
+    mean, _ = revenue_for_bid_prices(inst, res.bid_price_array, REVENUE_PATHS, revenue_seed("tiny"))
+    assert mean == pytest.approx(rev["references"]["tiny/dlp"]["mean"], rel=1e-12)
+    highs = next(i for i in solve if i["model"] == "dlp" and i["method"] == "highs")
+    assert highs["revenue_loss_rel"] == 0.0
+    report = (out / "report.md").read_text()
+    assert "| revenue loss |" in report and f"same {REVENUE_PATHS} seeded booking" in report

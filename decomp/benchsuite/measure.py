@@ -167,6 +167,53 @@ def history_records(result, limit: int = 300) -> list:
     return out
 
 
+#: Seed of the revenue paths of rung r: REVENUE_SEED + its index in RUNG_ORDER. The same
+#: seed for every case of a rung and its reference: common random numbers.
+REVENUE_SEED = 20261202
+
+
+def revenue_seed(rung: str) -> int:
+    from .cases import RUNG_ORDER
+
+    return REVENUE_SEED + RUNG_ORDER.index(rung)
+
+
+def price_bid_prices(instance, bid_prices, paths: int, seed: int) -> dict | None:
+    """Mean revenue (and its 95 % interval) of fixed bid-price control on ``paths`` sample paths.
+
+    None when there are no finite bid prices to price. Uses
+    :func:`decomp.simulation.run.revenue_for_bid_prices` (same seed, same paths).
+    """
+    if bid_prices is None:
+        return None
+    bp = np.asarray(bid_prices, dtype=np.float64)
+    if bp.shape != (instance.n_legs,) or not np.all(np.isfinite(bp)):
+        return None
+    from decomp.simulation.run import revenue_for_bid_prices
+
+    mean, (low, high) = revenue_for_bid_prices(instance, bp, int(paths), int(seed))
+    return {"mean": _num(mean), "ci": [_num(low), _num(high)], "paths": int(paths), "seed": int(seed)}
+
+
+def revenue_fields(case_rev: dict | None, ref_rev: dict | None) -> dict:
+    """The revenue fields of a case: its priced revenue and its relative loss against the reference's.
+
+    ``revenue_loss_rel`` = (reference revenue - case revenue) / reference revenue, both
+    means over the same sample paths (a point estimate; negative when the case earned more).
+    """
+    out = {"revenue_mean": None, "revenue_ci": None, "revenue_loss_rel": None,
+           "revenue_reference_mean": None, "revenue_paths": None, "revenue_seed": None}
+    if case_rev is None:
+        return out
+    out.update(revenue_mean=case_rev["mean"], revenue_ci=case_rev["ci"], revenue_paths=case_rev["paths"],
+               revenue_seed=case_rev["seed"])
+    if ref_rev is not None and ref_rev["mean"] is not None and case_rev["mean"] is not None:
+        out["revenue_reference_mean"] = ref_rev["mean"]
+        if ref_rev["mean"] != 0:
+            out["revenue_loss_rel"] = (ref_rev["mean"] - case_rev["mean"]) / abs(ref_rev["mean"])
+    return out
+
+
 def accuracy(instance, result, reference: Reference | None) -> dict:
     """Accuracy fields of one result against its reference."""
     v, vrel = violation(instance, result)

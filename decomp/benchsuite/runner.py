@@ -47,13 +47,15 @@ class RunOutcome:
     n_failed: int
 
 
-def _pytest_command(suite, json_path, k, extra, python) -> list:
+def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0) -> list:
     cmd = [python, "-m", "pytest", str(bench_dir()), "--suite", suite,
            "-p", "decomp.benchsuite.progress", "-p", "no:cacheprovider",
            f"--benchmark-json={json_path}", "--benchmark-sort=name",
            "-o", "addopts=", "-rfE", "-q", "--rootdir", str(bench_dir().parent)]
     if k:
         cmd += ["-k", k]
+    if revenue_paths:
+        cmd += ["--revenue-paths", str(int(revenue_paths))]
     return cmd + list(extra)
 
 
@@ -78,8 +80,15 @@ def _read_progress(path, pos):
 
 
 def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bool = True,
-              python: str | None = None, plots: bool = True, command: str | None = None) -> RunOutcome:
-    """Run ``suite`` and write benchmark.json, pytest.log, report.md and plots into ``out``."""
+              python: str | None = None, plots: bool = True, command: str | None = None,
+              revenue_paths: int = 0) -> RunOutcome:
+    """Run ``suite`` and write benchmark.json, pytest.log, report.md and plots into ``out``.
+
+    ``revenue_paths`` > 0: each solve case's bid prices are also priced on that many
+    booking sample paths, after timing (``revenue_*`` fields of its ``extra_info``).
+    """
+    if int(revenue_paths) < 0:
+        raise ValueError(f"revenue_paths must be 0 (off) or positive, got {revenue_paths}")
     from tqdm import tqdm
 
     out = pathlib.Path(out)
@@ -90,7 +99,7 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
         tmp = pathlib.Path(tmp)
         json_tmp, prog, log_tmp = tmp / BENCH_JSON, tmp / "progress.jsonl", tmp / LOG
         env = dict(os.environ, **{PROGRESS_ENV: str(prog), "MPLBACKEND": "Agg"})
-        cmd = _pytest_command(suite, json_tmp, k, extra_args, python)
+        cmd = _pytest_command(suite, json_tmp, k, extra_args, python, revenue_paths)
         log.info("running %s", " ".join(cmd))
         n_done = n_failed = 0
         failed = []
@@ -138,7 +147,7 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
             json_path = out / BENCH_JSON
             data = json.loads(json_tmp.read_text())
             data.setdefault("decomp", {})["run"] = {
-                "suite": suite, "k": k, "wall_seconds": wall, "pytest_exit_code": rc,
+                "suite": suite, "k": k, "revenue_paths": int(revenue_paths), "wall_seconds": wall, "pytest_exit_code": rc,
                 "cases_run": n_done, "failed_cases": failed,
                 "command": command or " ".join(cmd),
             }

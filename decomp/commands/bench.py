@@ -1,6 +1,6 @@
 """``decomp bench``: run the benchmark suite; ``decomp bench compare``: compare two runs.
 
-    decomp bench [--suite quick|full|micro] [--out DIR] [-k EXPR]
+    decomp bench [--suite quick|full|micro] [--out DIR] [-k EXPR] [--revenue-paths N]
     decomp bench compare OLD NEW [--threshold 10%] [--stat min|median] [--json FILE]
     decomp bench report RUN [--out DIR]
 
@@ -26,6 +26,9 @@ def register(sub):
     p.add_argument("--out", default=None, metavar="DIR", help="output folder (default bench/results/SUITE)")
     p.add_argument("-k", dest="k", default=None, metavar="EXPR", help="pytest -k expression selecting cases")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--revenue-paths", type=int, default=0, metavar="N",
+                   help="after timing, price each case's bid prices on N booking sample paths against the "
+                        "reference's (same paths); adds a revenue-loss column (default 0: off)")
     p.set_defaults(func=run)
     ss = p.add_subparsers(dest="bench_command", metavar="{compare,report}")
     c = ss.add_parser("compare", help="compare two runs; exit 1 on a regression",
@@ -48,13 +51,18 @@ def register(sub):
     r.set_defaults(func=run_report)
 
 
-def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True) -> int:
+def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True, revenue_paths: int = 0) -> int:
     """Run a suite and print where its outputs went; returns the exit code."""
     from ..benchsuite.runner import run_suite as _run
 
+    if revenue_paths is None or revenue_paths < 0:
+        print(f"decomp bench: error: --revenue-paths must be 0 (off) or positive, got {revenue_paths}",
+              file=sys.stderr)
+        return 2
     out = pathlib.Path(out or f"bench/results/{suite}")
-    command = f"decomp bench --suite {suite} --out {out}" + (f" -k {k!r}" if k else "")
-    res = _run(suite, out, k=k, progress=progress, command=command)
+    command = (f"decomp bench --suite {suite} --out {out}" + (f" -k {k!r}" if k else "")
+               + (f" --revenue-paths {revenue_paths}" if revenue_paths else ""))
+    res = _run(suite, out, k=k, progress=progress, command=command, revenue_paths=revenue_paths)
     if res.returncode == 5:   # pytest: no tests collected
         print("decomp bench: no case matched (suite, -k expression, or no method available); "
               f"see {out / 'pytest.log'}", file=sys.stderr)
@@ -74,7 +82,8 @@ def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True) -> 
 
 
 def run(args) -> int:
-    return run_suite(args.suite, args.out, k=args.k, progress=not args.no_progress)
+    return run_suite(args.suite, args.out, k=args.k, progress=not args.no_progress,
+                     revenue_paths=args.revenue_paths)
 
 
 def run_compare(args) -> int:
