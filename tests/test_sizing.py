@@ -176,3 +176,81 @@ def test_calibration_from_a_pilot_run(exact, tmp_path):
     assert s["calibration_factor"] == pytest.approx(2.0, rel=1e-9)
     assert s["result"]["wall_seconds"] == pytest.approx(91.5, rel=1e-9)
     assert s["looser"][0]["wall_seconds"] == pytest.approx(183 * (0.2 + 0.1), rel=1e-9)   # 1e-6 n, scaled by 2
+
+
+# -- revenue loss against tolerance (decomp size --revenue-loss) ---------------------------
+
+def _priced(n, t, tol, loss, paths=200):
+    c = _case(n, t, tol=tol)
+    c["extra_info"].update(revenue_loss_rel=loss, revenue_paths=paths)
+    return c
+
+
+@pytest.fixture
+def priced(tmp_path):
+    """Times t = a_tol * n (a = 2e-6, 1e-6, 5e-7 at tol 1e-9, 1e-6, 1e-4); revenue losses known by hand.
+
+    At the largest rung (100,000 products): loss 0 at 1e-9, 2e-4 at 1e-6, 3e-3 at 1e-4. At 10,000
+    products the 1e-4 loss is only 5e-4: the answer must come from the largest rung, not this one.
+    """
+    cases = []
+    for tol, a, losses in ((1e-9, 2e-6, (0.0, 0.0, 0.0)), (1e-6, 1e-6, (1e-5, -1e-4, 2e-4)),
+                           (1e-4, 5e-7, (1e-4, 5e-4, 3e-3))):
+        for n, loss in zip((1_000, 10_000, 100_000), losses):
+            cases.append(_priced(n, a * n, tol, loss))
+    cases.append(_case(100_000, 99.0, tol=1e-4, termination="time_limit"))   # stopped by a limit: ignored
+    return _write(tmp_path, cases)
+
+
+def test_loosest_tolerance_within_revenue_loss_by_hand(priced):
+    cases = sizing.load_bench(priced)
+    kw = dict(model="pnlp", method="lagrangian", tol=1e-9, task_products=sizing.task_sizes(365, 100_000),
+              workers=2, window=600.0)
+    rv = sizing.size_run(cases, revenue_loss=1e-3, **kw)["revenue"]
+    # By hand: at 100,000 products the losses are 0, 2e-4, 3e-3; within 1e-3: tol 1e-9 and 1e-6;
+    # the loosest is 1e-6. Time saved per task: 2e-6 * 1e5 - 1e-6 * 1e5 = 0.1 s (measured at that
+    # rung, and projected from the exact fits at 100,000 products).
+    assert rv["rung_products"] == 100_000 and rv["loosest_tol"] == 1e-6
+    assert rv["revenue_loss_rel"] == pytest.approx(2e-4)
+    assert [r["within"] for r in rv["by_tol"]] == [True, True, False]
+    assert rv["seconds_saved_measured"] == pytest.approx(0.1, rel=1e-9)
+    assert rv["seconds_saved_per_task"] == pytest.approx(0.1, rel=1e-9)
+    assert "point estimate" in rv["estimate"]
+    # within 1e-2 every tolerance qualifies: 1e-4, saving 0.2 - 0.05 = 0.15 s
+    rv = sizing.size_run(cases, revenue_loss=1e-2, **kw)["revenue"]
+    assert rv["loosest_tol"] == 1e-4 and rv["seconds_saved_per_task"] == pytest.approx(0.15, rel=1e-9)
+    # within 1e-5 only the tight one (loss 0): nothing saved
+    rv = sizing.size_run(cases, revenue_loss=1e-5, **kw)["revenue"]
+    assert rv["loosest_tol"] == 1e-9 and rv["seconds_saved_measured"] == 0.0
+    with pytest.raises(ConfigError, match="revenue-loss"):
+        sizing.size_run(cases, revenue_loss=-0.1, **kw)
+
+
+def test_revenue_loss_needs_revenue_data(exact, tmp_path, capsys):
+    from decomp.cli import main
+
+    with pytest.raises(ConfigError, match=r"decomp bench --revenue-paths N"):
+        sizing.size_run(sizing.load_bench(exact), model="pnlp", method="lagrangian", tol=1e-9,
+                        task_products=[100_000.0], workers=1, window=60.0, revenue_loss=1e-3)
+    rc = main(["size", "--bench", str(exact), "--products", "100000", "--window", "1h", "--revenue-loss", "1e-3",
+               "--out", str(tmp_path / "sz")])
+    assert rc == 2 and "--revenue-paths" in capsys.readouterr().err
+    bad = tmp_path / "badrev.json"
+    c = _priced(1000, 0.01, 1e-9, "lots")
+    bad.write_text(json.dumps({"benchmarks": [c]}))
+    with pytest.raises(InstanceError, match="revenue_loss_rel"):
+        sizing.load_bench(bad)
+
+
+def test_size_command_revenue_loss(priced, tmp_path, capsys):
+    from decomp.cli import main
+
+    out = tmp_path / "sz"
+    rc = main(["size", "--bench", str(priced), "--products", "100000", "--window", "10m", "--tol", "1e-9",
+               "--revenue-loss", "0.001", "--out", str(out)])
+    text = capsys.readouterr().out
+    assert rc == 0 and "loosest tolerance within a revenue loss of 0.001: 1e-06" in text
+    assert "NOT within" in text and "point estimate" in text
+    data = json.loads((out / "sizing.json").read_text())
+    assert data["revenue"]["loosest_tol"] == 1e-6
+    assert data["revenue"]["seconds_saved_per_task"] == pytest.approx(0.1, rel=1e-9)

@@ -5,7 +5,9 @@ the run's wall time on the given workers (per-task overhead from --overhead or
 a ``decomp run`` summary), and says whether it fits, by what margin, the
 fewest workers that fit, and what a looser tolerance (other benchmarked
 tolerances) would buy. Prints a table; writes sizing.json and sizing.png to
---out.
+--out. With --revenue-loss X (benchmark from ``decomp bench --revenue-paths N``)
+it also answers the loosest benchmarked tolerance whose revenue loss (the point
+estimate) is within X at the largest priced rung, and the time that saves per task.
 """
 
 from __future__ import annotations
@@ -32,6 +34,9 @@ def register(sub):
     p.add_argument("--calibrate", action="store_true",
                    help="scale the benchmark fit by the solve times measured in --run-summary (a pilot run "
                         "of the same method and tolerance on the production machine)")
+    p.add_argument("--revenue-loss", type=float, metavar="X",
+                   help="also answer the loosest benchmarked tolerance whose relative revenue loss is within X "
+                        "(e.g. 0.001) at the largest priced rung, from a 'decomp bench --revenue-paths N' run")
     p.add_argument("--out", default="sizing", help="folder for sizing.json and sizing.png (default: %(default)s)")
     p.set_defaults(func=run)
 
@@ -69,7 +74,8 @@ def run(args) -> int:
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
     s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
                         workers=args.workers, window=window, overhead=overhead, startup=startup,
-                        variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration)
+                        variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration,
+                        revenue_loss=args.revenue_loss)
     s["overhead_source"] = source
     r, f = s["result"], s["result"]["fit"]
     out = pathlib.Path(args.out)
@@ -102,6 +108,28 @@ def run(args) -> int:
             print("  " + "  ".join("-" * w for w in widths))
     if not s["looser"]:
         print("  (no benchmark cases at a looser tolerance for this method)")
+    if s["revenue"] is not None:
+        _print_revenue(s["revenue"])
     verdict = "FITS" if r["fits"] else "DOES NOT FIT"
     print(f"verdict: {verdict} on {s['workers']} workers; written {out / 'sizing.json'}, {out / 'sizing.png'}")
     return 0 if r["fits"] else 1
+
+
+def _print_revenue(rv: dict) -> None:
+    n = rv["rung_products"]
+    print(f"  revenue loss at {n:,} products (the largest priced rung; {rv['estimate']}):")
+    for row in rv["by_tol"]:
+        print(f"    tol {row['tol']:g}: loss {row['revenue_loss_rel']:+.3e} ({row['paths'] or '?'} paths), "
+              f"median {row['seconds']:.4g} s, {'within' if row['within'] else 'NOT within'} "
+              f"{rv['max_loss_rel']:g}")
+    if rv["loosest_tol"] is None:
+        print(f"  loosest tolerance within a revenue loss of {rv['max_loss_rel']:g}: none of the benchmarked ones")
+        return
+    saved = []
+    if rv["seconds_saved_measured"] is not None:
+        saved.append(f"{rv['seconds_saved_measured']:.4g} s per solve measured at {n:,} products")
+    if rv.get("seconds_saved_per_task") is not None:
+        saved.append(f"{rv['seconds_saved_per_task']:.4g} s per task projected from the fits")
+    print(f"  loosest tolerance within a revenue loss of {rv['max_loss_rel']:g}: {rv['loosest_tol']:g} "
+          f"(loss {rv['revenue_loss_rel']:+.3e}); saves against tol {rv['baseline_tol']:g}: "
+          + ("; ".join(saved) if saved else "not measured (the baseline tolerance is not priced at that rung)"))

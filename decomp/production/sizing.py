@@ -45,6 +45,8 @@ class BenchCase:
     seconds: float        # median time per round
     source: str
     accuracy_failures: int = 0   # accuracy checks the case failed (kept: its time is still real)
+    revenue_loss_rel: float | None = None   # from ``decomp bench --revenue-paths N`` (None: not priced)
+    revenue_paths: int | None = None
 
 
 # -- reading benchmark output --------------------------------------------------------
@@ -94,10 +96,18 @@ def load_bench(path) -> list:
             if n <= 0 or t <= 0:
                 raise InstanceError("n_products and time must be positive", file=f, row=i,
                                     column="extra_info.n_products / stats.median", value=(n, t))
+            loss = info.get("revenue_loss_rel")
+            if loss is not None and (isinstance(loss, bool) or not isinstance(loss, (int, float))
+                                     or not math.isfinite(loss)):
+                raise InstanceError("revenue loss is not a finite number", file=f, row=i,
+                                    column="extra_info.revenue_loss_rel", value=loss)
+            paths = info.get("revenue_paths")
             out.append(BenchCase(name=str(b.get("name", f"case {i}")), model=str(model), method=str(method),
                                  variant=str(info.get("label") or method), tol=tol, n_products=int(n),
                                  seconds=float(t), source=str(f),
-                                 accuracy_failures=len(info.get("accuracy_failures") or ())))
+                                 accuracy_failures=len(info.get("accuracy_failures") or ()),
+                                 revenue_loss_rel=None if loss is None else float(loss),
+                                 revenue_paths=int(paths) if isinstance(paths, (int, float)) else None))
     return out
 
 
@@ -287,8 +297,54 @@ def read_run_solves(path) -> list:
     return out
 
 
+REVENUE_ESTIMATE = ("point estimate: the benchmark's revenue_loss_rel, (reference mean - case mean) / "
+                    "reference mean over common sample paths; the benchmark keeps no interval of the paired "
+                    "difference, so no upper end is used")
+
+
+def loosest_within_loss(groups: dict, max_loss: float, baseline_tol: float) -> dict:
+    """The loosest benchmarked tolerance whose revenue loss is at most ``max_loss`` at the largest rung.
+
+    ``groups``: {tol: [BenchCase]} of one model, method and variant (:func:`select`). The
+    largest rung is the largest size with a priced case; at it each tolerance's loss is the
+    largest over its cases there (the point estimate, see :data:`REVENUE_ESTIMATE`) and its
+    time the median of their median times. ``seconds_saved_measured``: the baseline
+    tolerance's time minus the answer's at that rung (None when the baseline is not
+    priced there).
+    """
+    if not (isinstance(max_loss, (int, float)) and math.isfinite(max_loss) and max_loss >= 0):
+        raise ConfigError(f"--revenue-loss must be a relative loss >= 0 (e.g. 0.001), got {max_loss}")
+    priced = [c for cs in groups.values() for c in cs if c.revenue_loss_rel is not None]
+    if not priced:
+        any_case = next(c for cs in groups.values() for c in cs)
+        raise ConfigError(f"the benchmark has no revenue data for {any_case.model}/{any_case.variant}; run "
+                          f"`decomp bench --revenue-paths N` (e.g. 200) and size from its benchmark.json")
+    n_star = max(c.n_products for c in priced)
+    rows = []
+    for t in sorted(groups):
+        at = [c for c in groups[t] if c.n_products == n_star and c.revenue_loss_rel is not None]
+        if not at:
+            continue
+        loss = max(c.revenue_loss_rel for c in at)
+        rows.append({"tol": t, "revenue_loss_rel": loss, "seconds": float(np.median([c.seconds for c in at])),
+                     "paths": min((c.revenue_paths for c in at if c.revenue_paths), default=None),
+                     "cases": [c.name for c in at], "within": bool(loss <= max_loss)})
+    ok = [r for r in rows if r["within"]]
+    best = max(ok, key=lambda r: r["tol"]) if ok else None
+    base = [r for r in rows if math.isclose(r["tol"], baseline_tol, rel_tol=1e-9)]
+    saved = None
+    if best is not None and base:
+        saved = base[0]["seconds"] - best["seconds"]
+    return {"max_loss_rel": float(max_loss), "estimate": REVENUE_ESTIMATE, "rung_products": int(n_star),
+            "by_tol": rows, "loosest_tol": None if best is None else best["tol"],
+            "revenue_loss_rel": None if best is None else best["revenue_loss_rel"],
+            "baseline_tol": float(baseline_tol),
+            "seconds_saved_measured": saved}
+
+
 def size_run(cases, *, model, method, tol, task_products, workers, window, overhead=0.0, startup=0.0,
-             variant=None, fit_min_products: int | None = None, calibration=None) -> dict:
+             variant=None, fit_min_products: int | None = None, calibration=None,
+             revenue_loss: float | None = None) -> dict:
     """The sizing answer: fit, projection on ``workers``, fits or not, margin, smallest workers, other tols.
 
     ``fit_min_products`` leaves smaller cases out of the fit (their fixed costs bend the curve).
@@ -296,6 +352,10 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
     method and tolerance on the production machine; every fit is then scaled by the median of
     measured / predicted, which carries the machine's contention (workers sharing cores and
     memory bandwidth, other load) that a one-process benchmark does not see.
+    ``revenue_loss``: also answer the loosest benchmarked tolerance whose revenue loss
+    is within it (:func:`loosest_within_loss`) and the solve time it saves per task
+    against ``tol`` (measured at the benchmark rung; projected at the tasks' size from
+    both fits when the answer's tolerance has cases at two sizes or more).
     """
     if fit_min_products:
         cases = [c for c in cases if c.n_products >= fit_min_products]
@@ -338,7 +398,20 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
     w_max = min(max(2 * workers, (main["smallest_workers"] or 2 * workers) + 2, 8), len(task_products))
     curve_w = list(range(1, w_max + 1))
     curve = [project(task_products, tm, w, overhead, startup) for w in curve_w]
+    revenue = None
+    if revenue_loss is not None:
+        revenue = loosest_within_loss(groups, revenue_loss, match[0])
+        revenue["seconds_saved_per_task"] = None
+        lt = revenue["loosest_tol"]
+        if lt is not None and len({c.n_products for c in groups[lt]}) >= 2:
+            tm_l = TimeModel.fit([c.n_products for c in groups[lt]], [c.seconds for c in groups[lt]])
+            if factor is not None:
+                tm_l = dataclasses.replace(tm_l, a=tm_l.a * factor)
+            per_l = float(tm_l.predict(np.max(task_products)))
+            revenue["per_task_solve_seconds"] = per_l
+            revenue["seconds_saved_per_task"] = main["per_task_solve_seconds"] - per_l
     return {"model": model, "method": method, "variant": next(iter(groups[match[0]])).variant,
+            "revenue": revenue,
             "tasks": int(task_products.size), "products_min": float(task_products.min()),
             "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
             "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
