@@ -537,16 +537,21 @@ class _Network:
                 return self._solve_schur_mixed(sv, b)
             except (np.linalg.LinAlgError, sla.LinAlgError, FloatingPointError):
                 pass                     # fall back to double precision
-        MT, S = self.MT, self.S
+        MT = self.MT
+        c = self._schur_factor(sv, MT, self.S, blas.dsyrk)
+        self._inv = lambda rhs: self._schur_apply_inverse(c, MT, rhs)
+        return self._inv(b)
+
+    def _schur_factor(self, sv, MT, S, syrk):
+        """Fill the coupling block MT and H_RR (in S) from the scaled pairs ``sv``, then
+        S <- H_RR - M M^T (M = MT^T) by ``syrk`` (dsyrk or ssyrk, the precision of MT
+        and S) and return the Cholesky factor of this Schur complement."""
         MT.fill(0.0)
         S.fill(0.0)
         MT.ravel(order="F")[self.s_ir_flat] = sv[self.s_ir]
         S.ravel(order="F")[self.s_rr_flat] = sv[self.s_rr]
-        # S <- H_RR - M M^T (M = MT^T), then Cholesky of the Schur complement
-        S = blas.dsyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
-        c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
-        self._inv = lambda rhs: self._schur_apply_inverse(c, MT, rhs)
-        return self._inv(b)
+        S = syrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
+        return sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
 
     def _schur_apply_inverse(self, c, MT, b):
         """H^{-1} b from the Cholesky factor c of the Schur complement (unit I block)."""
@@ -571,13 +576,8 @@ class _Network:
         dominant syrk and Cholesky), then iterative refinement in double
         precision against the exact scaled Hessian until the residual is
         1e-11 of b (falls back to double precision if it does not get there)."""
-        MT, S = self.MT32, self.S32
-        MT.fill(0.0)
-        S.fill(0.0)
-        MT.ravel(order="F")[self.s_ir_flat] = sv[self.s_ir]
-        S.ravel(order="F")[self.s_rr_flat] = sv[self.s_rr]
-        S = blas.ssyrk(-1.0, MT, beta=1.0, c=S, trans=1, lower=1, overwrite_c=1)
-        c = sla.cho_factor(S, lower=True, overwrite_a=True, check_finite=False)
+        MT = self.MT32
+        c = self._schur_factor(sv, MT, self.S32, blas.ssyrk)
         u = self._refined(c, MT, sv, b)
         self._inv = lambda rhs: self._refined(c, MT, sv, rhs)
         return u
