@@ -9,12 +9,14 @@ left None when there are no bid prices to evaluate the dual at.
 
 from __future__ import annotations
 
+import importlib
 import logging
 import time
 
 import numpy as np
 
 from .. import certify as _certify
+from ..errors import SolverUnavailableError
 from ..result import SolutionStatus, SolveResult, Termination
 
 log = logging.getLogger(__name__)
@@ -60,3 +62,20 @@ def map_status(table, code, what: str):
         log.warning("%s %r has no mapping; reported as unknown", what, name)
         return Termination.UNKNOWN
     return table[name]
+
+
+def import_available(module: str, install: str):
+    """``available()`` of a method that needs only ``module``: (ok, reason), no side effects."""
+    try:
+        importlib.import_module(module)
+    except ImportError as exc:
+        return False, f"{module} is not installed ({exc}); {install}"
+    return True, ""
+
+
+def import_solver(module: str, install: str):
+    """The solver module, or SolverUnavailableError saying how to install it."""
+    try:
+        return importlib.import_module(module)
+    except ImportError as exc:
+        raise SolverUnavailableError(f"{module} is not installed; {install}") from exc

@@ -24,10 +24,10 @@ import time
 
 import numpy as np
 
-from ..errors import ConfigError, SolverUnavailableError
+from ..errors import ConfigError
 from ..registry import register
 from ..result import Termination
-from .common import certified_result, map_status
+from .common import certified_result, import_available, import_solver, map_status
 
 log = logging.getLogger(__name__)
 
@@ -170,17 +170,10 @@ class HighsArrays:
 
     @classmethod
     def available(cls):
-        try:
-            import highspy  # noqa: F401
-        except ImportError as exc:
-            return False, f"highspy is not installed ({exc}); pip install highspy"
-        return True, ""
+        return import_available("highspy", "pip install highspy")
 
     def solve(self, instance, model, options, warm_start=None):
-        try:
-            import highspy
-        except ImportError as exc:
-            raise SolverUnavailableError("highspy is not installed; pip install highspy") from exc
+        highspy = import_solver("highspy", "pip install highspy")
         if model not in self.models:
             raise ConfigError(f"method 'highs' solves {self.models}, not {model!r}")
         t0 = time.perf_counter()

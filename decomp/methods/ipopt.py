@@ -29,10 +29,10 @@ import time
 import numpy as np
 
 from .. import distributions, normal
-from ..errors import ConfigError, InstanceError, SolverUnavailableError
+from ..errors import ConfigError, InstanceError
 from ..registry import register
 from ..result import Termination
-from .common import certified_result
+from .common import certified_result, import_available, import_solver
 
 log = logging.getLogger(__name__)
 
@@ -207,17 +207,10 @@ class IpoptArrays:
 
     @classmethod
     def available(cls):
-        try:
-            import cyipopt  # noqa: F401
-        except ImportError as exc:
-            return False, f"cyipopt is not installed ({exc}); pip install cyipopt"
-        return True, ""
+        return import_available("cyipopt", "pip install cyipopt")
 
     def solve(self, instance, model, options, warm_start=None):
-        try:
-            import cyipopt
-        except ImportError as exc:
-            raise SolverUnavailableError("cyipopt is not installed; pip install cyipopt") from exc
+        cyipopt = import_solver("cyipopt", "pip install cyipopt")
         if model != "pnlp":
             raise ConfigError(f"method 'ipopt' solves the pnlp, not {model!r}")
         require_normal(instance, self.name)
