@@ -353,27 +353,43 @@ class Subproblems:
     def _normal(self, a, smoothing=0.0):
         """x = max(0, m - s ndtri(a/f)) and, on the inside (x > 0, f ratio = a),
         f S(x) - a x = f s (G(-m/s) - pdf(z)) - a m, w = s / (f pdf(z))."""
+        n = len(a)
+        x, w, e = np.empty(n), np.empty(n), np.empty(n)
+        value, rev = self.normal_slice(a, 0, n, x, w, e)
+        return self._normal_smoothing(a, smoothing, x, w, e, value, rev)
+
+    def normal_slice(self, a, lo, hi, x, w, e):
+        """The normal fast path on the products lo:hi (``a`` their bid-price
+        sums, the outputs ``x``, ``w`` and ``e`` = exp(-z^2/2), zero outside,
+        written at lo:hi); returns (value, revenue) of the slice. Slices are
+        independent (numpy releases the GIL on them: threads may run several)."""
         k = self._normal_constants()
-        r = a * k["invf"]
+        sl = slice(lo, hi)
+        f_inv, n_s, n_m = k["invf"][sl], self.n_s[sl], self.n_m[sl]
+        xs, ws, es = x[sl], w[sl], e[sl]
+        r = np.multiply(a, f_inv, out=es)
         np.clip(r, MIN_RATIO, 1.0, out=r)
         z = special.ndtri(r, out=r)          # ndtri(ratio) = -(the usual z)
-        x = self.n_s * z
-        np.subtract(self.n_m, x, out=x)
-        np.maximum(x, 0.0, out=x)
-        inside = x > 0
+        np.multiply(n_s, z, out=xs)
+        np.subtract(n_m, xs, out=xs)
+        np.maximum(xs, 0.0, out=xs)
+        inside = xs > 0
         np.square(z, out=z)
         z *= -0.5
-        e = np.exp(z, out=z)                 # exp(-z^2/2) = sqrt(2 pi) pdf(z)
+        np.exp(z, out=es)                    # exp(-z^2/2) = sqrt(2 pi) pdf(z)
         insf = inside.astype(np.float64)
-        e *= insf
-        am = a * self.n_m
-        value = float(k["fsG0"] @ insf) - float(k["fs_pdf"] @ e) - float(am @ insf)
-        rev = value + float(a @ x)
-        w = np.maximum(e, 1e-300, out=am)    # reuse the buffer; w = 0 outside
-        np.divide(k["sof_pdf"], w, out=w)
-        w *= insf
+        es *= insf
+        am = np.multiply(a, n_m, out=ws)
+        value = float(k["fsG0"][sl] @ insf) - float(k["fs_pdf"][sl] @ es) - float(am @ insf)
+        rev = value + float(a @ xs)
+        np.maximum(es, 1e-300, out=ws)       # w = 0 outside
+        np.divide(k["sof_pdf"][sl], ws, out=ws)
+        ws *= insf
         if k["cap_w"]:
-            np.minimum(w, 1e300, out=w)
+            np.minimum(ws, 1e300, out=ws)
+        return value, rev
+
+    def _normal_smoothing(self, a, smoothing, x, w, e, value, rev):
         exact = value
         if smoothing > 0 and self.n_has_jump:
             # average the jump of height J at a = f over a +- eps (see _set_normal)
@@ -454,6 +470,14 @@ class Subproblems:
         z = y - self.n_m
         z *= k["invs"]
         return float(k["fsG0"].sum() - self.n_f @ (self.n_s * normal.loss(z)))
+
+    def revenue_change(self, idx, x, y):
+        """sum over products ``idx`` of f (S(y) - S(x)), exactly (normal fast path)."""
+        k = self._normal_constants()
+        m, s, invs = self.n_m[idx], self.n_s[idx], k["invs"][idx]
+        gx = normal.loss((x - m) * invs)
+        gy = normal.loss((y - m) * invs)
+        return float((self.n_f[idx] * s) @ (gx - gy))
 
     def curvature(self):
         """Per product f_j max_x pdf_j(x): bounds f |S''| everywhere."""

@@ -23,7 +23,10 @@ class SolverOptions:
                     Lagrangian method; passed as the solver's tolerance otherwise).
     time_limit:     wall-clock seconds for the solve, or None for no limit.
     iteration_limit: iterations, or None for the method's default.
-    threads:        solver threads (HiGHS), or None for the solver's default.
+    threads:        solver threads (HiGHS; for 'lagrangian' the threads its product
+                    subproblems are split over from 200,000 products on), or None
+                    for the solver's default (all CPUs of the process for
+                    'lagrangian'; production runs pass 1 per worker).
     segments:       pieces per product in the piecewise-linear PNLP model.
     dual_method:    Lagrangian dual minimizer: 'newton', 'lbfgsb' or 'subgradient'.
     verbose:        let the solver print its log.

@@ -223,3 +223,62 @@ def test_tiny_bid_price_leg_does_not_stall_the_gap():
     assert res.gap <= 1e-9 and res.certificate.max_violation_rel <= 1e-9
     assert res.iterations <= 30
     assert res.bid_price_array.min() < 1e-60     # the tiny-bid-price leg is there
+
+
+def test_threaded_subproblems_match_one_thread(monkeypatch):
+    # The product slices are independent: splitting them over threads must give
+    # the very same numbers (bitwise for x, w, the per-group sums; the slice sums of
+    # the dual value only to rounding, since they are added in another order).
+    monkeypatch.setattr(m_lagr, "_THREADS_FROM_PRODUCTS", 0)
+    inst = generate(20_000, seed=4)
+    one = m_lagr._Network(inst, threads=1)
+    two = m_lagr._Network(inst, threads=3)
+    assert one._chunks is None and two._chunks is not None and len(two._chunks) == 3
+    pi = one.start()
+    p1, p2 = one.evaluate(pi), two.evaluate(pi)
+    for name in ("x", "w", "x_g", "load", "density"):
+        assert np.array_equal(getattr(p1, name), getattr(p2, name)), name
+    assert p2.exact == pytest.approx(p1.exact, rel=1e-13)
+    assert p2.revenue == pytest.approx(p1.revenue, rel=1e-13)
+    a = solve(inst, "pnlp", "lagrangian", SolverOptions(threads=1))
+    monkeypatch.setattr(m_lagr, "_default_threads", lambda: 2)
+    b = solve(inst, "pnlp", "lagrangian")
+    assert a.ok and b.ok
+    assert b.objective == pytest.approx(a.objective, rel=1e-12)
+    assert np.allclose(a.bid_price_array, b.bid_price_array, rtol=1e-9, atol=1e-12 * a.bid_price_array.max())
+
+
+def test_revenue_bound_is_a_lower_bound_within_tol():
+    # Taylor's theorem with the remainder bounded by the largest density on the
+    # interval (a mathematical fact) for most products, the exact expected sales
+    # for the rest: never above the exact revenue (decomp.normal, itself checked
+    # against scipy.stats in test_normal.py), and within 1e-2 tol below it.
+    inst = generate(20_000, seed=5)
+    net = m_lagr._Network(inst, tol=1e-9)
+    pt = net.evaluate(net.start())
+    rng = np.random.default_rng(0)
+    exact_x = net.sub.revenue(pt.x)
+    assert exact_x == pytest.approx(pt.revenue, rel=1e-12)
+    for scale in (1e-6, 1e-3, 1e-1):
+        y = np.maximum(pt.x * (1.0 + scale * rng.standard_normal(len(pt.x))), 0.0)
+        exact = net.sub.revenue(y)
+        bound = net.revenue_bound(pt, y)
+        assert bound <= exact + 1e-13 * abs(exact)
+        assert exact - bound <= 1.1e-2 * 1e-9 * abs(pt.revenue) + 1e-12 * abs(exact)
+
+
+def test_largest_terms_keeps_the_rest_within_budget():
+    rng = np.random.default_rng(1)
+    q = rng.lognormal(0.0, 4.0, 100_000)
+    q[:10] = 0.0
+    budget = 1e-3 * q.sum()
+    mask = m_lagr._largest_terms(q, budget)
+    assert q[~mask].sum() <= budget
+    assert not mask[:10].any()
+    # no kept term is smaller than a left-out one, and keeping one binade fewer
+    # (the smallest kept terms, within a factor 2 of each other) would break the budget
+    assert q[mask].min() >= q[~mask].max()
+    _, e = np.frexp(q)
+    low = mask & (e == e[mask].min())
+    assert q[~mask].sum() + q[low].sum() > budget
+    assert m_lagr._largest_terms(q, q.sum()) is None
