@@ -125,15 +125,34 @@ def _pnlp_kkt(instance, x, a):
     return float(r.max()) if r.size else 0.0
 
 
-def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16) -> Certificate:
+def _pnlp_terms(instance, x, a, lo, hi, with_dual):
+    """(primal value, largest KKT residual, sum of the dual's product terms) of the
+    products lo:hi: each term depends on its own product only."""
+    from . import distributions
+
+    part = _slice(instance, lo, hi)
+    xs, aa = x[lo:hi], a[lo:hi]
+    sub = distributions.Subproblems.from_instance(part)
+    primal = float(part.fare @ sub.expected_sales(np.maximum(xs, 0.0))) if hi > lo else 0.0
+    kkt = _pnlp_kkt(part, xs, aa)
+    terms = 0.0
+    if with_dual and hi > lo:
+        with np.errstate(divide="ignore", invalid="ignore"):   # std = 0 products in the fractile
+            terms = float(sub.evaluate(aa).exact_value)
+    return primal, kkt, terms
+
+
+def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16,
+            threads: int | None = None) -> Certificate:
     """The certificate of allocation ``x`` (per product) and bid prices ``pi`` (per leg).
 
     ``dual_value``: a dual bound already computed by the method (e.g. the
     Lagrangian's own q(pi)); when given it replaces the one computed here.
     ``segments``: K of the PWL model (ignored otherwise).
+    ``threads``: PNLP only, the product terms are summed over slices of
+    products on this many threads (:mod:`decomp.threads`; default all CPUs,
+    from 200,000 products on).
     """
-    from . import distributions
-
     x = np.asarray(x, dtype=np.float64)
     pi = np.asarray(pi, dtype=np.float64)
     if x.shape != (instance.n_products,):
@@ -145,14 +164,16 @@ def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16)
     pi_plus = np.maximum(np.nan_to_num(pi, nan=0.0), 0.0)
     viol, viol_rel = _violation(instance, x)
     if model == "pnlp":
-        from . import dual as _dual
+        from . import threads as _threads
 
-        xs = np.maximum(x, 0.0)
-        primal = float(instance.fare @ distributions.expected_sales(instance, xs)) if instance.n_products else 0.0
-        kkt = _pnlp_kkt(instance, x, instance.leg_sum(pi_plus))
+        a = instance.leg_sum(pi_plus)
+        parts = _threads.map_slices(lambda lo, hi: _pnlp_terms(instance, x, a, lo, hi, dual_value is None),
+                                    instance.n_products, threads)
+        primal = sum(p for p, _, _ in parts)
+        kkt = max(k for _, k, _ in parts)
         if dual_value is None:
-            with np.errstate(divide="ignore", invalid="ignore"):   # std = 0 products in the fractile
-                dv = _dual.evaluate(instance, pi_plus).value
+            # q(pi) = sum_j max_x [f_j S_j(x) - a_j x] + c.pi, as decomp.dual.evaluate
+            dv = sum(t for _, _, t in parts) + float(instance.capacity @ pi_plus)
         else:
             dv = float(dual_value)
     else:

@@ -137,3 +137,24 @@ def test_certify_is_vectorized_at_scale():
         if model == "dlp":
             assert c.dual_value == pytest.approx(ref, rel=1e-12)
             assert c.primal_value == pytest.approx(float(inst.fare @ x), rel=1e-12)
+
+
+def test_pnlp_certificate_on_threads_matches_one_thread(monkeypatch):
+    # The PNLP certificate's terms are per product: summing them over slices on
+    # threads gives the one-thread certificate up to the order of the additions,
+    # and the dual value equals decomp.dual.evaluate's (the same q(pi)).
+    from decomp import dual as _dual
+    from decomp import threads as _threads
+    from decomp.generator import generate
+
+    monkeypatch.setattr(_threads, "FROM_PRODUCTS", 0)
+    inst = generate(20_000, seed=6)
+    rng = np.random.default_rng(2)
+    pi = rng.uniform(0.0, 50.0, inst.n_legs)
+    x = rng.uniform(0.0, 1.0, inst.n_products) * inst.mean
+    one = certify(inst, "pnlp", x, pi, threads=1)
+    three = certify(inst, "pnlp", x, pi, threads=3)
+    assert three.primal_value == pytest.approx(one.primal_value, rel=1e-13)
+    assert three.dual_value == pytest.approx(one.dual_value, rel=1e-13)
+    assert three.kkt_residual == one.kkt_residual
+    assert one.dual_value == pytest.approx(_dual.evaluate(inst, pi).value, rel=1e-13)

@@ -8,6 +8,7 @@ import pytest
 
 from decomp import SolutionStatus, SolverOptions, Termination, ladder, solve
 from decomp import dual as _dual
+from decomp import threads as _threads
 from decomp.generator import generate
 from decomp.methods import lagrangian as m_lagr
 from decomp.result import IterationRecord
@@ -229,7 +230,7 @@ def test_threaded_subproblems_match_one_thread(monkeypatch):
     # The product slices are independent: splitting them over threads must give
     # the very same numbers (bitwise for x, w, the per-group sums; the slice sums of
     # the dual value only to rounding, since they are added in another order).
-    monkeypatch.setattr(m_lagr, "_THREADS_FROM_PRODUCTS", 0)
+    monkeypatch.setattr(_threads, "FROM_PRODUCTS", 0)
     inst = generate(20_000, seed=4)
     one = m_lagr._Network(inst, threads=1)
     two = m_lagr._Network(inst, threads=3)
@@ -241,7 +242,7 @@ def test_threaded_subproblems_match_one_thread(monkeypatch):
     assert p2.exact == pytest.approx(p1.exact, rel=1e-13)
     assert p2.revenue == pytest.approx(p1.revenue, rel=1e-13)
     a = solve(inst, "pnlp", "lagrangian", SolverOptions(threads=1))
-    monkeypatch.setattr(m_lagr, "_default_threads", lambda: 2)
+    monkeypatch.setattr(_threads, "available", lambda: 2)
     b = solve(inst, "pnlp", "lagrangian")
     assert a.ok and b.ok
     assert b.objective == pytest.approx(a.objective, rel=1e-12)
@@ -282,3 +283,23 @@ def test_largest_terms_keeps_the_rest_within_budget():
     low = mask & (e == e[mask].min())
     assert q[~mask].sum() + q[low].sum() > budget
     assert m_lagr._largest_terms(q, q.sum()) is None
+
+
+def test_block_step_recovers_the_optimum_of_its_legs():
+    # With every other bid price at the optimum, the minimum of the (convex) dual
+    # over a block of legs is the optimum itself (a mathematical fact: the optimum
+    # minimizes the dual along every block of coordinates). Perturb three priced
+    # legs, let the block step find them again, and check that the dual fell.
+    inst = generate(20_000, seed=7)
+    best = solve(inst, "pnlp", "lagrangian", SolverOptions(tol=1e-12))
+    net = m_lagr._Network(inst, threads=1)
+    pi_star = best.bid_price_array[net.legs]
+    legs = np.argsort(pi_star)[-3:]
+    pi = pi_star.copy()
+    pi[legs] *= np.array([1.05, 0.9, 1.2])
+    pt = net.evaluate(pi)
+    got = net.settle_block(pt, legs, rtol=1e-10)
+    assert got is not None
+    assert np.allclose(got[legs], pi_star[legs], rtol=1e-7)
+    assert np.array_equal(np.delete(got, legs), np.delete(pi, legs))
+    assert net.evaluate(got).exact < pt.exact

@@ -75,6 +75,16 @@ Tried without gain: interpolated backtracking (the minimizer along the ray is
 below t = 0.5), secant curvatures for crossing products (one iteration less
 at best, for an extra factorization), treating predicted entrants as inside.
 
+Settling bid prices: near the optimum a few legs' bid prices can keep
+moving for several iterations while the gap is already certified: their
+curvature comes mostly from one product sitting at x = 0, whose curvature is
+largest just there and 0 beyond, so full steps overshoot and come back. When
+at most 2% of the legs (or 8) still move by more than bid_tol, Newton takes
+one block step instead (:meth:`_Network.settle_block`: Newton on those legs
+alone, only their products evaluated, the others held), at most three times
+per solve and never twice in a row. Measured at 1,000,000 products: 12 to
+10 iterations, bid-price error against a tol-1e-12 solve 9e-7 to 8e-9.
+
 Threads: from 200,000 products on, the product subproblems (the fractiles,
 their per-group sums) are split at group boundaries into one slice per thread
 (``SolverOptions.threads``, default all CPUs of the process); numpy releases
@@ -115,6 +125,7 @@ from scipy.linalg import blas
 
 from .. import certify as _certify
 from .. import distributions
+from .. import threads as _threads
 from ..errors import ConfigError
 from ..registry import register
 from ..result import IterationRecord, SolveResult, Termination
@@ -142,6 +153,8 @@ _ARMIJO = 1e-4
 _FAR = 1.5
 #: While bid prices settle near the optimum, recover (and certify) every this many iterations.
 _SETTLE_CHECK = 8
+#: Block steps on the legs whose bid prices still move (see the module docstring).
+_BLOCK = True
 #: Cap on the number of backtracking halvings in one Newton line search.
 _MAX_BACKTRACK = 60
 
@@ -172,6 +185,7 @@ class _Point:
     exact: float          # the exact dual value q(pi) (an upper bound)
     smoothing: float
     density: np.ndarray | None = None   # normal fast path: exp(-z^2/2) at x
+    w_g: np.ndarray | None = None       # per group: sum of w (when computed with x_g)
 
 
 class _Network:
@@ -275,11 +289,14 @@ class _Network:
             mark[key] = True
             ukey = np.flatnonzero(mark)
             rank = np.cumsum(mark, dtype=np.int64)
-            self.e_pair = rank[key] - 1
+            e_pair = rank[key] - 1
             del mark, rank
         else:
-            ukey, self.e_pair = np.unique(key, return_inverse=True)
-        self.e_group = egrp
+            ukey, e_pair = np.unique(key, return_inverse=True)
+        # pair <- group incidence (each group adds its curvature to every pair of
+        # its legs): the Hessian's pair values are one sparse product E w_g
+        self.E = sp.csr_matrix((np.ones(len(egrp)), (e_pair, egrp)), shape=(len(ukey), G))
+        del egrp, e_pair
         self.p_row = ukey // n
         self.p_col = ukey % n
         self.n_pairs = len(ukey)
@@ -356,8 +373,9 @@ class _Network:
     # -- the dual ------------------------------------------------------------------------------
     def evaluate(self, pi, smoothing=0.0) -> _Point:
         a_g = self.AT_g @ pi
+        w_g = None
         if self._chunks is not None and not (smoothing > 0 and self.sub.n_has_jump):
-            x, w, dens, x_g, value, revenue = self._evaluate_threads(a_g)
+            x, w, dens, x_g, w_g, value, revenue = self._evaluate_threads(a_g)
             exact = value
         else:
             v = self.sub.evaluate(self.to_products(a_g), smoothing)
@@ -367,7 +385,7 @@ class _Network:
         cp = float(self.cap @ pi)
         return _Point(pi=pi, a_g=a_g, x=x, x_g=x_g, w=w, revenue=revenue, load=load,
                       grad=self.cap - load, value=value + cp, exact=exact + cp,
-                      smoothing=smoothing, density=dens)
+                      smoothing=smoothing, density=dens, w_g=w_g)
 
     def _setup_threads(self, threads):
         """Split the products into one slice per thread at group boundaries (normal
@@ -375,28 +393,30 @@ class _Network:
         the threads), or no split."""
         self._chunks = None
         P = self.n_products
-        if threads < 2 or P < _THREADS_FROM_PRODUCTS or self.g_start is None or not self.sub.all_normal:
+        if threads < 2 or P < _threads.FROM_PRODUCTS or self.g_start is None or not self.sub.all_normal:
             return
         cuts = np.searchsorted(self.g_start, np.arange(1, threads) * P // threads)
         gb = np.unique(np.concatenate([[0], cuts, [self.G]]))
         pb = np.append(self.g_start, P)[gb]
         self._chunks = [(int(gb[i]), int(gb[i + 1]), int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
-        self._pool = _thread_pool(threads)
+        self._pool = _threads.pool(threads)
 
     def _evaluate_threads(self, a_g):
         """The normal subproblems and their per-group sums, one product slice per thread."""
         P, sub = self.n_products, self.sub
-        x, w, e, x_g = np.empty(P), np.empty(P), np.empty(P), np.empty(self.G)
+        x, w, e = np.empty(P), np.empty(P), np.empty(P)
+        x_g, w_g = np.empty(self.G), np.empty(self.G)
         count, start = self.g_count, self.g_start
 
         def part(chunk):
             g0, g1, p0, p1 = chunk
             value, rev = sub.normal_slice(np.repeat(a_g[g0:g1], count[g0:g1]), p0, p1, x, w, e)
             x_g[g0:g1] = np.add.reduceat(x[p0:p1], start[g0:g1] - p0)
+            w_g[g0:g1] = np.add.reduceat(w[p0:p1], start[g0:g1] - p0)
             return value, rev
 
         sums = list(self._pool.map(part, self._chunks))
-        return x, w, e, x_g, sum(v for v, _ in sums), sum(r for _, r in sums)
+        return x, w, e, x_g, w_g, sum(v for v, _ in sums), sum(r for _, r in sums)
 
     def _scale_to_capacity(self, load):
         """Per-group factor: the smallest capacity / load over the group's legs (<= 1)."""
@@ -558,14 +578,80 @@ class _Network:
         return bound + sub.revenue_change(idx, pt.x[idx], y[idx])
 
     # -- Newton ------------------------------------------------------------------------------------
+    def settle_block(self, pt, legs, rtol, max_iter=30):
+        """Newton on the bid prices of ``legs`` alone, every other bid price held:
+        the exact minimum of the dual over that block (a block-coordinate step,
+        so the dual decreases), from ``pt``. Only the products on those legs
+        take part, so for a few legs an iteration costs a tiny fraction of a
+        full one. Used when the gap is certified (or nearly) and a few bid
+        prices still move: a leg whose curvature comes from a product sitting
+        at x = 0 (its curvature is largest just there and 0 beyond) makes full
+        Newton steps overshoot and come back for several iterations.
+        Returns the new bid prices (all legs), or None when the block is
+        degenerate. Normal demand, products in runs of the same legs."""
+        AU = self.A_g[legs]
+        groups = np.unique(AU.indices)
+        if len(groups) == 0:
+            return None
+        AUg = AU[:, groups].tocsr()
+        AUgT = AUg.T.tocsr()
+        counts = self.g_count[groups]
+        offsets = np.zeros(len(groups), dtype=np.int64)
+        np.cumsum(counts[:-1], out=offsets[1:])
+        prod = np.repeat(self.g_start[groups] - offsets, counts) + np.arange(int(counts.sum()))
+        sub = distributions.Subproblems(self.sub.fare[prod], self.sub.mean[prod], self.sub.std[prod])
+        cap = self.cap[legs]
+        pi0 = pt.pi[legs]
+        a_fixed = pt.a_g[groups] - AUgT @ pi0
+
+        def value(piU):
+            v = sub.evaluate(np.repeat(a_fixed + AUgT @ piU, counts))
+            return v, float(v.exact_value + cap @ piU)
+
+        piU = pi0.copy()
+        v, q = value(piU)
+        for _ in range(max_iter):
+            xg = np.add.reduceat(v.x, offsets)
+            wg = np.add.reduceat(v.w, offsets)
+            grad = cap - AUg @ xg
+            H = (AUg.multiply(wg[None, :]) @ AUgT).toarray()
+            dg = np.diag(H).copy()
+            if not np.all(dg > 0):
+                return None
+            sc = 1.0 / np.sqrt(dg)
+            Hs = H * sc[:, None] * sc[None, :]
+            Hs[np.diag_indices_from(Hs)] = 1.0 + 1e-12
+            try:
+                d = sla.cho_solve(sla.cho_factor(Hs, lower=True, check_finite=False), -grad * sc,
+                                  check_finite=False) * sc
+            except (np.linalg.LinAlgError, sla.LinAlgError):
+                return None
+            if np.all(np.abs(d) <= rtol * piU):
+                piU = _step(piU, d / piU, 1.0)
+                break
+            t, slope = 1.0, float(grad @ d)
+            for _ in range(_MAX_BACKTRACK):
+                trial = _step(piU, d / piU, t)
+                vt, qt = value(trial)
+                if qt <= q + _ARMIJO * min(float(grad @ (trial - piU)), 0.0) or \
+                        (qt - q <= 1e-15 * (abs(q) + 1.0) and slope <= 0):
+                    break
+                t *= 0.5
+            else:
+                return None
+            piU, v, q = trial, vt, qt
+        pi = pt.pi.copy()
+        pi[legs] = piU
+        return pi
+
     def newton_direction(self, pt, ridge=1e-12, damping=0.0):
         """Newton's direction, or with ``damping`` mu > 0 the Levenberg-Marquardt
         one, (H + mu diag(r)) d = -g with r_i = sum of mean_j / f_j over the
         leg's products (the curvature of their terms smoothed over a window
         of width f): used for non-smooth products, whose Hessian is zero
         between breakpoints."""
-        wg = self.to_groups(pt.w)
-        hv = np.bincount(self.e_pair, weights=wg[self.e_group], minlength=self.n_pairs)
+        wg = self.to_groups(pt.w) if pt.w_g is None else pt.w_g
+        hv = self.E @ wg
         if damping > 0:
             hv[self.diag_pair] += damping * self.leg_curvature_scale
         diag = hv[self.diag_pair]
@@ -776,7 +862,7 @@ class LagrangianMethod:
         t0 = time.perf_counter()
         with _blas_threads(1, instance.n_legs):
             net = _Network(instance, linear_solver, mixed=precision == "mixed", tol=options.tol,
-                           threads=options.threads or _default_threads())
+                           threads=options.threads or _threads.available())
             pi_full0 = np.zeros(instance.n_legs)
             pi_full0[net.legs] = net.start(start_kind)
             if warm_start is not None:
@@ -802,7 +888,7 @@ class LagrangianMethod:
         else:
             x_full[net.prods] = out["x"]
         _price_zero_legs(instance, net, pi_full)
-        cert = _certify.certify(instance, "pnlp", x_full, pi_full)
+        cert = _certify.certify(instance, "pnlp", x_full, pi_full, threads=options.threads)
         t3 = time.perf_counter()
         term = out["termination"]
         sstatus = _certify.solution_status(term, cert, gap_tol=options.tol)
@@ -827,31 +913,6 @@ class LagrangianMethod:
 
 #: Below this many legs the dense factorizations are too small for BLAS threads to matter.
 _BLAS_LIMIT_FROM_LEGS = 300
-
-
-#: From this many products on, the product subproblems are split over threads.
-_THREADS_FROM_PRODUCTS = 200_000
-_POOLS = {}
-
-
-def _thread_pool(threads):
-    """One shared pool per thread count (the work releases the GIL: numpy ufuncs)."""
-    from concurrent.futures import ThreadPoolExecutor
-
-    pool = _POOLS.get(threads)
-    if pool is None:
-        pool = _POOLS[threads] = ThreadPoolExecutor(max_workers=threads, thread_name_prefix="decomp-dual")
-    return pool
-
-
-def _default_threads():
-    """The CPUs this process may run on."""
-    import os
-
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not on Linux
-        return os.cpu_count() or 1
 
 
 def _blas_threads(n, n_legs):
@@ -951,6 +1012,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     bid_tol = float(so.get("bid_tol", 1e-4 if tol <= 1e-7 else np.inf))
     certified = False          # the gap was within tol at some earlier iteration
     unsettled = 0              # iterations near the optimum with bid prices still moving
+    block, n_block = False, 0  # the last iteration was a block step; how many so far
     best_primal = -np.inf      # the best certified primal value so far
     while True:
         d, n_flat = net.newton_direction(pt, damping=mu)
@@ -1025,6 +1087,18 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             term, raw, msg = Termination.TIME_LIMIT, "time_limit", f"time limit reached at gap {gap:.3g}"
             break
         it += 1
+        block_last, block = block, False
+        if (_BLOCK and not block_last and n_block < 3 and not settled and not far and not nonsmooth
+                and net.sub.all_normal and net.g_start is not None):
+            moving = np.nonzero(big & (np.abs(d) > bid_tol * pt.pi))[0]
+            if 0 < len(moving) <= max(8, 0.02 * net.n):
+                new_pi = net.settle_block(pt, moving, 1e-2 * bid_tol)
+                if new_pi is not None:
+                    nt = net.evaluate(new_pi, pt.smoothing)
+                    if nt.value <= pt.value:
+                        pt, t, block = nt, 1.0, True
+                        n_block += 1
+                        continue
         rel = d / pt.pi
         slope = float(pt.grad @ d)
         t = 1.0
