@@ -303,3 +303,22 @@ def test_block_step_recovers_the_optimum_of_its_legs():
     assert np.allclose(got[legs], pi_star[legs], rtol=1e-7)
     assert np.array_equal(np.delete(got, legs), np.delete(pi, legs))
     assert net.evaluate(got).exact < pt.exact
+
+
+def test_secant_curvature_of_products_that_cross_zero():
+    # Products whose allocation went from x > 0 to x = 0 (or back) between two
+    # points get the slope of the chord |dx| / |da| in their group's curvature;
+    # every other product keeps its own -dx/da. Checked against a direct sum.
+    inst = generate(5_000, seed=8)
+    net = m_lagr._Network(inst, threads=1)
+    pi = net.start()
+    p0 = net.evaluate(pi)
+    p1 = net.evaluate(pi * 1.3)
+    crossed = (p0.x > 0) != (p1.x > 0)
+    assert crossed.sum() > 10
+    got = net._secant_curvature(p1, p0, net.to_groups(p1.w))
+    a0, a1 = net.to_products(p0.a_g), net.to_products(p1.a_g)
+    w = p1.w.copy()
+    w[crossed] = np.abs(p1.x - p0.x)[crossed] / np.abs(a1 - a0)[crossed]
+    assert np.allclose(got, net.to_groups(w), rtol=1e-12, atol=0)
+    assert np.all(w[crossed] > 0)

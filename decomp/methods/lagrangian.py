@@ -75,6 +75,14 @@ Tried without gain: interpolated backtracking (the minimizer along the ray is
 below t = 0.5), secant curvatures for crossing products (one iteration less
 at best, for an extra factorization), treating predicted entrants as inside.
 
+Crossing products: the Hessian gives a product that crossed x = 0 between
+the previous iterate and this one its secant slope |dx| / |da| instead of
+its local -dx/da (0 just outside, largest just inside), so the model sees
+the curvature it shows if the next step crosses back
+(:meth:`_Network._secant_curvature`; no extra factorization). Measured on
+12 date instances of 100,000 products: 132 to 119 Newton iterations cold,
+94 to 84 warm-started; 300,000 products: 13 to 11 cold, 7 to 5 warm (+-5 %).
+
 Settling bid prices: near the optimum a few legs' bid prices can keep
 moving for several iterations while the gap is already certified: their
 curvature comes mostly from one product sitting at x = 0, whose curvature is
@@ -153,6 +161,8 @@ _ARMIJO = 1e-4
 _FAR = 1.5
 #: While bid prices settle near the optimum, recover (and certify) every this many iterations.
 _SETTLE_CHECK = 8
+#: Secant curvature for products that crossed x = 0 (see the module docstring).
+_SECANT = True
 #: Block steps on the legs whose bid prices still move (see the module docstring).
 _BLOCK = True
 #: Cap on the number of backtracking halvings in one Newton line search.
@@ -644,13 +654,40 @@ class _Network:
         pi[legs] = piU
         return pi
 
-    def newton_direction(self, pt, ridge=1e-12, damping=0.0):
+    def _secant_curvature(self, pt, prev, wg):
+        """Per-group curvature with the products that crossed x = 0 between the
+        previous point and this one given their secant slope |dx| / |da|
+        instead of their local one (0 outside; largest just inside): the model
+        then sees the curvature they will show if the next step crosses back."""
+        if pt.density is None or prev.density is None or len(pt.x) != len(prev.x):
+            return wg
+        crossed = np.flatnonzero((pt.x > 0) != (prev.x > 0))
+        if len(crossed) == 0:
+            return wg
+        if self.g_start is not None:
+            g = np.searchsorted(self.g_start, crossed, side="right") - 1
+        elif self.g_of_p is not None:
+            g = self.g_of_p[crossed]
+        else:
+            g = crossed
+        da = np.abs(pt.a_g[g] - prev.a_g[g])
+        dx = np.abs(pt.x[crossed] - prev.x[crossed])
+        ok = da > 0
+        w_sec = np.divide(dx, da, out=np.zeros_like(dx), where=ok)
+        wg = wg.copy()
+        np.add.at(wg, g[ok], w_sec[ok] - pt.w[crossed][ok])
+        np.maximum(wg, 0.0, out=wg)
+        return wg
+
+    def newton_direction(self, pt, ridge=1e-12, damping=0.0, prev=None):
         """Newton's direction, or with ``damping`` mu > 0 the Levenberg-Marquardt
         one, (H + mu diag(r)) d = -g with r_i = sum of mean_j / f_j over the
         leg's products (the curvature of their terms smoothed over a window
         of width f): used for non-smooth products, whose Hessian is zero
         between breakpoints."""
         wg = self.to_groups(pt.w) if pt.w_g is None else pt.w_g
+        if prev is not None:
+            wg = self._secant_curvature(pt, prev, wg)
         hv = self.E @ wg
         if damping > 0:
             hv[self.diag_pair] += damping * self.leg_curvature_scale
@@ -1012,10 +1049,11 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
     bid_tol = float(so.get("bid_tol", 1e-4 if tol <= 1e-7 else np.inf))
     certified = False          # the gap was within tol at some earlier iteration
     unsettled = 0              # iterations near the optimum with bid prices still moving
+    prev = None                # the previous iterate (secant curvature of crossing products)
     block, n_block = False, 0  # the last iteration was a block step; how many so far
     best_primal = -np.inf      # the best certified primal value so far
     while True:
-        d, n_flat = net.newton_direction(pt, damping=mu)
+        d, n_flat = net.newton_direction(pt, damping=mu, prev=prev if _SECANT else None)
         # bid prices settled: Newton's step is below bid_tol relative on every leg
         # priced at least 1e-3 of the largest (the dual is flat in some directions,
         # so a small gap alone does not pin the bid prices down)
@@ -1096,7 +1134,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
                 if new_pi is not None:
                     nt = net.evaluate(new_pi, pt.smoothing)
                     if nt.value <= pt.value:
-                        pt, t, block = nt, 1.0, True
+                        prev, pt, t, block = pt, nt, 1.0, True
                         n_block += 1
                         continue
         rel = d / pt.pi
@@ -1116,7 +1154,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
             term, raw = Termination.NUMERICAL_ERROR, "line_search_failed"
             msg = f"line search found no decrease (directional derivative {slope:.3g}) at gap {gap:.3g}"
             break
-        pt = accepted
+        prev, pt = pt, accepted
         if mu > 0:        # Levenberg-Marquardt damping follows the step length
             mu = mu * 10.0 if t < 0.1 else (mu * 0.1 if t == 1.0 else mu)
             mu = min(max(mu, 1e-12), 1e12)
