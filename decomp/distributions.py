@@ -471,6 +471,20 @@ class Subproblems:
         z *= k["invs"]
         return float(k["fsG0"].sum() - self.n_f @ (self.n_s * normal.loss(z)))
 
+    def normal_allocation(self, idx, a):
+        """x = max(0, m - s ndtri(a/f)) of the products ``idx`` at bid-price sums
+        ``a`` (normal fast path)."""
+        r = np.clip(a / self.n_f[idx], MIN_RATIO, 1.0)
+        return np.maximum(self.n_m[idx] - self.n_s[idx] * special.ndtri(r), 0.0)
+
+    def open_threshold(self):
+        """Per product (normal fast path) the bid-price sum below which it gets
+        seats: f P(D > 0) = f Phi(m / s)."""
+        k = self._normal_constants()
+        if "a_open" not in k:
+            k["a_open"] = self.n_f * special.ndtr(self.n_m * k["invs"])
+        return k["a_open"]
+
     def revenue_change(self, idx, x, y):
         """sum over products ``idx`` of f (S(y) - S(x)), exactly (normal fast path)."""
         k = self._normal_constants()

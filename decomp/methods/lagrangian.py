@@ -526,14 +526,24 @@ class _Network:
             else:
                 y = pt.x * self.to_products(scale_g)
         else:
-            y = self.to_products(self.AT_g @ d)
-            y *= pt.w
+            da = self.to_products(self.AT_g @ d)
+            y = da * pt.w
             if pt.density is not None:
                 # products held at the fractile's clip (a/f = MIN_RATIO) do not
                 # move with a: their w (kept for the Hessian) would predict huge
                 # changes from tiny ones in a
                 y[pt.density <= _clip_density()] = 0.0
             np.subtract(pt.x, y, out=y)
+            if pt.density is not None and not cheap:
+                # entrants: products at x = 0 (w = 0, so the linear model keeps
+                # them closed) whose a at pi + d falls below the point where they
+                # open get their exact allocation there; left out, their seats
+                # (few, but at a marginal value near the fare) are lost
+                a_new = self.to_products(pt.a_g)
+                a_new += da
+                ent = np.flatnonzero((pt.x <= 0) & (a_new < sub.open_threshold()))
+                if len(ent):
+                    y[ent] = sub.normal_allocation(ent, a_new[ent])
             np.maximum(y, 0.0, out=y)
             if not cheap:
                 y = self._close_slack(pt, y)
@@ -551,6 +561,14 @@ class _Network:
         lin = float(pt.a_g @ dy_g)
         yy = pt.x + dy if y is None else y
         dy2 = np.square(dy)
+        # Taylor's bound uses f S'(x) = a, true inside only: products opened from
+        # x = 0 (f S'(0) <= a there) get their exact revenue change instead
+        opened = _opened(pt, yy)
+        exact = 0.0
+        if len(opened):
+            lin -= float(self.to_products(pt.a_g)[opened] @ dy[opened])
+            dy2[opened] = 0.0
+            exact = sub.revenue_change(opened, pt.x[opened], yy[opened])
         # the cheap bound (largest density anywhere) first; the tighter one
         # (largest density between x and y, one exp) only when it matters
         quad = 0.5 * float(sub.curvature() @ dy2)
@@ -559,7 +577,7 @@ class _Network:
                 quad = 0.5 * float(sub.curvature_bound_at(pt.x, yy, pt.density) @ dy2)
             else:
                 quad = 0.5 * float(sub.curvature_bound(pt.x, yy) @ dy2)
-        return y, pt.revenue + lin - quad
+        return y, pt.revenue + lin - quad + exact
 
     def revenue_bound(self, pt, y):
         """A lower bound on sum_j f_j S_j(y_j), within 1e-2 tol of the exact value.
@@ -580,6 +598,11 @@ class _Network:
         q *= 0.5
         bound = pt.revenue + float(pt.a_g @ self.to_groups(dy)) - float(q.sum())
         exact = _largest_terms(q, 1e-2 * self.tol * max(1.0, abs(pt.revenue)))
+        opened = _opened(pt, y)
+        if len(opened):              # Taylor's bound holds inside only (see recover)
+            if exact is None:
+                exact = np.zeros(len(y), dtype=bool)
+            exact[opened] = True
         if exact is None:
             return bound
         idx = np.flatnonzero(exact)
@@ -822,6 +845,13 @@ class _Network:
         lf = dem / np.maximum(self.cap, 1e-300)
         pi = avg * np.clip(1.0 - 1.0 / np.maximum(lf, 1e-12), 0.0, 1.0)
         return np.maximum(pi, 1e-3 * avg)
+
+
+def _opened(pt, y):
+    """Products at x = 0 in ``pt`` that have seats in ``y`` (normal fast path)."""
+    if pt.density is None:
+        return np.zeros(0, dtype=np.int64)
+    return np.flatnonzero((pt.x <= 0) & (y > 0))
 
 
 def _largest_terms(q, budget):
