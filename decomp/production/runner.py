@@ -163,8 +163,38 @@ def _num(v):
     return v if np.isfinite(v) else str(v)
 
 
+#: glibc mallopt parameters (malloc.h) and the values set on workers.
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+_MMAP_THRESHOLD = 32 * 2 ** 20      # glibc's largest dynamic threshold on 64-bit
+_TRIM_THRESHOLD = 64 * 2 ** 20
+
+
+def tune_allocator() -> bool:
+    """Let glibc keep freed numpy buffers for reuse on this worker process.
+
+    Dask's nanny starts workers with MALLOC_TRIM_THRESHOLD_=65536, which also
+    switches off glibc's dynamic mmap threshold: every array above 128 KiB is
+    then mapped and unmapped afresh, paying its page faults each time. The
+    Lagrangian loop allocates tens of such temporaries per iteration; measured
+    on 12 date instances of 100,000 products: 4.40 s with that setting, 2.58 s
+    after this call, 2.61 s without the setting. Returns whether mallopt took
+    both values (False where there is no glibc)."""
+    if "MALLOC_TRIM_THRESHOLD_" not in os.environ:
+        return True                  # glibc's own adaptive thresholds are in force
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6")
+        return bool(libc.mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD)) and \
+            bool(libc.mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD))
+    except (OSError, AttributeError):
+        return False
+
+
 def prepare_worker(model: str, method: str) -> bool:
-    """Import what the tasks need (numpy, scipy, pyarrow, the method) once per worker, before timing starts."""
+    """Import what the tasks need (numpy, scipy, pyarrow, the method) once per worker,
+    before timing starts, and tune its allocator (:func:`tune_allocator`)."""
+    tune_allocator()
     import pyarrow.parquet  # noqa: F401
 
     from .. import generator, io  # noqa: F401
