@@ -40,6 +40,9 @@ def _run(batch_arg, days, start, method, tol, out, workers, seed=0, warm=None):
     from decomp.production.batch import DateVariation, build_batch, date_range
     from decomp.production.runner import RunConfig, run_batch
 
+    if out.exists():
+        # decomp run resumes: finished tasks would be skipped and the wall time measure nothing
+        raise SystemExit(f"{out} exists: a measurement needs a fresh --out (decomp run would resume it)")
     b = build_batch(batch_arg, date_range(days=days, start=start), DateVariation(seed=seed))
     cfg = RunConfig(model="pnlp", method=method, options=SolverOptions(tol=tol, threads=1), out=str(out),
                     warm_start_from=None if warm is None else str(warm))
