@@ -327,3 +327,15 @@ def test_secant_curvature_of_products_that_cross_zero():
     w[crossed] = np.abs(p1.x - p0.x)[crossed] / np.abs(a1 - a0)[crossed]
     assert np.allclose(got, net.to_groups(w), rtol=1e-12, atol=0)
     assert np.all(w[crossed] > 0)
+
+
+def test_history_is_finite_for_every_family():
+    # Every history record pairs the dual value with a recovered feasible
+    # allocation, so its gap is a finite number and the result is strict JSON
+    # (RFC 8259 has no NaN or infinity), also while bid prices settle.
+    inst = generate(3000, seed=2)
+    for family in ("normal", "gamma"):
+        r = solve(inst.with_forecast(meta={**inst.meta, "distribution": family}), "pnlp", "lagrangian")
+        assert r.ok, family
+        assert all(np.isfinite(h.gap) and np.isfinite(h.primal_value) for h in r.history), family
+        json.dumps(r.to_json_dict(include_history=True), allow_nan=False)

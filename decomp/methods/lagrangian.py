@@ -586,8 +586,10 @@ class _Network:
         (c from :meth:`decomp.distributions.Subproblems.curvature_bound_at`) and,
         for the products whose c (y - x)^2 / 2 terms are largest, until the others
         sum to at most 1e-2 tol |revenue|, the exact change f (S(y) - S(x)).
-        Near the optimum few products move much, so this costs a fraction of the
-        exact revenue of every product (one loss-function pass over all of them).
+        Products opened from x = 0 always get the exact change (Taylor's bound
+        with a = f S'(x) holds inside only). Near the optimum few products move
+        much, so this costs a fraction of the exact revenue of every product
+        (one loss-function pass over all of them).
         Non-normal demand, or no density at x: the exact revenue."""
         sub = self.sub
         if not sub.all_normal or pt.density is None or len(y) == 0:
@@ -1106,7 +1108,7 @@ def _newton(net, pi, options, limit, deadline, so, t_start):
         cheap = far
         if not settled and not far:
             unsettled += 1
-        waiting = not settled and unsettled % _SETTLE_CHECK != 0
+        waiting = not settled and np.isfinite(best_primal) and unsettled % _SETTLE_CHECK != 0
         if ((certified or waiting) and not settled) or (far and it > 0 and np.isfinite(best_primal)):
             y_n, p_newton, p_scaled = None, best_primal, -np.inf
             cheap = True
