@@ -228,6 +228,14 @@ def test_interrupted_then_resumed(clean, cluster, tmp_path):
         run_batch(b, _config(out), client=cluster[1], on_event=stop_after_three)
     partial = json.loads((out / "summary.json").read_text())
     assert partial["interrupted"] == "_Stop" and partial["totals"]["ok"] >= 3
+    # A task already running on a worker when the run was interrupted still
+    # finishes and writes its (complete, atomic) output: Dask cancels futures,
+    # not running threads. Let them: a no-op on each single-threaded worker runs
+    # only after its current task, so afterwards the finished set is fixed.
+    client = cluster[1]
+    barrier = [client.submit(int, 0, workers=[w], pure=False, allow_other_workers=False)
+               for w in client.scheduler_info()["workers"]]
+    client.gather(barrier)
     finished = {k for k in (s.key for s in b.tasks) if (task_dir(out, k) / RESULT_FILE).is_file()}
     mtimes = {k: (task_dir(out, k) / RESULT_FILE).stat().st_mtime_ns for k in finished}
     s = run_batch(b, _config(out), client=cluster[1])
