@@ -72,11 +72,12 @@ decrement falls quadratically (8e-3, 4e-4, 5e-7, 1e-12). Not the cause:
 the log-space step (plain steps give the same error), the mixed precision and
 the Schur complement (identical iterates in double precision and dense).
 Tried without gain: interpolated backtracking (the minimizer along the ray is
-below t = 0.5), secant curvatures for crossing products (one iteration less
-at best, for an extra factorization), treating predicted entrants as inside.
+below t = 0.5), secant curvatures for the products a step is predicted to
+cross (one iteration less at best, for a second factorization per iteration),
+treating predicted entrants as inside.
 
-Crossing products: the Hessian gives a product that crossed x = 0 between
-the previous iterate and this one its secant slope |dx| / |da| instead of
+Crossing products (what did help): the Hessian gives a product that crossed
+x = 0 between the previous iterate and this one its secant slope |dx| / |da| instead of
 its local -dx/da (0 just outside, largest just inside), so the model sees
 the curvature it shows if the next step crosses back
 (:meth:`_Network._secant_curvature`; no extra factorization). Measured on
@@ -371,6 +372,14 @@ class _Network:
             return per_group[self.g_of_p]
         return per_group
 
+    def group_of(self, products):
+        """The group index of each of the given product indices."""
+        if self.g_start is not None:
+            return np.searchsorted(self.g_start, products, side="right") - 1
+        if self.g_of_p is not None:
+            return self.g_of_p[products]
+        return products
+
     def to_groups(self, per_product):
         if self.g_start is not None:
             if len(per_product) == 0:
@@ -566,7 +575,7 @@ class _Network:
         opened = _opened(pt, yy)
         exact = 0.0
         if len(opened):
-            lin -= float(self.to_products(pt.a_g)[opened] @ dy[opened])
+            lin -= float(pt.a_g[self.group_of(opened)] @ dy[opened])
             dy2[opened] = 0.0
             exact = sub.revenue_change(opened, pt.x[opened], yy[opened])
         # the cheap bound (largest density anywhere) first; the tighter one
@@ -608,8 +617,7 @@ class _Network:
         if exact is None:
             return bound
         idx = np.flatnonzero(exact)
-        a = self.to_products(pt.a_g)[idx]
-        bound += float(q[idx].sum()) - float(a @ dy[idx])
+        bound += float(q[idx].sum()) - float(pt.a_g[self.group_of(idx)] @ dy[idx])
         return bound + sub.revenue_change(idx, pt.x[idx], y[idx])
 
     # -- Newton ------------------------------------------------------------------------------------
@@ -689,12 +697,7 @@ class _Network:
         crossed = np.flatnonzero((pt.x > 0) != (prev.x > 0))
         if len(crossed) == 0:
             return wg
-        if self.g_start is not None:
-            g = np.searchsorted(self.g_start, crossed, side="right") - 1
-        elif self.g_of_p is not None:
-            g = self.g_of_p[crossed]
-        else:
-            g = crossed
+        g = self.group_of(crossed)
         da = np.abs(pt.a_g[g] - prev.a_g[g])
         dx = np.abs(pt.x[crossed] - prev.x[crossed])
         ok = da > 0
