@@ -287,6 +287,7 @@ class Subproblems:
         self.i_dis = np.nonzero(disc & ~det)[0]
         self.d_fam = codes[self.i_dis]
         self.d_f, self.d_m, self.d_s = fare[self.i_dis], mean[self.i_dis], std[self.i_dis]
+        self.d_u = np.full(len(self.i_dis), np.inf)    # allocation bounds (whole seats), see set_upper
         # -- deterministic (point mass at max(mean, 0)) ---------------------------
         self.i_det = np.nonzero(det)[0]
         self.t_f = fare[self.i_det]
@@ -431,34 +432,48 @@ class Subproblems:
         exact = float(np.sum(m * np.maximum(f - a, 0.0)))
         return x, w, exact + extra, rev, exact
 
+    def set_upper(self, upper):
+        """Bound every product's allocation by ``upper`` (per product). Exact for
+        deterministic products (min(x, m) with x <= u is min(x, min(m, u))) and for
+        discrete ones (whole seats: pass whole numbers); the caller clips smooth
+        families' fractiles."""
+        upper = np.asarray(upper, dtype=np.float64)
+        if len(self.i_det):
+            self.t_m = np.minimum(self.t_m, upper[self.i_det])
+        if len(self.i_dis):
+            self.d_u = upper[self.i_dis]
+
+    def _discrete_allocation(self, b, f, fam, m, s, u):
+        """min(u, smallest n with f P(D > n) <= b): the bounded subproblem's solution."""
+        return np.minimum(discrete_fractile(b / f, fam, m, s), u)
+
     def _discrete(self, a, smoothing):
-        f, m, s, fam = self.d_f, self.d_m, self.d_s, self.d_fam
-        n = discrete_fractile(a / f, fam, m, s)
+        """Discrete demand: h(b) = f S(x(b)) - b x(b) is piecewise linear in b with
+        breakpoints beta_k = f P(D > k), k < u. Smoothed, each term is its average
+        over the window [a - eps, a + eps] (eps = smoothing * f): x is then
+        (h(a - eps) - h(a + eps)) / (2 eps), w = (x(a - eps) - x(a + eps)) / (2 eps),
+        and the value h(a) + sum over the window's breakpoints of
+        (eps - |beta_k - a|)^2 / (4 eps)."""
+        f, m, s, fam, u = self.d_f, self.d_m, self.d_s, self.d_fam, self.d_u
+        n = self._discrete_allocation(a, f, fam, m, s, u)
         exact_terms = f * discrete_expected_sales(n, fam, m, s) - a * n
         exact = float(np.sum(exact_terms))
         if smoothing <= 0:
             return n, np.zeros(len(a)), exact, exact + float(a @ n), exact
-        # The window must stay in a > 0 (for a <= 0 the subproblem is unbounded):
-        # products with a <= eps keep the exact step (w = 0), and so do the rare
-        # ones whose window holds more than _MAX_JUMP breakpoints.
         eps = smoothing * f
-        n1 = discrete_fractile((a - eps) / f, fam, m, s)  # x(a - eps) >= x(a + eps)
-        n2 = discrete_fractile((a + eps) / f, fam, m, s)
-        keep = (a <= eps) | (n1 - n2 > _MAX_JUMP)
-        n1 = np.where(keep, n, n1)
-        n2 = np.where(keep, n, n2)
-        x = n2.copy()
+        lo, hi = a - eps, a + eps
+        n1 = self._discrete_allocation(lo, f, fam, m, s, u)      # x(a - eps) >= x(a + eps)
+        n2 = self._discrete_allocation(hi, f, fam, m, s, u)
+        h_lo = f * discrete_expected_sales(n1, fam, m, s) - lo * n1
+        h_hi = f * discrete_expected_sales(n2, fam, m, s) - hi * n2
+        x = (h_lo - h_hi) / (2 * eps)
+        w = (n1 - n2) / (2 * eps)
         extra = np.zeros(len(a))
         jump = n1 - n2
-        for k in range(1, int(jump.max(initial=0)) + 1):
-            sel = jump >= k
-            if not np.any(sel):
-                break
-            b = f[sel] * discrete_sf(n2[sel] + k - 1, fam[sel], m[sel], s[sel])  # breakpoint
-            lo = a[sel] - eps[sel]
-            x[sel] += np.clip(b - lo, 0.0, 2 * eps[sel]) / (2 * eps[sel])
-            extra[sel] += np.maximum(eps[sel] - np.abs(b - a[sel]), 0.0) ** 2 / (4 * eps[sel])
-        w = jump / (2 * eps)
+        for k in range(int(jump.max(initial=0))):          # a loop over the window's breakpoints
+            sel = np.flatnonzero(jump > k)
+            beta = f[sel] * discrete_sf(n2[sel] + k, fam[sel], m[sel], s[sel])
+            extra[sel] += np.maximum(eps[sel] - np.abs(beta - a[sel]), 0.0) ** 2 / (4 * eps[sel])
         rev = float(f @ discrete_expected_sales(x, fam, m, s))
         return x, w, exact + float(np.sum(extra)), rev, exact
 
@@ -551,6 +566,25 @@ class Subproblems:
             out[self.i_dis] = discrete_expected_sales(x[self.i_dis], self.d_fam, self.d_m, self.d_s)
         if len(self.i_det):
             out[self.i_det] = np.minimum(x[self.i_det], self.t_m)
+        return out
+
+    def expected_sales_of(self, idx, x):
+        """S_j(x) for the products ``idx`` only; ``x`` has ``idx``'s length in its last axis."""
+        idx = np.asarray(idx, dtype=np.int64)
+        x = np.asarray(x, dtype=np.float64)
+        if self.all_normal:
+            return normal.expected_sales(x, self.mean[idx], self.std[idx])
+        out = np.zeros(x.shape)
+        for members, fn in ((self.i_norm, lambda xs, k: normal.expected_sales(xs, self.n_m[k], self.n_s[k])),
+                            (self.i_gam, lambda xs, k: gamma_expected_sales(xs, self.g_m[k], self.g_s[k])),
+                            (self.i_dis, lambda xs, k: discrete_expected_sales(xs, self.d_fam[k], self.d_m[k],
+                                                                               self.d_s[k])),
+                            (self.i_det, lambda xs, k: np.minimum(xs, self.t_m[k]))):
+            pos = np.searchsorted(members, idx)              # members are sorted product indices
+            pos = np.minimum(pos, max(len(members) - 1, 0))
+            hit = (len(members) > 0) & (members[pos] == idx) if len(members) else np.zeros(len(idx), bool)
+            if np.any(hit):
+                out[..., hit] = fn(np.maximum(x[..., hit], 0.0), pos[hit])
         return out
 
     def marginal_sales(self, x):

@@ -10,7 +10,8 @@ from decomp import SolutionStatus, SolverOptions, Termination, ladder, solve
 from decomp import dual as _dual
 from decomp import threads as _threads
 from decomp.generator import generate
-from decomp.methods import lagrangian as m_lagr
+from decomp import lagrangian as m_lagr
+from decomp.lagrangian.alternatives import lbfgsb_termination
 from decomp.result import IterationRecord
 
 pytestmark = pytest.mark.solver
@@ -67,7 +68,7 @@ def test_strong_duality_certified(rungs, lagr, name):
 
 def test_history_records_every_iteration(lagr):
     r = lagr["p1k"]
-    assert len(r.history) == r.iterations + 1
+    assert len(r.history) == r.iterations
     assert all(isinstance(h, IterationRecord) for h in r.history)
     gaps = [h.gap for h in r.history]
     assert gaps[-1] <= 1e-9 < gaps[0]
@@ -105,13 +106,10 @@ def test_warm_start_after_a_five_percent_forecast_change(rungs, lagr):
     cold = solve(moved, "pnlp", "lagrangian")
     warm = solve(moved, "pnlp", "lagrangian", warm_start=lagr["p10k"].bid_prices)
     assert cold.ok and warm.ok
-    # the certified gap is within 1e-9 after at most 5 iterations (the loop then
-    # goes on until the bid prices settle, see the bid_tol option)
-    first = next(h.iteration for h in warm.history if h.gap <= 1e-9)
-    first_cold = next(h.iteration for h in cold.history if h.gap <= 1e-9)
-    assert first <= 5 < first_cold
-    assert warm.iterations < cold.iterations
+    # both reach the same optimum (a strictly concave PNLP has one); how many iterations
+    # each takes is measured by the benchmark suite, not asserted here
     assert warm.objective == pytest.approx(cold.objective, rel=1e-9)
+    assert _close_bid_prices(cold.bid_price_array, warm.bid_price_array) <= 1e-6
 
 
 def test_warm_start_array_and_partial_dict(rungs, lagr):
@@ -184,10 +182,10 @@ def test_bad_options_are_rejected(rungs):
 
 def test_lbfgsb_message_table():
     # scipy's L-BFGS-B messages (scipy.optimize._lbfgsb_py, quoted from its source).
-    assert m_lagr.lbfgsb_termination("CONVERGENCE: REL_REDUCTION_OF_F_<=_FACTR*EPSMCH") is Termination.NUMERICAL_ERROR
-    assert m_lagr.lbfgsb_termination("STOP: TOTAL NO. OF ITERATIONS REACHED LIMIT") is Termination.ITERATION_LIMIT
-    assert m_lagr.lbfgsb_termination("ABNORMAL_TERMINATION_IN_LNSRCH") is Termination.NUMERICAL_ERROR
-    assert m_lagr.lbfgsb_termination("something new") is Termination.UNKNOWN
+    assert lbfgsb_termination("CONVERGENCE: REL_REDUCTION_OF_F_<=_FACTR*EPSMCH") is Termination.NUMERICAL_ERROR
+    assert lbfgsb_termination("STOP: TOTAL NO. OF ITERATIONS REACHED LIMIT") is Termination.ITERATION_LIMIT
+    assert lbfgsb_termination("ABNORMAL_TERMINATION_IN_LNSRCH") is Termination.NUMERICAL_ERROR
+    assert lbfgsb_termination("something new") is Termination.UNKNOWN
 
 
 def test_solve_command_writes_a_result(tmp_path, rungs):
@@ -232,101 +230,20 @@ def test_threaded_subproblems_match_one_thread(monkeypatch):
     # the dual value only to rounding, since they are added in another order).
     monkeypatch.setattr(_threads, "FROM_PRODUCTS", 0)
     inst = generate(20_000, seed=4)
-    one = m_lagr._Network(inst, threads=1)
-    two = m_lagr._Network(inst, threads=3)
+    one = m_lagr.Network(inst, threads=1)
+    two = m_lagr.Network(inst, threads=3)
     assert one._chunks is None and two._chunks is not None and len(two._chunks) == 3
-    pi = one.start()
+    pi = m_lagr.fare_start(one)
     p1, p2 = one.evaluate(pi), two.evaluate(pi)
-    for name in ("x", "w", "x_g", "load", "density"):
+    for name in ("x", "w", "x_g", "load"):
         assert np.array_equal(getattr(p1, name), getattr(p2, name)), name
     assert p2.exact == pytest.approx(p1.exact, rel=1e-13)
-    assert p2.revenue == pytest.approx(p1.revenue, rel=1e-13)
     a = solve(inst, "pnlp", "lagrangian", SolverOptions(threads=1))
     monkeypatch.setattr(_threads, "available", lambda: 2)
     b = solve(inst, "pnlp", "lagrangian")
     assert a.ok and b.ok
     assert b.objective == pytest.approx(a.objective, rel=1e-12)
     assert np.allclose(a.bid_price_array, b.bid_price_array, rtol=1e-9, atol=1e-12 * a.bid_price_array.max())
-
-
-def test_revenue_bound_is_a_lower_bound_within_tol():
-    # Taylor's theorem with the remainder bounded by the largest density on the
-    # interval (a mathematical fact) for most products, the exact expected sales
-    # for the rest: never above the exact revenue (decomp.normal, itself checked
-    # against scipy.stats in test_normal.py), and within 1e-2 tol below it.
-    inst = generate(20_000, seed=5)
-    net = m_lagr._Network(inst, tol=1e-9)
-    pt = net.evaluate(net.start())
-    rng = np.random.default_rng(0)
-    exact_x = net.sub.revenue(pt.x)
-    assert exact_x == pytest.approx(pt.revenue, rel=1e-12)
-    closed = pt.x <= 0
-    assert closed.sum() > 10
-    for scale in (1e-6, 1e-3, 1e-1):
-        y = np.maximum(pt.x * (1.0 + scale * rng.standard_normal(len(pt.x))), 0.0)
-        # and some closed products opened (Taylor's bound with a = f S'(x) does
-        # not hold for them: f S'(0) <= a there)
-        y[closed] = np.where(rng.random(closed.sum()) < 0.5, scale * net.sub.mean[closed], 0.0)
-        exact = net.sub.revenue(y)
-        bound = net.revenue_bound(pt, y)
-        assert bound <= exact + 1e-13 * abs(exact)
-        assert exact - bound <= 1.1e-2 * 1e-9 * abs(pt.revenue) + 1e-12 * abs(exact)
-
-
-def test_largest_terms_keeps_the_rest_within_budget():
-    rng = np.random.default_rng(1)
-    q = rng.lognormal(0.0, 4.0, 100_000)
-    q[:10] = 0.0
-    budget = 1e-3 * q.sum()
-    mask = m_lagr._largest_terms(q, budget)
-    assert q[~mask].sum() <= budget
-    assert not mask[:10].any()
-    # no kept term is smaller than a left-out one, and keeping one binade fewer
-    # (the smallest kept terms, within a factor 2 of each other) would break the budget
-    assert q[mask].min() >= q[~mask].max()
-    _, e = np.frexp(q)
-    low = mask & (e == e[mask].min())
-    assert q[~mask].sum() + q[low].sum() > budget
-    assert m_lagr._largest_terms(q, q.sum()) is None
-
-
-def test_block_step_recovers_the_optimum_of_its_legs():
-    # With every other bid price at the optimum, the minimum of the (convex) dual
-    # over a block of legs is the optimum itself (a mathematical fact: the optimum
-    # minimizes the dual along every block of coordinates). Perturb three priced
-    # legs, let the block step find them again, and check that the dual fell.
-    inst = generate(20_000, seed=7)
-    best = solve(inst, "pnlp", "lagrangian", SolverOptions(tol=1e-12))
-    net = m_lagr._Network(inst, threads=1)
-    pi_star = best.bid_price_array[net.legs]
-    legs = np.argsort(pi_star)[-3:]
-    pi = pi_star.copy()
-    pi[legs] *= np.array([1.05, 0.9, 1.2])
-    pt = net.evaluate(pi)
-    got = net.settle_block(pt, legs, rtol=1e-10)
-    assert got is not None
-    assert np.allclose(got[legs], pi_star[legs], rtol=1e-7)
-    assert np.array_equal(np.delete(got, legs), np.delete(pi, legs))
-    assert net.evaluate(got).exact < pt.exact
-
-
-def test_secant_curvature_of_products_that_cross_zero():
-    # Products whose allocation went from x > 0 to x = 0 (or back) between two
-    # points get the slope of the chord |dx| / |da| in their group's curvature;
-    # every other product keeps its own -dx/da. Checked against a direct sum.
-    inst = generate(5_000, seed=8)
-    net = m_lagr._Network(inst, threads=1)
-    pi = net.start()
-    p0 = net.evaluate(pi)
-    p1 = net.evaluate(pi * 1.3)
-    crossed = (p0.x > 0) != (p1.x > 0)
-    assert crossed.sum() > 10
-    got = net._secant_curvature(p1, p0, net.to_groups(p1.w))
-    a0, a1 = net.to_products(p0.a_g), net.to_products(p1.a_g)
-    w = p1.w.copy()
-    w[crossed] = np.abs(p1.x - p0.x)[crossed] / np.abs(a1 - a0)[crossed]
-    assert np.allclose(got, net.to_groups(w), rtol=1e-12, atol=0)
-    assert np.all(w[crossed] > 0)
 
 
 def test_history_is_finite_for_every_family():
@@ -339,3 +256,81 @@ def test_history_is_finite_for_every_family():
         assert r.ok, family
         assert all(np.isfinite(h.gap) and np.isfinite(h.primal_value) for h in r.history), family
         json.dumps(r.to_json_dict(include_history=True), allow_nan=False)
+
+
+# -- the bound-constrained method: exact zeros, the barrier segments ------------------------
+
+def _two_leg_instance(rng):
+    """Leg L1 slack, leg L2 tight; P1 flies L1 then L2, P2 flies L2 only (no product uses
+    L1 alone): at the optimum L1's bid price is exactly 0, and its bound is active."""
+    from decomp.instance import Instance
+
+    m1, m2 = rng.uniform(20, 60, 2)
+    cap2 = rng.uniform(0.3, 0.7) * (m1 + m2)
+    cap1 = rng.uniform(1.5, 3.0) * m1
+    fares = np.sort(rng.uniform(50, 400, 2))[::-1]
+    return Instance(leg_ids=["L1", "L2"], leg_origin=["QA1", "QB2"], leg_destination=["QB2", "QC3"],
+                    capacity=[np.floor(cap1), np.floor(cap2)], product_ids=["P1", "P2"],
+                    leg_ptr=np.array([0, 2, 3]), leg_index=np.array([0, 1, 1]),
+                    fare=[fares[0], fares[1]], mean=[m1, m2], std=[0.3 * m1, 0.4 * m2])
+
+
+def test_slack_leg_shared_with_a_tight_leg_gets_exactly_zero():
+    # Regression (the smallest reproducer of the log-space failure): 20 random draws.
+    # Reference: Ipopt (bound_relax_factor = 0) on the same PNLP. L1 is slack, so
+    # complementary slackness (a mathematical fact) makes its bid price 0.
+    rng = np.random.default_rng(12)
+    for _ in range(20):
+        inst = _two_leg_instance(rng)
+        got = solve(inst, "pnlp", "lagrangian")
+        ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-12))
+        assert got.ok, got.message
+        assert got.bid_prices["L1"] == 0.0
+        assert got.allocation[0] < inst.capacity[0]              # L1 keeps its slack
+        assert got.objective == pytest.approx(ref.objective, rel=1e-8)
+        assert got.bid_prices["L2"] == pytest.approx(ref.bid_prices["L2"], rel=1e-6)
+
+
+def test_barrier_segment_solves_its_subproblem():
+    # Closed form of max_{0<y<w} g y + mu (log(2y/w) + log(2(w-y)/w)) against a bounded
+    # scalar minimization (scipy.optimize.minimize_scalar), and its value change.
+    from scipy.optimize import minimize_scalar
+
+    from decomp.lagrangian.segments import Segments
+
+    class _One:                                       # one deterministic product (std = 0)
+        all_normal = False
+        n = 1
+        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
+        i_det = np.array([0])
+        fare = np.array([10.0])
+
+    sub = _One()
+    sub.t_m, sub.t_f = np.array([4.0]), np.array([10.0])
+    seg = Segments(sub, np.array([9.0]))
+    for a, delta in ((3.0, 0.1), (9.999, 1e-3), (10.5, 1e-2), (25.0, 1e-6)):
+        x_exact = np.array([4.0 if a < 10.0 else 0.0])
+        x, w, change = seg.smooth(np.array([a]), x_exact, delta)
+        g, width, mu = 10.0 - a, 4.0, delta * 10.0 * 4.0
+        f = lambda y: -(g * y + mu * (np.log(2 * y / width) + np.log(2 * (width - y) / width)))  # noqa: E731
+        ref = minimize_scalar(f, bounds=(0.0, width), method="bounded", options={"xatol": 1e-12})
+        assert x[0] == pytest.approx(ref.x, rel=1e-6, abs=1e-9)
+        assert change == pytest.approx(-ref.fun - max(g, 0.0) * width, rel=1e-6, abs=1e-9)
+        assert change <= 0.0                          # the barrier is <= 0: a lower approximation
+        assert w[0] > 0.0
+
+
+def test_smoothed_dual_brackets_the_exact_dual():
+    # q_delta <= q <= q_delta + delta (1 + log(1 + 1/delta)) E (the barrier bound, see
+    # decomp.lagrangian.segments), on a Poisson network at random bid prices.
+    from decomp.lagrangian.smoothing import error_bound
+
+    inst = generate(400, seed=9)
+    inst = inst.with_forecast(meta={**inst.meta, "distribution": "poisson"})
+    net = m_lagr.Network(inst)
+    rng = np.random.default_rng(3)
+    base = m_lagr.fare_start(net)
+    for delta in (1e-1, 1e-3, 1e-6):
+        pt = net.evaluate(base * rng.uniform(0.3, 2.0, net.n), delta)
+        assert pt.value <= pt.exact + 1e-9 * abs(pt.exact)
+        assert pt.exact <= pt.value + error_bound(delta, net.segments.scale) + 1e-9 * abs(pt.exact)

@@ -156,7 +156,7 @@ def test_clean_run(clean):
     for spec in b.tasks:
         rec = json.loads((task_dir(out, spec.key) / RESULT_FILE).read_text())["record"]
         assert rec["bound"] >= rec["objective"] * (1 - 1e-12)
-        assert 0 <= rec["gap"] <= 1e-9
+        assert -1e-12 <= rec["gap"] <= 1e-9          # rounding can make a closed gap slightly negative
 
 
 @pytest.mark.solver

@@ -1,0 +1,143 @@
+"""The Lagrangian loop: relax, step, recover, certify, until the certified gap is within tol.
+
+Each iteration: the projected Newton direction at pi (:mod:`.newton`); a
+feasible allocation predicted from it and its exact revenue
+(:mod:`.recovery`), a lower bound on the optimum, while the exact dual value
+at the best pi so far is an upper bound; stop when
+
+    gap = (q(pi_best) - F(y_best)) / max(1, |F(y_best)|) <= tol;
+
+otherwise lower the smoothing level (:mod:`.smoothing`) or take the step
+(Armijo along the projection arc).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+
+import numpy as np
+
+from ..result import IterationRecord, Termination
+from . import newton
+from .polish import complete
+from .recovery import recover
+from .smoothing import Continuation
+
+#: Below this many products the recovery runs at every iteration; above, only
+#: once the decrement (about twice q(pi) - q*) allows a gap within tol.
+RECOVER_ALWAYS_BELOW = 50_000
+#: With only smooth products (unique bid prices) and tol <= 1e-7, the loop also waits
+#: until Newton's next step moves no bid price by more than this fraction of itself.
+BID_TOL = 1e-7
+
+
+def _settled(pt, dirn, floor, bid_tol):
+    """Newton's next step moves every bid price by at most bid_tol of itself (or of 1e-3
+    of the largest, for the smallest ones)."""
+    step = np.maximum(pt.pi + dirn.d, dirn.lower) - pt.pi
+    scale = np.maximum(pt.pi, 1e-3 * float(pt.pi.max(initial=0.0)))
+    return bool(np.all(np.abs(step) <= bid_tol * scale))
+
+
+@dataclasses.dataclass
+class Outcome:
+    pi: np.ndarray
+    x: np.ndarray
+    gap: float
+    termination: Termination
+    raw_status: str
+    message: str
+    iterations: int
+    history: tuple
+
+
+class Certified:
+    """The best upper bound (exact dual) and best lower bound (a recovered allocation)."""
+
+    def __init__(self):
+        self.dual = np.inf
+        self.pi = None
+        self.primal = -np.inf
+        self.x = None
+
+    def offer_dual(self, pt):
+        if pt.exact < self.dual:
+            self.dual, self.pi = pt.exact, pt.pi
+
+    def offer_primal(self, y, value):
+        if value > self.primal:
+            self.primal, self.x = value, y
+
+    @property
+    def gap(self) -> float:
+        if self.x is None:
+            return np.inf
+        return (self.dual - self.primal) / max(1.0, abs(self.primal))
+
+
+def _record(it, pt, best, step, t0):
+    return IterationRecord(iteration=it, dual_value=float(pt.exact),
+                           primal_value=None if best.x is None else float(best.primal),
+                           gap=float(best.gap) if np.isfinite(best.gap) else None, step=float(step),
+                           pi_norm=float(np.linalg.norm(pt.pi)), seconds=time.perf_counter() - t0)
+
+
+def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
+    cont = Continuation(net.segments, tol)
+    pt = net.evaluate(np.maximum(pi0, floor), cont.delta)
+    eps_bar = 1e-3 * float(net.sub.fare.max(initial=1.0))
+    lam = newton.LAM_START
+    best = Certified()
+    best.offer_dual(pt)
+    history = []
+    always = net.n_products < RECOVER_ALWAYS_BELOW
+    # bid prices are unique when every term is smooth: then also wait until they settle
+    settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
+    step_len = 0.0
+    for it in range(1, limit + 1):
+        dirn = newton.direction(net, system, pt, lam, eps_bar, floor)
+        q = max(1.0, abs(pt.exact))
+        if always or it == 1 or dirn.decrement <= 10.0 * tol * q:
+            y, value = recover(net, pt, dirn.d, dirn.lower)
+            best.offer_primal(y, value)
+            if best.gap > tol and dirn.decrement <= 10.0 * tol * q:
+                completed = complete(net, pt, y)
+                if completed is not None:
+                    best.offer_primal(*completed)
+        history.append(_record(it, pt, best, step_len, t0))
+        if best.gap <= tol and (settle is None or _settled(pt, dirn, floor, settle)):
+            return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
+        if deadline is not None and time.perf_counter() > deadline:
+            return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)
+        lower = cont.next(max(dirn.decrement, dirn.stationarity), pt.exact)
+        if lower is not None:
+            lam = newton.LAM_START
+            pt = net.evaluate(pt.pi, lower)
+            best.offer_dual(pt)
+            continue
+        taken = newton.step(net, system, pt, lam, eps_bar, floor, dirn)
+        if taken is None and cont.delta > 0 and not cont.at_floor(pt.exact):
+            # the smoothed dual is flat to rounding at this level: go on to the next one
+            lam = newton.LAM_START
+            pt = net.evaluate(pt.pi, cont.lower())
+            best.offer_dual(pt)
+            continue
+        if taken is None:
+            best.offer_primal(*recover(net, pt))
+            if best.gap <= tol:
+                return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
+            return _outcome(best, Termination.NUMERICAL_ERROR, "no_decrease", it, history,
+                            "no decrease along the projection arc of the Newton or the scaled "
+                            "gradient direction (the dual is flat to rounding here)")
+        pt, _, step_len, lam = taken
+        best.offer_dual(pt)
+    return _outcome(best, Termination.ITERATION_LIMIT, "iteration_limit", limit, history)
+
+
+def _outcome(best, term, raw, it, history, why=""):
+    msg = f"projected Newton: {raw} after {it} iterations, certified gap {best.gap:.3g}"
+    if why:
+        msg += f"; {why}"
+    return Outcome(pi=best.pi, x=best.x, gap=best.gap, termination=term, raw_status=raw, message=msg,
+                   iterations=it, history=tuple(history))

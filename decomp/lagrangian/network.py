@@ -1,0 +1,254 @@
+"""The network the dual method works on: live legs and products, grouped by leg tuple.
+
+Built once per solve, everything here is independent of the bid prices:
+
+- pre-processing: products on a leg of zero capacity get x = 0 and leave the
+  problem; legs no remaining product uses get bid price 0 and leave it too;
+- each product's allocation is bounded by u_j = ceil(2 (smallest capacity of
+  its legs)) + 1. A x <= c already implies x_j <= u_j, so the bound changes no
+  optimum and no optimal bid price (it is inactive at every optimum, its
+  multiplier is 0), but it keeps every subproblem bounded: the dual is finite
+  and continuous on all of pi >= 0, including where a product's legs all
+  have bid price 0;
+- products are grouped by their tuple of legs (per-iteration sums over
+  products become sums over groups), and the Hessian's pattern (pairs of legs
+  sharing a group) is computed once (:mod:`decomp.lagrangian.hessian`).
+
+:meth:`Network.evaluate` gives the dual q(pi) (exact and, for non-smooth
+products, smoothed), its gradient c - A x(pi) and the per-product curvature
+w = -dx/da.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import scipy.sparse as sp
+
+from .. import distributions
+from .. import threads as _threads
+from .segments import Segments
+
+
+@dataclasses.dataclass(eq=False)
+class DualPoint:
+    """The dual at one pi: per-leg arrays over live legs, per-product over live products."""
+
+    pi: np.ndarray
+    a_g: np.ndarray        # per group: sum of the legs' bid prices
+    x: np.ndarray          # subproblem solutions (smoothed where smoothing > 0)
+    x_g: np.ndarray        # per group: sum of x
+    w: np.ndarray          # -dx/da (>= 0)
+    w_g: np.ndarray        # per group: sum of w
+    load: np.ndarray       # A x
+    grad: np.ndarray       # c - A x: the gradient of the (smoothed) dual
+    value: float           # the dual the line search minimizes (smoothed when smoothing > 0)
+    exact: float           # the exact dual q(pi): an upper bound on the PNLP optimum
+    smoothing: float
+
+
+class Network:
+    """Live legs and products of an instance, grouped for the dual method."""
+
+    def __init__(self, instance, threads=1):
+        P, L = instance.n_products, instance.n_legs
+        self.instance = instance
+        cap = instance.capacity
+        lpp = instance.legs_per_product
+        leg_index = instance.leg_index
+        prod_of_nnz = np.repeat(np.arange(P, dtype=np.int64), lpp)
+        self.zero_leg = zero_leg = cap <= 0
+        dead = np.bincount(prod_of_nnz, weights=zero_leg[leg_index], minlength=P) > 0
+        live_nnz = ~dead[prod_of_nnz]
+        used = np.bincount(leg_index[live_nnz], minlength=L) > 0
+        self.dead = dead
+        self.legs = np.nonzero(used)[0]
+        self.n = n = len(self.legs)
+        leg_map = np.full(L, -1, dtype=np.int64)
+        leg_map[self.legs] = np.arange(n)
+        self.prods = np.nonzero(~dead)[0] if np.any(dead) else None
+        lpp_l = lpp[self.prods] if self.prods is not None else lpp
+        idx_l = leg_map[leg_index[live_nnz]]
+        self.cap = np.ascontiguousarray(cap[self.legs], dtype=np.float64)
+        self.sub = distributions.Subproblems.from_instance(instance, self.prods)
+        self.n_products = Pl = len(lpp_l)
+        self._group(lpp_l, idx_l)
+        # the allocation bound u_j = 2 min(capacity of its legs) + 1 (whole seats), per group
+        self.upper_g = np.ceil(2.0 * self._min_capacity_g()) + 1.0
+        self.upper = self.to_products(self.upper_g)
+        self.sub.set_upper(self.upper)
+        self.segments = Segments(self.sub, self.upper)
+        self._setup_threads(threads)
+        #: per leg: sum over its products of mean / fare (the curvature a term
+        #: shows when smoothed over a window of width f)
+        self.leg_scale = self.A_g @ self.to_groups(np.maximum(self.sub.mean, 1e-12) / self.sub.fare)
+        #: per leg: the largest fare of its products (a price scale)
+        self.fare_scale = np.zeros(self.n)
+        if self.G:
+            f_g = self._max_fare_g()
+            np.maximum.at(self.fare_scale, self.A_g.nonzero()[0], f_g[self.A_g.nonzero()[1]])
+        self.n_pp = Pl
+
+    # -- grouping ------------------------------------------------------------------------
+    def _group(self, lpp_l, idx_l):
+        """Products with the same tuple of legs form a group (runs of equal rows in
+        the usual file order; otherwise by sorting)."""
+        Pl = len(lpp_l)
+        K = max(int(lpp_l.max(initial=0)), 1)
+        ptr = np.zeros(Pl + 1, dtype=np.int64)
+        np.cumsum(lpp_l, out=ptr[1:])
+        M = np.zeros((Pl, K), dtype=np.int64, order="F")       # 0 = no leg
+        last = max(len(idx_l) - 1, 0)
+        for k in range(K):                                     # a loop over leg positions
+            col = idx_l[np.minimum(ptr[:-1] + k, last)] + 1 if len(idx_l) else np.zeros(Pl, np.int64)
+            M[:, k] = np.where(lpp_l > k, col, 0)
+        if Pl:
+            same = np.ones(Pl - 1, dtype=bool)
+            for k in range(K):
+                same &= M[1:, k] == M[:-1, k]
+            starts = np.concatenate([[0], np.nonzero(~same)[0] + 1])
+        else:
+            starts = np.zeros(0, dtype=np.int64)
+        self.g_start = self.g_count = self.g_of_p = None
+        if len(starts) <= 0.6 * max(Pl, 1):
+            self.g_start = starts
+            self.g_count = np.diff(np.append(starts, Pl))
+            Mg = M[starts]
+        else:
+            Mg, inv = np.unique(M, axis=0, return_inverse=True)
+            inv = inv.reshape(-1)
+            if len(Mg) <= 0.6 * max(Pl, 1):
+                self.g_of_p = inv
+            else:
+                Mg = M
+        self.Mg = np.asarray(Mg, order="F")
+        self.G = G = len(Mg)
+        gi, gk = np.nonzero(Mg)
+        self.AT_g = sp.csr_matrix((np.ones(len(gi)), (gi, Mg[gi, gk] - 1)), shape=(G, self.n))
+        self.A_g = self.AT_g.T.tocsr()
+
+    def _min_capacity_g(self):
+        capx = np.append(self.cap, np.inf)                     # index -1 (no leg) -> inf
+        return capx[self.Mg - 1].min(axis=1) if self.G else np.zeros(0)
+
+    def _max_fare_g(self):
+        f = self.sub.fare
+        if self.g_start is not None:
+            return np.maximum.reduceat(f, self.g_start) if len(f) else np.zeros(0)
+        if self.g_of_p is not None:
+            out = np.zeros(self.G)
+            np.maximum.at(out, self.g_of_p, f)
+            return out
+        return f.copy()
+
+    def to_products(self, per_group):
+        if self.g_start is not None:
+            return np.repeat(per_group, self.g_count)
+        if self.g_of_p is not None:
+            return per_group[self.g_of_p]
+        return per_group
+
+    def to_groups(self, per_product):
+        if self.g_start is not None:
+            if len(per_product) == 0:
+                return np.zeros(0)
+            return np.add.reduceat(per_product, self.g_start)
+        if self.g_of_p is not None:
+            return np.bincount(self.g_of_p, weights=per_product, minlength=self.G)
+        return per_product
+
+    def fare_of(self, products):
+        return self.sub.fare[products]
+
+    def full_allocation(self, x_live):
+        """Live products' allocation placed into the instance's product order (0 elsewhere)."""
+        x = np.zeros(self.instance.n_products)
+        if self.prods is None:
+            x[:] = x_live
+        else:
+            x[self.prods] = x_live
+        return x
+
+    def full_prices(self, pi_live):
+        pi = np.zeros(self.instance.n_legs)
+        pi[self.legs] = pi_live
+        return pi
+
+    # -- the dual --------------------------------------------------------------------------
+    def evaluate(self, pi, smoothing=0.0) -> DualPoint:
+        """q(pi) with every product's allocation in [0, u_j]; with ``smoothing`` delta > 0
+        the linear segments take their barrier solutions (:mod:`.segments`), and
+        ``value`` is the smoothed dual while ``exact`` stays q(pi)."""
+        a_g = self.AT_g @ pi
+        if self._chunks is not None:
+            x, w, x_g, w_g, exact, revenue = self._evaluate_threads(a_g)
+        else:
+            v = self.sub.evaluate(self.to_products(a_g))
+            x, w, exact, revenue = v.x, v.w, v.exact_value, v.revenue
+            x_g = w_g = None
+        x, w, change = self._apply_bound(a_g, x, w)
+        if change is not None:
+            exact += change
+        value = exact
+        if smoothing > 0 and len(self.segments):
+            x, dw, smooth_change = self.segments.smooth(self.to_products(a_g), x, smoothing)
+            w = w + dw
+            value += smooth_change
+            change = True
+        if change is not None or x_g is None:
+            x_g, w_g = self.to_groups(x), self.to_groups(w)
+        load = self.A_g @ x_g
+        cp = float(self.cap @ pi)
+        return DualPoint(pi=pi, a_g=a_g, x=x, x_g=x_g, w=w, w_g=w_g, load=load, grad=self.cap - load,
+                         value=value + cp, exact=exact + cp, smoothing=smoothing)
+
+    def _apply_bound(self, a_g, x, w):
+        """Clip the unbounded fractiles at u (concave terms: the bounded maximum is the
+        clipped one) and return the change of the dual terms, or None when none moved."""
+        over = np.flatnonzero(x > self.upper)
+        if len(over) == 0:
+            return x, w, None
+        x = x.copy()
+        w = w.copy()
+        u = self.upper[over]
+        a = self.to_products(a_g)[over]
+        sales = self.sub.expected_sales_of(over, np.stack([x[over], u]))
+        f = self.sub.fare[over]
+        change = float(f @ (sales[1] - sales[0]) - a @ (u - x[over]))
+        x[over] = u
+        w[over] = 0.0
+        return x, w, change
+
+    def revenue(self, y):
+        """sum_j f_j S_j(y_j), exactly."""
+        return self.sub.revenue(y)
+
+    def _setup_threads(self, threads):
+        """One product slice per thread, split at group boundaries (normal demand,
+        products in runs of equal legs, from decomp.threads.FROM_PRODUCTS on)."""
+        self._chunks = None
+        P = self.n_products
+        if threads < 2 or P < _threads.FROM_PRODUCTS or self.g_start is None or not self.sub.all_normal:
+            return
+        cuts = np.searchsorted(self.g_start, np.arange(1, threads) * P // threads)
+        gb = np.unique(np.concatenate([[0], cuts, [self.G]]))
+        pb = np.append(self.g_start, P)[gb]
+        self._chunks = [(int(gb[i]), int(gb[i + 1]), int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
+        self._pool = _threads.pool(threads)
+
+    def _evaluate_threads(self, a_g):
+        P, sub = self.n_products, self.sub
+        x, w, e = np.empty(P), np.empty(P), np.empty(P)
+        x_g, w_g = np.empty(self.G), np.empty(self.G)
+        count, start = self.g_count, self.g_start
+
+        def part(chunk):
+            g0, g1, p0, p1 = chunk
+            value, rev = sub.normal_slice(np.repeat(a_g[g0:g1], count[g0:g1]), p0, p1, x, w, e)
+            x_g[g0:g1] = np.add.reduceat(x[p0:p1], start[g0:g1] - p0)
+            w_g[g0:g1] = np.add.reduceat(w[p0:p1], start[g0:g1] - p0)
+            return value, rev
+
+        sums = list(self._pool.map(part, self._chunks))
+        return x, w, x_g, w_g, sum(v for v, _ in sums), sum(r for _, r in sums)

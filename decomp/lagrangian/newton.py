@@ -1,0 +1,170 @@
+"""Projected Newton on min q(pi) subject to pi >= 0 (Bertsekas 1982).
+
+Bertsekas, "Projected Newton methods for optimization problems with simple
+constraints", SIAM J. Control Optim. 20(2), 1982: at pi with gradient g, the
+legs in the epsilon-active set
+
+    held = {i : pi_i <= eps and g_i > 0},  eps = min(eps_bar, |pi - [pi - D g]^+|)
+
+(slack legs at or next to bid price 0) take a diagonally scaled gradient step;
+the others (the free legs) take the Newton step of the reduced Hessian
+H_FF (+ lam I, Levenberg-Marquardt, after diagonal scaling). The trial point
+follows the projection arc pi(t) = [pi + t d]^+ and is accepted by Armijo's
+rule on that arc, q(pi) - q(pi(t)) >= sigma g.(pi - pi(t)), halving t. Every
+limit point is stationary, hence optimal for the convex dual (Proposition 2
+of the paper, for scalings with eigenvalues bounded away from 0 and
+infinity, which lam provides); near a solution at which the free legs are
+exactly those with positive bid price, the held set is identified and the
+steps are Newton's on the free legs. No step needs bid prices positive.
+
+The bound is pi >= r (r = ``floor``, :data:`decomp.lagrangian.prices.FLOOR` of
+the largest fare) rather than pi >= 0: within r of zero the dual of a
+normal (or gamma, Poisson, negative-binomial) product whose legs are all
+nearly free is steeper than any step can resolve (its allocation follows the
+demand's tail, x = m + s z with z -> infinity as a -> 0), so slack legs would
+zig-zag there. Bounding below by r changes the optimal dual value by at most
+r sum_i c_i (convexity: q(pi* + r 1) <= q* + r c.1), and legs that end at r
+are reported at bid price 0, where the certificate is computed again.
+
+Safeguard: when the Newton arc gives no decrease (the projection turned it
+uphill, or rounding), a projected step along the diagonally scaled gradient
+is tried, which is gradient projection with Armijo's rule along the arc
+(Bertsekas, Nonlinear Programming, 2nd ed., section 2.3) and converges on
+its own.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+SIGMA = 1e-4
+MAX_HALVINGS = 50
+#: A full step whose decrease is at least this fraction of its first-order prediction
+#: (a quadratic model gives 1/2) is tried longer, up to 2^MAX_DOUBLINGS.
+EXPAND = 0.75
+MAX_DOUBLINGS = 8
+#: A free leg's bid price falls by at most this factor in one step (see step_floor).
+KAPPA = 10.0
+#: Levenberg-Marquardt factor on the scaled system: start, bounds.
+LAM_START, LAM_MIN, LAM_MAX = 1e-8, 1e-12, 1e6
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Direction:
+    d: np.ndarray          # per leg
+    held: np.ndarray       # legs held at their bound (bool)
+    decrement: float       # g.(pi - [pi + d]^+): the step's first-order decrease (> 0 unless stationary)
+    curvature: np.ndarray  # the diagonal the step was scaled with
+    stationarity: float    # g.(pi - [pi - g/h]^+): the diagonally scaled projected decrement
+    lower: np.ndarray      # per leg: the projection's lower bound for this step
+
+
+def leg_curvature(system, hv):
+    """The Hessian's diagonal and the mask of flat legs (no curvature: all their
+    products at x = 0, at their bound u, or between breakpoints)."""
+    h = system.diagonal(hv)
+    flat = ~(h > 0) | ~np.isfinite(h)
+    return np.where(flat, 1.0, h), flat
+
+
+def flat_step(pt, flat, fare_scale):
+    """Flat legs: the dual is linear in their bid price up to the next breakpoint, so
+    they go to the bound when slack (g > 0) and double (or rise to a fare scale) when
+    overloaded; the arc search halves the step back to the breakpoint."""
+    g, pi = pt.grad[flat], pt.pi[flat]
+    return np.where(g > 0, -pi, np.where(g < 0, np.maximum(pi, fare_scale[flat]), 0.0))
+
+
+def direction(net, system, pt, lam, eps_bar, floor) -> Direction:
+    """The projected Newton direction at ``pt`` (see the module docstring)."""
+    hv = system.pair_values(pt.w_g)
+    h, flat = leg_curvature(system, hv)
+    g, pi = pt.grad, pt.pi
+    proj = pi - np.maximum(pi - g / h, floor)
+    proj[flat] = 0.0
+    eps = min(eps_bar, float(np.sqrt(proj @ proj)))
+    held = (pi <= floor + eps) & (g > 0)
+    scale = 1.0 / np.sqrt(h)
+    b = -g * scale
+    b[held | flat] = 0.0
+    d = system.solve(hv, scale, held | flat, lam, b) * scale
+    if np.any(held):
+        d[held] = -np.maximum(pi[held] - floor, g[held] / h[held])
+    if np.any(flat):
+        d[flat] = flat_step(pt, flat, net.fare_scale)
+    lower = step_floor(pi, held, floor)
+    # the decrement counts only what the projection lets the step realize
+    realized = pi - np.maximum(pi + d, lower)
+    return Direction(d=d, held=held, decrement=float(g @ realized), curvature=h, stationarity=float(g @ proj),
+                     lower=lower)
+
+
+def step_floor(pi, held, floor):
+    """The step's lower bounds: the floor for held legs; for free legs a decrease by at most
+    a factor KAPPA in one step. Without it a free leg could be thrown from a moderate
+    bid price deep into the demand's tail (1e-4 of the fare), where its curvature is
+    huge and Newton climbs back out only a little per step; held legs (slack, near
+    the floor) still go to the floor at once."""
+    out = np.maximum(pi / KAPPA, floor)
+    out[held] = floor
+    return out
+
+
+def gradient_direction(pt, curvature, floor) -> Direction:
+    d = -pt.grad / curvature
+    held = np.zeros(len(d), bool)
+    return Direction(d=d, held=held, decrement=float(-(pt.grad @ d)), curvature=curvature,
+                     stationarity=float(-(pt.grad @ d)), lower=step_floor(pt.pi, held, floor))
+
+
+def arc_search(net, pt, d, smoothing, lower):
+    """Armijo's rule along the projection arc max(pi + t d, lower); (point, t) or None."""
+    pi, g = pt.pi, pt.grad
+    noise = 1e-14 * max(1.0, abs(pt.value))
+    t = 1.0
+    for _ in range(MAX_HALVINGS):
+        trial = np.maximum(pi + t * d, lower)
+        pred = float(g @ (pi - trial))
+        if pred <= 0.0:
+            return None
+        nt = net.evaluate(trial, smoothing)
+        drop = pt.value - nt.value
+        if drop >= SIGMA * pred or (pred <= noise and drop >= -noise):
+            if t == 1.0 and drop >= EXPAND * pred:
+                return _expand(net, pt, d, smoothing, lower, nt)
+            return nt, t
+        t *= 0.5
+    return None
+
+
+def _expand(net, pt, d, smoothing, lower, accepted):
+    """The full step decreased the dual more than its quadratic model promises (the
+    dual flattens along d, as on a leg whose bid price rises out of the demand's
+    tail): double the step while the dual keeps decreasing. Every point returned
+    satisfies Armijo's rule, so the convergence argument is unchanged."""
+    t = 1.0
+    for _ in range(MAX_DOUBLINGS):
+        trial = np.maximum(pt.pi + 2.0 * t * d, lower)
+        nt = net.evaluate(trial, smoothing)
+        if not nt.value < accepted.value:
+            break
+        accepted, t = nt, 2.0 * t
+    return accepted, t
+
+
+def step(net, system, pt, lam, eps_bar, floor, dirn=None):
+    """One safeguarded projected Newton step: (new point, direction, t, next lam) or None."""
+    dirn = dirn or direction(net, system, pt, lam, eps_bar, floor)
+    found = arc_search(net, pt, dirn.d, pt.smoothing, dirn.lower)
+    if found is not None:
+        nt, t = found
+        lam = max(lam * 0.1, LAM_MIN) if t >= 1.0 else min(max(lam, LAM_START) * 2.0 / t, LAM_MAX)
+        return nt, dirn, t, lam
+    grad_dir = gradient_direction(pt, dirn.curvature, floor)
+    found = arc_search(net, pt, grad_dir.d, pt.smoothing, grad_dir.lower)
+    if found is None:
+        return None
+    nt, t = found
+    return nt, grad_dir, t, min(lam * 10.0, LAM_MAX)

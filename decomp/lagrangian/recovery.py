@@ -1,0 +1,104 @@
+"""A feasible allocation from a dual point, and its exact expected revenue.
+
+y = x(pi) - w (A^T d): the allocation the dual's linear model predicts at the
+next iterate pi + d (d the projected step actually available, so held legs
+drop to 0). Its loads equal the capacities on the free legs to first order,
+and on slack legs they stay what the products ask for: nothing is pushed
+to fill a slack leg. y is then clipped to [0, u] and each product scaled down
+by the smallest capacity / load over its legs, which makes it feasible.
+Scaling a product for one overloaded leg also leaves room on its other legs;
+two rounds of filling give that room back, each product up to its predicted
+allocation, in proportion on every leg (so no leg is overfilled).
+
+Why this closes the gap when the dual converges: as pi_k -> pi*, x(pi_k)
+(smoothed, for non-smooth products, with the window shrinking) tends to a
+primal optimum x* with A x* <= c, the predicted step d_k -> 0, so y_k -> x*
+and the scaling factors -> 1; the expected revenue is continuous, so
+F(y_k) -> F(x*) = q(pi*) (strong duality for the concave PNLP).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def recover(net, pt, d=None, lower=0.0):
+    """(y, exact expected revenue of y) for the dual point ``pt`` and step ``d``: the
+    better of the predicted allocation and x(pi) itself, each made feasible. (The
+    prediction is first-order: where a product's curvature is extreme, as for
+    near-deterministic demand, or the step is damped, x(pi) can be the better one.)"""
+    plain = _feasible(net, pt.x.copy())
+    if d is None:
+        return plain
+    step = np.maximum(pt.pi + d, lower) - pt.pi
+    predicted = _feasible(net, pt.x - pt.w * net.to_products(net.AT_g @ step))
+    return predicted if predicted[1] >= plain[1] else plain
+
+
+def _feasible(net, y):
+    np.clip(y, 0.0, net.upper, out=y)
+    target = y.copy()
+    load = net.A_g @ net.to_groups(y)
+    over = load > net.cap
+    if np.any(over):
+        y = _cut_cheapest(net, y, load, over)
+        for _ in range(FILL_ROUNDS):
+            y = _fill(net, y, target)
+    return y, net.revenue(y)
+
+
+def _cut_cheapest(net, y, load, over):
+    """On each overloaded leg, take the excess from the products whose next seat is
+    worth least (f S'(y), the right derivative), cheapest first; a product on several
+    overloaded legs keeps the smallest of what they leave it. Vectorized over the
+    (overloaded leg, product) pairs."""
+    group = _group_of_products(net)
+    legs_of = net.Mg[group] - 1                              # per product, -1 where no leg
+    hit = np.isin(legs_of, np.flatnonzero(over)) & (legs_of >= 0)
+    prod, pos = np.nonzero(hit)
+    leg = legs_of[prod, pos]
+    value = net.fare_of(prod) * net.sub.marginal_sales(np.maximum(y, 0.0))[0][prod]
+    order = np.lexsort((value, leg))                         # by leg, then by value per seat
+    prod, leg = prod[order], leg[order]
+    amount = y[prod]
+    start = np.flatnonzero(np.r_[True, leg[1:] != leg[:-1]])
+    csum = np.cumsum(amount)
+    first = np.repeat(start, np.diff(np.r_[start, len(leg)]))
+    before = csum - amount - (csum[first] - amount[first])
+    excess = (load - net.cap)[leg] * (1.0 + 1e-12) + 1e-15 * np.maximum(net.cap[leg], 1.0)
+    cut = np.clip(excess - before, 0.0, amount)
+    keep = np.ones(len(y))
+    frac = np.divide(amount - cut, amount, out=np.zeros_like(amount), where=amount > 0)
+    np.minimum.at(keep, prod, frac)
+    return y * keep
+
+
+def _group_of_products(net):
+    if net.g_start is not None:
+        return np.repeat(np.arange(net.G), net.g_count)
+    if net.g_of_p is not None:
+        return net.g_of_p
+    return np.arange(net.n_products)
+
+
+FILL_ROUNDS = 2
+
+
+def _smallest_over_legs(net, ratio_on, legs):
+    """Per group: the smallest of a per-leg factor (1 on legs outside ``legs``) over its legs."""
+    ratio = np.ones(net.n + 1)                # index -1 (no leg in that position) stays 1
+    ratio[:-1][legs] = ratio_on
+    return ratio[net.Mg - 1].min(axis=1)
+
+
+def _fill(net, y, target):
+    """Raise y toward target where every leg of the product has room, in proportion."""
+    want = np.maximum(target - y, 0.0)
+    want_g = net.to_groups(want)
+    if not np.any(want_g > 0):
+        return y
+    room = np.maximum(net.cap - net.A_g @ net.to_groups(y), 0.0)
+    asked = net.A_g @ want_g
+    share = np.where(asked > room, room / np.where(asked > 0, asked, 1.0) * (1.0 - 1e-14), 1.0)
+    frac = _smallest_over_legs(net, share, np.ones(net.n, dtype=bool))
+    return y + want * net.to_products(frac)
