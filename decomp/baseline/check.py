@@ -27,7 +27,7 @@ from ..options import SolverOptions
 from .environment import environment, environment_changes
 from .cases import _unavailable_pairs
 from .digests import SIG_DIGITS, _unnum, allocation_digest, instance_fingerprint
-from .folder import BaselineError, load, read_case_instance
+from .folder import load, read_case_instance
 from .record import _default_solve, _timed_solve, options_dict
 from .replay import check_replayable
 from .report import ALTERNATIVE_DUALS, PASS, CaseReport, CheckReport, _fmt
