@@ -130,9 +130,14 @@ def run(args) -> int:
     out = result.to_json_dict()
     out = {"instance": instance.name, "instance_path": str(args.instance), **out,
            "versions": library_versions()}
-    write_json(args.out, out)
-    if args.allocation and result.allocation is not None:
-        write_allocation(result, args.allocation)
+    try:
+        write_json(args.out, out)
+        if args.allocation and result.allocation is not None:
+            write_allocation(result, args.allocation)
+    except OSError as exc:      # a full disk or a read-only folder: say so, no traceback (atomic: nothing half-written)
+        print(f"decomp solve: error: cannot write {exc.filename or args.out}: {exc.strerror or exc} "
+              f"[Errno {exc.errno}]", file=sys.stderr)
+        return 1
     print(summary(result, instance.name))
     wrote_alloc = bool(args.allocation) and result.allocation is not None
     print(f"  wrote {args.out}" + (f" and {args.allocation}" if wrote_alloc else ""))
