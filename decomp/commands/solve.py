@@ -122,6 +122,10 @@ def run(args) -> int:
         return 2
     warm = read_bid_prices(args.warm_start) if args.warm_start else None
     instance = _load(args.instance)
+    if warm is not None:        # values beyond [0, largest fare on the leg] (1e308, -5) cannot be optimal
+        from ..warmstart import bounded_warm_start
+
+        warm, _ = bounded_warm_start(instance, warm)
     try:
         result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
     except SolverUnavailableError as exc:

@@ -228,6 +228,7 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         "iterations": result.iterations,
         "n_products": int(inst.n_products),
         "n_legs": int(inst.n_legs),
+        "closed_legs": int(np.count_nonzero(inst.capacity == 0)),   # bid price not unique there (DEVELOPERS.md)
         "warm_start": warm_info,
         "error": None if result.ok else (result.message or result.termination.value),
         "seconds": {"load": t1 - t0, "solve": t2 - t1,
