@@ -230,14 +230,21 @@ def test_read_only_folder_is_reported_as_such(tmp_path, monkeypatch, capsys):
 
 @pytest.mark.solver
 def test_summary_that_cannot_be_written_is_returned(client, tmp_path, monkeypatch):
-    from decomp.production import summary
+    from decomp import atomic
 
-    def full(out, s):
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+    real = atomic.write_text
 
-    monkeypatch.setattr(summary, "write_summary", full)
-    s = runner.run_batch(_batch(1), _cfg(tmp_path / "o"), client=client)
-    assert s["totals"]["ok"] == 1 and "No space left" in s["summary_error"]
+    def full_for_markdown(path, text):
+        if pathlib.Path(path).name == "summary.md":
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+        return real(path, text)
+
+    monkeypatch.setattr(atomic, "write_text", full_for_markdown)
+    out = tmp_path / "o"
+    s = runner.run_batch(_batch(1), _cfg(out), client=client)
+    assert s["totals"]["ok"] == 1 and "summary.md (No space left" in s["summary_error"]
+    assert json.loads((out / "summary.json").read_text())["totals"]["ok"] == 1     # what could be written was
+    assert not (out / "summary.md").exists()
 
 
 def test_solve_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch, capsys):

@@ -141,7 +141,7 @@ def run(args) -> int:
     if s.get("summary_error"):
         from ..production.summary import to_markdown
 
-        print(f"decomp run: {s['summary_error']}; the summary follows here instead", file=sys.stderr)
+        print(f"decomp run: summary {s['summary_error']}; the summary follows here instead", file=sys.stderr)
         print(to_markdown(s))
         return 1
     print(f"summary: {cfg.out}/summary.md, {cfg.out}/summary.json")

@@ -454,10 +454,10 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
     summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
                                      workers=n_workers or workers, window=window, interrupted=reason,
                                      stopped=stopped)
-    try:
-        summary_mod.write_summary(out, summ)
-    except OSError as exc:
-        summ["summary_error"] = f"summary not written to {out}: {exc.strerror or exc} [Errno {exc.errno}]"
+    failed = summary_mod.write_summary(out, summ)
+    if failed:
+        summ["summary_error"] = f"not written to {out}: " + "; ".join(
+            f"{name} ({exc.strerror or exc} [Errno {exc.errno}])" for name, exc in failed)
         log.error(summ["summary_error"])
     if interrupted is not None:
         raise interrupted

@@ -134,7 +134,15 @@ def to_markdown(s: dict) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_summary(out, s: dict) -> None:
+def write_summary(out, s: dict) -> list:
+    """Write summary.json and summary.md (each atomically); returns the ones that could not be
+    written as ``[(name, OSError)]`` (a full disk may take one and leave room for the other)."""
     out = pathlib.Path(out)
-    atomic.write_json(out / "summary.json", s)
-    atomic.write_text(out / "summary.md", to_markdown(s))
+    failed = []
+    for name, write in (("summary.json", lambda p: atomic.write_json(p, s)),
+                        ("summary.md", lambda p: atomic.write_text(p, to_markdown(s)))):
+        try:
+            write(out / name)
+        except OSError as exc:
+            failed.append((name, exc))
+    return failed
