@@ -35,6 +35,7 @@ products in Python.
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import csv
 import errno
@@ -113,10 +114,10 @@ def _find_table(folder: pathlib.Path, stem: str) -> tuple[pathlib.Path, str]:
 
 def _csv_header(path: pathlib.Path) -> list[str]:
     try:
-        with open(path, "r", encoding="utf-8", newline="") as fh:
-            first = fh.readline()
+        with open(path, "rb") as fh:       # bytes: a text reader would decode ahead into the rows
+            first = fh.readline().decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise InstanceError(f"the header is not valid UTF-8 text ({exc.reason})", file=path) from exc
+        raise InstanceError(f"the header is not valid UTF-8 text ({exc.reason})", file=path, row=0) from exc
     except OSError as exc:
         raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not first.strip():
@@ -131,6 +132,7 @@ def _csv_header(path: pathlib.Path) -> list[str]:
 def _read_csv(path: pathlib.Path, required) -> pa.Table:
     names = _csv_header(path)
     _check_names(names, required, path)
+    _check_utf8(path, names)
     table, bad = _parse_csv(path, names, threads=True)
     if bad is not None and not bad.text.strip() and _ends_with_one_blank_line(path):
         if _parse_csv(path, names, threads=False)[1].number == table.num_rows + 2:   # it is that last line
@@ -161,15 +163,35 @@ def _last_row_empty(table: pa.Table) -> bool:
     return all(table.column(i)[-1].as_py() == "" for i in range(table.num_columns))
 
 
-def _bad_text_row(path):
-    """(data row, column index) of the first byte that is not UTF-8, or (None, None)."""
-    data = pathlib.Path(path).read_bytes()
-    try:
-        data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        line_start = data.rfind(b"\n", 0, exc.start) + 1
-        return data.count(b"\n", 0, exc.start), data.count(b",", line_start, exc.start)
-    return None, None
+def _check_utf8(path, names) -> None:
+    """InstanceError at the row (and column) of the first byte that is not UTF-8.
+
+    Checked before pyarrow parses the file: its handler of a bad row cannot decode such a row and
+    would print an ignored exception instead of naming the row.
+    """
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    lines = 0
+    tail = b""                             # the current line's bytes so far (for the column)
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 24), b""):
+            try:
+                decoder.decode(chunk)
+            except UnicodeDecodeError as exc:
+                start = max(0, min(exc.start, len(chunk)))
+                lines += chunk.count(b"\n", 0, start)
+                cut = chunk.rfind(b"\n", 0, start)
+                line = chunk[cut + 1:start] if cut >= 0 else tail + chunk[:start]
+                k = line.count(b",")
+                raise InstanceError("the text is not valid UTF-8", file=path, row=lines,
+                                    column=names[k] if lines > 0 and k < len(names) else None) from None
+            lines += chunk.count(b"\n")
+            cut = chunk.rfind(b"\n")
+            tail = chunk[cut + 1:] if cut >= 0 else tail + chunk
+        try:
+            decoder.decode(b"", final=True)
+        except UnicodeDecodeError:
+            raise InstanceError("the text is not valid UTF-8 (the file ends inside a character)", file=path,
+                                row=lines) from None
 
 
 def _parse_csv(path, names, threads):
@@ -190,11 +212,6 @@ def _parse_csv(path, names, threads):
                 column_types={n: pa.string() for n in names},
                 strings_can_be_null=False, quoted_strings_can_be_null=False))
     except pa.ArrowException as exc:
-        if "utf8" in str(exc).lower().replace("-", ""):
-            row, k = _bad_text_row(path)
-            if row is not None:
-                raise InstanceError("the text is not valid UTF-8", file=path, row=row,
-                                    column=names[k] if row > 0 and k < len(names) else None) from exc
         raise InstanceError(f"cannot parse the CSV file: {exc}", file=path) from exc
     return table, (bad_rows[0] if bad_rows else None)
 
