@@ -405,3 +405,16 @@ def test_bounded_warm_start_caps_at_the_largest_fare_on_the_leg():
     assert out == {"QAAQHX": 300.0, "QHXQAB": 0.0, "QHXQAC": 0.0, "ZZZ": 1.0} and n == 3
     arr, n = bounded_warm_start(inst, np.array([np.inf, 50.0, np.nan]))
     assert arr.tolist() == [0.0, 50.0, 0.0] and n == 2
+
+
+def test_generate_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch, capsys):
+    from decomp.cli import main
+
+    def full(path, data):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+
+    monkeypatch.setattr(pathlib.Path, "write_bytes", full)
+    rc = main(["generate", "--products", "50", "--seed", "1", "--out", str(tmp_path / "net")])
+    err = capsys.readouterr().err
+    assert rc == 1 and "No space left on device" in err and "Traceback" not in err
+    assert not (tmp_path / "net").exists() and not list(tmp_path.iterdir())     # nothing half-written
