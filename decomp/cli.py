@@ -9,6 +9,7 @@ that did not reach an optimal, certified answer).
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import logging
 import pkgutil
@@ -51,6 +52,13 @@ def main(argv=None) -> int:
     except BrokenPipeError:
         # output piped into a reader that stopped early (e.g. `head`)
         sys.stderr.close()
+        return EXIT_FAIL
+    except OSError as exc:
+        if exc.errno not in (errno.ENOSPC, errno.EROFS, errno.EACCES, errno.EDQUOT, errno.EFBIG):
+            raise
+        # a full disk or a read-only folder: the cause once, no traceback (writes are atomic)
+        print(f"decomp {args.command}: error: cannot write {exc.filename or ''}: {exc.strerror} "
+              f"[Errno {exc.errno}]", file=sys.stderr)
         return EXIT_FAIL
     except KeyboardInterrupt:
         print(f"decomp {args.command}: interrupted", file=sys.stderr)

@@ -445,7 +445,10 @@ def test_warmup_solves_each_pair_once_untimed(tmp_path):
 
 def test_environment_change_is_reported(recorded, monkeypatch):
     real = bl.environment()
-    monkeypatch.setattr(bl, "environment", lambda: {**real, "highs_library": "99.0.0"})
+    import importlib
+
+    check_module = importlib.import_module("decomp.baseline.check")   # the module, not the function
+    monkeypatch.setattr(check_module, "environment", lambda: {**real, "highs_library": "99.0.0"})
     rep = bl.check(recorded, solve_fn=_canned_solver([100, 0]))
     assert ("highs_library", real["highs_library"], "99.0.0") in rep.environment_changes
     assert not rep.regression                     # a version change alone is not a regression

@@ -122,6 +122,10 @@ def run(args) -> int:
         return 2
     warm = read_bid_prices(args.warm_start) if args.warm_start else None
     instance = _load(args.instance)
+    if warm is not None:        # values beyond [0, largest fare on the leg] (1e308, -5) cannot be optimal
+        from ..warmstart import bounded_warm_start
+
+        warm, _ = bounded_warm_start(instance, warm)
     try:
         result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
     except SolverUnavailableError as exc:
@@ -130,9 +134,14 @@ def run(args) -> int:
     out = result.to_json_dict()
     out = {"instance": instance.name, "instance_path": str(args.instance), **out,
            "versions": library_versions()}
-    write_json(args.out, out)
-    if args.allocation and result.allocation is not None:
-        write_allocation(result, args.allocation)
+    try:
+        write_json(args.out, out)
+        if args.allocation and result.allocation is not None:
+            write_allocation(result, args.allocation)
+    except OSError as exc:      # a full disk or a read-only folder: say so, no traceback (atomic: nothing half-written)
+        print(f"decomp solve: error: cannot write {exc.filename or args.out}: {exc.strerror or exc} "
+              f"[Errno {exc.errno}]", file=sys.stderr)
+        return 1
     print(summary(result, instance.name))
     wrote_alloc = bool(args.allocation) and result.allocation is not None
     print(f"  wrote {args.out}" + (f" and {args.allocation}" if wrote_alloc else ""))
