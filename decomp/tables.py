@@ -13,7 +13,9 @@ Product table (:data:`PRODUCT_COLUMNS`), one row per product:
     product, legs (leg ids in travel order, separated by spaces), fare, mean,
     std, allocation, displacement (the sum of its legs' bid prices), margin
     (fare - displacement), decision (``open`` when the margin is >= 0 under the
-    bid-price rule, :mod:`decomp.decision`, else ``closed``).
+    bid-price rule, :mod:`decomp.decision`, else ``closed``; a product using a
+    closed leg is ``closed`` whatever its margin: there is no seat to sell, and
+    a zero-capacity leg's bid price is only a lower bound of its dual prices).
 
 The same column names are used by ``decomp solve --legs / --products`` and the
 library (:func:`leg_table`, :func:`product_table`); bid-price files use
@@ -96,6 +98,7 @@ def product_table(instance, result):
     # open when the fare is at least the displacement (ties open; round-off of 1e-9 of the fare allowed)
     decision = np.where(margin >= -1e-9 * np.maximum(1.0, instance.fare), "open", "closed").astype(object)
     decision[np.isnan(margin)] = "unknown"
+    decision[instance.leg_sum(instance.capacity <= 0) > 0] = "closed"      # uses a leg without seats
     return pd.DataFrame({
         "product": instance.product_ids.astype(str), "legs": legs, "fare": instance.fare, "mean": instance.mean,
         "std": instance.std, "allocation": np.asarray(x, dtype=np.float64), "displacement": displacement,

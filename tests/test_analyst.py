@@ -156,6 +156,7 @@ def test_tables_of_the_worked_example(example, dlp):
     assert products.loc["p5", "displacement"] == pytest.approx(0.0, abs=1e-9)
     assert (products["margin"] == products["fare"] - products["displacement"]).all()
     assert products.loc["p1", "legs"] == "A1 A2"
+    assert products.loc["p4", "decision"] == "closed"                  # its leg A3 has no seat
 
 
 @pytest.mark.solver
@@ -213,3 +214,18 @@ def test_older_layouts_are_read(dlp, tmp_path):
         assert read_bid_prices(source) == dlp.bid_prices, source
     old = SolveResult.from_json(tmp_path / "old.json")
     assert old.termination.value == "optimal" and old.bid_prices == dlp.bid_prices
+
+
+def test_the_readme_from_python_example_runs():
+    import pathlib
+    import re
+
+    readme = (pathlib.Path(__file__).resolve().parents[1] / "README.md").read_text()
+    section = readme.split("## From Python", 1)[1]
+    code = re.search(r"```python\n(.*?)```", section, re.S).group(1)
+    scope = {}
+    exec(compile(code, "README.md (From Python)", "exec"), scope)
+    result, network = scope["result"], scope["network"]
+    assert result.ok and network.n_products == 3
+    decision = result.decide("NV101 NV201", fare=300)
+    assert decision.displacement == pytest.approx(result.displacement(["NV101"]) + result.displacement("NV201"))

@@ -204,3 +204,15 @@ def test_ipopt_bid_prices_are_never_negative():
         for k in (1, 3, 10):
             r = decomp.solve(ladder.load_rung(rung), model="pnlp", method="ipopt", iteration_limit=k)
             assert r.termination.value == "iteration_limit" and (r.bid_price_array >= 0).all()
+
+
+def test_ipopt_reports_progress(monkeypatch, caplog):
+    import logging
+
+    from decomp.methods import ipopt
+
+    monkeypatch.setattr(ipopt, "PROGRESS_SECONDS", 0.0)     # every iteration, instead of every 5 s
+    with caplog.at_level(logging.INFO, logger="decomp.progress"):
+        decomp.solve(ladder.load_rung("p100"), model="pnlp", method="ipopt")
+    lines = [r.getMessage() for r in caplog.records if r.name == "decomp.progress.ipopt"]
+    assert lines and all("iteration" in l and "revenue" in l and " s" in l for l in lines)

@@ -86,6 +86,9 @@ def test_case_table_is_skip_free_and_ordered():
 def test_threshold_parsing():
     assert parse_threshold("10%") == pytest.approx(0.10)
     assert parse_threshold("0.25") == pytest.approx(0.25)
+    assert parse_threshold("2x") == pytest.approx(1.0) and parse_threshold("1.1X") == pytest.approx(0.1)
+    with pytest.raises(Exception, match="ratio above 1x"):
+        parse_threshold("0.9x")
     with pytest.raises(Exception, match="threshold"):
         parse_threshold("fast")
 

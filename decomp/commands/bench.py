@@ -42,7 +42,9 @@ def register(sub):
                                   "missing or corrupt file.")
     c.add_argument("old", metavar="OLD", help="the earlier run: folder or benchmark.json")
     c.add_argument("new", metavar="NEW", help="the later run: folder or benchmark.json")
-    c.add_argument("--threshold", default="10%", help="allowed growth of time and errors (default 10%%)")
+    c.add_argument("--threshold", default="10%",
+                   help="allowed growth of time and errors: 10%%, 0.1, or a ratio new/old such as 1.1x "
+                        "(the form of baseline check --time-ratio) (default: %(default)s)")
     c.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare (default min)")
     c.add_argument("--accuracy-floor", type=float, default=1e-9,
