@@ -147,15 +147,26 @@ class PnlpArrays:
     def intermediate(self, alg_mod, iter_count, obj_value, inf_pr, inf_du, mu, d_norm,
                      regularization_size, alpha_du, alpha_pr, ls_trials):
         self.iterations = int(iter_count)
-        now = time.perf_counter()
-        started = getattr(self, "_progress_start", None)
-        if started is None:
-            self._progress_start = self._progress_last = now
-        elif now - self._progress_last >= PROGRESS_SECONDS:
-            self._progress_last = now
-            progress.info("ipopt: iteration %d, revenue %.10g, primal infeasibility %.2e, %.1f s",
-                          iter_count, -obj_value, inf_pr, now - started)
+        if not hasattr(self, "progress"):
+            self.progress = ProgressLog("ipopt")
+        self.progress(iter_count, -obj_value, inf_pr)
         return True
+
+
+class ProgressLog:
+    """Logs iteration, revenue, primal infeasibility and time on ``decomp.progress``, at most every
+    :data:`PROGRESS_SECONDS` (``decomp solve`` shows it; nothing is printed by the library)."""
+
+    def __init__(self, method: str):
+        self.method = method
+        self.start = self.last = time.perf_counter()
+
+    def __call__(self, iteration, revenue, primal_infeasibility) -> None:
+        now = time.perf_counter()
+        if now - self.last >= PROGRESS_SECONDS:
+            self.last = now
+            progress.info("%s: iteration %d, revenue %.10g, primal infeasibility %.2e, %.1f s", self.method,
+                          iteration, revenue, primal_infeasibility, now - self.start)
 
 
 def nonnegative_bid_prices(pi, fare):
