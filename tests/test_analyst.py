@@ -210,7 +210,13 @@ def test_older_layouts_are_read(dlp, tmp_path):
                                                   "bid_prices_file": "bid_prices.csv"}))
     (case / "bid_prices.csv").write_text("leg_id,bid_price\n" + "".join(
         f"{k},{v!r}\n" for k, v in dlp.bid_prices.items()))
-    for source in (tmp_path / "old.json", task, task / "result.json", case):
+    current = tmp_path / "tasks" / "k2"          # a run task as decomp run writes it today
+    current.mkdir()
+    (current / "result.json").write_text(json.dumps({"fingerprint": "f", "task": {"key": "k2"}, "record": {},
+                                                     "result": dlp.to_json_dict()}))
+    table = tmp_path / "bp.parquet"
+    decomp.tables.write_table(decomp.leg_table(decomp.Instance.from_frames(LEGS, PRODUCTS), dlp), table)
+    for source in (tmp_path / "old.json", task, task / "result.json", case, current, table):
         assert read_bid_prices(source) == dlp.bid_prices, source
     old = SolveResult.from_json(tmp_path / "old.json")
     assert old.termination.value == "optimal" and old.bid_prices == dlp.bid_prices

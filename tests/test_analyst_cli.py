@@ -106,6 +106,20 @@ def test_decide_command(solved, capsys):
     assert main(["decide", str(solved / "missing.json"), "--legs", legs[0], "--fare", "1"]) == 2
 
 
+@pytest.mark.solver
+def test_solve_warm_starts_from_a_table_or_a_task_folder(solved, inst_dir, tmp_path):
+    task = tmp_path / "tasks" / "k1"
+    task.mkdir(parents=True)
+    result = json.loads((solved / "r.json").read_text())
+    (task / "result.json").write_text(json.dumps({"fingerprint": "f", "task": {"key": "k1"}, "record": {},
+                                                  "result": result}))
+    for source in (solved / "legs.csv", task):
+        out = tmp_path / "w.json"
+        assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(source),
+                     "--out", str(out)]) == 0
+        assert json.loads(out.read_text())["bid_prices"] == pytest.approx(result["bid_prices"], rel=1e-6)
+
+
 def test_validate_and_inspect_json(inst_dir, tmp_path, capsys):
     assert main(["validate", str(inst_dir), "--json"]) == 0
     v = json.loads(capsys.readouterr().out)

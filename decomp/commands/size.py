@@ -6,8 +6,12 @@ a ``decomp run`` summary), and says whether it fits, by what margin, the
 fewest workers that fit, and what a looser tolerance (other benchmarked
 tolerances) would buy. Prints a table; writes sizing.json and sizing.png to
 --out. With --revenue-loss X (benchmark from ``decomp bench --revenue-paths N``)
-it also answers the loosest benchmarked tolerance whose revenue loss (the point
-estimate) is within X at the largest priced rung, and the time that saves per task.
+it also answers the loosest benchmarked tolerance whose revenue loss is within X
+at the largest priced rung, the upper end of its paired 95 % interval included
+(a point estimate inside X with an interval reaching past it is not enough),
+and the time that saves per task. Fits need benchmark cases at three sizes or
+more (from --fit-min-products, 1,000 by default); fewer is an error (exit 2).
+``--json`` prints sizing.json instead of the table. Exit 0 fits, 1 does not, 2 bad input.
 """
 
 from __future__ import annotations
