@@ -288,7 +288,7 @@ def read_instance(path) -> Instance:
     Raises :class:`~decomp.errors.InstanceError` naming the file, the row
     (1-based data row, header excluded), the column and the value of the first
     problem found. A leg that no product uses gives an
-    :class:`UnusedLegWarning` (``warnings.warn``) and a logged warning.
+    :class:`UnusedLegWarning` (``warnings.warn``; not logged as well, so it shows once).
     """
     folder = pathlib.Path(path)
     if not folder.exists():
