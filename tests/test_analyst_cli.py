@@ -179,6 +179,14 @@ def test_every_option_has_help_with_its_default():
         if not a.help or (needs_default and "default" not in a.help):
             missing.append(f"{name} {'/'.join(a.option_strings) or a.dest}")
     assert not missing, missing
+    # and every help page renders (a stray % in a help text breaks --help only when it is asked for)
+    def pages(parser):
+        yield parser
+        for a in parser._actions:
+            if isinstance(a, argparse._SubParsersAction):
+                for sp in a.choices.values():
+                    yield from pages(sp)
+    assert all(p.format_help() for p in pages(build_parser()))
 
 
 def test_generate_into_an_unwritable_place_is_an_error_not_a_traceback(tmp_path):
