@@ -165,7 +165,7 @@ class RevenueStore:
         self._refs = {}
 
     def reference(self, rung: str, model: str):
-        from decomp.benchsuite.measure import price_bid_prices, revenue_seed
+        from decomp.benchsuite.measure import price_bid_prices, public_revenue, revenue_seed
 
         key = (rung, model)
         if key not in self._refs:
@@ -174,7 +174,7 @@ class RevenueStore:
             if ref is not None:
                 rev = price_bid_prices(self._instances.get(rung), ref.bid_prices, self.paths, revenue_seed(rung))
             self._refs[key] = rev
-            self._summaries[f"{rung}/{model}"] = rev
+            self._summaries[f"{rung}/{model}"] = public_revenue(rev)
         return self._refs[key]
 
     def price(self, rung: str, model: str, bid_prices) -> dict:
@@ -253,7 +253,8 @@ def pytest_benchmark_update_json(config, benchmarks, output_json):
                     "note": "fixed bid prices priced by decomp.simulation.run.revenue_for_bid_prices on "
                             "seeded sample paths (seed per rung: the same paths for every case of a rung "
                             "and its reference); revenue_loss_rel = (reference mean - case mean) / "
-                            "reference mean, a point estimate"},
+                            "reference mean, a point estimate; revenue_loss_ci: its paired 95 % t interval "
+                            "over the per-path differences"},
         "load_average_at_end": _loadavg(),
         "session_seconds": time.time() - state["started"],
         "memory_note": "peak_memory_mib: growth of the resident set over the solve (a lower bound: "

@@ -390,7 +390,7 @@ def read_instance(path) -> Instance:
     Raises :class:`~decomp.errors.InstanceError` naming the file, the row
     (1-based data row, header excluded), the column and the value of the first
     problem found. A leg that no product uses gives an
-    :class:`UnusedLegWarning` (``warnings.warn``) and a logged warning.
+    :class:`UnusedLegWarning` (``warnings.warn``; not logged as well, so it shows once).
     """
     folder = pathlib.Path(path)
     if not folder.exists():
@@ -401,6 +401,26 @@ def read_instance(path) -> Instance:
     meta = _read_meta(folder)
     legs_path, legs = _read_table(folder, "legs", LEG_COLUMNS)
     prod_path, prods = _read_table(folder, "products", PRODUCT_COLUMNS)
+    meta.setdefault("name", folder.resolve().name)
+    return instance_from_tables(legs, prods, meta=meta, legs_name=legs_path, products_name=prod_path)
+
+
+def instance_from_tables(legs: pa.Table, prods: pa.Table, *, meta=None, legs_name="legs",
+                         products_name="products") -> Instance:
+    """Validate a legs and a products table (Arrow) and build the instance: the checks of the files.
+
+    :func:`read_instance` calls it on the tables it read, and
+    :meth:`decomp.Instance.from_frames` on DataFrames, so both give the same
+    :class:`~decomp.errors.InstanceError` (named by ``legs_name`` / ``products_name``
+    instead of a file, with the 1-based data row, the column and the value).
+    """
+    legs_path, prod_path = legs_name, products_name
+    for table, required, name in ((legs, LEG_COLUMNS, legs_path), (prods, PRODUCT_COLUMNS, prod_path)):
+        _check_names(table.column_names, required, name)
+        if table.num_rows == 0:
+            raise InstanceError("the table has no rows", file=name)
+    meta = dict(meta or {})
+    _check_meta_distribution(meta, "meta")
 
     leg_txt = _ids(_col(legs, "leg"), legs_path, "leg", "leg")
     leg_ids = _objects(leg_txt)
@@ -455,10 +475,8 @@ def read_instance(path) -> Instance:
         unused = np.flatnonzero(~used)
         msg = (f"{legs_path}: {len(unused)} leg(s) used by no product, e.g. row {unused[0] + 1} "
                f"'{leg_ids[unused[0]]}'")
-        log.warning(msg)
-        warnings.warn(msg, UnusedLegWarning, stacklevel=2)
+        warnings.warn(msg, UnusedLegWarning, stacklevel=3)   # once: commands print it, no log line too
 
-    meta.setdefault("name", folder.resolve().name)
     return Instance(
         leg_ids=leg_ids,
         leg_origin=np.asarray(stations["origin"].to_numpy(zero_copy_only=False), dtype=object),
@@ -485,12 +503,17 @@ def _read_meta(folder: pathlib.Path) -> dict:
         raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not isinstance(meta, dict):
         raise InstanceError("meta.json must hold a JSON object", file=path)
+    _check_meta_distribution(meta, path)
+    return meta
+
+
+def _check_meta_distribution(meta: dict, path):
+    """The instance-wide demand distribution, when given, must be a known family name."""
     if "distribution" in meta:
         d = meta["distribution"]
         if not isinstance(d, str) or d not in DISTRIBUTIONS:
             raise InstanceError(f"unknown demand distribution; known: {', '.join(DISTRIBUTIONS)}", file=path,
                                 column="distribution", value=d if isinstance(d, str) else repr(d)[:200])
-    return meta
 
 
 def _check_limit(values, limit, path, column, unit):

@@ -35,29 +35,36 @@ def register(sub):
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
     p.add_argument("--method", default="lagrangian", help="default: %(default)s")
     p.add_argument("--tol", type=float, default=1e-9, help="optimality tolerance (default: %(default)g)")
-    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve")
-    p.add_argument("--iteration-limit", type=int, default=None)
+    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve (default: none)")
+    p.add_argument("--iteration-limit", type=int, default=None, metavar="N",
+                   help="iterations per task solve (default: the method's own)")
     p.add_argument("--fallback", default="auto", metavar="METHOD",
-                   help="method for tasks the primary leaves non-optimal: auto (default), none, a method "
-                        "name, or lagrangian:DUAL (newton, lbfgsb, subgradient)")
+                   help="method for tasks the primary leaves non-optimal: auto, none, a method "
+                        "name, or lagrangian:DUAL (newton, lbfgsb, subgradient) (default: %(default)s)")
     g = p.add_argument_group("departure dates")
-    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31")
-    g.add_argument("--days", type=int, help="N dates from --start")
+    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31 "
+                                   "(default: --days from --start)")
+    g.add_argument("--days", type=int, help="N dates from --start (default: one date, --start)")
     g.add_argument("--start", help="first date for --days (default: today, UTC)")
-    g.add_argument("--variation-seed", type=int, default=0, help="seed of the per-date demand variation")
+    g.add_argument("--variation-seed", type=int, default=0,
+                   help="seed of the per-date demand variation (default: %(default)s)")
     g.add_argument("--variation-sigma", type=float, default=0.10,
                    help="per-product lognormal sigma of the daily variation (default: %(default)s)")
     g.add_argument("--seasonal", type=float, default=0.15, help="seasonal amplitude (default: %(default)s)")
     c = p.add_argument_group("cluster")
-    c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its workers)")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its "
+                                       "workers; default: an embedded cluster)")
     c.add_argument("--workers", type=int, help="worker processes of the embedded cluster (default: one per core)")
     c.add_argument("--retries", type=int, default=2, help="retries of a task that raised (default: %(default)s)")
     c.add_argument("--dashboard", type=int, metavar="PORT",
                    help="serve the Dask dashboard of the embedded cluster on 127.0.0.1:PORT (0: any free "
                         "port; default: no dashboard)")
-    p.add_argument("--warm-start-from", metavar="DIR", help="an earlier run's OUT folder to warm-start from")
-    p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--warm-start-from", metavar="DIR",
+                   help="an earlier run's OUT folder: each task starts from the bid prices of the same key "
+                        "there (default: cold starts)")
+    p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary; "
+                                    "default: none)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
     p.set_defaults(func=run)
 
 

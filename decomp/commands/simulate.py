@@ -16,6 +16,7 @@ OUT/simulation.json, OUT/simulation.md and PNG plots.
 
 from __future__ import annotations
 
+import re
 import sys
 
 
@@ -34,27 +35,32 @@ def _floats(text: str, what: str) -> list:
 def register(sub):
     p = sub.add_parser("simulate", help="booking simulation of bid-price and other controls (Dask)",
                        description=__doc__)
+    # argparse takes "-0.2,0,0.2" for an option (only "-0.2" looks like a number to it); a list of
+    # numbers starting with a negative one is a value here (no option of this command looks like one)
+    p._negative_number_matcher = re.compile(r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(,[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)*$")
     p.add_argument("instance", help="instance folder, or a ladder rung name (p1k, p10k, ...)")
     p.add_argument("--policies", default="pnlp:lagrangian:1e-9,dlp:highs,fcfs",
                    help="comma-separated policy specifications (default: %(default)s)")
     p.add_argument("--paths", type=int, default=200,
                    help="sample paths (the maximum with --target-halfwidth; default: %(default)s)")
     p.add_argument("--target-halfwidth", type=float, default=None,
-                   help="add paths until every paired 95%% half-width (vs the first policy) is at most this")
+                   help="add paths until every paired 95%% half-width (vs the first policy) is at most this "
+                        "(default: off, run --paths)")
     p.add_argument("--reoptimize-every", default="7", help="days between re-optimizations, list allowed (default: 7)")
     p.add_argument("--horizon", type=float, default=60.0, help="booking horizon in days (default: %(default)g)")
-    p.add_argument("--forecast-bias", default="0", help="optimizer sees mean x (1 + B); list allowed")
-    p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed")
+    p.add_argument("--forecast-bias", default="0",
+                   help="optimizer sees mean x (1 + B); list allowed, e.g. -0.2,0,0.2 (default: %(default)s)")
+    p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed (default: %(default)s)")
     p.add_argument("--bias-spread", type=float, default=0.0,
                    help="per-product random bias B + spread x N(0,1), seeded (default: 0, aggregate)")
     p.add_argument("--seed", type=int, default=0, help="seed of the sample paths (default: %(default)s)")
     p.add_argument("--chunk", type=int, default=50, help="paths per task (default: %(default)s)")
     c = p.add_argument_group("cluster")
-    c.add_argument("--scheduler", help="address of an existing Dask scheduler")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler (default: an embedded cluster)")
     c.add_argument("--workers", type=int, default=None,
                    help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
     p.add_argument("--out", required=True, help="output folder")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
     p.set_defaults(func=run)
 
 

@@ -104,20 +104,30 @@ def plots(summary: dict, out_dir) -> list:
     def cell(fe_i, r_i, p):
         return scen[fe_i * len(every) + r_i]["policies"][p]["revenue"]
 
+    # fares carry no currency in an instance: the unit is the fare's own (meta "currency" when given)
+    unit = str(summary["instance"].get("currency") or "fare units")
+
     def draw(name, xs, xlabel, panels, get, panel_title):
-        fig, axes = plt.subplots(1, len(panels), figsize=(5.5 * len(panels), 4.2), squeeze=False)
+        # at most two panels a row, so that the text stays readable at the saved size
+        ncols = min(2, len(panels))
+        nrows = math.ceil(len(panels) / ncols)
+        fig, grid = plt.subplots(nrows, ncols, figsize=(6.4 * ncols, 4.8 * nrows), squeeze=False)
+        axes = [list(grid.ravel())]
+        for ax in axes[0][len(panels):]:
+            ax.set_visible(False)
         for ax, panel in zip(axes[0], panels):
             for p, label in enumerate(policies):
                 cis = [get(panel, i, p) for i in range(len(xs))]
                 ax.errorbar(xs, [c["mean"] for c in cis],
                             yerr=[0 if math.isnan(c["halfwidth"]) else c["halfwidth"] for c in cis],
                             marker="o", capsize=3, label=label)
-            ax.set_xlabel(xlabel)
-            ax.set_ylabel("mean revenue per path (95% CI)")
-            ax.set_title(panel_title(panel), fontsize=10)
+            ax.set_xlabel(xlabel, fontsize=11)
+            ax.set_ylabel(f"mean revenue per path, {unit} (95% CI)", fontsize=11)
+            ax.set_title(panel_title(panel), fontsize=12)
+            ax.tick_params(labelsize=10)
             ax.grid(alpha=0.3)
-        axes[0][0].legend(fontsize=8)
-        fig.suptitle(f"{summary['instance']['name']}: {summary['paths']} paths", fontsize=10)
+        axes[0][0].legend(fontsize=9)
+        fig.suptitle(f"{summary['instance']['name']}: {summary['paths']} paths", fontsize=12)
         fig.tight_layout()
         path = out_dir / name
         with atomic.atomic_path(path) as tmp:

@@ -353,3 +353,17 @@ def revenue_for_bid_prices(instance, bid_prices, paths: int = 200, seed: int = 0
     res = simulate(instance, cfg)
     ci = mean_ci(res.revenue[0, 0])
     return ci["mean"], (ci["low"], ci["high"])
+
+
+def path_revenues_for_bid_prices(instance, bid_prices, paths: int = 200, seed: int = 0, *,
+                                 horizon: float = 60.0, curve: BookingCurve | None = None) -> np.ndarray:
+    """Revenue of each sample path under fixed bid-price control (the paths of :func:`revenue_for_bid_prices`).
+
+    Path ``k`` is the same demand for every call with the same seed, so two sets of
+    bid prices give paired revenues (for a paired interval of their difference).
+    """
+    if isinstance(bid_prices, dict):
+        bid_prices = np.array([float(bid_prices[l]) for l in instance.leg_ids.tolist()])
+    cfg = SimulationConfig(policies=(_StaticBidPrices(bid_prices),), paths=paths, horizon=horizon,
+                           reoptimize_every=(horizon,), seed=seed, curve=curve or BookingCurve(), add_fcfs=False)
+    return np.asarray(simulate(instance, cfg).revenue[0, 0], dtype=np.float64)
