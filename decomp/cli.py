@@ -9,7 +9,6 @@ that did not reach an optimal, certified answer).
 from __future__ import annotations
 
 import argparse
-import errno
 import importlib
 import logging
 import pkgutil
@@ -86,7 +85,9 @@ def main(argv=None) -> int:
         sys.stderr.close()
         return EXIT_FAIL
     except OSError as exc:
-        if exc.errno not in (errno.ENOSPC, errno.EROFS, errno.EACCES, errno.EDQUOT, errno.EFBIG):
+        from .production.outputs import is_output_error
+
+        if not is_output_error(exc):
             raise
         # a full disk or a read-only folder: the cause once, no traceback (writes are atomic)
         print(f"decomp {args.command}: error: cannot write {exc.filename or ''}: {exc.strerror} "

@@ -35,6 +35,7 @@ def register(sub):
 def run(args) -> int:
     from ..generator import generate
     from ..io import write_instance
+    from ..production.outputs import is_output_error
 
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
                                                "demand_factor", "cv", "two_stop")
@@ -45,8 +46,11 @@ def run(args) -> int:
     try:
         out = write_instance(inst, args.out, format=args.format)
     except OSError as exc:
-        # write_instance's own refusals carry a message; the system's (an unwritable place, a file
-        # where a folder should be) an errno. Either way nothing was written.
+        # A full disk or a read-only folder is the machine's trouble, not bad input: decomp.cli says
+        # so with the errno and exits 1. write_instance's own refusals carry a message, the system's
+        # (a file where a folder should be) an errno: bad input, exit 2. Either way nothing was written.
+        if is_output_error(exc):
+            raise
         why = str(exc) if exc.errno is None else f"cannot write {exc.filename or args.out}: {exc.strerror}"
         print(f"decomp generate: error: {why}", file=sys.stderr)
         return 2
