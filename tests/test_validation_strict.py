@@ -211,12 +211,12 @@ def test_unlimited_capacity_of_1e12_solves(tmp_path):
 @pytest.mark.solver
 def test_solve_warm_start_of_1e308_is_clamped(tmp_path, capsys):
     d = make(tmp_path)
-    warm = tmp_path / "warm.json"
-    warm.write_text(json.dumps({"bid_prices": {"L1": 1e308, "L2": 1e308, "L3": 1e308}}))
+    warm = tmp_path / "warm.csv"                # a bid-price table, columns leg, bid_price
+    warm.write_text("leg,bid_price\nL1,1e308\nL2,1e308\nL3,1e308\n")
     rc, out, _ = _cli(["solve", str(d), "--model", "pnlp", "--method", "lagrangian", "--warm-start", str(warm),
                        "--out", str(tmp_path / "r.json")], capsys)
     assert rc == 0, out
-    assert json.loads((tmp_path / "r.json").read_text())["status"] == "optimal"
+    assert json.loads((tmp_path / "r.json").read_text())["termination"] == "optimal"
 
 
 # ---------------------------------------------------------------------------- item 16: zero-capacity legs
