@@ -83,7 +83,7 @@ def _damage_all_ways(out, keys):
     done[key] = "zero bytes"
     p = task_dir(out, key := next(k)) / BID_FILE
     t = pq.read_table(p)
-    pq.write_table(pa.table({"leg_id": t.column("leg_id"),
+    pq.write_table(pa.table({"leg": t.column("leg"),
                              "bid_price": pa.array(np.asarray(t.column("bid_price")) * 2.0)}), p)
     done[key] = "edited (valid Parquet, every bid price doubled)"
     (task_dir(out, key := next(k)) / BID_FILE).unlink()
@@ -123,6 +123,63 @@ def test_resume_redoes_unreadable_result_json(client, clean, tmp_path):
     assert s["totals"]["skipped"] == len(b) - 1 and _answers(out, b) == ref
 
 
+# ---------------------------------------------------------------------------- the one result schema
+def test_task_result_is_the_one_schema(clean):
+    from decomp.production.outputs import file_sha256
+    from decomp.result import SCHEMA, SCHEMA_VERSION, SolveResult
+
+    src, b, ref = clean
+    d = task_dir(src, b.tasks[0].key)
+    data = json.loads((d / RESULT_FILE).read_text())
+    assert data["schema"] == SCHEMA and data["schema_version"] == SCHEMA_VERSION
+    ctx = data["context"]
+    assert ctx["task"]["key"] == b.tasks[0].key and isinstance(ctx["fingerprint"], str)
+    rec = ctx["record"]
+    assert rec["task_status"] == "ok" and "status" not in rec and rec["attempts"][0]["task_status"] == "ok"
+    assert rec["bid_prices_sha256"] == file_sha256(d / BID_FILE)
+    assert pq.read_table(d / BID_FILE).column_names == ["leg", "bid_price"]
+    back = SolveResult.from_json(d)          # the folder, its result.json, read back by the library
+    assert back.ok and back.bid_prices == ref[b.tasks[0].key]
+
+
+def _to_layout_before_the_schema(d, status="ok"):
+    """Rewrite a finished task as decomp wrote it before the one result schema: the Parquet column
+    leg_id, the record's "status", and fingerprint / task / record / result at the top level."""
+    from decomp.production.outputs import file_sha256
+
+    data = json.loads((d / RESULT_FILE).read_text())
+    ctx = data.pop("context")
+    t = pq.read_table(d / BID_FILE)
+    pq.write_table(pa.table({"leg_id": t.column("leg"), "bid_price": t.column("bid_price")}), d / BID_FILE)
+    rec = dict(ctx["record"])
+    rec.pop("task_status")
+    rec["status"] = status
+    rec["bid_prices_sha256"] = file_sha256(d / BID_FILE)
+    for k in ("schema", "schema_version", "ok"):
+        data.pop(k)
+    old = {"fingerprint": ctx["fingerprint"], "task": ctx["task"], "record": rec, "result": data}
+    (d / RESULT_FILE).write_text(json.dumps(old))
+
+
+@pytest.mark.solver
+def test_resume_reads_a_run_written_before_the_schema(client, clean, tmp_path):
+    import shutil
+
+    src, b, ref = clean
+    out = tmp_path / "run"
+    shutil.copytree(src, out)
+    for spec in b.tasks:
+        _to_layout_before_the_schema(task_dir(out, spec.key), "not_optimal" if spec is b.tasks[1] else "ok")
+    s = runner.run_batch(b, _cfg(out), client=client)
+    t = s["totals"]
+    assert t["ok"] == len(b) and t["skipped"] == len(b) - 1 and t["redone"] == 1     # old "ok" tasks trusted
+    assert "not_optimal" in {x["key"]: x for x in s["tasks"]}[b.tasks[1].key]["redone"]
+    assert _answers(out, b) == ref
+    # the task solved again is written in the schema; the others keep their old files, still readable
+    assert "context" in json.loads((task_dir(out, b.tasks[1].key) / RESULT_FILE).read_text())
+    assert pq.read_table(task_dir(out, b.tasks[0].key) / BID_FILE).column_names == ["leg_id", "bid_price"]
+
+
 # ---------------------------------------------------------------------------- item 5: content fingerprint
 @pytest.mark.solver
 def test_fare_edit_in_place_is_solved_again(client, tmp_path):
@@ -135,7 +192,7 @@ def test_fare_edit_in_place_is_solved_again(client, tmp_path):
     out = tmp_path / "out"
     b = build_batch(str(nets))
     runner.run_batch(b, _cfg(out), client=client)
-    before = json.loads((task_dir(out, "net1") / RESULT_FILE).read_text())["record"]["objective"]
+    before = json.loads((task_dir(out, "net1") / RESULT_FILE).read_text())["context"]["record"]["objective"]
     inst = read_instance(nets / "net1")
     write_instance(inst.__class__(**{**{f: getattr(inst, f) for f in inst.__dataclass_fields__},
                                      "fare": inst.fare * 2.0}), nets / "net1", format="csv")
@@ -343,9 +400,9 @@ def test_non_optimal_task_falls_back_to_ipopt_and_says_so(client, tmp_path):
     t = s["totals"]
     assert t["ok"] == 2 and t["skipped"] == 0 and t["fallback_used"] == 2 and t["redone"] == 2
     assert all(x["method"] == "ipopt" and x["fallback_used"] for x in s["tasks"])
-    rec = json.loads((task_dir(out, b.tasks[0].key) / RESULT_FILE).read_text())["record"]
+    rec = json.loads((task_dir(out, b.tasks[0].key) / RESULT_FILE).read_text())["context"]["record"]
     assert [a["method"] for a in rec["attempts"]] == ["lagrangian", "ipopt"]
-    assert rec["attempts"][0]["termination"] == "iteration_limit" and rec["attempts"][1]["status"] == "ok"
+    assert rec["attempts"][0]["termination"] == "iteration_limit" and rec["attempts"][1]["task_status"] == "ok"
     assert "| ipopt (fallback) |" in (out / "summary.md").read_text()
     # reference: Ipopt on the same instance, in this process
     inst = b.tasks[0].load()
@@ -382,12 +439,13 @@ def test_warm_start_of_1e308_is_clamped(client, clean, tmp_path):
     shutil.copytree(src, bad)
     for spec in b.tasks:
         p = task_dir(bad, spec.key) / BID_FILE
-        legs = pq.read_table(p).column("leg_id")
+        legs = pq.read_table(p).column("leg")
+        # the column name runs wrote before the one result schema: warm starts still read it
         pq.write_table(pa.table({"leg_id": legs, "bid_price": pa.array(np.full(len(legs), 1e308))}), p)
     out = tmp_path / "out"
     s = runner.run_batch(b, _cfg(out, warm_start_from=str(bad), fallback="none"), client=client)
     assert s["totals"]["ok"] == len(b)
-    rec = json.loads((task_dir(out, b.tasks[0].key) / RESULT_FILE).read_text())["record"]
+    rec = json.loads((task_dir(out, b.tasks[0].key) / RESULT_FILE).read_text())["context"]["record"]
     assert rec["warm_start"]["clamped"] == rec["n_legs"]
     for k, prices in _answers(out, b).items():
         np.testing.assert_allclose(list(prices.values()), list(ref[k].values()), rtol=1e-6, atol=1e-6)

@@ -165,11 +165,15 @@ def test_calibration_from_a_pilot_run(exact, tmp_path):
     # the fit gives 0.2 s): the fit is scaled by 2, so 183 rounds of (0.4 + 0.1) s = 91.5 s.
     summ = tmp_path / "pilot.json"
     summ.write_text(json.dumps({"totals": {"overhead_per_task_seconds": 0.1, "cluster_start_seconds": 0.0},
-                                "tasks": [{"status": "ok", "skipped": False, "n_products": 100_000,
+                                "tasks": [{"task_status": "ok", "skipped": False, "n_products": 100_000,
                                            "seconds_solve": s} for s in (0.38, 0.4, 0.42)]
-                                + [{"status": "failed", "n_products": 100_000, "seconds_solve": 9.0}]}))
+                                + [{"task_status": "failed", "n_products": 100_000, "seconds_solve": 9.0}]}))
     pairs = sizing.read_run_solves(summ)
     assert len(pairs) == 3
+    # a summary.json of a run written before the one result schema names the field "status"
+    old = tmp_path / "old.json"
+    old.write_text(summ.read_text().replace('"task_status"', '"status"'))
+    assert sizing.read_run_solves(old) == pairs
     s = sizing.size_run(sizing.load_bench(exact), model="pnlp", method="lagrangian", tol=1e-9,
                         task_products=sizing.task_sizes(365, 100_000), workers=2, window=60.0, overhead=0.1,
                         calibration=pairs)

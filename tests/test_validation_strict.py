@@ -119,7 +119,7 @@ def test_ten_megabyte_bad_value_in_a_run_is_capped(tmp_path):
     b = build_batch(str(nets))
     cfg = RunConfig(model="dlp", method="highs", options=SolverOptions(threads=1), out=str(tmp_path / "out"))
     rec = run_task(b.tasks[0], cfg, cfg.fingerprint(b.tasks[0]))
-    assert rec["status"] == "failed" and "row 2" in rec["error"] and len(rec["error"]) < 2000
+    assert rec["task_status"] == "failed" and "row 2" in rec["error"] and len(rec["error"]) < 2000
     s = summary.build_summary(b, cfg, {b.tasks[0].key: {**rec, "error": "z" * 10_000_000}}, wall_seconds=1.0)
     assert len(json.dumps(s)) < 5000 and len(summary.to_markdown(s)) < 5000
 

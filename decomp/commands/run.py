@@ -143,8 +143,9 @@ def run(args) -> int:
         print(f"decomp run: STOPPED: {s['stopped']}; {t['ok']} finished task(s) kept; rerun with the same "
               f"arguments once the folder can be written", file=sys.stderr)
     for task in s["tasks"]:
-        if task["status"] in ("failed", "not_optimal") and not (s.get("stopped") and task.get("error") == s["stopped"]):
-            print(f"  {task['key']}: {task['status']}: {task.get('error')}")
+        if task["task_status"] in ("failed", "not_optimal") and not (s.get("stopped")
+                                                                     and task.get("error") == s["stopped"]):
+            print(f"  {task['key']}: {task['task_status']}: {task.get('error')}")
     if s.get("summary_error"):
         from ..production.summary import to_markdown
 

@@ -78,9 +78,9 @@ def choose(model: str, setting, instance) -> Fallback | None:
 
 def _attempt(label, result=None, error=None, seconds=None) -> dict:
     if result is None:
-        return {"method": label, "status": "failed", "error": error, "seconds": seconds}
+        return {"method": label, "task_status": "failed", "error": error, "seconds": seconds}
     gap = result.gap
-    return {"method": label, "status": "ok" if result.ok else "not_optimal",
+    return {"method": label, "task_status": "ok" if result.ok else "not_optimal",
             "termination": result.termination.value, "solution_status": result.solution_status.value,
             "gap": None if gap is None else float(gap), "iterations": result.iterations,
             "message": None if result.ok else (result.message or result.termination.value),

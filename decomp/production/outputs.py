@@ -2,12 +2,14 @@
 
 Per task, under ``out/tasks/<key>/``::
 
-    bid_prices.parquet   leg_id, bid_price (fare units per seat, >= 0), one row per leg
-    result.json          the task record and the SolveResult (written last)
+    bid_prices.parquet   leg, bid_price (fare units per seat, >= 0), one row per leg
+                         (runs before the one result schema wrote ``leg_id``; still read)
+    result.json          the SolveResult in the one output schema (``decomp.result``), the
+                         fingerprint, task and task record under ``context`` (written last)
     error.json           the error of a failed task (removed once it succeeds)
 
 A rerun skips a task only after :func:`read_finished` has verified it: its
-``result.json`` parses, says ``ok``, carries the same fingerprint (model,
+``result.json`` parses, its record's ``task_status`` is ``ok``, carries the same fingerprint (model,
 method, options, task source and the *content* of its instance files,
 warm-start folder), and its Parquet file has the sha256 recorded in
 ``result.json``, reads, and holds one finite, non-negative bid price per leg
@@ -25,6 +27,8 @@ import pathlib
 import numpy as np
 
 from .. import atomic
+from ..result import read_bid_price_table
+from ..tables import BID_PRICE_COLUMNS
 
 RESULT_FILE, BID_FILE, ERROR_FILE = "result.json", "bid_prices.parquet", "error.json"
 
@@ -50,14 +54,15 @@ def file_sha256(path) -> str:
 
 
 def write_bid_prices(path, leg_ids, bid_prices) -> str:
-    """Bid prices as Parquet (columns leg_id, bid_price), atomically; returns the file's sha256."""
+    """Bid prices as Parquet (columns leg, bid_price), atomically; returns the file's sha256."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
     legs = [str(x) for x in leg_ids]
     values = (np.full(len(legs), np.nan) if bid_prices is None
               else np.asarray(bid_prices, dtype=np.float64))
-    table = pa.table({"leg_id": pa.array(legs, pa.string()), "bid_price": pa.array(values, pa.float64())})
+    leg_col, price_col = BID_PRICE_COLUMNS
+    table = pa.table({leg_col: pa.array(legs, pa.string()), price_col: pa.array(values, pa.float64())})
     with atomic.atomic_path(path) as tmp:
         pq.write_table(table, tmp)
         digest = file_sha256(tmp)
@@ -65,11 +70,33 @@ def write_bid_prices(path, leg_ids, bid_prices) -> str:
 
 
 def read_bid_prices(path) -> dict:
-    """Bid prices by leg id from a task's Parquet file."""
-    import pyarrow.parquet as pq
+    """Bid prices by leg id from a task's Parquet file (columns leg, bid_price; or leg_id, bid_price)."""
+    return read_bid_price_table(path)
 
-    table = pq.read_table(path, columns=["leg_id", "bid_price"])
-    return dict(zip(table.column("leg_id").to_pylist(), table.column("bid_price").to_pylist()))
+
+def task_record(data) -> dict | None:
+    """The task record of a parsed result.json: under ``context`` (the one schema), or at the top
+    level (runs written before it); None when there is none."""
+    if not isinstance(data, dict):
+        return None
+    context = data.get("context")
+    rec = context.get("record") if isinstance(context, dict) else None
+    if rec is None:
+        rec = data.get("record")
+    return rec if isinstance(rec, dict) else None
+
+
+def task_fingerprint(data: dict):
+    """The fingerprint of a parsed result.json, wherever its layout keeps it."""
+    context = data.get("context")
+    if isinstance(context, dict) and "fingerprint" in context:
+        return context["fingerprint"]
+    return data.get("fingerprint")
+
+
+def task_status(rec: dict):
+    """``ok``, ``not_optimal`` or ``failed``: a record's ``task_status`` (``status`` in earlier runs)."""
+    return rec.get("task_status", rec.get("status"))
 
 
 def _bid_file_problem(path: pathlib.Path, sha256, n_legs) -> str | None:
@@ -111,13 +138,13 @@ def read_finished(out, spec, fingerprint: str, reasons: dict | None = None) -> d
             data = json.load(fh)
     except (OSError, ValueError, RecursionError):
         return redo(f"{RESULT_FILE} cannot be read")
-    rec = data.get("record") if isinstance(data, dict) else None
-    if not isinstance(rec, dict):
+    rec = task_record(data)
+    if rec is None:
         return redo(f"{RESULT_FILE} holds no task record")
-    if data.get("fingerprint") != fingerprint:
+    if task_fingerprint(data) != fingerprint:
         return redo("solved with other arguments or from other instance content")
-    if rec.get("status") != "ok":
-        return redo(f"ended {rec.get('status')} ({rec.get('termination')}): solved again")
+    if task_status(rec) != "ok":
+        return redo(f"ended {task_status(rec)} ({rec.get('termination')}): solved again")
     n_legs = rec.get("n_legs")
     if not isinstance(n_legs, int):
         return redo(f"{RESULT_FILE} records no leg count")

@@ -4,12 +4,13 @@ Output layout under ``out``::
 
     .lock                          held by the run writing here (:mod:`.lock`)
     run.json                       the arguments of the latest invocation
-    tasks/<key>/...                bid_prices.parquet, result.json, error.json (:mod:`.outputs`)
+    tasks/<key>/...                bid_prices.parquet (leg, bid_price), result.json (the one result
+                                   schema, the task record under ``context``), error.json (:mod:`.outputs`)
     summary.json, summary.md       the end-of-run summary (see :mod:`.summary`)
 
 A rerun with the same arguments skips a task only once :func:`.outputs.read_finished`
 has verified it (same fingerprint -- model, method, options, task source and the
-content of its instance files, warm-start folder --, status ``ok``, the bid-price
+content of its instance files, warm-start folder --, task status ``ok``, the bid-price
 file matching the checksum in ``result.json``, one finite bid price >= 0 per leg);
 every other task is solved again from the same inputs, so the results are identical
 (the solves are deterministic). A task that ended non-optimal is solved again too.
@@ -60,7 +61,8 @@ from .outputs import (BID_FILE, ERROR_FILE, RESULT_FILE, is_output_error, read_b
 
 log = logging.getLogger(__name__)
 
-#: Task statuses that count as finished (a not_optimal task is solved again on a rerun).
+#: Task statuses (``task_status`` of a record) that count as finished (a not_optimal task is
+#: solved again on a rerun).
 FINISHED = ("ok",)
 
 
@@ -200,7 +202,7 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
     try:
         inst = spec.load()
     except DecompError as exc:      # bad input: a retry cannot help
-        return {**base, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+        return {**base, "task_status": "failed", "error": f"{type(exc).__name__}: {exc}",
                 "seconds": {"total": time.perf_counter() - t0}}
     t1 = time.perf_counter()
     try:
@@ -211,12 +213,12 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         result, published_by, attempts = fallback_mod.solve_with_fallback(
             inst, cfg.model, cfg.method, cfg.options, warm, fallback_mod.parse(cfg.fallback), solve)
     except DecompError as exc:
-        return {**base, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+        return {**base, "task_status": "failed", "error": f"{type(exc).__name__}: {exc}",
                 "seconds": {"load": t1 - t0, "total": time.perf_counter() - t0}}
     t2 = time.perf_counter()
     record = {
         **base,
-        "status": "ok" if result.ok else "not_optimal",
+        "task_status": "ok" if result.ok else "not_optimal",
         "method": published_by,
         "fallback_used": published_by != attempts[0]["method"],
         "attempts": attempts,
@@ -228,7 +230,7 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         "iterations": result.iterations,
         "n_products": int(inst.n_products),
         "n_legs": int(inst.n_legs),
-        "closed_legs": int(np.count_nonzero(inst.capacity == 0)),   # bid price not unique there (DEVELOPERS.md)
+        "closed_legs": int(np.count_nonzero(inst.capacity == 0)),   # bid price not unique there (README, Closed legs)
         "warm_start": warm_info,
         "error": None if result.ok else (result.message or result.termination.value),
         "seconds": {"load": t1 - t0, "solve": t2 - t1,
@@ -240,7 +242,7 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
     except OSError as exc:
         if not is_output_error(exc):
             raise                   # anything else: Dask retries the task
-        return {**base, "status": "failed", "output_error": True,
+        return {**base, "task_status": "failed", "output_error": True,
                 "error": f"cannot write the task's output in {cfg.out}: {exc.strerror or exc} "
                          f"[Errno {exc.errno}]",
                 "seconds": {"load": t1 - t0, "solve": t2 - t1, "total": time.perf_counter() - t0}}
@@ -248,11 +250,14 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
 
 
 def _write_task(out, spec, fingerprint, record, result, t0, t2) -> None:
-    """bid_prices.parquet, then result.json (last: its presence and checksum mark the task finished)."""
+    """bid_prices.parquet, then result.json (last: its presence and checksum mark the task finished).
+
+    result.json is the result in the one output schema; the fingerprint, the task and its record
+    (with the checksum of bid_prices.parquet) go under ``context``."""
     d = task_dir(out, spec.key)
     record["bid_prices_sha256"] = write_bid_prices(d / BID_FILE, result.leg_ids, result.bid_price_array)
-    payload = {"fingerprint": fingerprint, "task": spec.to_dict(), "record": record,
-               "result": result.to_json_dict(include_history=True)}
+    payload = result.to_json_dict(include_history=True, context={
+        "fingerprint": fingerprint, "task": spec.to_dict(), "record": record})
     record["seconds"]["write"] = time.perf_counter() - t2
     record["seconds"]["total"] = time.perf_counter() - t0
     atomic.write_json(d / RESULT_FILE, json.loads(json.dumps(payload, default=str)))
@@ -302,7 +307,7 @@ def _remove_stale_temporaries(d: pathlib.Path) -> None:
 def _failure_record(spec, fingerprint, exc, tb) -> dict:
     text = "".join(traceback.format_exception_only(type(exc), exc)).strip()
     tail = "".join(traceback.format_tb(tb)[-3:]) if tb is not None else ""
-    return {"key": spec.key, "status": "failed", "fingerprint": fingerprint, "error": text,
+    return {"key": spec.key, "task_status": "failed", "fingerprint": fingerprint, "error": text,
             "traceback": tail, "seconds": {}}
 
 
@@ -485,7 +490,7 @@ def _collect(futures, by_key, fps, records, progress, out, on_event):
             fut.release()
             rec["skipped"] = False
             records[spec.key] = rec
-            if rec["status"] == "failed":
+            if rec["task_status"] == "failed":
                 progress.failed += 1
                 if rec.get("output_error"):
                     # the folder is full or read-only: every other task would fail the same way, so stop
@@ -501,7 +506,7 @@ def _collect(futures, by_key, fps, records, progress, out, on_event):
             else:
                 progress.done += 1
             if on_event is not None:
-                on_event("failed" if rec["status"] == "failed" else "done", rec, progress)
+                on_event("failed" if rec["task_status"] == "failed" else "done", rec, progress)
     finally:
         for fut in pending.values():
             fut.cancel()

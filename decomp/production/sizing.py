@@ -295,7 +295,7 @@ def read_run_solves(path) -> list:
     except (OSError, ValueError, KeyError, TypeError) as exc:
         raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="tasks") from exc
     out = [(float(t["n_products"]), float(t["seconds_solve"])) for t in tasks
-           if t.get("status") == "ok" and not t.get("skipped")
+           if t.get("task_status", t.get("status")) == "ok" and not t.get("skipped")   # "status": earlier runs
            and isinstance(t.get("n_products"), (int, float)) and isinstance(t.get("seconds_solve"), (int, float))]
     if not out:
         raise InstanceError("the summary has no task that ran to ok in it", file=path, column="tasks")

@@ -12,6 +12,7 @@ import pathlib
 
 from .. import atomic
 from .durations import format_duration
+from .outputs import task_status
 
 
 def _f(v):
@@ -39,11 +40,11 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
     for spec in batch.tasks:
         rec = records.get(spec.key)
         if rec is None:
-            tasks.append({"key": spec.key, "status": "not_run", "skipped": False})
+            tasks.append({"key": spec.key, "task_status": "not_run", "skipped": False})
             continue
         sec = rec.get("seconds") or {}
         tasks.append({
-            "key": spec.key, "status": rec.get("status"), "skipped": bool(rec.get("skipped")),
+            "key": spec.key, "task_status": task_status(rec), "skipped": bool(rec.get("skipped")),
             "termination": rec.get("termination"), "gap": rec.get("gap"),
             "iterations": rec.get("iterations"), "objective": rec.get("objective"),
             "n_products": rec.get("n_products"),
@@ -53,8 +54,8 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
             "method": rec.get("method"), "fallback_used": bool(rec.get("fallback_used")),
             "redone": rec.get("redone"),
         })
-    count = lambda st: sum(1 for t in tasks if t["status"] == st)  # noqa: E731
-    ran = [t for t in tasks if not t["skipped"] and t["status"] in ("ok", "not_optimal", "failed")]
+    count = lambda st: sum(1 for t in tasks if t["task_status"] == st)  # noqa: E731
+    ran = [t for t in tasks if not t["skipped"] and t["task_status"] in ("ok", "not_optimal", "failed")]
     solve_sum = sum(t["seconds_solve"] or 0.0 for t in ran)
     task_sum = sum(t["seconds_total"] or 0.0 for t in ran)
     totals = {
@@ -125,8 +126,9 @@ def to_markdown(s: dict) -> str:
               "|---|---|---|---|---|---|---|---|---|---|"]
     for r in s["tasks"]:
         lines.append("| " + " | ".join([
-            _cell(r["key"]), _cell(r["status"]),
-            _cell(r.get("method")) + (" (fallback)" if r.get("fallback_used") and r.get("status") == "ok" else ""),
+            _cell(r["key"]), _cell(r["task_status"]),
+            _cell(r.get("method")) + (" (fallback)" if r.get("fallback_used") and r.get("task_status") == "ok"
+                                      else ""),
             "yes" if r.get("skipped") else "",
             _cell(r.get("gap"), "{:.1e}"), _cell(r.get("iterations")),
             _cell(r.get("seconds_solve"), "{:.3f}"), _cell(r.get("seconds_total"), "{:.3f}"),
