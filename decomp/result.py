@@ -319,7 +319,11 @@ def normalize(data: dict, where=None) -> dict:
         if where is None:
             raise InstanceError("a baseline case result needs its file path (its bid prices are in "
                                 f"{data['bid_prices_file']})", column="bid_prices_file")
-        table = where.parent / str(data["bid_prices_file"])
+        name = data["bid_prices_file"]
+        if not isinstance(name, str) or not name or "/" in name or "\\" in name or name in (".", ".."):
+            raise InstanceError("bid_prices_file must name a file beside result.json (a plain file name)",
+                                file=where, column="bid_prices_file", value=str(name)[:200])
+        table = where.parent / name
         out["bid_prices"] = read_bid_price_table(table)
         context = {k: data[k] for k in ("case", "instance", "instance_fingerprint", "wall_seconds") if k in data}
     for k in ("instance", "instance_path", "versions"):

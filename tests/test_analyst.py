@@ -210,14 +210,24 @@ def test_older_layouts_are_read(dlp, tmp_path):
                                                   "bid_prices_file": "bid_prices.csv"}))
     (case / "bid_prices.csv").write_text("leg_id,bid_price\n" + "".join(
         f"{k},{v!r}\n" for k, v in dlp.bid_prices.items()))
-    current = tmp_path / "tasks" / "k2"          # a run task as decomp run writes it today
+    current = tmp_path / "tasks" / "k2"          # a run task as decomp run wrote it just before the schema
     current.mkdir()
     (current / "result.json").write_text(json.dumps({"fingerprint": "f", "task": {"key": "k2"}, "record": {},
                                                      "result": dlp.to_json_dict()}))
+    schema_task = tmp_path / "tasks" / "k3"      # a run task as decomp run writes it now: the schema, context
+    schema_task.mkdir()
+    (schema_task / "result.json").write_text(json.dumps(dlp.to_json_dict(context={
+        "fingerprint": "f", "task": {"key": "k3"}, "record": {"task_status": "ok"}})))
     table = tmp_path / "bp.parquet"
     decomp.tables.write_table(decomp.leg_table(decomp.Instance.from_frames(LEGS, PRODUCTS), dlp), table)
-    for source in (tmp_path / "old.json", task, task / "result.json", case, current, table):
+    for source in (tmp_path / "old.json", task, task / "result.json", case, current, schema_task, table):
         assert read_bid_prices(source) == dlp.bid_prices, source
+    # an old baseline case is data: its bid_prices_file names a file beside it, never a path elsewhere
+    (case / "result.json").write_text(json.dumps({"case": "c1", "model": "dlp", "method": "highs",
+                                                  "termination": "optimal", "solution_status": "optimal",
+                                                  "bid_prices_file": "../../bp.parquet"}))
+    with pytest.raises(InstanceError, match="bid_prices_file"):
+        read_bid_prices(case)
     old = SolveResult.from_json(tmp_path / "old.json")
     assert old.termination.value == "optimal" and old.bid_prices == dlp.bid_prices
 

@@ -18,6 +18,7 @@ import pytest
 
 from decomp import baseline as bl
 from decomp.instance import Instance
+from decomp.options import SolverOptions
 from decomp.result import SolutionStatus, Termination
 
 
@@ -168,7 +169,15 @@ def test_record_writes_plain_files_and_manifest(tmp_path):
     for f in manifest["files"]:   # sha256 from hashlib (reference)
         assert hashlib.sha256((out / f["path"]).read_bytes()).hexdigest() == f["sha256"]
     assert (out / "cases/series-dlp-highs/bid_prices.csv").read_text() == \
-        "leg_id,bid_price\nQAAQHX,100.0\nQHXQAB,0.0\n"
+        "leg,bid_price\nQAAQHX,100.0\nQHXQAB,0.0\n"
+    # the case's result.json is the one result schema, the case's own facts under context
+    from decomp.result import SCHEMA, SolveResult, read_bid_prices
+
+    data = json.loads((out / "cases/series-dlp-highs/result.json").read_text())
+    assert data["schema"] == SCHEMA and data["schema_version"] == 1 and data["context"]["case"] == "series-dlp-highs"
+    assert data["context"]["solver_options"]["tol"] == SolverOptions().tol and "history" not in data
+    assert SolveResult.from_json(out / "cases/series-dlp-highs").bid_prices == {"QAAQHX": 100.0, "QHXQAB": 0.0}
+    assert read_bid_prices(out / "cases/series-dlp-highs/bid_prices.csv") == {"QAAQHX": 100.0, "QHXQAB": 0.0}
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]   # no temporary left
 
 

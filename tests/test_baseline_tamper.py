@@ -62,6 +62,12 @@ def _rehash(folder: pathlib.Path, files: bool = True) -> None:
     mpath.write_text(json.dumps(m))
 
 
+def _holder(rec, field):
+    """The dict of a case's result.json that holds ``field``: the case's own facts (paths, wall time,
+    replayed options) sit under ``context``, the result's fields at the top (the one result schema)."""
+    return rec["context"] if field in rec["context"] else rec
+
+
 def _edit_result(folder, change):
     p = folder / CASE / "result.json"
     rec = json.loads(p.read_text())
@@ -88,7 +94,7 @@ def test_recorded_ipopt_option_naming_a_file_is_refused(tmp_path, option):
     victim.write_text("precious\n")
     p = out / "cases/series-pnlp-ipopt/result.json"
     rec = json.loads(p.read_text())
-    rec["options"]["solver_options"] = {option: str(victim)}
+    rec["context"]["solver_options"]["solver_options"] = {option: str(victim)}
     p.write_text(json.dumps(rec))
     _rehash(out)
     before = _tree(tmp_path)
@@ -105,14 +111,14 @@ def test_recorded_highs_log_file_is_refused(tmp_path):
     bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")])
     p = out / "cases/series-dlp-highs/result.json"
     rec = json.loads(p.read_text())
-    rec["options"]["solver_options"] = {"log_file": str(tmp_path / "new.log")}
+    rec["context"]["solver_options"]["solver_options"] = {"log_file": str(tmp_path / "new.log")}
     p.write_text(json.dumps(rec))
     _rehash(out)
     with pytest.raises(bl.BaselineError, match="log_file"):
         bl.check(out)
     assert not (tmp_path / "new.log").exists()
     # an allowed option with a path-like value is refused as well (values are numbers or keywords)
-    rec["options"]["solver_options"] = {"solver": "../../x"}
+    rec["context"]["solver_options"]["solver_options"] = {"solver": "../../x"}
     p.write_text(json.dumps(rec))
     _rehash(out)
     with pytest.raises(bl.BaselineError, match="short keywords"):
@@ -135,7 +141,7 @@ def test_override_and_record_apply_the_same_allow_list(base, tmp_path):
     ("instance_dir", "cases"), ("bid_prices_file", "../../../bid_prices.csv"),
     ("bid_prices_file", "/tmp/bid_prices.csv"), ("bid_prices_file", None)])
 def test_recorded_paths_stay_inside_the_folder(base, field, value):
-    _edit_result(base, lambda rec: rec.__setitem__(field, value))
+    _edit_result(base, lambda rec: _holder(rec, field).__setitem__(field, value))
     with pytest.raises(bl.BaselineError, match=field):
         bl.load(base)
 
@@ -168,6 +174,50 @@ def test_unlisted_file_in_instance_folder_is_refused(base):
         bl.load(base)
 
 
+# ---------------------------------------------------------------------------- format versions
+def _as_format_1(folder):
+    """Rewrite a baseline as format 1 wrote it: a flat result.json, the header leg_id,bid_price."""
+    rp = folder / CASE / "result.json"
+    flat = bl.case_view(json.loads(rp.read_text()))
+    for k in ("schema", "schema_version", "ok"):
+        flat.pop(k)
+    rp.write_text(json.dumps(flat))
+    bp = folder / CASE / "bid_prices.csv"
+    bp.write_text(bp.read_text().replace("leg,bid_price", "leg_id,bid_price", 1))
+    m = json.loads((folder / "manifest.json").read_text())
+    m["format_version"] = 1
+    (folder / "manifest.json").write_text(json.dumps(m))
+    _rehash(folder)
+
+
+def test_format_1_baseline_is_still_checked(base):
+    assert json.loads((base / "manifest.json").read_text())["format_version"] == bl.FORMAT_VERSION == 2
+    _as_format_1(base)
+    loaded = bl.load(base)
+    assert loaded.cases[0]["options"]["tol"] == SolverOptions().tol
+    assert bl.check(base, solve_fn=_canned_solver([100, 0])).cases[0].verdict == bl.PASS
+    # and its hostile paths are refused the same way
+    _edit_result(base, lambda rec: rec.__setitem__("bid_prices_file", "../../../bid_prices.csv"))
+    with pytest.raises(bl.BaselineError, match="bid_prices_file"):
+        bl.load(base)
+
+
+def test_format_2_case_without_context_or_schema_is_refused(base):
+    _edit_result(base, lambda rec: rec.pop("context"))
+    with pytest.raises(bl.BaselineError, match="context"):
+        bl.load(base)
+    _edit_result(base, lambda rec: rec.__setitem__("schema_version", 99))
+    with pytest.raises(bl.BaselineError, match="schema"):
+        bl.load(base)
+
+
+def test_schema_options_are_not_replayed(base, tmp_path):
+    # the schema's own "options" (what the method reported) are data: only context.solver_options replay
+    _edit_result(base, lambda rec: rec.__setitem__("options", {"solver_options": {"log_file": str(tmp_path / "x")}}))
+    assert bl.check(base, solve_fn=_canned_solver([100, 0])).cases[0].verdict == bl.PASS
+    assert not (tmp_path / "x").exists()
+
+
 # ---------------------------------------------------------------------------- item 2: values that must not pass
 @pytest.mark.parametrize("value", ["nan", "inf", "-inf"])
 def test_non_finite_recorded_bid_price_is_refused(base, value):
@@ -181,7 +231,7 @@ def test_non_finite_recorded_bid_price_is_refused(base, value):
 
 @pytest.mark.parametrize("field", ["objective", "wall_seconds"])
 def test_non_finite_recorded_number_is_refused(base, field):
-    _edit_result(base, lambda rec: rec.__setitem__(field, "nan"))
+    _edit_result(base, lambda rec: _holder(rec, field).__setitem__(field, "nan"))
     with pytest.raises(bl.BaselineError, match="NaN or infinite"):
         bl.load(base)
 
@@ -300,27 +350,27 @@ def test_random_tampering_is_refused_or_regresses_and_writes_nothing_outside(dat
                 m["files"][data.draw(st.integers(0, len(m["files"]) - 1))]["path"] = value
                 (out / "manifest.json").write_text(json.dumps(m))
             else:
-                rec[field] = value
+                _holder(rec, field)[field] = value
         elif kind == "option":
             key = data.draw(st.sampled_from(_OPTION_KEYS))
             value = data.draw(st.sampled_from(_OPTION_VALUES))
-            rec["options"]["solver_options"] = {key: value}
+            rec["context"]["solver_options"]["solver_options"] = {key: value}
             plain = (isinstance(value, (int, float)) and value != float("inf")) or value == "yes"
             must_refuse = key in ("output_file", "log_file", "option_file_name", "solution_file",
                                   "write_model_file") or not plain
         elif kind == "number":
             field = data.draw(st.sampled_from(["objective", "wall_seconds"]))
-            rec[field] = data.draw(st.sampled_from(["nan", "inf", "-inf", "text", None, [], -1.0]))
-            must_refuse = rec[field] != -1.0       # -1 is a number: an objective regresses, a time is refused
+            _holder(rec, field)[field] = data.draw(st.sampled_from(["nan", "inf", "-inf", "text", None, [], -1.0]))
+            must_refuse = _holder(rec, field)[field] != -1.0       # -1 is a number: an objective regresses, a time is refused
         elif kind == "bid_price":
             value = data.draw(st.sampled_from(["nan", "inf", "-1e308", "-5.0", "1e308", "99.0", "abc", ""]))
             bp = out / CASE / "bid_prices.csv"
             bp.write_text(bp.read_text().replace("100.0", value))
             must_refuse = value in ("nan", "inf", "abc", "", "-1e308", "-5.0")   # bid prices are >= 0
         else:
-            key = data.draw(st.sampled_from(["case", "model", "options", "instance_dir", "termination",
+            key = data.draw(st.sampled_from(["case", "model", "solver_options", "instance_dir", "termination",
                                              "instance_fingerprint", "wall_seconds"]))
-            rec.pop(key)
+            _holder(rec, key).pop(key)
         if kind != "bid_price":
             rp.write_text(json.dumps(rec))
         _rehash(out)

@@ -21,9 +21,13 @@ Baseline folder (plain files a person can diff)::
     summary.csv              one row per case: status, objective, iterations, seconds
     instances/<name>/...     the instances, as decomp.io writes them (the check re-reads these,
                              so a changed generator or random stream cannot move the inputs)
-    cases/<case>/result.json objective, status, certificate, iterations, times, options,
-                             allocation digest
-    cases/<case>/bid_prices.csv   leg_id,bid_price (full float precision)
+    cases/<case>/result.json the result in the one output schema (decomp.result: status, objective,
+                             certificate, iterations, times, bid prices); under ``context`` the case,
+                             instance, fingerprint, wall time, allocation digest, replayed options
+    cases/<case>/bid_prices.csv   leg,bid_price (full float precision; what the check compares)
+
+Format version 2 (above); version 1 baselines (a flat result.json, ``leg_id,bid_price``) are
+still read.
 
 The whole folder is written into a temporary sibling and renamed into place,
 so an interrupted record leaves no half-written baseline; every file is
@@ -41,8 +45,8 @@ from .cases import SUITES, Case, InstanceSpec, micro_instance, suite_cases
 from .check import LP_MODELS, Thresholds, check, lp_dual_objective
 from .digests import SIG_DIGITS, ZERO_SEATS, allocation_digest, instance_fingerprint, round_significant
 from .environment import SOLVER_KEYS, environment, environment_changes, library_versions
-from .folder import (ENVIRONMENT, FORMAT, FORMAT_VERSION, MANIFEST, SUMMARY, Baseline, BaselineError, load,
-                     read_bid_prices_csv)
+from .folder import (ENVIRONMENT, FORMAT, FORMAT_VERSION, MANIFEST, SUMMARY, Baseline, BaselineError, case_view,
+                     load, read_bid_prices_csv)
 from .record import RecordSummary, options_dict, record
 from .replay import REPLAYABLE, check_replayable
 from .report import ALTERNATIVE_DUALS, PASS, REGRESSION, CaseReport, CheckReport, write_report
@@ -50,6 +54,7 @@ from .report import ALTERNATIVE_DUALS, PASS, REGRESSION, CaseReport, CheckReport
 __all__ = ["SUITES", "Case", "InstanceSpec", "micro_instance", "suite_cases", "LP_MODELS", "Thresholds", "check",
            "lp_dual_objective", "SIG_DIGITS", "ZERO_SEATS", "allocation_digest", "instance_fingerprint",
            "round_significant", "SOLVER_KEYS", "environment", "environment_changes", "library_versions",
-           "ENVIRONMENT", "FORMAT", "FORMAT_VERSION", "MANIFEST", "SUMMARY", "Baseline", "BaselineError", "load",
+           "ENVIRONMENT", "FORMAT", "FORMAT_VERSION", "MANIFEST", "SUMMARY", "Baseline", "BaselineError", "case_view",
+           "load",
            "read_bid_prices_csv", "RecordSummary", "options_dict", "record", "REPLAYABLE", "check_replayable",
            "ALTERNATIVE_DUALS", "PASS", "REGRESSION", "CaseReport", "CheckReport", "write_report"]

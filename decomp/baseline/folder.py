@@ -26,10 +26,16 @@ import numpy as np
 from .. import atomic
 from ..errors import InstanceError
 from ..instance import Instance
+from ..result import SCHEMA, SCHEMA_VERSION
+from ..tables import BID_PRICE_COLUMNS
 from .digests import _sha256_bytes, _sha256_file
 
 FORMAT = "decomp-baseline"
-FORMAT_VERSION = 1
+#: 2: each case's result.json is the one result schema (``decomp.result``), the case's own facts under
+#: ``context``; bid_prices.csv has the header ``leg,bid_price``. 1: the flat case record before it,
+#: header ``leg_id,bid_price``. Both are read.
+FORMAT_VERSION = 2
+READABLE_VERSIONS = (1, 2)
 MANIFEST = "manifest.json"
 ENVIRONMENT = "environment.json"
 SUMMARY = "summary.csv"
@@ -55,7 +61,7 @@ class BaselineError(InstanceError):
 def _bid_prices_csv(leg_ids, pi) -> str:
     buf = _io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(["leg_id", "bid_price"])
+    w.writerow(list(BID_PRICE_COLUMNS))
     if pi is not None:
         for lid, v in zip(leg_ids, np.asarray(pi, dtype=np.float64).tolist()):
             w.writerow([lid, repr(float(v))])
@@ -78,8 +84,8 @@ def read_bid_prices_csv(path, *, finite: bool = False) -> tuple:
         rows = list(csv.reader(_io.StringIO(text)))
     except csv.Error as exc:
         raise BaselineError(f"not a readable CSV file ({exc})", file=path) from exc
-    if not rows or rows[0] != ["leg_id", "bid_price"]:
-        raise BaselineError("expected the header 'leg_id,bid_price'", file=path, row=0)
+    if not rows or rows[0] not in (list(BID_PRICE_COLUMNS), ["leg_id", "bid_price"]):   # leg_id: version 1
+        raise BaselineError("expected the header 'leg,bid_price'", file=path, row=0)
     legs, vals = [], []
     for k, row in enumerate(rows[1:], start=1):
         if len(row) != 2:
@@ -167,7 +173,8 @@ class Baseline:
     path: pathlib.Path
     manifest: Mapping
     environment: Mapping
-    cases: tuple      # result.json dicts, in recorded order, each with 'bid_prices' (legs, array)
+    cases: tuple      # case records (:func:`case_view` of each result.json), in recorded order, each with
+                      # 'bid_prices' (legs, array) read from its bid_prices.csv
 
 
 def load(path) -> Baseline:
@@ -192,10 +199,11 @@ def load(path) -> Baseline:
     manifest = _read_json(mpath)
     if not isinstance(manifest, dict) or manifest.get("format") != FORMAT:
         raise BaselineError(f"not a {FORMAT} manifest", file=mpath, column="format")
-    if manifest.get("format_version") != FORMAT_VERSION:
-        raise BaselineError(f"format_version {_short(manifest.get('format_version'))!r} is not supported "
-                            f"(this decomp reads {FORMAT_VERSION}); re-record the baseline", file=mpath,
-                            column="format_version")
+    version = manifest.get("format_version")
+    if isinstance(version, bool) or version not in READABLE_VERSIONS:
+        raise BaselineError(f"format_version {_short(version)!r} is not supported "
+                            f"(this decomp reads {', '.join(map(str, READABLE_VERSIONS))}); re-record the baseline",
+                            file=mpath, column="format_version")
     if manifest.get("manifest_sha256") != _manifest_self_hash(manifest):
         raise BaselineError("manifest.json was edited after recording (its manifest_sha256 does not match "
                             "its content); re-record the baseline", file=mpath, column="manifest_sha256")
@@ -213,7 +221,7 @@ def load(path) -> Baseline:
     if not case_ids:
         raise BaselineError("the baseline records no case: there is nothing to check against", file=mpath,
                             column="cases")
-    cases = [_load_case(path, listed, cid) for cid in case_ids]
+    cases = [_load_case(path, listed, cid, version) for cid in case_ids]
     return Baseline(path, manifest, env, tuple(cases))
 
 
@@ -269,7 +277,27 @@ def _number(rec, key, rpath, *, finite: bool, nullable: bool = True):
     return x
 
 
-def _load_case(path: pathlib.Path, listed: Mapping, cid: str) -> dict:
+def case_view(data: Mapping) -> dict:
+    """A case's result.json (format 2: the one result schema) as the flat record the check reads.
+
+    The schema's fields stay (model, method, termination, objective, certificate, ...); the case's
+    own facts come up from ``context`` (case, instance, instance_fingerprint, instance_dir,
+    wall_seconds, bid_prices_file); ``options`` are the recorded case's ``solver_options`` (what a
+    check replays; the schema's ``options`` are what the method reports, and may hold keys
+    :class:`~decomp.options.SolverOptions` refuses) and ``allocation`` its ``allocation_digest``.
+    """
+    ctx = data.get("context")
+    ctx = ctx if isinstance(ctx, Mapping) else {}
+    view = {k: v for k, v in data.items() if k not in ("context", "options", "bid_prices", "history")}
+    view.update(ctx)
+    view.pop("solver_options", None)
+    view.pop("allocation_digest", None)
+    view["options"] = ctx.get("solver_options")
+    view["allocation"] = ctx.get("allocation_digest")
+    return view
+
+
+def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FORMAT_VERSION) -> dict:
     from .replay import check_recorded_options
 
     rel = f"cases/{cid}/result.json"
@@ -279,6 +307,14 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str) -> dict:
     rec = _read_json(rpath)
     if not isinstance(rec, dict):
         raise BaselineError("result.json must hold a JSON object", file=rpath)
+    if version >= 2:
+        if rec.get("schema") != SCHEMA or rec.get("schema_version") != SCHEMA_VERSION:
+            raise BaselineError(f"result.json is not in the result schema {SCHEMA!r} version {SCHEMA_VERSION}",
+                                file=rpath, column="schema_version", value=_short(rec.get("schema_version")))
+        if not isinstance(rec.get("context"), dict):
+            raise BaselineError("result.json has no 'context' object (the case's own facts)", file=rpath,
+                                column="context")
+        rec = case_view(rec)
     if rec.get("case") != cid:
         raise BaselineError(f"result.json is for case {_short(rec.get('case'))!r}, not {cid!r}", file=rpath,
                             column="case")

@@ -19,9 +19,9 @@ from ..errors import ConfigError, SolverUnavailableError
 from ..instance import Instance
 from ..options import SolverOptions
 from .cases import Case, _safe_name, _unavailable_pairs, suite_cases
-from .digests import _num, allocation_digest, instance_fingerprint
+from .digests import allocation_digest, instance_fingerprint
 from .environment import environment
-from .folder import ENVIRONMENT, SUMMARY, _bid_prices_csv, _write_manifest
+from .folder import BID_PRICES, ENVIRONMENT, SUMMARY, _bid_prices_csv, _write_manifest, case_view
 from .replay import check_replayable
 
 log = logging.getLogger(__name__)
@@ -53,33 +53,20 @@ def options_dict(options: SolverOptions) -> dict:
     return options.to_dict()
 
 
-def _result_record(case: Case, result, wall: float, fingerprint: str, options: SolverOptions) -> dict:
-    cert = result.certificate
-    return {
+def _result_record(case: Case, result, wall: float, fingerprint: str, options: SolverOptions,
+                   instance_dir: str) -> dict:
+    """A case's result.json: the result in the one output schema, the case's own facts under ``context``
+    (``solver_options``: the options a check replays; see :func:`.folder.case_view`)."""
+    return result.to_json_dict(include_history=False, context={
         "case": case.id,
         "instance": case.instance_name,
         "instance_fingerprint": fingerprint,
-        "model": case.model,
-        "method": case.method,
-        "options": options_dict(options),
-        "termination": result.termination.value,
-        "solution_status": result.solution_status.value,
-        "objective": _num(result.objective),
-        "bound": _num(result.bound),
-        "gap": _num(result.gap),
-        "certificate": None if cert is None else {k: _num(v) for k, v in cert.to_dict().items()},
-        "iterations": result.iterations,
+        "instance_dir": instance_dir,
         "wall_seconds": float(wall),
-        "seconds": {k: float(v) for k, v in result.seconds.items()},
-        "solver": result.solver,
-        "solver_version": result.solver_version,
-        "raw_status": result.raw_status,
-        "message": result.message,
-        "allocation": allocation_digest(result.allocation),
-        "n_legs": int(len(result.leg_ids)),
-        "n_products": int(len(result.product_ids)),
-        "bid_prices_file": "bid_prices.csv",
-    }
+        "allocation_digest": allocation_digest(result.allocation),
+        "bid_prices_file": BID_PRICES,
+        "solver_options": options_dict(options),
+    })
 
 
 def _write_instance(inst: Instance, folder: pathlib.Path) -> Instance:
@@ -98,7 +85,7 @@ def _write_instance(inst: Instance, folder: pathlib.Path) -> Instance:
 class RecordSummary:
     path: pathlib.Path
     suite: str | None
-    cases: tuple           # case records (dicts as written to result.json)
+    cases: tuple           # case records (:func:`.folder.case_view` of each result.json written)
     environment: Mapping
 
 
@@ -153,11 +140,11 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
             fp = instance_fingerprint(inst)
             result, wall = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
                                         warm if warmup else None)
-            rec = _result_record(case, result, wall, fp, case.options)
-            rec["instance_dir"] = f"instances/{name}"
+            data = _result_record(case, result, wall, fp, case.options, f"instances/{name}")
             cdir = tmp / "cases" / case.id
-            atomic.write_json(cdir / "result.json", rec)
-            atomic.write_text(cdir / "bid_prices.csv", _bid_prices_csv(result.leg_ids, result.bid_price_array))
+            atomic.write_json(cdir / "result.json", data)
+            atomic.write_text(cdir / BID_PRICES, _bid_prices_csv(result.leg_ids, result.bid_price_array))
+            rec = case_view(data)
             records.append(rec)
             if progress is not None:
                 progress(case.id, rec)
