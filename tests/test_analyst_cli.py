@@ -172,8 +172,6 @@ def test_every_option_has_help_with_its_default():
 
     missing = []
     for name, a in _options(build_parser()):
-        if name.startswith("decomp baseline"):
-            continue        # commands/baseline.py is being rewritten in parallel (issue 13); its help there
         flag = isinstance(a, (argparse._StoreTrueAction, argparse.BooleanOptionalAction))
         needs_default = a.option_strings and not a.required and not flag and a.default is not argparse.SUPPRESS
         if not a.help or (needs_default and "default" not in a.help):

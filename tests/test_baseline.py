@@ -301,6 +301,15 @@ def test_edited_manifest_and_missing_folder(recorded, tmp_path):
         bl.load(tmp_path / "nowhere")
 
 
+def test_cli_time_ratio_takes_the_threshold_forms(recorded, capsys):
+    from decomp.cli import build_parser, main
+
+    assert build_parser().parse_args(["baseline", "check", str(recorded)]).time_ratio == "2x"
+    for bad in ("fast", "0.5x", "0.5"):          # refused before anything is solved: exit 2, the value named
+        assert main(["baseline", "check", str(recorded), "--time-ratio", bad]) == 2
+        assert bad in capsys.readouterr().err
+
+
 def test_cli_exit_code_2_on_tampered_baseline(recorded, capsys):
     from decomp.cli import main
 

@@ -93,6 +93,18 @@ def test_threshold_parsing():
         parse_threshold("fast")
 
 
+def test_time_ratio_parsing_shares_the_threshold_forms():
+    from decomp.benchsuite.compare import parse_ratio
+    from decomp.errors import ConfigError
+
+    # the same growth read both ways: --threshold 100% allows what --time-ratio 2x / 100% / 2 allows
+    assert parse_ratio("2x") == parse_ratio("100%") == parse_ratio("2") == pytest.approx(1 + parse_threshold("100%"))
+    assert parse_ratio("1.1X") == pytest.approx(1.1) and parse_ratio("2.5") == 2.5
+    for bad in ("0.9x", "0.5", "-10%", "slow"):
+        with pytest.raises(ConfigError):
+            parse_ratio(bad)
+
+
 # -- one micro run -------------------------------------------------------------
 
 REVENUE_PATHS = 20

@@ -78,6 +78,25 @@ def parse_threshold(text) -> float:
     return v
 
 
+def parse_ratio(text) -> float:
+    """An allowed ratio new/old (``baseline check --time-ratio``): '2x' or '100%' -> 2.0, through
+    :func:`parse_threshold` (1 + the growth it reads); a bare number is the ratio itself ('2' -> 2.0),
+    as the option has always read it, not a growth fraction as ``--threshold`` reads one."""
+    from ..errors import ConfigError
+
+    s = str(text).strip()
+    if s.endswith("%") or s.lower().endswith("x"):
+        return 1.0 + parse_threshold(s)
+    try:
+        v = float(s)
+    except ValueError as exc:
+        raise ConfigError(f"ratio must be a number such as 2, a ratio such as 2x or a growth such as 100%, "
+                          f"got {text!r}") from exc
+    if not v >= 1:
+        raise ConfigError(f"ratio must be at least 1 (new no faster than old allowed), got {text!r}")
+    return v
+
+
 def _worse(old, new, threshold, floor) -> bool:
     if new is None:
         return old is not None
