@@ -245,3 +245,30 @@ def test_the_readme_from_python_example_runs():
     assert result.ok and network.n_products == 3
     decision = result.decide("NV101 NV201", fare=300)
     assert decision.displacement == pytest.approx(result.displacement(["NV101"]) + result.displacement("NV201"))
+
+
+# Issue 13's input checks live in io.instance_from_tables, so a DataFrame meets each of them as a
+# file does: the same refusal, naming the table, the 1-based row and the column.
+@pytest.mark.parametrize("table,columns,row,column,words", [
+    ("legs", {"destination": ["AAA", "BBB", "CCC", "DDD"]}, 1, None, "origin"),
+    ("products", {"legs": ["A1 A2", "A1 A1", "A2", "A3", "A4"]}, 2, "legs", "twice"),
+    ("legs", {"leg": ["A1", "A2", "A3", "A4\x00"]}, 4, "leg", "control"),
+    ("legs", {"capacity": [100.0, 80.0, 0.0, 1e308]}, 4, "capacity", "limit"),
+    ("products", {"mean": [60.0, 70.0, 50.0, 10.0, 2e6]}, 5, "mean", "limit"),
+    ("products", {"distribution": ["normal"] * 4 + ["negbin"], "std": [20.0, 25.0, 15.0, 3.0, 4.0]}, 5, None,
+     "mean"),
+])
+def test_frames_meet_the_checks_files_meet(table, columns, row, column, words):
+    legs = LEGS.assign(**columns) if table == "legs" else LEGS
+    prods = PRODUCTS.assign(**columns) if table == "products" else PRODUCTS
+    with pytest.raises(InstanceError, match=words) as exc:
+        Instance.from_frames(legs, prods)
+    assert exc.value.file == table and exc.value.row == row
+    if column is not None:
+        assert exc.value.column == column
+
+
+def test_frames_meta_distribution_is_checked_as_meta_json_is():
+    with pytest.raises(InstanceError, match="unknown demand distribution"):
+        Instance.from_frames(LEGS, PRODUCTS, meta={"distribution": "lognormal"})
+    assert Instance.from_frames(LEGS, PRODUCTS, meta={"distribution": "gamma"}).meta["distribution"] == "gamma"
