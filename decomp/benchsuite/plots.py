@@ -52,7 +52,7 @@ def headline_series(run, stat: str = "min") -> dict:
     """(model, label) -> sorted list of (n_products, time, row) at the headline knob."""
     groups = {}
     for r in run.rows:
-        if r.get("kind") != "solve" and r.get("kind") != "build":
+        if r.get("kind") not in ("solve", "build", "tables"):
             continue
         groups.setdefault((r.get("model"), r.get("label")), []).append(r)
     out = {}

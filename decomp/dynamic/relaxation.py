@@ -186,8 +186,8 @@ class _Network:
                                         [bid[:, i, :self.cap[i] + 1] for i in range(len(self.cap))], **kw)
 
 
-def relax(instance, demand: PeriodDemand, bid_prices, *, tol: float = 1e-4, iteration_limit: int = 200,
-          time_limit: float | None = None, target_share: float = 0.01, patience: int = 5) -> RelaxationResult:
+def relax(instance, demand: PeriodDemand, bid_prices, *, tol: float = 1e-5, iteration_limit: int = 300,
+          time_limit: float | None = None, target_share: float = 0.01, patience: int = 10) -> RelaxationResult:
     """Minimize Topaloglu's bound from the static bid prices ``bid_prices`` (aligned with ``instance.leg_ids``).
 
     ``target_share``: the first target gap as a share of the first bound;
