@@ -84,3 +84,9 @@ def test_simulate_rejects_bad_table_policy(inst_dir, tmp_path, capsys):
     assert "unknown model" in capsys.readouterr().err
     assert main(["simulate", str(inst_dir), "--policies", "dynamic:dlp", "--periods", "0", "--paths", "5",
                  "--workers", "0", "--no-progress", "--out", str(tmp_path / "s")]) == 2
+
+
+def test_simulate_relaxed_policy_needs_one_request_per_period(inst_dir, tmp_path, capsys):
+    assert main(["simulate", str(inst_dir), "--policies", "relaxed:dlp", "--periods", "50", "--paths", "5",
+                 "--workers", "0", "--no-progress", "--out", str(tmp_path / "s")]) == 2
+    assert "at most one request per period" in capsys.readouterr().err

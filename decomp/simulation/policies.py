@@ -243,7 +243,8 @@ class TablePolicy(_ModelPolicy):
 
     def controls(self, ctx, capacity, sold, states):
         from ..dynamic.decomposition import decompose
-        from ..dynamic.relaxation import relax
+        from ..dynamic.demand import DemandError
+        from ..dynamic.relaxation import CONVERGED, STATIONARY, relax
         from ..registry import solve
 
         inst = ctx.instance
@@ -261,17 +262,22 @@ class TablePolicy(_ModelPolicy):
                                         f"({key}: {res.message})")
         if not res.ok:
             log.warning("%s: static solve ended %s (%s); using its bid prices", self.label, key, res.message)
-        demand = self.demand(ctx)
         bounds = {}
         if self.model == "dlp" and res.ok and res.objective is not None:
             bounds["DLP"] = float(res.objective)
-        if self.kind == "dynamic":
-            tables = decompose(sub, demand, pi, threads=1, source=f"{self.model}:{self.method}")
-        else:
-            out = relax(sub, demand, pi)
-            tables = out.tables
-            if ctx.arrivals is not None:     # a bound for the period model, which is then what books
-                bounds["Lagrangian relaxation"] = float(out.bound)
+        try:
+            demand = self.demand(ctx)
+            if self.kind == "dynamic":
+                tables = decompose(sub, demand, pi, threads=1, source=f"{self.model}:{self.method}")
+            else:
+                out = relax(sub, demand, pi)
+                tables = out.tables
+                if ctx.arrivals is not None:     # a bound for the period model, which is then what books
+                    bounds["Lagrangian relaxation"] = float(out.bound)
+                if out.termination not in (CONVERGED, STATIONARY):
+                    log.warning("%s: the bound's search stopped at %s", self.label, out.termination)
+        except DemandError as exc:
+            raise SimulationConfigError(f"policy {self.spec!r}: {exc}") from exc
         state = {"tables": tables, "bounds": bounds}
         return ControlSet(limit=np.full((n, P), np.inf), protect=None, states=[state] * n,
                           seconds=time.perf_counter() - t0, solves=1, failures=0 if res.ok else 1,
