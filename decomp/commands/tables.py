@@ -4,7 +4,7 @@ The booking horizon is cut into PERIODS periods and each product's forecast
 spread over them with the simulation's arrival curves (low fares early, high
 fares late; see ``decomp.dynamic.demand``). The static bid prices come from a
 result file of ``decomp solve`` (``--static RESULT.json``) or from a solve run
-here (``--model``/``--method``). ``--by decomposition`` (default) solves one
+here (``--model``/``--method``; by default the PNLP by Ipopt). ``--by decomposition`` (default) solves one
 dynamic program per leg with the other legs' bid prices taken off each fare;
 ``--by relaxation`` minimizes the Lagrangian bound of the network program
 (needs at most one request per period in the network, so as many periods as
@@ -24,9 +24,10 @@ def register(sub):
     p = sub.add_parser("tables", help="bid-price tables by leg, period and seats left (dynamic programs by leg)",
                        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("instance", metavar="INSTANCE", help="instance folder, or a ladder rung name")
-    src = p.add_mutually_exclusive_group(required=True)
+    src = p.add_mutually_exclusive_group()
     src.add_argument("--static", metavar="RESULT.json", help="static bid prices: a result file of 'decomp solve'")
-    src.add_argument("--model", choices=("dlp", "pnlp"), help="solve this static model here (with --method)")
+    src.add_argument("--model", choices=("dlp", "pnlp"), default="pnlp",
+                     help="solve this static model here (default: %(default)s)")
     p.add_argument("--method", default=None, metavar="NAME", help="method of --model (default: highs for dlp, "
                                                                    "ipopt for pnlp)")
     p.add_argument("--periods", type=int, default=200, help="booking periods (default: %(default)s)")
