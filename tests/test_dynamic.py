@@ -217,6 +217,9 @@ def test_parquet_round_trip_and_bad_files(tmp_path):
     path = write_parquet(tb, tmp_path / "t.parquet")
     back = read_parquet(path)
     np.testing.assert_array_equal(back.values, tb.values)
+    import pickle
+
+    np.testing.assert_array_equal(pickle.loads(pickle.dumps(tb)).values, tb.values)   # tables go to Dask workers
     assert back.aligned_with(inst)
     table = pq.read_table(path)
     assert table.column_names == ["leg", "period", "seats_remaining", "bid_price"]

@@ -18,7 +18,6 @@ from __future__ import annotations
 import dataclasses
 import json
 import pathlib
-from types import MappingProxyType
 from typing import Any, Mapping
 
 import numpy as np
@@ -54,7 +53,7 @@ class BidPriceTables:
             a = np.array(getattr(self, name), dtype=dtype, copy=True)
             a.setflags(write=False)
             object.__setattr__(self, name, a)
-        object.__setattr__(self, "info", MappingProxyType(dict(self.info)))
+        object.__setattr__(self, "info", dict(self.info))    # a plain dict: the tables travel to Dask workers
 
     @classmethod
     def from_legs(cls, leg_ids, capacity, bids: list, method: str, **kw) -> "BidPriceTables":
