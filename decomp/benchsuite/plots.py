@@ -87,6 +87,8 @@ def knob_parts(row, limits: bool = False) -> list:
         parts.append(f"K={k['segments']}")
     if "tol" in k:
         parts.append(f"tol={k['tol']:.0e}")
+    if "periods" in k:
+        parts.append(f"T={k['periods']}")
     if limits:
         parts += [f"{name}={k[name]:g}" for name in ("time_limit", "iteration_limit") if k.get(name) is not None]
     return parts
