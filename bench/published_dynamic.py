@@ -6,7 +6,7 @@ For each of the 24 published hub-and-spoke problems (read in place from
 ../shared/external/hub-spoke-2009): the DLP value (HiGHS) beside the published
 one, the Lagrangian bound (Topaloglu 2009) and the bound at the DLP duals, the
 simulated revenue of the static DLP bid-price policy, of the decomposition's
-tables and of the relaxation's tables on the same requests (95% t intervals;
+tables (from the DLP's and from the PNLP's bid prices) and of the relaxation's tables on the same requests (95% t intervals;
 paired differences against the static policy), and the solve times. Writes
 DIR/published_dynamic.md and DIR/published_dynamic.json; records the load
 average before and after.
@@ -58,25 +58,29 @@ def main(argv=None) -> int:
         rel, secs = r["relaxation"], r["seconds"]
         bound = rel.bound
         static, dyn, lag = pol["bid dlp:highs"], pol["dynamic:dlp:highs"], pol["relaxed:dlp:highs"]
+        dpn = pol["dynamic:pnlp:ipopt"]
         rec = {"name": name, "published_dlp": PUBLISHED[name], "dlp": r["dlp"].objective, "bound": bound,
                "bound_at_dlp_duals": rel.start_bound, "relaxation_termination": rel.termination,
                "relaxation_iterations": rel.iterations,
                "static": static["revenue"], "dynamic": dyn["revenue"], "relaxed": lag["revenue"],
-               "fcfs": pol["fcfs"]["revenue"],
+               "fcfs": pol["fcfs"]["revenue"], "dynamic_pnlp": dpn["revenue"],
+               "dynamic_pnlp_vs_static": paired["dynamic:pnlp:ipopt"],
                "dynamic_vs_static": paired["dynamic:dlp:highs"], "relaxed_vs_static": paired["relaxed:dlp:highs"],
                "seconds": secs, "paths": args.paths, "wall": time.perf_counter() - t0,
                "all_below_bound": all(p["revenue"]["low"] <= bound for p in sc["policies"])}
         records.append(rec)
-        dv, lv = rec["dynamic_vs_static"], rec["relaxed_vs_static"]
+        dv, lv, pv = rec["dynamic_vs_static"], rec["relaxed_vs_static"], rec["dynamic_pnlp_vs_static"]
         rows.append(f"| {name} | {PUBLISHED[name]:,} | {r['dlp'].objective:,.1f} | {bound:,.1f} | "
                     f"{_ci(static['revenue'])} | {_ci(dyn['revenue'])} | {dv['mean']:+,.0f} ± {dv['halfwidth']:,.0f} | "
                     f"{_ci(lag['revenue'])} | {lv['mean']:+,.0f} ± {lv['halfwidth']:,.0f} | "
+                    f"{_ci(dpn['revenue'])} | {pv['mean']:+,.0f} ± {pv['halfwidth']:,.0f} | "
                     f"{secs['dlp']:.3f} | {secs['decomposition']:.3f} | {secs['relaxation']:.2f} ({rel.iterations}, {rel.termination}) |")
         print(rows[-1], flush=True)
     load1 = os.getloadavg()
     head = ("| problem | DLP (published) | DLP (HiGHS) | Lagrangian bound | static DLP bid prices | "
-            "decomposition tables | vs static (paired) | relaxation tables | vs static (paired) | "
-            "DLP s | decomposition s | relaxation s (iterations, stop) |\n|" + "---|" * 12)
+            "decomposition tables (DLP) | vs static (paired) | relaxation tables | vs static (paired) | "
+            "decomposition tables (PNLP) | vs static (paired) | "
+            "DLP s | decomposition s | relaxation s (iterations, stop) |\n|" + "---|" * 14)
     text = (f"# Dynamic policies on the published hub-and-spoke problems\n\n"
             f"{args.paths} sample paths per problem (seed {args.seed}), requests drawn period by period from the "
             f"published probabilities; revenues are means with 95% t intervals; 'vs static' is the paired difference "

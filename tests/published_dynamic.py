@@ -4,7 +4,8 @@ Reads the problem with its per-period request probabilities (tests/hubspoke.py),
 solves the DLP (HiGHS), computes the decomposition's and the Lagrangian
 relaxation's tables, and simulates, on the same requests (drawn period by
 period from the published probabilities), the static DLP bid-price policy (one
-solve at time 0), the two table policies and first-come-first-served.
+solve at time 0), the decomposition's tables from the DLP's and from the PNLP's (Ipopt) bid
+prices, the relaxation's tables and first-come-first-served.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from decomp.simulation import SimulationConfig, parse_policies, simulate
 
 from hubspoke import read_periods
 
-POLICIES = "dlp:highs,dynamic:dlp:highs,relaxed:dlp:highs,fcfs"
+POLICIES = "dlp:highs,dynamic:dlp:highs,relaxed:dlp:highs,dynamic:pnlp:ipopt,fcfs"
 
 
 def run(path, paths: int = 200, seed: int = 0) -> dict:

@@ -18,6 +18,7 @@ import pathlib
 import pytest
 
 from published_dynamic import run                       # tests/published_dynamic.py
+from test_dynamic import _check_monotone                # tests/test_dynamic.py
 from test_hubspoke_published import PUBLISHED          # tests/test_hubspoke_published.py
 
 EXTERNAL = pathlib.Path(__file__).resolve().parents[1].parent / "shared" / "external" / "hub-spoke-2009"
@@ -47,16 +48,19 @@ def _check(name, paths):
     assert summary["network_bounds"]["DLP"] == pytest.approx(out["dlp"].objective, rel=1e-12)
     scen = summary["scenarios"][0]
     labels = [p["policy"] for p in scen["policies"]]
-    assert labels == ["bid dlp:highs", "dynamic:dlp:highs", "relaxed:dlp:highs", "fcfs"]
+    assert labels == ["bid dlp:highs", "dynamic:dlp:highs", "relaxed:dlp:highs", "dynamic:pnlp:ipopt", "fcfs"]
     for p in scen["policies"]:
         ci = p["revenue"]
         assert ci["low"] <= rel.bound, f"{p['policy']}: {ci} above the bound {rel.bound}"
     # The capacity-dependent policies beside the DLP bid-price policy, with paired intervals.
     paired = {d["policy"]: d for d in scen["paired"]}
-    for label in ("dynamic:dlp:highs", "relaxed:dlp:highs"):
+    for label in ("dynamic:dlp:highs", "relaxed:dlp:highs", "dynamic:pnlp:ipopt"):
         d = paired[label]
         assert d["reference"] == "bid dlp:highs"
         assert math.isfinite(d["halfwidth"]) and d["halfwidth"] < d["unpaired_halfwidth"]
+    # Bid prices fall as seats remaining grow and as the horizon runs out (single-leg fact).
+    _check_monotone(out["tables"])
+    _check_monotone(rel.tables)
     return out
 
 
