@@ -9,7 +9,8 @@ Sources named beside each check:
   the horizon runs out.
 * The whole network's dynamic program by brute force (tests/network_dp.py): the
   Lagrangian bound is at least its value and at most the DLP value (Topaloglu
-  2009, Proposition on the bound; the DLP bound is Jensen's inequality), and on a
+  2009: both are results of that paper; the relaxation argument for the first is in
+  decomp/dynamic/relaxation.py), and on a
   network whose products each use one leg the leg programs are the network
   program exactly.
 * Convexity: a subgradient g of V at lambda satisfies V(mu) >= V(lambda) + g.(mu - lambda)

@@ -194,6 +194,11 @@ def relax(instance, demand: PeriodDemand, bid_prices, *, tol: float = 1e-5, iter
     ``patience``: iterations without reaching half the target gap before it is halved
     (and the search returns to the best multipliers).
     """
+    for name, v, ok in (("tol", tol, tol > 0), ("iteration_limit", iteration_limit, iteration_limit >= 0),
+                        ("time_limit", time_limit, time_limit is None or time_limit > 0),
+                        ("target_share", target_share, target_share > 0), ("patience", patience, patience >= 1)):
+        if not ok:
+            raise ValueError(f"relax: {name} = {v!r} is out of range")
     demand.check(instance)
     demand.require_at_most_one_request("the Lagrangian relaxation of the network program")
     pi = np.asarray(bid_prices, dtype=np.float64)
