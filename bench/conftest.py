@@ -33,6 +33,7 @@ def pytest_addoption(parser):
 def pytest_configure(config):
     config.addinivalue_line("markers", "bench_solve: a timed decomp.solve case")
     config.addinivalue_line("markers", "bench_build: a timed Pyomo model build case")
+    config.addinivalue_line("markers", "bench_tables: a timed decomposition of the network program by leg")
     config.stash[_STATE_KEY] = {"started": time.time(), "load_start": _loadavg(), "rung_sources": {},
                                 "references": {}, "revenue_references": {}}
     if config.getoption("--revenue-paths") < 0:
@@ -63,13 +64,14 @@ def _suite_cases(config) -> dict:
             "suite": suite,
             "solve": [c for c in all_cases if c.kind == "solve"],
             "build": [c for c in all_cases if c.kind == "build" and build_ok[c.model][0]],
+            "tables": [c for c in all_cases if c.kind == "tables"],
             "excluded": excluded,
         }
     return config.stash[_CASES_KEY]
 
 
 def pytest_generate_tests(metafunc):
-    for kind in ("solve", "build"):
+    for kind in ("solve", "build", "tables"):
         name = f"{kind}_case"
         if name in metafunc.fixturenames:
             cs = _suite_cases(metafunc.config)[kind]
@@ -83,14 +85,16 @@ def pytest_collection_modifyitems(session, config, items):
     keep, drop = [], []
     for item in items:
         cs = getattr(item, "callspec", None)
-        case = None if cs is None else (cs.params.get("solve_case") or cs.params.get("build_case"))
+        case = None if cs is None else (cs.params.get("solve_case") or cs.params.get("build_case")
+                                        or cs.params.get("tables_case"))
         (keep if case is not None else drop).append(item)
     if drop:
         config.hook.pytest_deselected(items=drop)
     order = {r: i for i, r in enumerate(bcases.RUNG_ORDER)}
 
     def key(item):
-        c = item.callspec.params.get("solve_case") or item.callspec.params.get("build_case")
+        p = item.callspec.params
+        c = p.get("solve_case") or p.get("build_case") or p.get("tables_case")
         return (order[c.rung], c.kind != "build")
 
     keep.sort(key=key)

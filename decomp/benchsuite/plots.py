@@ -52,7 +52,7 @@ def headline_series(run, stat: str = "min") -> dict:
     """(model, label) -> sorted list of (n_products, time, row) at the headline knob."""
     groups = {}
     for r in run.rows:
-        if r.get("kind") != "solve" and r.get("kind") != "build":
+        if r.get("kind") not in ("solve", "build", "tables"):
             continue
         groups.setdefault((r.get("model"), r.get("label")), []).append(r)
     out = {}
@@ -87,6 +87,8 @@ def knob_parts(row, limits: bool = False) -> list:
         parts.append(f"K={k['segments']}")
     if "tol" in k:
         parts.append(f"tol={k['tol']:.0e}")
+    if "periods" in k:
+        parts.append(f"T={k['periods']}")
     if limits:
         parts += [f"{name}={k[name]:g}" for name in ("time_limit", "iteration_limit") if k.get(name) is not None]
     return parts

@@ -8,7 +8,13 @@ first-come-first-served is added as a baseline. Policies (comma-separated):
 model's allocation), ``plain:MODEL[:METHOD[:TOL]]`` (every request whose fare is
 at least the sum), ``partitioned:MODEL[:METHOD[:TOL]]`` booking limits from the
 model's allocation, ``fcfs``, and on single-leg instances ``emsrb`` or
-``nested:Y1[/Y2...]`` nested protection levels. ``--reoptimize-every``,
+``nested:Y1[/Y2...]`` nested protection levels, ``dynamic:MODEL[:METHOD[:TOL]]``
+capacity- and time-dependent bid-price tables (one dynamic program per leg
+over ``--periods`` periods, from the static model's bid prices; computed once)
+and ``relaxed:MODEL[:METHOD[:TOL]]`` (tables of the Lagrangian relaxation of the
+network program; needs at most one request per period). With a table policy the
+report also gives each policy's revenue as a share of the network bound (the
+DLP value). ``--reoptimize-every``,
 ``--forecast-bias`` and ``--sigma-factor`` take comma-separated lists; every
 combination is a scenario, and lists give the plots. Writes
 OUT/simulation.json, OUT/simulation.md and PNG plots.
@@ -53,6 +59,8 @@ def register(sub):
     p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed (default: %(default)s)")
     p.add_argument("--bias-spread", type=float, default=0.0,
                    help="per-product random bias B + spread x N(0,1), seeded (default: 0, aggregate)")
+    p.add_argument("--periods", type=int, default=200,
+                   help="booking periods of the table policies (dynamic:, relaxed:) (default: %(default)s)")
     p.add_argument("--seed", type=int, default=0, help="seed of the sample paths (default: %(default)s)")
     p.add_argument("--chunk", type=int, default=50, help="paths per task (default: %(default)s)")
     c = p.add_argument_group("cluster")
@@ -96,7 +104,9 @@ def run(args) -> int:
     biases = _floats(args.forecast_bias, "--forecast-bias")
     sigmas = _floats(args.sigma_factor, "--sigma-factor")
     errors = [ForecastError(bias=b, sigma_factor=s, spread=args.bias_spread) for b in biases for s in sigmas]
-    policies = parse_policies(args.policies)
+    if args.periods < 1:
+        raise SimulationConfigError(f"--periods must be a positive integer, got {args.periods}")
+    policies = parse_policies(args.policies, periods=args.periods)
     cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
                            forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
                            chunk=args.chunk)

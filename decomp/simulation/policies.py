@@ -24,6 +24,13 @@ seat left, and when the smallest remaining capacity over its legs exceeds
   (normal approximation of the aggregated demand of the higher classes, as is
   common practice); with two classes it is Littlewood's rule.
 * :class:`FCFSPolicy` (``fcfs``): every request is sold while seats last.
+* :class:`TablePolicy` (``dynamic:MODEL[:METHOD[:TOL]]``, ``relaxed:MODEL[:METHOD[:TOL]]``):
+  capacity- and time-dependent bid prices (:mod:`decomp.dynamic`), computed
+  once at time 0 from the static model's bid prices, by the decomposition by
+  leg (``dynamic``) or the Lagrangian relaxation of the network program
+  (``relaxed``; needs at most one request per period). A request is accepted
+  when its fare covers the sum of its legs' table values for the period it
+  arrives in and the seats its legs have left.
 
 Policies with a model re-optimize at every re-optimization time from the
 remaining capacity of the path and the optimizer's remaining forecast,
@@ -62,6 +69,8 @@ class ControlSet:
     solves: int = 0
     failures: int = 0
     statuses: dict = dataclasses.field(default_factory=dict)
+    tables: object = None             # BidPriceTables: also require fare >= sum of the legs' table values
+    bounds: dict = dataclasses.field(default_factory=dict)   # upper bounds on expected revenue, by name
 
 
 @dataclasses.dataclass(frozen=True)
@@ -72,6 +81,8 @@ class ControlContext:
     mean: np.ndarray                  # optimizer's remaining mean per product
     std: np.ndarray                   # optimizer's remaining std per product
     t_frac: float
+    curve: object = None              # the booking curve (per-period demand of the table policies)
+    arrivals: object = None           # PeriodDemand when requests come by periods, else None
 
 
 class Policy:
@@ -206,6 +217,77 @@ class PartitionedPolicy(_ModelPolicy):
         return {**super().to_dict(), "kind": "partitioned", "model": self.model, "method": self.method, "tol": self.tol}
 
 
+class TablePolicy(_ModelPolicy):
+    """Bid-price tables by leg, period and seats left, from a static model's bid prices."""
+
+    reoptimizes = False
+    KINDS = ("dynamic", "relaxed")
+
+    def __init__(self, kind, model, method=None, tol=None, spec=None, periods: int = 200):
+        if kind not in self.KINDS:
+            raise SimulationConfigError(f"table policy kind must be one of {', '.join(self.KINDS)}, got {kind!r}")
+        if not isinstance(periods, int) or isinstance(periods, bool) or periods < 1:
+            raise SimulationConfigError(f"periods of the table policy must be a positive integer, got {periods!r}")
+        method = method or DEFAULT_METHOD[model]
+        spec = spec or ":".join([kind, model, method] + ([f"{tol:g}"] if tol is not None else []))
+        super().__init__(model, method, tol, spec)
+        self.kind, self.periods = kind, periods
+        self.label = spec
+
+    def demand(self, ctx):
+        from ..dynamic.demand import from_arrival_curves
+
+        if ctx.arrivals is not None:
+            return ctx.arrivals
+        return from_arrival_curves(ctx.instance, self.periods, mean=ctx.mean, curve=ctx.curve)
+
+    def controls(self, ctx, capacity, sold, states):
+        from ..dynamic.decomposition import decompose
+        from ..dynamic.demand import DemandError
+        from ..dynamic.relaxation import CONVERGED, STATIONARY, relax
+        from ..registry import solve
+
+        inst = ctx.instance
+        n, P = sold.shape
+        if states and states[0] is not None:          # computed once, at time 0
+            return ControlSet(limit=np.full((n, P), np.inf), protect=None, states=list(states),
+                              tables=states[0]["tables"], bounds=dict(states[0]["bounds"]))
+        t0 = time.perf_counter()
+        sub = inst.with_forecast(mean=ctx.mean, std=ctx.std, capacity=np.maximum(capacity[0], 0.0))
+        res = solve(sub, model=self.model, method=self.method, options=self.options())
+        key = f"{res.termination.value}/{res.solution_status.value}"
+        pi = res.bid_price_array
+        if pi is None or not np.all(np.isfinite(pi)):
+            raise SimulationConfigError(f"policy {self.spec!r}: the static solve returned no bid prices "
+                                        f"({key}: {res.message})")
+        if not res.ok:
+            log.warning("%s: static solve ended %s (%s); using its bid prices", self.label, key, res.message)
+        bounds = {}
+        if self.model == "dlp" and res.ok and res.objective is not None:
+            bounds["DLP"] = float(res.objective)
+        try:
+            demand = self.demand(ctx)
+            if self.kind == "dynamic":
+                tables = decompose(sub, demand, pi, threads=1, source=f"{self.model}:{self.method}")
+            else:
+                out = relax(sub, demand, pi)
+                tables = out.tables
+                if ctx.arrivals is not None:     # a bound for the period model, which is then what books
+                    bounds["Lagrangian relaxation"] = float(out.bound)
+                if out.termination not in (CONVERGED, STATIONARY):
+                    log.warning("%s: the bound's search stopped at %s", self.label, out.termination)
+        except DemandError as exc:
+            raise SimulationConfigError(f"policy {self.spec!r}: {exc}") from exc
+        state = {"tables": tables, "bounds": bounds}
+        return ControlSet(limit=np.full((n, P), np.inf), protect=None, states=[state] * n,
+                          seconds=time.perf_counter() - t0, solves=1, failures=0 if res.ok else 1,
+                          statuses={key: 1}, tables=tables, bounds=bounds)
+
+    def to_dict(self):
+        return {**super().to_dict(), "kind": f"table:{self.kind}", "model": self.model, "method": self.method,
+                "tol": self.tol, "periods": self.periods}
+
+
 def emsrb_levels(fare_desc, mean_desc, std_desc) -> np.ndarray:
     """EMSR-b protection levels y_1..y_{k-1} for classes in descending fare order.
 
@@ -285,13 +367,13 @@ def _tol(text: str, spec: str) -> float:
     return v
 
 
-def parse_policy(spec: str) -> Policy:
-    """One policy from its specification (see the module docstring)."""
+def parse_policy(spec: str, periods: int = 200) -> Policy:
+    """One policy from its specification (see the module docstring); ``periods``: of the table policies."""
     text = spec.strip()
     parts = [p.strip() for p in text.split(":")]
     head = parts[0].lower()
     valid = ("MODEL[:METHOD[:TOL]] with MODEL in dlp, pnlp, pwl; plain:MODEL[:METHOD[:TOL]]; "
-             "partitioned:MODEL[:METHOD[:TOL]]; "
+             "partitioned:MODEL[:METHOD[:TOL]]; dynamic:MODEL[:METHOD[:TOL]]; relaxed:MODEL[:METHOD[:TOL]]; "
              "fcfs; emsrb; nested:Y1[/Y2...]")
     if not text:
         raise SimulationConfigError(f"empty policy specification; valid forms: {valid}")
@@ -305,7 +387,7 @@ def parse_policy(spec: str) -> Policy:
         except ValueError as exc:
             raise SimulationConfigError(f"policy {spec!r}: protection levels must be numbers separated by '/'") from exc
         return NestedPolicy(levels, spec=text)
-    if head in ("partitioned", "plain") and 2 <= len(parts) <= 4:
+    if head in ("partitioned", "plain") + TablePolicy.KINDS and 2 <= len(parts) <= 4:
         model = parts[1].lower()
         if model not in MODELS:
             raise SimulationConfigError(f"policy {spec!r}: unknown model {parts[1]!r}; valid models: {', '.join(MODELS)}")
@@ -313,6 +395,8 @@ def parse_policy(spec: str) -> Policy:
         tol = _tol(parts[3], spec) if len(parts) > 3 else None
         if head == "plain":
             return BidPricePolicy(model, method, tol, spec=text, ties="accept")
+        if head in TablePolicy.KINDS:
+            return TablePolicy(head, model, method, tol, spec=text, periods=periods)
         return PartitionedPolicy(model, method, tol, spec=text)
     if head in MODELS and 1 <= len(parts) <= 3:
         method = parts[1] if len(parts) > 1 and parts[1] else None
@@ -321,11 +405,11 @@ def parse_policy(spec: str) -> Policy:
     raise SimulationConfigError(f"unknown policy {spec!r}; valid forms: {valid}")
 
 
-def parse_policies(text: str, instance=None) -> list:
+def parse_policies(text: str, instance=None, periods: int = 200) -> list:
     """A comma-separated list of specifications; checked against ``instance`` when given."""
     if not isinstance(text, str) or not text.strip():
         raise SimulationConfigError("no policies given (e.g. --policies 'pnlp:lagrangian:1e-9,dlp:highs,fcfs')")
-    out = [parse_policy(s) for s in text.split(",")]
+    out = [parse_policy(s, periods=periods) for s in text.split(",")]
     labels = [p.label for p in out]
     dup = sorted({l for l in labels if labels.count(l) > 1})
     if dup:

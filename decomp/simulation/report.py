@@ -30,7 +30,10 @@ def rows(summary: dict) -> list:
             out.append({
                 "R": f"{sc['reoptimize_every']:g}", "forecast": sc["forecast_error_label"], "policy": p["policy"],
                 "revenue": _pm(p["revenue"]), "load factor %": _pm(p["load_factor"], 100, 1),
-                "share of bound %": _pm(p["share_of_bound"], 100, 2), "vs reference (paired)": diff,
+                "share of bound %": _pm(p["share_of_bound"], 100, 2),
+                **({} if p.get("share_of_network_bound") is None else
+                   {"of network bound %": _pm(p["share_of_network_bound"], 100, 2)}),
+                "vs reference (paired)": diff,
                 "re-opt s": f"{p['reopt_seconds']:.1f}", "solves": solves,
                 "s/solve": f"{p['reopt_seconds'] / p['solves']:.3f}" if p["solves"] else "-",
             })
@@ -56,6 +59,10 @@ def header_lines(summary: dict) -> list:
         f"{summary['paths']} sample paths (seed {cfg['seed']}), horizon {cfg['horizon']:g} days, "
         f"{q['mean']:,.0f} requests per path on average",
         f"hindsight bound (DLP on realized demand): {_pm(b)} per path; intervals are 95% t intervals",
+        *([] if not summary.get("network_bounds") else [
+            "network bounds on the optimal expected revenue (time 0, true forecast): " + ", ".join(
+                f"{k} {v:,.1f}" for k, v in sorted(summary["network_bounds"].items(), key=lambda kv: kv[1]))
+            + f"; 'of network bound %' is against the lowest ({summary['network_bound']['name']})"]),
         f"wall time {summary['wall_seconds']:.1f} s; CPU time in the path tasks "
         f"{summary['phase_seconds'].get('task_cpu', float('nan')):.1f} s (sampling, hindsight LPs, policies and re-optimizations)",
     ]
