@@ -47,7 +47,9 @@ class PolicyOutcome:
     seats: np.ndarray
     seconds: float
     solves: int
-    failures: int
+    failures: int                     # solves whose method ended non-optimal
+    rescued: int                      # ... priced with the fallback's optimal answer
+    priced_non_optimal: int           # ... priced with a non-optimal answer anyway
     statuses: dict
 
 
@@ -78,7 +80,8 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
     sold = np.zeros((rows_n, P + 1), dtype=np.int64)
     limit = np.zeros((rows_n, P + 1))
     protect = np.zeros((rows_n, P + 1))
-    stats = [{"seconds": 0.0, "solves": 0, "failures": 0, "statuses": {}} for _ in policies]
+    stats = [{"seconds": 0.0, "solves": 0, "failures": 0, "rescued": 0, "priced_non_optimal": 0, "statuses": {}}
+             for _ in policies]
     tables = [None] * npol
     fare = np.r_[np.asarray(instance.fare, dtype=np.float64), 0.0]             # padding product earns 0
     fare_tol = TIE_RTOL * np.maximum(1.0, fare)
@@ -111,9 +114,8 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
                     cs = pol.controls(ctx, cap[rows, :L].astype(np.float64), sold[rows, :P], states[p])
                     states[p] = cs.states
                 st = stats[p]
-                st["seconds"] += cs.seconds
-                st["solves"] += cs.solves
-                st["failures"] += cs.failures
+                for name in ("seconds", "solves", "failures", "rescued", "priced_non_optimal"):
+                    st[name] += getattr(cs, name)
                 for key, v in cs.statuses.items():
                     st["statuses"][key] = st["statuses"].get(key, 0) + v
             else:

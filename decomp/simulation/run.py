@@ -176,7 +176,9 @@ class SimulationResult:
     seats: np.ndarray            # (scenarios, policies, paths)
     seconds: np.ndarray          # (scenarios, policies): re-optimization seconds (all paths, with time 0)
     solves: np.ndarray
-    failures: np.ndarray
+    failures: np.ndarray           # [scenario, policy]: solves whose method ended non-optimal
+    rescued: np.ndarray            # ... of which the fallback's optimal answer priced
+    priced_non_optimal: np.ndarray  # ... of which a non-optimal answer priced anyway
     statuses: list               # [scenario][policy] -> {status: count}
     wall_seconds: float
     phase_seconds: dict
@@ -228,6 +230,9 @@ class SimulationResult:
                     "reopt_seconds": float(self.seconds[s, p]),
                     "reopt_seconds_per_path": float(self.seconds[s, p]) / max(1, self.n_paths),
                     "solves": int(self.solves[s, p]), "failed_solves": int(self.failures[s, p]),
+                    "reoptimizations": {"solves": int(self.solves[s, p]), "non_optimal": int(self.failures[s, p]),
+                                        "rescued_by_fallback": int(self.rescued[s, p]),
+                                        "priced_non_optimal": int(self.priced_non_optimal[s, p])},
                     "solve_statuses": dict(self.statuses[s][p]),
                 })
             scen.append({"reoptimize_every": every, "forecast_error": cfg.forecast_errors[fe_i].to_dict(),
@@ -261,6 +266,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
     seconds = np.zeros((n_scen, n_pol))
     solves = np.zeros((n_scen, n_pol), dtype=np.int64)
     failures = np.zeros((n_scen, n_pol), dtype=np.int64)
+    rescued = np.zeros((n_scen, n_pol), dtype=np.int64)
+    priced_non_optimal = np.zeros((n_scen, n_pol), dtype=np.int64)
     statuses = [[{} for _ in range(n_pol)] for _ in range(n_scen)]
     for s, (fe_i, _) in enumerate(config.scenarios):
         for p in range(n_pol):
@@ -268,6 +275,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
             seconds[s, p] += cs.seconds
             solves[s, p] += cs.solves
             failures[s, p] += cs.failures
+            rescued[s, p] += cs.rescued
+            priced_non_optimal[s, p] += cs.priced_non_optimal
             for k, v in cs.statuses.items():
                 statuses[s][p][k] = statuses[s][p].get(k, 0) + v
             for r in parts:
@@ -275,6 +284,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
                 seconds[s, p] += o.seconds
                 solves[s, p] += o.solves
                 failures[s, p] += o.failures
+                rescued[s, p] += o.rescued
+                priced_non_optimal[s, p] += o.priced_non_optimal
                 for k, v in o.statuses.items():
                     statuses[s][p][k] = statuses[s][p].get(k, 0) + v
     phases = {}
@@ -282,7 +293,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
         for k, v in r["seconds"].items():
             phases[k] = phases.get(k, 0.0) + v
     return dict(paths=cat("paths"), bound=cat("bound"), requests=cat("requests"), revenue=rev, seats=seats,
-                seconds=seconds, solves=solves, failures=failures, statuses=statuses, phase_seconds=phases)
+                seconds=seconds, solves=solves, failures=failures, rescued=rescued,
+                priced_non_optimal=priced_non_optimal, statuses=statuses, phase_seconds=phases)
 
 
 def simulate(instance, config: SimulationConfig, *, client=None, on_progress=None) -> SimulationResult:
