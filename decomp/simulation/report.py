@@ -17,6 +17,49 @@ def _pm(ci: dict, scale: float = 1.0, digits: int = 0) -> str:
     return f"{m:,.{digits}f} ± {h:,.{digits}f}"
 
 
+def _non_optimal_note(r: dict) -> str:
+    """' (3 not optimal: 2 rescued by the fallback, 1 PRICED NON-OPTIMAL)', or '' when all were optimal."""
+    if not r["non_optimal"]:
+        return ""
+    parts = [f"{r['rescued_by_fallback']} rescued by the fallback"]
+    if r["priced_non_optimal"]:
+        parts.append(f"{r['priced_non_optimal']} PRICED NON-OPTIMAL")
+    kept = r["non_optimal"] - r["rescued_by_fallback"] - r["priced_non_optimal"]
+    if kept:
+        parts.append(f"{kept} kept the previous controls")
+    return f" ({r['non_optimal']} not optimal: {', '.join(parts)})"
+
+
+def reoptimization_totals(summary: dict) -> dict:
+    """Per policy label, its re-optimization counts summed over the scenarios."""
+    out = {}
+    for sc in summary["scenarios"]:
+        for p in sc["policies"]:
+            r = p.get("reoptimizations")
+            if r is None:
+                continue
+            t = out.setdefault(p["policy"], dict.fromkeys(r, 0))
+            for k, v in r.items():
+                t[k] += v
+    return out
+
+
+def reoptimization_lines(summary: dict) -> list:
+    """What the re-optimizations that ended non-optimal priced with, policy by policy (loud when non-optimal)."""
+    fallback = {p["label"]: p.get("fallback") for p in summary["config"]["policies"]}
+    lines = []
+    for label, t in reoptimization_totals(summary).items():
+        if t["priced_non_optimal"]:
+            lines.append(f"WARNING: {label}: {t['priced_non_optimal']} of {t['solves']} re-optimizations "
+                         f"PRICED WITH A NON-OPTIMAL ANSWER (fallback {fallback.get(label) or 'none'}; "
+                         f"see solve_statuses in simulation.json)")
+        if t["rescued_by_fallback"]:
+            lines.append(f"{label}: {t['rescued_by_fallback']} of {t['solves']} re-optimizations ended "
+                         f"non-optimal and were rescued by the fallback ({fallback.get(label)}), "
+                         f"which priced with its optimal answer")
+    return lines
+
+
 def rows(summary: dict) -> list:
     """One row per (scenario, policy): the cells of the tables."""
     out = []
@@ -26,7 +69,8 @@ def rows(summary: dict) -> list:
             d = paired.get(p["policy"])
             diff = "reference" if d is None else (
                 f"{d['mean']:+,.0f} ± {d['halfwidth']:,.0f} (unpaired ± {d['unpaired_halfwidth']:,.0f})")
-            solves = f"{p['solves']}" + (f" ({p['failed_solves']} not optimal)" if p["failed_solves"] else "")
+            solves = f"{p['solves']}" + _non_optimal_note(p.get("reoptimizations") or {
+                "non_optimal": p["failed_solves"], "rescued_by_fallback": 0, "priced_non_optimal": 0})
             out.append({
                 "R": f"{sc['reoptimize_every']:g}", "forecast": sc["forecast_error_label"], "policy": p["policy"],
                 "revenue": _pm(p["revenue"]), "load factor %": _pm(p["load_factor"], 100, 1),
@@ -63,6 +107,7 @@ def header_lines(summary: dict) -> list:
             "network bounds on the optimal expected revenue (time 0, true forecast): " + ", ".join(
                 f"{k} {v:,.1f}" for k, v in sorted(summary["network_bounds"].items(), key=lambda kv: kv[1]))
             + f"; 'of network bound %' is against the lowest ({summary['network_bound']['name']})"]),
+        *reoptimization_lines(summary),
         f"wall time {summary['wall_seconds']:.1f} s; CPU time in the path tasks "
         f"{summary['phase_seconds'].get('task_cpu', float('nan')):.1f} s (sampling, hindsight LPs, policies and re-optimizations)",
     ]
