@@ -33,6 +33,7 @@ def pytest_addoption(parser):
 def pytest_configure(config):
     config.addinivalue_line("markers", "bench_solve: a timed decomp.solve case")
     config.addinivalue_line("markers", "bench_build: a timed Pyomo model build case")
+    config.addinivalue_line("markers", "bench_tables: a timed decomposition of the network program by leg")
     config.stash[_STATE_KEY] = {"started": time.time(), "load_start": _loadavg(), "rung_sources": {},
                                 "references": {}, "revenue_references": {}}
     if config.getoption("--revenue-paths") < 0:
@@ -63,13 +64,14 @@ def _suite_cases(config) -> dict:
             "suite": suite,
             "solve": [c for c in all_cases if c.kind == "solve"],
             "build": [c for c in all_cases if c.kind == "build" and build_ok[c.model][0]],
+            "tables": [c for c in all_cases if c.kind == "tables"],
             "excluded": excluded,
         }
     return config.stash[_CASES_KEY]
 
 
 def pytest_generate_tests(metafunc):
-    for kind in ("solve", "build"):
+    for kind in ("solve", "build", "tables"):
         name = f"{kind}_case"
         if name in metafunc.fixturenames:
             cs = _suite_cases(metafunc.config)[kind]
@@ -83,14 +85,16 @@ def pytest_collection_modifyitems(session, config, items):
     keep, drop = [], []
     for item in items:
         cs = getattr(item, "callspec", None)
-        case = None if cs is None else (cs.params.get("solve_case") or cs.params.get("build_case"))
+        case = None if cs is None else (cs.params.get("solve_case") or cs.params.get("build_case")
+                                        or cs.params.get("tables_case"))
         (keep if case is not None else drop).append(item)
     if drop:
         config.hook.pytest_deselected(items=drop)
     order = {r: i for i, r in enumerate(bcases.RUNG_ORDER)}
 
     def key(item):
-        c = item.callspec.params.get("solve_case") or item.callspec.params.get("build_case")
+        p = item.callspec.params
+        c = p.get("solve_case") or p.get("build_case") or p.get("tables_case")
         return (order[c.rung], c.kind != "build")
 
     keep.sort(key=key)
@@ -165,7 +169,7 @@ class RevenueStore:
         self._refs = {}
 
     def reference(self, rung: str, model: str):
-        from decomp.benchsuite.measure import price_bid_prices, revenue_seed
+        from decomp.benchsuite.measure import price_bid_prices, public_revenue, revenue_seed
 
         key = (rung, model)
         if key not in self._refs:
@@ -174,7 +178,7 @@ class RevenueStore:
             if ref is not None:
                 rev = price_bid_prices(self._instances.get(rung), ref.bid_prices, self.paths, revenue_seed(rung))
             self._refs[key] = rev
-            self._summaries[f"{rung}/{model}"] = rev
+            self._summaries[f"{rung}/{model}"] = public_revenue(rev)
         return self._refs[key]
 
     def price(self, rung: str, model: str, bid_prices) -> dict:
@@ -253,7 +257,8 @@ def pytest_benchmark_update_json(config, benchmarks, output_json):
                     "note": "fixed bid prices priced by decomp.simulation.run.revenue_for_bid_prices on "
                             "seeded sample paths (seed per rung: the same paths for every case of a rung "
                             "and its reference); revenue_loss_rel = (reference mean - case mean) / "
-                            "reference mean, a point estimate"},
+                            "reference mean, a point estimate; revenue_loss_ci: its paired 95 % t interval "
+                            "over the per-path differences"},
         "load_average_at_end": _loadavg(),
         "session_seconds": time.time() - state["started"],
         "memory_note": "peak_memory_mib: growth of the resident set over the solve (a lower bound: "

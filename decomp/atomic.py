@@ -11,8 +11,14 @@ import tempfile
 
 @contextlib.contextmanager
 def atomic_path(path):
-    """Yield a temporary path in the target's folder; rename it over ``path`` on success."""
+    """Yield a temporary path in the target's folder; rename it over ``path`` on success.
+
+    ``path`` must be a regular file or not exist (FileExistsError otherwise).
+    """
     path = pathlib.Path(path)
+    if path.exists() and not path.is_file():
+        # a folder, a device (/dev/stdout), a pipe: renaming over it would replace it with a file
+        raise FileExistsError(f"{path} exists and is not a regular file; not replacing it")
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)

@@ -13,6 +13,7 @@ import importlib
 import logging
 import pkgutil
 import sys
+import warnings
 
 from . import commands
 from .errors import ConfigError, InstanceError, UnknownMethodError
@@ -26,13 +27,43 @@ def build_parser() -> argparse.ArgumentParser:
         description="Network bid prices: DLP and PNLP models, direct solvers and "
                     "Lagrangian decomposition, with certificates, benchmarks and production runs.")
     parser.add_argument("-v", "--verbose", action="store_true", help="log progress to stderr")
+    parser.add_argument("--version", action="version", version=f"decomp {_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    _accept_common_options(sub)
     for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda m: m.name):
         if info.name.startswith("_"):
             continue
         module = importlib.import_module(f"{commands.__name__}.{info.name}")
         module.register(sub)
     return parser
+
+
+def _version() -> str:
+    from . import __version__
+
+    return __version__
+
+
+def _accept_common_options(sub) -> None:
+    """Let every subcommand take -v after its name too (``decomp solve ... -v``)."""
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
+                        help="log progress to stderr")
+    add_parser = sub.add_parser
+
+    def add_with_common(*args, **kw):
+        kw["parents"] = [*kw.get("parents", ()), common]
+        return add_parser(*args, **kw)
+
+    sub.add_parser = add_with_common
+
+
+def _show_warning(command):
+    """Warnings as one line on stderr, once (not the source line Python shows by default)."""
+    def show(message, category, filename, lineno, file=None, line=None):
+        print(f"decomp {command}: warning: {message}", file=sys.stderr)
+
+    return show
 
 
 def main(argv=None) -> int:
@@ -43,6 +74,7 @@ def main(argv=None) -> int:
         return EXIT_BAD_INPUT
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(levelname)s %(name)s: %(message)s")
+    warnings.showwarning = _show_warning(args.command)
     try:
         return int(args.func(args) or 0)
     except (InstanceError, UnknownMethodError, ConfigError) as exc:
@@ -51,6 +83,15 @@ def main(argv=None) -> int:
     except BrokenPipeError:
         # output piped into a reader that stopped early (e.g. `head`)
         sys.stderr.close()
+        return EXIT_FAIL
+    except OSError as exc:
+        from .production.outputs import is_output_error
+
+        if not is_output_error(exc):
+            raise
+        # a full disk or a read-only folder: the cause once, no traceback (writes are atomic)
+        print(f"decomp {args.command}: error: cannot write {exc.filename or ''}: {exc.strerror} "
+              f"[Errno {exc.errno}]", file=sys.stderr)
         return EXIT_FAIL
     except KeyboardInterrupt:
         print(f"decomp {args.command}: interrupted", file=sys.stderr)

@@ -14,11 +14,20 @@ class InstanceError(DecompError, ValueError):
     offending value and the reason, so a person can find and fix it.
     """
 
+    #: Longest value echoed in a message (a 10 MB bad line must not become a 10 MB message).
+    VALUE_CHARS = 200
+
     def __init__(self, reason: str, *, file=None, row=None, column=None, value=None):
+        reason = str(reason)
+        if len(reason) > 5 * self.VALUE_CHARS:   # a reason quoting a value (an unknown leg id, a parser's line)
+            reason = reason[:5 * self.VALUE_CHARS] + f"... ({len(reason)} characters)"
         self.reason = reason
         self.file = None if file is None else str(file)
         self.row = row
         self.column = column
+        if isinstance(value, (str, bytes)) and len(value) > self.VALUE_CHARS:
+            value = value[:self.VALUE_CHARS] + (f"... ({len(value)} characters)" if isinstance(value, str)
+                                                else f"... ({len(value)} bytes)".encode())
         self.value = value
         parts = []
         if self.file is not None:

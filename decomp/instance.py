@@ -158,22 +158,88 @@ class Instance:
         """Map from leg id to its row index."""
         return {lid: i for i, lid in enumerate(self.leg_ids)}
 
+    def __repr__(self) -> str:
+        return (f"Instance({self.name!r}: {self.n_legs:,} legs, {self.n_products:,} products, "
+                f"{len(self.leg_index):,} product-leg pairs)")
+
+    @classmethod
+    def from_frames(cls, legs, products, meta=None) -> "Instance":
+        """Build an instance from two tables: pandas DataFrames or pyarrow Tables.
+
+        The tables have the columns of the instance files (see :mod:`decomp.io`):
+        ``legs``: ``leg, origin, destination, capacity``; ``products``: ``product,
+        legs, fare, mean, std`` where ``legs`` is the leg ids in travel order,
+        either one text separated by single spaces or a list. Further columns
+        (and ``distribution``) are kept as in files. The checks are those of
+        :func:`decomp.read_instance`, with the same
+        :class:`~decomp.errors.InstanceError`: the table ("legs" or "products"),
+        the 1-based row (position, not the index label), the column and the value.
+        """
+        from .io import instance_from_tables
+
+        meta = dict(meta or {})
+        meta.setdefault("name", "instance")
+        return instance_from_tables(_arrow_table(legs, "legs"), _arrow_table(products, "products", list_column="legs"),
+                                    meta=meta, legs_name="legs", products_name="products")
+
     @classmethod
     def from_lists(cls, legs, products, **kw) -> "Instance":
-        """Build a small instance from Python lists (tests and examples).
+        """Build a small instance from Python lists (tests and examples), checked like a file.
 
         ``legs``: iterable of (id, origin, destination, capacity);
         ``products``: iterable of (id, [leg ids], fare, mean, std).
+        Raises :class:`~decomp.errors.InstanceError` (row 1-based, column named)
+        for an unknown leg id or any value :func:`decomp.io.check_instance` refuses.
         """
+        from .errors import InstanceError
+        from .io import check_instance
+
         legs = list(legs)
         products = list(products)
         pos = {l[0]: i for i, l in enumerate(legs)}
         ptr = np.zeros(len(products) + 1, dtype=np.int64)
         ptr[1:] = np.cumsum([len(p[1]) for p in products])
-        idx = np.array([pos[l] for p in products for l in p[1]], dtype=np.int64)
-        return cls(
+        idx = []
+        for row, p in enumerate(products, start=1):
+            for leg in p[1]:
+                if leg not in pos:
+                    raise InstanceError(f"unknown leg id '{leg}' (not in the legs table)", file="products",
+                                        row=row, column="legs", value=" ".join(map(str, p[1])))
+                idx.append(pos[leg])
+        inst = cls(
             leg_ids=[l[0] for l in legs], leg_origin=[l[1] for l in legs],
             leg_destination=[l[2] for l in legs], capacity=[l[3] for l in legs],
-            product_ids=[p[0] for p in products], leg_ptr=ptr, leg_index=idx,
+            product_ids=[p[0] for p in products], leg_ptr=ptr, leg_index=np.array(idx, dtype=np.int64),
             fare=[p[2] for p in products], mean=[p[3] for p in products],
             std=[p[4] for p in products], **kw)
+        try:
+            check_instance(inst)
+        except InstanceError as exc:          # name the list, as from_frames names the table
+            table = "legs" if exc.column in ("leg", "origin", "destination", "capacity") else "products"
+            raise InstanceError(exc.reason, file=table, row=exc.row, column=exc.column, value=exc.value) from exc
+        return inst
+
+
+def _arrow_table(table, name, list_column=None):
+    """A pandas DataFrame or pyarrow Table as a pyarrow Table; a list column joined by spaces."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    from .errors import InstanceError
+
+    if isinstance(table, pa.Table):
+        out = table
+    elif hasattr(table, "columns") and hasattr(table, "iloc"):
+        try:
+            out = pa.Table.from_pandas(table, preserve_index=False)
+        except (pa.ArrowException, TypeError, ValueError) as exc:
+            raise InstanceError(f"cannot read the DataFrame: {exc}", file=name) from exc
+    else:
+        raise InstanceError(f"expected a pandas DataFrame or a pyarrow Table, got {type(table).__name__}",
+                            file=name)
+    if list_column in out.column_names:
+        col = out.column(list_column).combine_chunks()
+        if pa.types.is_list(col.type) or pa.types.is_large_list(col.type):
+            joined = pc.binary_join(pc.cast(col, pa.list_(pa.string())), " ")
+            out = out.set_column(out.column_names.index(list_column), list_column, joined)
+    return out

@@ -15,6 +15,18 @@ stays text, so writing gives the same text back. An optional product column
 ``distribution`` names each product's demand distribution (one of
 :data:`decomp.instance.DISTRIBUTIONS`).
 
+Limits (anything beyond is refused with the limit named): capacity and fare at
+most :data:`MAX_CAPACITY` / :data:`MAX_FARE` (1e12: an "unlimited" leg can be
+written as 1e12 seats; measured solved by highs, ipopt and lagrangian at 1e15),
+demand mean and std at most :data:`MAX_DEMAND` (1e6 passengers per product; at
+1e9 the Lagrangian method ends in numerical trouble). Ids hold no spaces or
+control characters (a NUL made two products print alike); a leg's origin is
+not its destination; an itinerary flies each leg at most once; a negative
+binomial product has std^2 > mean (its variance exceeds its mean, or it has
+mean = std = 0). One trailing blank line is allowed. An extra Parquet column
+with nulls keeps them (None); a nested one (list, struct) is kept as the JSON
+text of each value.
+
 Every problem is an :class:`~decomp.errors.InstanceError` naming the file, the
 row (1-based data row: the first row after the header is row 1), the column and
 the value. Parsing is pyarrow plus numpy over whole columns; nothing loops over
@@ -23,14 +35,17 @@ products in Python.
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import csv
+import errno
 import json
 import logging
 import math
 import os
 import pathlib
 import shutil
+import stat
 import tempfile
 import warnings
 
@@ -51,6 +66,11 @@ META_FILE = "meta.json"
 FORMATS = ("csv", "parquet")
 _INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE}
 
+MAX_CAPACITY = 1e12   # seats per leg
+MAX_FARE = 1e12       # fare units per seat
+MAX_DEMAND = 1e6      # mean and std of a product's demand, passengers
+_CONTROL = r"[\x00-\x1f\x7f]"
+
 
 class UnusedLegWarning(UserWarning):
     """A leg that no product uses (allowed, but often a data mistake)."""
@@ -60,8 +80,29 @@ class UnusedLegWarning(UserWarning):
 # reading tables
 # ---------------------------------------------------------------------------
 
+def _not_a_file(path: pathlib.Path) -> str | None:
+    """Why ``path`` exists but cannot be read as a table file, or None (a file, or nothing there)."""
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        return "a broken symbolic link" if os.path.islink(path) else None
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            return "a symbolic link loop"
+        return f"not readable ({exc.strerror or exc})"
+    if stat.S_ISDIR(st.st_mode):
+        return "a folder, not a file"
+    if not stat.S_ISREG(st.st_mode):
+        return "not a regular file (a FIFO, socket or device)"
+    return None
+
+
 def _find_table(folder: pathlib.Path, stem: str) -> tuple[pathlib.Path, str]:
     csv_path, pq_path = folder / f"{stem}.csv", folder / f"{stem}.parquet"
+    for p in (csv_path, pq_path):
+        why = _not_a_file(p)
+        if why is not None:
+            raise InstanceError(f"{p.name} is {why}", file=p)
     if csv_path.is_file() and pq_path.is_file():
         raise InstanceError(f"both {csv_path.name} and {pq_path.name} exist; keep one", file=folder)
     if csv_path.is_file():
@@ -73,22 +114,29 @@ def _find_table(folder: pathlib.Path, stem: str) -> tuple[pathlib.Path, str]:
 
 def _csv_header(path: pathlib.Path) -> list[str]:
     try:
-        with open(path, "r", encoding="utf-8", newline="") as fh:
-            first = fh.readline()
+        with open(path, "rb") as fh:       # bytes: a text reader would decode ahead into the rows
+            first = fh.readline().decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise InstanceError(f"the header is not valid UTF-8 text ({exc.reason})", file=path) from exc
+        raise InstanceError(f"the header is not valid UTF-8 text ({exc.reason})", file=path, row=0) from exc
     except OSError as exc:
         raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not first.strip():
         raise InstanceError("the file is empty: it needs a header line and at least one row", file=path)
-    names = next(csv.reader([first.lstrip("\ufeff")]))
+    try:
+        names = next(csv.reader([first.lstrip("\ufeff")]))
+    except csv.Error as exc:           # e.g. a field longer than the csv module's limit (131,072)
+        raise InstanceError(f"cannot parse the header: {exc}", file=path, row=0) from exc
     return names
 
 
 def _read_csv(path: pathlib.Path, required) -> pa.Table:
     names = _csv_header(path)
     _check_names(names, required, path)
+    _check_utf8(path, names)
     table, bad = _parse_csv(path, names, threads=True)
+    if bad is not None and not bad.text.strip() and _ends_with_one_blank_line(path):
+        if _parse_csv(path, names, threads=False)[1].number == table.num_rows + 2:   # it is that last line
+            bad = None
     if bad is not None:
         if bad.number is None:             # the threaded reader does not count lines
             _, bad = _parse_csv(path, names, threads=False)
@@ -98,7 +146,52 @@ def _read_csv(path: pathlib.Path, required) -> pa.Table:
         raise InstanceError(why, file=path, row=row, value=bad.text)
     if table.column_names != names:
         raise InstanceError(f"the header reads as {table.column_names}, expected {names}", file=path)
+    if table.num_rows and _ends_with_one_blank_line(path) and _last_row_empty(table):
+        table = table.slice(0, table.num_rows - 1)     # one trailing blank line: allowed
     return table
+
+
+def _ends_with_one_blank_line(path) -> bool:
+    """The file ends in exactly one blank line (after the last row's own line end)."""
+    with open(path, "rb") as fh:
+        fh.seek(max(0, os.path.getsize(path) - 6))
+        tail = fh.read().replace(b"\r\n", b"\n")
+    return tail.endswith(b"\n\n") and not tail.endswith(b"\n\n\n")
+
+
+def _last_row_empty(table: pa.Table) -> bool:
+    return all(table.column(i)[-1].as_py() == "" for i in range(table.num_columns))
+
+
+def _check_utf8(path, names) -> None:
+    """InstanceError at the row (and column) of the first byte that is not UTF-8.
+
+    Checked before pyarrow parses the file: its handler of a bad row cannot decode such a row and
+    would print an ignored exception instead of naming the row.
+    """
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    lines = 0
+    tail = b""                             # the current line's bytes so far (for the column)
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 24), b""):
+            try:
+                decoder.decode(chunk)
+            except UnicodeDecodeError as exc:
+                start = max(0, min(exc.start, len(chunk)))
+                lines += chunk.count(b"\n", 0, start)
+                cut = chunk.rfind(b"\n", 0, start)
+                line = chunk[cut + 1:start] if cut >= 0 else tail + chunk[:start]
+                k = line.count(b",")
+                raise InstanceError("the text is not valid UTF-8", file=path, row=lines,
+                                    column=names[k] if lines > 0 and k < len(names) else None) from None
+            lines += chunk.count(b"\n")
+            cut = chunk.rfind(b"\n")
+            tail = chunk[cut + 1:] if cut >= 0 else tail + chunk
+        try:
+            decoder.decode(b"", final=True)
+        except UnicodeDecodeError:
+            raise InstanceError("the text is not valid UTF-8 (the file ends inside a character)", file=path,
+                                row=lines) from None
 
 
 def _parse_csv(path, names, threads):
@@ -229,6 +322,11 @@ def _ids(arr: pa.Array, path, column, what) -> pa.Array:
     if empty.any():
         i = int(np.argmax(empty))
         raise InstanceError(f"empty {what} id", file=path, row=i + 1, column=column, value=txt[i].as_py())
+    control = pc.match_substring_regex(txt, _CONTROL).to_numpy(zero_copy_only=False)
+    if control.any():
+        i = int(np.argmax(control))
+        raise InstanceError(f"a {what} id must not contain control characters (NUL, tab, line breaks, ...)",
+                            file=path, row=i + 1, column=column, value=txt[i].as_py())
     spaced = pc.match_substring_regex(txt, r"\s").to_numpy(zero_copy_only=False)
     if spaced.any():
         i = int(np.argmax(spaced))
@@ -260,9 +358,13 @@ def _check_range(values, ok, path, column, reason):
 
 def _extra(arr: pa.Array, path, column) -> np.ndarray:
     """An extra column: int64 or float64 if that writes back to the same text, else text."""
+    if pa.types.is_nested(arr.type):       # list, struct, map: kept as the JSON text of each value
+        return np.asarray([None if v is None else json.dumps(v, default=str) for v in arr.to_pylist()],
+                          dtype=object)
+    if arr.null_count:                     # kept with None where the value is missing
+        return np.asarray(arr.to_pylist(), dtype=object)
     if pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type) or pa.types.is_boolean(arr.type):
-        if arr.null_count == 0:
-            return arr.to_numpy(zero_copy_only=False)
+        return arr.to_numpy(zero_copy_only=False)
     txt = _text(arr, path, column)
     try:                                   # cheap look at one value before casting them all
         float(txt[0].as_py())
@@ -288,7 +390,7 @@ def read_instance(path) -> Instance:
     Raises :class:`~decomp.errors.InstanceError` naming the file, the row
     (1-based data row, header excluded), the column and the value of the first
     problem found. A leg that no product uses gives an
-    :class:`UnusedLegWarning` (``warnings.warn``) and a logged warning.
+    :class:`UnusedLegWarning` (``warnings.warn``; not logged as well, so it shows once).
     """
     folder = pathlib.Path(path)
     if not folder.exists():
@@ -299,6 +401,26 @@ def read_instance(path) -> Instance:
     meta = _read_meta(folder)
     legs_path, legs = _read_table(folder, "legs", LEG_COLUMNS)
     prod_path, prods = _read_table(folder, "products", PRODUCT_COLUMNS)
+    meta.setdefault("name", folder.resolve().name)
+    return instance_from_tables(legs, prods, meta=meta, legs_name=legs_path, products_name=prod_path)
+
+
+def instance_from_tables(legs: pa.Table, prods: pa.Table, *, meta=None, legs_name="legs",
+                         products_name="products") -> Instance:
+    """Validate a legs and a products table (Arrow) and build the instance: the checks of the files.
+
+    :func:`read_instance` calls it on the tables it read, and
+    :meth:`decomp.Instance.from_frames` on DataFrames, so both give the same
+    :class:`~decomp.errors.InstanceError` (named by ``legs_name`` / ``products_name``
+    instead of a file, with the 1-based data row, the column and the value).
+    """
+    legs_path, prod_path = legs_name, products_name
+    for table, required, name in ((legs, LEG_COLUMNS, legs_path), (prods, PRODUCT_COLUMNS, prod_path)):
+        _check_names(table.column_names, required, name)
+        if table.num_rows == 0:
+            raise InstanceError("the table has no rows", file=name)
+    meta = dict(meta or {})
+    _check_meta_distribution(meta, "meta")
 
     leg_txt = _ids(_col(legs, "leg"), legs_path, "leg", "leg")
     leg_ids = _objects(leg_txt)
@@ -311,18 +433,24 @@ def read_instance(path) -> Instance:
             i = int(np.argmax(empty))
             raise InstanceError("empty station code", file=legs_path, row=i + 1, column=col)
         stations[col] = st
+    _check_stations(stations, legs_path)
     capacity = _numbers(_col(legs, "capacity"), legs_path, "capacity")
     _check_range(capacity, capacity >= 0, legs_path, "capacity", "capacity must be >= 0")
+    _check_limit(capacity, MAX_CAPACITY, legs_path, "capacity", "seats (for an unlimited leg write 1e12)")
 
     product_ids = _objects(_ids(_col(prods, "product"), prod_path, "product", "product"))
     fare = _numbers(_col(prods, "fare"), prod_path, "fare")
     _check_range(fare, fare > 0, prod_path, "fare", "fare must be > 0")
+    _check_limit(fare, MAX_FARE, prod_path, "fare", "fare units")
     mean = _numbers(_col(prods, "mean"), prod_path, "mean")
     _check_range(mean, mean >= 0, prod_path, "mean", "demand mean must be >= 0")
+    _check_limit(mean, MAX_DEMAND, prod_path, "mean", "passengers per product")
     std = _numbers(_col(prods, "std"), prod_path, "std")
     _check_range(std, std >= 0, prod_path, "std", "demand std must be >= 0")
+    _check_limit(std, MAX_DEMAND, prod_path, "std", "passengers per product")
 
     leg_ptr, leg_index = _product_legs(_col(prods, "legs"), prod_path, leg_txt)
+    _check_each_leg_once(leg_ptr, leg_index, prod_path, leg_ids)
     _check_connected(leg_ptr, leg_index, stations, prod_path, leg_ids)
 
     distribution = None
@@ -334,6 +462,7 @@ def read_instance(path) -> Instance:
             raise InstanceError(f"unknown demand distribution; known: {', '.join(DISTRIBUTIONS)}",
                                 file=prod_path, row=i + 1, column="distribution", value=d[i].as_py())
         distribution = np.asarray(d.to_numpy(zero_copy_only=False), dtype=object)
+    _check_negbin(distribution, meta.get("distribution", "normal"), mean, std, prod_path)
 
     leg_extra = {c: _extra(_col(legs, c), legs_path, c)
                  for c in legs.column_names if c not in LEG_COLUMNS}
@@ -346,10 +475,8 @@ def read_instance(path) -> Instance:
         unused = np.flatnonzero(~used)
         msg = (f"{legs_path}: {len(unused)} leg(s) used by no product, e.g. row {unused[0] + 1} "
                f"'{leg_ids[unused[0]]}'")
-        log.warning(msg)
-        warnings.warn(msg, UnusedLegWarning, stacklevel=2)
+        warnings.warn(msg, UnusedLegWarning, stacklevel=3)   # once: commands print it, no log line too
 
-    meta.setdefault("name", folder.resolve().name)
     return Instance(
         leg_ids=leg_ids,
         leg_origin=np.asarray(stations["origin"].to_numpy(zero_copy_only=False), dtype=object),
@@ -363,15 +490,79 @@ def _read_meta(folder: pathlib.Path) -> dict:
     path = folder / META_FILE
     if not path.exists():
         return {}
+    why = _not_a_file(path)
+    if why is not None:
+        raise InstanceError(f"{META_FILE} is {why}", file=path)
     try:
         meta = json.loads(path.read_text(encoding="utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise InstanceError(f"not valid JSON: {exc}", file=path) from exc
+    except RecursionError as exc:
+        raise InstanceError("JSON nested too deeply to read", file=path) from exc
     except OSError as exc:
         raise InstanceError(f"cannot read the file: {exc.strerror or exc}", file=path) from exc
     if not isinstance(meta, dict):
         raise InstanceError("meta.json must hold a JSON object", file=path)
+    _check_meta_distribution(meta, path)
     return meta
+
+
+def _check_meta_distribution(meta: dict, path):
+    """The instance-wide demand distribution, when given, must be a known family name."""
+    if "distribution" in meta:
+        d = meta["distribution"]
+        if not isinstance(d, str) or d not in DISTRIBUTIONS:
+            raise InstanceError(f"unknown demand distribution; known: {', '.join(DISTRIBUTIONS)}", file=path,
+                                column="distribution", value=d if isinstance(d, str) else repr(d)[:200])
+
+
+def _check_limit(values, limit, path, column, unit):
+    _check_range(values, values <= limit, path, column, f"above decomp's limit of {limit:g} {unit}")
+
+
+def _check_stations(stations, path):
+    """Station codes without control characters; a leg's origin is not its destination."""
+    for col in ("origin", "destination"):
+        bad = pc.match_substring_regex(stations[col], _CONTROL).to_numpy(zero_copy_only=False)
+        if bad.any():
+            i = int(np.argmax(bad))
+            raise InstanceError("a station code must not contain control characters", file=path, row=i + 1,
+                                column=col, value=stations[col][i].as_py())
+    same = pc.equal(stations["origin"], stations["destination"]).to_numpy(zero_copy_only=False)
+    if same.any():
+        i = int(np.argmax(same))
+        raise InstanceError("the leg's origin is its destination", file=path, row=i + 1, column="destination",
+                            value=stations["destination"][i].as_py())
+
+
+def _check_each_leg_once(leg_ptr, leg_index, path, leg_ids):
+    """An itinerary flies each leg at most once (twice would take two seats per sale)."""
+    owner = np.repeat(np.arange(len(leg_ptr) - 1), np.diff(leg_ptr))
+    order = np.lexsort((leg_index, owner))
+    o, leg = owner[order], leg_index[order]
+    twice = (o[1:] == o[:-1]) & (leg[1:] == leg[:-1])
+    if twice.any():
+        k = np.flatnonzero(twice)
+        j = int(o[k].min())
+        lid = leg_ids[int(leg[k][np.argmin(o[k])])]
+        raise InstanceError(f"the itinerary flies leg '{lid}' twice", file=path, row=j + 1, column="legs",
+                            value=" ".join(str(leg_ids[x]) for x in leg_index[leg_ptr[j]:leg_ptr[j + 1]]))
+
+
+def _check_negbin(distribution, default, mean, std, path):
+    """A negative binomial has variance above its mean: std^2 > mean (or no demand: mean = std = 0)."""
+    if distribution is None:
+        if default != "negbin":
+            return
+        nb = np.ones(len(mean), dtype=bool)
+    else:
+        nb = distribution == "negbin"
+    bad = nb & (std * std <= mean) & ~((mean == 0) & (std == 0))
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise InstanceError(f"a negative binomial needs std^2 > mean (here {std[i] ** 2:g} <= {mean[i]:g}); "
+                            f"use poisson for std^2 = mean", file=path, row=i + 1, column="std",
+                            value=float(std[i]))
 
 
 def _product_legs(col: pa.Array, path, leg_txt: pa.Array):
@@ -447,11 +638,20 @@ def check_instance(inst: Instance) -> None:
         finite = np.isfinite(vals)
         _check_range(vals, finite, None, col, "NaN or infinite value")
         _check_range(vals, ok, None, col, why)
+    _check_stations(stations, None)
+    for col, vals, limit, unit in (("capacity", inst.capacity, MAX_CAPACITY, "seats (for an unlimited leg write 1e12)"),
+                                   ("fare", inst.fare, MAX_FARE, "fare units"),
+                                   ("mean", inst.mean, MAX_DEMAND, "passengers per product"),
+                                   ("std", inst.std, MAX_DEMAND, "passengers per product")):
+        _check_limit(vals, limit, None, col, unit)
     empty = np.diff(inst.leg_ptr) == 0
     if empty.any():
         raise InstanceError("empty legs field: a product needs at least one leg",
                             row=int(np.argmax(empty)) + 1, column="legs")
+    _check_each_leg_once(inst.leg_ptr, inst.leg_index, None, leg_ids)
     _check_connected(inst.leg_ptr, inst.leg_index, stations, None, leg_ids)
+    _check_negbin(None if inst.distribution is None else inst.distribution.astype(str),
+                  inst.meta.get("distribution", "normal"), inst.mean, inst.std, None)
     if inst.distribution is not None:
         known = np.isin(inst.distribution.astype(str), DISTRIBUTIONS)
         if not known.all():
@@ -468,7 +668,11 @@ def _as_arrow(values) -> pa.Array:
         try:
             return pa.array(a, pa.string())
         except (pa.ArrowException, TypeError):
-            return pa.array([str(v) for v in a.tolist()], pa.string())
+            pass
+        try:                                  # numbers with None (an extra column with missing values)
+            return pa.array(a.tolist())
+        except (pa.ArrowException, TypeError):
+            return pa.array([None if v is None else str(v) for v in a.tolist()], pa.string())
     return pa.array(a)
 
 
@@ -500,14 +704,15 @@ _NEEDS_QUOTES = r'[,"\r\n]|^\s|\s$'
 def _csv_field(arr: pa.Array) -> pa.Array:
     """Text of one column for CSV: numbers in shortest round-trip form, text quoted when needed."""
     if pa.types.is_string(arr.type):
+        arr = pc.fill_null(arr, "")          # a missing extra value is an empty field
         need = pc.match_substring_regex(arr, _NEEDS_QUOTES)
         if not pc.any(need).as_py():
             return arr
         quoted = pc.binary_join_element_wise('"', pc.replace_substring(arr, '"', '""'), '"', "")
         return pc.if_else(need, quoted, arr)
     if pa.types.is_boolean(arr.type):
-        return pc.cast(arr, pa.string())
-    return pc.cast(arr, pa.string())          # floats: shortest text that reads back exactly
+        return pc.fill_null(pc.cast(arr, pa.string()), "")
+    return pc.fill_null(pc.cast(arr, pa.string()), "")   # floats: shortest text that reads back exactly
 
 
 def _csv_bytes(table: pa.Table) -> bytes:

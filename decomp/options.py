@@ -65,3 +65,27 @@ class SolverOptions:
         d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         d["solver_options"] = dict(self.solver_options)
         return d
+
+
+def as_options(options=None, **changes) -> SolverOptions:
+    """A :class:`SolverOptions` from None, an instance or a dict, with ``changes`` applied.
+
+    Unknown names raise :class:`ConfigError` listing the valid ones; the
+    caller's dict is not changed.
+    """
+    valid = [f.name for f in dataclasses.fields(SolverOptions)]
+    if options is None:
+        base = {}
+    elif isinstance(options, SolverOptions):
+        base = None
+    elif isinstance(options, Mapping):
+        base = dict(options)
+    else:
+        raise ConfigError(f"options must be a SolverOptions, a dict or None, got {type(options).__name__}")
+    unknown = sorted((set(base or {}) | set(changes)) - set(valid))
+    if unknown:
+        raise ConfigError(f"unknown option{'s' if len(unknown) > 1 else ''} {', '.join(map(repr, unknown))}; "
+                          f"valid options: {', '.join(valid)}")
+    if base is None:
+        return options.replace(**changes) if changes else options
+    return SolverOptions(**{**base, **changes})

@@ -65,17 +65,36 @@ def get_method(name: str, model: str):
     return cls
 
 
-def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=None, warm_start=None):
+def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=None, warm_start=None,
+          **option_values):
     """Solve ``instance`` with the named model and method; see :class:`SolveResult`.
 
-    ``warm_start``: bid prices to start from, as a dict by leg id or an array
-    aligned with ``instance.leg_ids`` (used by methods that can; others ignore it).
+    ``instance``: an :class:`~decomp.instance.Instance`, or the path of an
+    instance folder (read and checked by :func:`decomp.read_instance`).
+    ``options``: a :class:`~decomp.options.SolverOptions`, a dict of its fields,
+    or None; keyword arguments (``tol=1e-6``, ``time_limit=60``, ...) override
+    them. An unknown option name is a :class:`~decomp.errors.ConfigError` listing
+    the valid ones. ``warm_start``: bid prices to start from, as a dict by leg id
+    or an array aligned with ``instance.leg_ids`` (used by methods that can;
+    others ignore it).
     """
-    from .options import SolverOptions
+    import os
 
+    from .instance import Instance
+    from .options import as_options
+
+    if isinstance(instance, (str, os.PathLike)):
+        from .io import read_instance
+
+        instance = read_instance(instance)
+    elif not isinstance(instance, Instance):
+        from .errors import ConfigError
+
+        raise ConfigError(f"solve needs an Instance or the path of an instance folder, got "
+                          f"{type(instance).__name__}")
+    options = as_options(options, **option_values)
     cls = get_method(method, model)
     ok, reason = cls.available()
     if not ok:
         raise SolverUnavailableError(f"method {method!r} is not available: {reason}")
-    options = SolverOptions() if options is None else options
     return cls().solve(instance, model, options, warm_start=warm_start)

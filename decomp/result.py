@@ -18,6 +18,34 @@ from typing import Any, Mapping
 
 import numpy as np
 
+#: Name and version of the one result schema (``decomp solve``, ``decomp run`` tasks, baselines).
+SCHEMA = "decomp.result"
+SCHEMA_VERSION = 1
+
+SCHEMA_DOC = """decomp.result, version 1: one JSON object.
+
+schema, schema_version   "decomp.result", 1
+model, method            e.g. "pnlp", "lagrangian"
+termination              why the solver stopped: optimal, iteration_limit, time_limit, infeasible,
+                         unbounded, numerical_error, error, unknown
+solution_status          how good the answer is: optimal (certified), feasible, infeasible, no_solution
+ok                       true when termination and solution_status are both optimal
+objective, bound, gap    expected revenue of the allocation, dual bound, certified relative gap
+iterations, seconds      iterations; wall seconds by phase (build, solve, certify)
+solver, solver_version, raw_status, message    the solver's own words
+certificate              max_violation, max_violation_rel, kkt_residual, dual_value, primal_value,
+                         gap, min_bid_price
+options                  the SolverOptions used
+n_legs, n_products       sizes
+bid_prices               {leg id: bid price}, fare units per seat, >= 0, in the instance's leg order
+allocation               (optional) {product id: allocation}
+history                  (optional) per-iteration records of iterative methods
+context                  who produced it: instance, instance_path, versions, task, case, ... (free form)
+Non-finite numbers are written as the strings "inf", "-inf", "nan".
+Tables use the same column names everywhere: leg, bid_price (bid-price files), and
+decomp.tables.LEG_COLUMNS / PRODUCT_COLUMNS.
+"""
+
 
 class Termination(str, enum.Enum):
     """Why the solver stopped."""
@@ -144,8 +172,42 @@ class SolveResult:
             return {}
         return dict(zip(self.leg_ids.tolist(), self.bid_price_array.tolist()))
 
-    def to_json_dict(self, include_history: bool = True) -> dict:
-        """A plain dict for JSON output (allocation excluded: it can be large)."""
+    def __repr__(self) -> str:
+        def g(v, fmt):
+            return "n/a" if v is None else format(v, fmt)
+
+        return (f"SolveResult({self.model} by {self.method}: {self.termination.value}/"
+                f"{self.solution_status.value}, objective {g(self.objective, ',.6g')}, gap {g(self.gap, '.2e')}, "
+                f"{len(self.leg_ids):,} legs, {len(self.product_ids):,} products, "
+                f"iterations {self.iterations}, {sum(self.seconds.values()):.3g} s)")
+
+    def displacement(self, legs) -> float:
+        """The displacement cost of an itinerary: the sum of its legs' bid prices.
+
+        ``legs``: leg ids as a sequence or one text separated by spaces; an
+        unknown leg raises :class:`~decomp.errors.InstanceError`.
+        """
+        from .decision import leg_bid_prices
+
+        return float(sum(leg_bid_prices(self.leg_ids, self.bid_price_array, legs)[1]))
+
+    def decide(self, legs, fare):
+        """Accept or reject a request for itinerary ``legs`` at ``fare`` under the bid-price rule.
+
+        Returns a :class:`decomp.decision.Decision` (accept when the fare is at
+        least the displacement, with each leg's bid price and the margin).
+        """
+        from .decision import decide
+
+        return decide(self.leg_ids, self.bid_price_array, legs, fare)
+
+    def to_json_dict(self, include_history: bool = True, include_allocation: bool = False,
+                     context: Mapping[str, Any] | None = None) -> dict:
+        """The result as a plain dict in the one output schema (see :data:`SCHEMA_DOC`).
+
+        ``include_allocation`` adds ``allocation`` by product id (it can be
+        large); ``context`` (instance name, versions, task key, ...) is kept as is.
+        """
         def num(v):
             if v is None:
                 return None
@@ -153,10 +215,13 @@ class SolveResult:
             return v if math.isfinite(v) else str(v)
 
         out = {
+            "schema": SCHEMA,
+            "schema_version": SCHEMA_VERSION,
             "model": self.model,
             "method": self.method,
-            "status": self.termination.value,
+            "termination": self.termination.value,
             "solution_status": self.solution_status.value,
+            "ok": self.ok,
             "objective": num(self.objective),
             "bound": num(self.bound),
             "gap": num(self.gap),
@@ -168,35 +233,210 @@ class SolveResult:
             "message": self.message,
             "certificate": None if self.certificate is None else {
                 k: num(v) for k, v in self.certificate.to_dict().items()},
-            "options": {k: (v if isinstance(v, (int, float, str, bool, type(None))) else str(v))
+            "options": {k: (v if isinstance(v, (int, float, str, bool, type(None))) else
+                            dict(v) if isinstance(v, Mapping) else str(v))
                         for k, v in self.options.items()},
-            "bid_prices": {k: num(v) for k, v in self.bid_prices.items()},
-            "n_products": int(len(self.product_ids)),
             "n_legs": int(len(self.leg_ids)),
+            "n_products": int(len(self.product_ids)),
+            "bid_prices": {k: num(v) for k, v in self.bid_prices.items()},
         }
+        if include_allocation and self.allocation is not None:
+            out["allocation"] = {str(k): num(v) for k, v in zip(self.product_ids.tolist(), self.allocation.tolist())}
         if include_history:
             out["history"] = [dataclasses.asdict(h) for h in self.history]
+        out["context"] = dict(context or {})
         return out
+
+    @classmethod
+    def from_json(cls, source) -> "SolveResult":
+        """A result back from the output schema: a dict, a JSON text, or a path to a result file.
+
+        Also reads the layouts written before the schema had a version (``decomp
+        solve``'s, a ``decomp run`` task's and a baseline case's result.json).
+        ``product_ids`` and ``allocation`` come back only when the file holds the
+        allocation; ``history`` as plain dicts turned into :class:`IterationRecord`.
+        Raises :class:`~decomp.errors.InstanceError` naming the file and field.
+        """
+        data, where = _load_json(source)
+        return _from_dict(normalize(data, where), where)
+
+
+# -- reading results back ------------------------------------------------------------
+
+def _load_json(source):
+    """(dict, where) from a dict, a JSON text or a path (a folder: its result.json)."""
+    import pathlib
+
+    from .errors import InstanceError
+
+    if isinstance(source, Mapping):
+        return dict(source), None
+    if isinstance(source, str) and source.lstrip().startswith("{"):
+        try:
+            return json.loads(source), None
+        except json.JSONDecodeError as exc:
+            raise InstanceError(f"not valid JSON ({exc.msg} at line {exc.lineno})") from exc
+    path = pathlib.Path(source)
+    if path.is_dir():
+        path = path / "result.json"
+    try:
+        data = json.loads(path.read_text())
+    except FileNotFoundError as exc:
+        raise InstanceError("result file not found", file=path) from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InstanceError(f"cannot read the result file ({exc})", file=path) from exc
+    except json.JSONDecodeError as exc:
+        raise InstanceError(f"not valid JSON ({exc.msg} at line {exc.lineno})", file=path) from exc
+    if not isinstance(data, dict):
+        raise InstanceError("a result file holds one JSON object", file=path)
+    return data, path
+
+
+def normalize(data: dict, where=None) -> dict:
+    """Any result layout decomp has written, as a dict in the current schema.
+
+    ``where``: the file it came from (a baseline case keeps its bid prices in a
+    table beside it). Layouts without ``schema_version``: ``decomp solve``'s
+    (``status`` = the stopping reason), a ``decomp run`` task's (the result under
+    ``result``, the task under ``task`` and ``record``) and a baseline case's
+    (``termination``, bid prices in ``bid_prices_file``).
+    """
+    from .errors import InstanceError
+
+    version = data.get("schema_version")
+    if version is not None:
+        if data.get("schema") != SCHEMA or version != SCHEMA_VERSION:
+            raise InstanceError(f"unknown result schema {data.get('schema')!r} version {version!r}; "
+                                f"this decomp reads {SCHEMA!r} version {SCHEMA_VERSION}", file=where,
+                                column="schema_version", value=version)
+        return dict(data)
+    out = dict(data)
+    context = {}
+    if isinstance(data.get("result"), dict) and "task" in data:          # a decomp run task
+        out = dict(data["result"])
+        context = {k: data[k] for k in ("task", "fingerprint", "record") if k in data}
+    elif "case" in data and "bid_prices_file" in data:                   # a baseline case
+        if where is None:
+            raise InstanceError("a baseline case result needs its file path (its bid prices are in "
+                                f"{data['bid_prices_file']})", column="bid_prices_file")
+        name = data["bid_prices_file"]
+        if not isinstance(name, str) or not name or "/" in name or "\\" in name or name in (".", ".."):
+            raise InstanceError("bid_prices_file must name a file beside result.json (a plain file name)",
+                                file=where, column="bid_prices_file", value=str(name)[:200])
+        table = where.parent / name
+        out["bid_prices"] = read_bid_price_table(table)
+        context = {k: data[k] for k in ("case", "instance", "instance_fingerprint", "wall_seconds") if k in data}
+    for k in ("instance", "instance_path", "versions"):
+        if k in out and k not in context:
+            context[k] = out.pop(k)
+    if "termination" not in out and "status" in out:
+        out["termination"] = out.pop("status")
+    for field in ("model", "method", "termination", "solution_status"):
+        if field not in out:
+            raise InstanceError(f"not a decomp result: no '{field}'", file=where, column=field)
+    if not isinstance(out.get("bid_prices"), dict):
+        raise InstanceError("no 'bid_prices' object in result file", file=where, column="bid_prices")
+    out.update(schema=SCHEMA, schema_version=SCHEMA_VERSION, context=context)
+    return out
+
+
+def _number(v, where, column):
+    from .errors import InstanceError
+
+    if v is None:
+        return None
+    if isinstance(v, bool):
+        raise InstanceError("expected a number", file=where, column=column, value=v)
+    try:
+        return float(v)
+    except (TypeError, ValueError) as exc:
+        raise InstanceError("expected a number", file=where, column=column, value=v) from exc
+
+
+def _from_dict(d: dict, where) -> "SolveResult":
+    from .errors import InstanceError
+
+    bp = d["bid_prices"]
+    legs = np.array([str(k) for k in bp], dtype=object)
+    prices = np.array([_number(v, where, f"bid_prices.{k}") for k, v in bp.items()], dtype=np.float64)
+    alloc = d.get("allocation")
+    products, x = np.array([], dtype=object), None
+    if isinstance(alloc, dict):
+        products = np.array([str(k) for k in alloc], dtype=object)
+        x = np.array([_number(v, where, f"allocation.{k}") for k, v in alloc.items()], dtype=np.float64)
+    cert = d.get("certificate")
+    try:
+        certificate = None if cert is None else Certificate(**{
+            f.name: _number(cert.get(f.name), where, f"certificate.{f.name}")
+            for f in dataclasses.fields(Certificate)})
+        history = tuple(IterationRecord(**h) for h in d.get("history") or ())
+        return SolveResult(
+            model=str(d["model"]), method=str(d["method"]), termination=d["termination"],
+            solution_status=d["solution_status"], objective=_number(d.get("objective"), where, "objective"),
+            bound=_number(d.get("bound"), where, "bound"), gap=_number(d.get("gap"), where, "gap"),
+            leg_ids=legs, bid_price_array=prices, product_ids=products, allocation=x,
+            iterations=d.get("iterations"), seconds=d.get("seconds") or {}, solver=str(d.get("solver")),
+            solver_version=d.get("solver_version"), raw_status=d.get("raw_status"), message=d.get("message"),
+            certificate=certificate, history=history, options=d.get("options") or {})
+    except (TypeError, ValueError, AttributeError) as exc:
+        raise InstanceError(f"not a readable decomp result ({exc})", file=where) from exc
+
+
+def read_bid_price_table(path) -> dict:
+    """Bid prices by leg id from a table (CSV or Parquet by suffix) with columns leg, bid_price.
+
+    ``leg_id`` is read as ``leg`` (the name earlier versions wrote).
+    """
+    import pathlib
+
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.csv as pcsv
+    import pyarrow.parquet as pq
+
+    from .errors import InstanceError
+
+    path = pathlib.Path(path)
+    try:
+        if path.suffix.lower() == ".parquet":
+            table = pq.read_table(path)
+        else:
+            table = pcsv.read_csv(path, convert_options=pcsv.ConvertOptions(
+                column_types={"leg": pa.string(), "leg_id": pa.string()}))
+    except FileNotFoundError as exc:
+        raise InstanceError("bid-price file not found", file=path) from exc
+    except (pa.ArrowException, OSError) as exc:
+        raise InstanceError(f"cannot read the bid-price table ({exc})", file=path) from exc
+    leg_col = "leg" if "leg" in table.column_names else "leg_id" if "leg_id" in table.column_names else None
+    if leg_col is None or "bid_price" not in table.column_names:
+        raise InstanceError("a bid-price table needs the columns leg, bid_price", file=path,
+                            column="leg" if leg_col is None else "bid_price")
+    legs = pc.cast(table.column(leg_col), pa.string()).to_pylist()
+    try:
+        prices = pc.cast(table.column("bid_price"), pa.float64()).to_pylist()
+    except pa.ArrowException as exc:
+        raise InstanceError(f"bid_price is not a number ({exc})", file=path, column="bid_price") from exc
+    for i, (leg, v) in enumerate(zip(legs, prices), start=1):
+        if leg is None or v is None:
+            raise InstanceError("missing value", file=path, row=i, column=leg_col if leg is None else "bid_price")
+    return dict(zip(legs, prices))
 
 
 def read_bid_prices(path) -> dict:
-    """Bid prices by leg id from a result JSON written by ``decomp solve``."""
-    from .errors import InstanceError
+    """Bid prices by leg id from anything decomp writes them to.
 
-    try:
-        with open(path) as fh:
-            data = json.load(fh)
-    except FileNotFoundError as exc:
-        raise InstanceError("result file not found", file=path) from exc
-    except json.JSONDecodeError as exc:
-        raise InstanceError(f"not valid JSON ({exc.msg} at line {exc.lineno})", file=path) from exc
-    bp = data.get("bid_prices") if isinstance(data, dict) else None
-    if not isinstance(bp, dict):
-        raise InstanceError("no 'bid_prices' object in result file", file=path, column="bid_prices")
+    A result JSON (``decomp solve``, a ``decomp run`` task, a baseline case, any
+    schema version), a folder holding one (a run task's or a baseline case's
+    folder), or a bid-price table (``.csv`` / ``.parquet`` with columns leg, bid_price).
+    """
+    import pathlib
+
+    p = pathlib.Path(path)
+    if p.suffix.lower() in (".csv", ".parquet"):
+        return read_bid_price_table(p)
+    data, where = _load_json(p)
+    d = normalize(data, where)
     out = {}
-    for leg, v in bp.items():
-        try:
-            out[str(leg)] = float(v)
-        except (TypeError, ValueError) as exc:
-            raise InstanceError("bid price is not a number", file=path, column=f"bid_prices.{leg}", value=v) from exc
+    for leg, v in d["bid_prices"].items():
+        out[str(leg)] = _number(v, where, f"bid_prices.{leg}")
     return out

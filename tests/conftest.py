@@ -14,3 +14,18 @@ EXTERNAL = ROOT.parent / "shared" / "external" / "hub-spoke-2009"
 @pytest.fixture
 def root() -> pathlib.Path:
     return ROOT
+
+
+def pytest_addoption(parser):
+    parser.addoption("--run-slow", action="store_true", default=False,
+                     help="also run the tests marked slow (long sweeps; left out of the default run)")
+
+
+def pytest_collection_modifyitems(config, items):
+    # Tests marked slow are deselected (not skipped) unless --run-slow is given.
+    if config.getoption("--run-slow"):
+        return
+    slow = [item for item in items if item.get_closest_marker("slow") is not None]
+    if slow:
+        config.hook.pytest_deselected(items=slow)
+        items[:] = [item for item in items if item.get_closest_marker("slow") is None]

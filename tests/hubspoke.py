@@ -66,3 +66,22 @@ def read(path) -> Instance:
             route = [f"L{o}-{HUB}", f"L{HUB}-{d}"]
         products.append((f"I{o}-{d}-{c}", route, fare, mean[k], float(np.sqrt(var[k]))))
     return Instance.from_lists(legs, products, meta={"name": path.stem, "source": str(path)})
+
+
+def read_periods(path):
+    """(Instance, PeriodDemand): the instance of :func:`read` and its per-period request probabilities."""
+    from decomp.dynamic.demand import PeriodDemand
+
+    path = pathlib.Path(path)
+    inst = read(path)
+    index = {pid: k for k, pid in enumerate(inst.product_ids.tolist())}
+    lines = list(_data_lines(path))
+    tau = int(lines[0])
+    n_legs = int(lines[1])
+    n_itin = int(lines[2 + n_legs])
+    prob = np.zeros((tau, inst.n_products))
+    for row, line in enumerate(lines[3 + n_legs + n_itin:]):
+        _, rest = line.split(None, 1)
+        for o, d, c, p in _PAIR.findall(rest):
+            prob[row, index[f"I{o}-{d}-{c}"]] += float(p)
+    return inst, PeriodDemand(prob, source=f"{path.name} (per-period probabilities as published)")

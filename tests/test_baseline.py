@@ -18,6 +18,7 @@ import pytest
 
 from decomp import baseline as bl
 from decomp.instance import Instance
+from decomp.options import SolverOptions
 from decomp.result import SolutionStatus, Termination
 
 
@@ -168,7 +169,15 @@ def test_record_writes_plain_files_and_manifest(tmp_path):
     for f in manifest["files"]:   # sha256 from hashlib (reference)
         assert hashlib.sha256((out / f["path"]).read_bytes()).hexdigest() == f["sha256"]
     assert (out / "cases/series-dlp-highs/bid_prices.csv").read_text() == \
-        "leg_id,bid_price\nQAAQHX,100.0\nQHXQAB,0.0\n"
+        "leg,bid_price\nQAAQHX,100.0\nQHXQAB,0.0\n"
+    # the case's result.json is the one result schema, the case's own facts under context
+    from decomp.result import SCHEMA, SolveResult, read_bid_prices
+
+    data = json.loads((out / "cases/series-dlp-highs/result.json").read_text())
+    assert data["schema"] == SCHEMA and data["schema_version"] == 1 and data["context"]["case"] == "series-dlp-highs"
+    assert data["context"]["solver_options"]["tol"] == SolverOptions().tol and "history" not in data
+    assert SolveResult.from_json(out / "cases/series-dlp-highs").bid_prices == {"QAAQHX": 100.0, "QHXQAB": 0.0}
+    assert read_bid_prices(out / "cases/series-dlp-highs/bid_prices.csv") == {"QAAQHX": 100.0, "QHXQAB": 0.0}
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]   # no temporary left
 
 
@@ -290,6 +299,15 @@ def test_edited_manifest_and_missing_folder(recorded, tmp_path):
         bl.load(recorded)
     with pytest.raises(bl.BaselineError, match="not found"):
         bl.load(tmp_path / "nowhere")
+
+
+def test_cli_time_ratio_takes_the_threshold_forms(recorded, capsys):
+    from decomp.cli import build_parser, main
+
+    assert build_parser().parse_args(["baseline", "check", str(recorded)]).time_ratio == "2x"
+    for bad in ("fast", "0.5x", "0.5"):          # refused before anything is solved: exit 2, the value named
+        assert main(["baseline", "check", str(recorded), "--time-ratio", bad]) == 2
+        assert bad in capsys.readouterr().err
 
 
 def test_cli_exit_code_2_on_tampered_baseline(recorded, capsys):
@@ -445,7 +463,10 @@ def test_warmup_solves_each_pair_once_untimed(tmp_path):
 
 def test_environment_change_is_reported(recorded, monkeypatch):
     real = bl.environment()
-    monkeypatch.setattr(bl, "environment", lambda: {**real, "highs_library": "99.0.0"})
+    import importlib
+
+    check_module = importlib.import_module("decomp.baseline.check")   # the module, not the function
+    monkeypatch.setattr(check_module, "environment", lambda: {**real, "highs_library": "99.0.0"})
     rep = bl.check(recorded, solve_fn=_canned_solver([100, 0]))
     assert ("highs_library", real["highs_library"], "99.0.0") in rep.environment_changes
     assert not rep.regression                     # a version change alone is not a regression

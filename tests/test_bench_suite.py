@@ -8,6 +8,7 @@ from __future__ import annotations
 import copy
 import json
 import math
+import os
 
 import numpy as np
 import pytest
@@ -85,8 +86,23 @@ def test_case_table_is_skip_free_and_ordered():
 def test_threshold_parsing():
     assert parse_threshold("10%") == pytest.approx(0.10)
     assert parse_threshold("0.25") == pytest.approx(0.25)
+    assert parse_threshold("2x") == pytest.approx(1.0) and parse_threshold("1.1X") == pytest.approx(0.1)
+    with pytest.raises(Exception, match="ratio above 1x"):
+        parse_threshold("0.9x")
     with pytest.raises(Exception, match="threshold"):
         parse_threshold("fast")
+
+
+def test_time_ratio_parsing_shares_the_threshold_forms():
+    from decomp.benchsuite.compare import parse_ratio
+    from decomp.errors import ConfigError
+
+    # the same growth read both ways: --threshold 100% allows what --time-ratio 2x / 100% / 2 allows
+    assert parse_ratio("2x") == parse_ratio("100%") == parse_ratio("2") == pytest.approx(1 + parse_threshold("100%"))
+    assert parse_ratio("1.1X") == pytest.approx(1.1) and parse_ratio("2.5") == 2.5
+    for bad in ("0.9x", "0.5", "-10%", "slow"):
+        with pytest.raises(ConfigError):
+            parse_ratio(bad)
 
 
 # -- one micro run -------------------------------------------------------------
@@ -99,7 +115,13 @@ def micro_run(tmp_path_factory):
 
     out = tmp_path_factory.mktemp("bench-micro")
     # 20 booking paths per case: the revenue pricing is checked on the same run (about 0.1 s a case).
-    res = run_suite("micro", out, progress=False, revenue_paths=REVENUE_PATHS)
+    # Run from another folder with a relative --out (pytest itself runs in the project folder).
+    here = os.getcwd()
+    os.chdir(out.parent)
+    try:
+        res = run_suite("micro", out.name, progress=False, revenue_paths=REVENUE_PATHS)
+    finally:
+        os.chdir(here)
     log = (out / "pytest.log").read_text() if (out / "pytest.log").exists() else ""
     assert res.json_path is not None, log[-3000:]
     return res, out
@@ -218,6 +240,9 @@ def test_micro_run_prices_bid_prices_on_common_paths(micro_run):
         ref = rev["references"][f"tiny/{bcases.REFERENCE_MODEL[info['model']]}"]["mean"]
         assert info["revenue_reference_mean"] == ref
         assert info["revenue_loss_rel"] == pytest.approx((ref - info["revenue_mean"]) / ref, rel=1e-12, abs=1e-15)
+        # the paired interval of the loss holds its point estimate (mean of the per-path differences)
+        lo, hi = info["revenue_loss_ci"]
+        assert lo <= info["revenue_loss_rel"] + 1e-15 and info["revenue_loss_rel"] <= hi + 1e-15
     # Common random numbers (same seed, same paths): the DLP reference's bid prices from HiGHS,
     # priced again here, give exactly the revenue the run recorded for them, and the run's HiGHS
     # case (the same LP solved again) has the same revenue, so a loss of 0.
@@ -226,6 +251,36 @@ def test_micro_run_prices_bid_prices_on_common_paths(micro_run):
     mean, _ = revenue_for_bid_prices(inst, res.bid_price_array, REVENUE_PATHS, revenue_seed("tiny"))
     assert mean == pytest.approx(rev["references"]["tiny/dlp"]["mean"], rel=1e-12)
     highs = next(i for i in solve if i["model"] == "dlp" and i["method"] == "highs")
-    assert highs["revenue_loss_rel"] == 0.0
+    assert highs["revenue_loss_rel"] == 0.0 and highs["revenue_loss_ci"] == [0.0, 0.0]
     report = (out / "report.md").read_text()
     assert "| revenue loss |" in report and f"same {REVENUE_PATHS} seeded booking" in report
+
+
+class _Row(dict):
+    def time(self, stat):
+        return self["t"]
+
+
+def test_pareto_panels_share_colours_and_keep_the_dlp_off_the_pnlp_front():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    from decomp.benchsuite import plots
+
+    rows = [_Row(model="pnlp", label="ipopt", t=2.0, gap=1e-9, bid_price_error=1e-8, knobs={"tol": 1e-9}),
+            _Row(model="pnlp", label="lagrangian-newton", t=1.0, gap=1e-7, bid_price_error=1e-6, knobs={"tol": 1e-6}),
+            _Row(model="dlp", label="highs", t=0.1, gap=0.0, knobs={})]
+    colors = plots.method_colors(rows)
+    fig, (a1, a2) = plt.subplots(1, 2)
+    plots._scatter(a1, [r for r in rows if r["model"] == "pnlp"], "bid_price_error", "min", "e", colors)
+    plots._scatter(a2, rows, "gap", "min", "g", colors, on_front=lambda r: r["model"] != "dlp")
+    def colour_of(ax, label):
+        return next(l.get_color() for l in ax.lines if l.get_label() == label)
+    for label in ("pnlp ipopt", "pnlp lagrangian-newton"):
+        assert colour_of(a1, label) == colour_of(a2, label)
+    front = next(l for l in a2.lines if l.get_label() == "Pareto front")
+    # the DLP (fastest, gap 0 to its own LP) would dominate everything; it is not on the front
+    assert 0.1 not in list(front.get_xdata()) and sorted(front.get_xdata()) == [1.0, 2.0]
+    plt.close(fig)

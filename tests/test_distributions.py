@@ -137,12 +137,14 @@ def test_smoothing_is_an_upper_bound_equal_away_from_breakpoints():
 
 
 def test_family_names_are_validated():
-    legs = [("L1", "AA", "BB", 10.0)]
-    inst = Instance.from_lists(legs, [("P1", ["L1"], 10.0, 3.0, 1.0)], distribution=["weibull"])
+    # built with the constructor: from_lists itself refuses an unknown distribution, as files do
+    def one(distribution):
+        return Instance(leg_ids=["L1"], leg_origin=["AA"], leg_destination=["BB"], capacity=[10.0],
+                        product_ids=["P1"], leg_ptr=[0, 1], leg_index=[0], fare=[10.0], mean=[3.0], std=[1.0],
+                        distribution=[distribution])
     with pytest.raises(InstanceError, match="row 1"):
-        D.family_codes(inst)
-    inst = Instance.from_lists(legs, [("P1", ["L1"], 10.0, 3.0, 1.0)], distribution=[" Gamma"])
-    assert D.family_codes(inst).tolist() == [D.GAMMA]
+        D.family_codes(one("weibull"))
+    assert D.family_codes(one(" Gamma")).tolist() == [D.GAMMA]
 
 
 # -- the Lagrangian method on non-normal instances ------------------------------------------

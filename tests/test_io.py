@@ -35,7 +35,7 @@ def awkward_instance() -> Instance:
     # text needing CSV quotes, and a distribution column
     legs = [("A1", "KA1", "HU2", 100.0), ("A2", "HU2", "BO3", 0.1 + 0.2), ("A3", "BO3", "HU2", 1e-7)]
     prods = [("p,1", ["A1"], 1 / 3, 0.0, 0.0), ("p2", ["A1", "A2"], 123456789.123, 2.5, 1e-300),
-             ('p"3', ["A2", "A3"], 7.0, 1e20, 3.0)]
+             ('p"3', ["A2", "A3"], 7.0, 1e-20, 3.0)]     # (demand above 1e6 is refused: decomp.io.MAX_DEMAND)
     return Instance.from_lists(
         legs, prods, distribution=["normal", "gamma", "poisson"],
         leg_extra={"code": np.array(["007", "08", "9"], dtype=object), "bank": np.array([1, 2, 3])},
@@ -79,7 +79,7 @@ def test_csv_layout(tmp_path):
     assert legs[2] == "A2,HU2,BO3,0.30000000000000004,08,2"
     assert prods[0] == "product,legs,fare,mean,std,distribution,note,weight"
     assert prods[1] == '"p,1",A1,0.3333333333333333,0,0,normal,"has, comma",0.5'
-    assert prods[3].startswith('"p""3",A2 A3,7,1e+20,3,poisson,"quote ""q""",')
+    assert prods[3].startswith('"p""3",A2 A3,7,1e-20,3,poisson,"quote ""q""",')
 
 
 def test_reads_user_csv_with_loose_number_forms(tmp_path):

@@ -196,7 +196,7 @@ def test_solve_command_writes_a_result(tmp_path, rungs):
                  "--out", str(out)])
     assert code == 0
     data = json.loads(out.read_text())
-    assert data["status"] == "optimal" and data["method"] == "lagrangian"
+    assert data["termination"] == "optimal" and data["method"] == "lagrangian"
     warm = tmp_path / "w.json"
     code = main(["solve", str(ladder.rung_path("p100")), "--model", "pnlp", "--method", "lagrangian",
                  "--warm-start", str(out), "--out", str(warm)])

@@ -123,9 +123,9 @@ def _outputs(out, batch):
     res = {}
     for spec in batch.tasks:
         d = task_dir(out, spec.key)
-        rec = json.loads((d / RESULT_FILE).read_text())["record"]
+        rec = json.loads((d / RESULT_FILE).read_text())["context"]["record"]
         res[spec.key] = (read_bid_prices(d / BID_FILE), rec["objective"], rec["gap"], rec["iterations"],
-                         rec["status"])
+                         rec["task_status"])
     return res
 
 
@@ -154,7 +154,7 @@ def test_clean_run(clean):
     # Weak duality (a mathematical fact): the dual value at any bid prices >= 0 bounds the
     # optimum from above, so bound >= objective; the certified gap meets the tolerance.
     for spec in b.tasks:
-        rec = json.loads((task_dir(out, spec.key) / RESULT_FILE).read_text())["record"]
+        rec = json.loads((task_dir(out, spec.key) / RESULT_FILE).read_text())["context"]["record"]
         assert rec["bound"] >= rec["objective"] * (1 - 1e-12)
         assert -1e-12 <= rec["gap"] <= 1e-9          # rounding can make a closed gap slightly negative
 
@@ -173,7 +173,7 @@ def test_dlp_batch_against_linprog(cluster, tmp_path):
         # max f.x s.t. A x <= c, 0 <= x <= mean.
         lp = linprog(-inst.fare, A_ub=inst.A, b_ub=inst.capacity,
                      bounds=np.column_stack([np.zeros(inst.n_products), inst.mean]), method="highs")
-        rec = json.loads((task_dir(tmp_path, spec.key) / RESULT_FILE).read_text())["record"]
+        rec = json.loads((task_dir(tmp_path, spec.key) / RESULT_FILE).read_text())["context"]["record"]
         assert lp.status == 0
         assert rec["objective"] == pytest.approx(-lp.fun, rel=1e-8)
 
@@ -268,8 +268,8 @@ def test_corrupt_instance_fails_alone(cluster, tmp_path):
     assert rc == 1
     s = json.loads((out / "summary.json").read_text())
     by = {t["key"]: t for t in s["tasks"]}
-    assert by["net0"]["status"] == by["net2"]["status"] == "ok"
-    assert by["net1"]["status"] == "failed"
+    assert by["net0"]["task_status"] == by["net2"]["task_status"] == "ok"
+    assert by["net1"]["task_status"] == "failed"
     err = by["net1"]["error"]
     assert "InstanceError" in err and "products.csv" in err and "row 5" in err and "fare" in err
     assert (task_dir(out, "net1") / "error.json").is_file()
@@ -284,7 +284,8 @@ def test_embedded_cluster_and_warm_start(clean, tmp_path):
     s = run_batch(two, _config(tmp_path / "warm", warm=str(out0)), workers=1)
     assert s["totals"]["ok"] == 2 and s["totals"]["workers"] == 1
     assert all(t["warm_started"] for t in s["tasks"])
-    rec = json.loads((task_dir(tmp_path / "warm", two.tasks[0].key) / RESULT_FILE).read_text())["record"]
+    rec = json.loads((task_dir(tmp_path / "warm", two.tasks[0].key) / RESULT_FILE).read_text())
+    rec = rec["context"]["record"]
     assert rec["warm_start"]["legs_matched"] == rec["n_legs"]
     ref = _outputs(out0, two)
     got = _outputs(tmp_path / "warm", two)

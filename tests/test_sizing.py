@@ -165,11 +165,15 @@ def test_calibration_from_a_pilot_run(exact, tmp_path):
     # the fit gives 0.2 s): the fit is scaled by 2, so 183 rounds of (0.4 + 0.1) s = 91.5 s.
     summ = tmp_path / "pilot.json"
     summ.write_text(json.dumps({"totals": {"overhead_per_task_seconds": 0.1, "cluster_start_seconds": 0.0},
-                                "tasks": [{"status": "ok", "skipped": False, "n_products": 100_000,
+                                "tasks": [{"task_status": "ok", "skipped": False, "n_products": 100_000,
                                            "seconds_solve": s} for s in (0.38, 0.4, 0.42)]
-                                + [{"status": "failed", "n_products": 100_000, "seconds_solve": 9.0}]}))
+                                + [{"task_status": "failed", "n_products": 100_000, "seconds_solve": 9.0}]}))
     pairs = sizing.read_run_solves(summ)
     assert len(pairs) == 3
+    # a summary.json of a run written before the one result schema names the field "status"
+    old = tmp_path / "old.json"
+    old.write_text(summ.read_text().replace('"task_status"', '"status"'))
+    assert sizing.read_run_solves(old) == pairs
     s = sizing.size_run(sizing.load_bench(exact), model="pnlp", method="lagrangian", tol=1e-9,
                         task_products=sizing.task_sizes(365, 100_000), workers=2, window=60.0, overhead=0.1,
                         calibration=pairs)
@@ -180,9 +184,10 @@ def test_calibration_from_a_pilot_run(exact, tmp_path):
 
 # -- revenue loss against tolerance (decomp size --revenue-loss) ---------------------------
 
-def _priced(n, t, tol, loss, paths=200):
+def _priced(n, t, tol, loss, paths=200, halfwidth=1e-4):
     c = _case(n, t, tol=tol)
-    c["extra_info"].update(revenue_loss_rel=loss, revenue_paths=paths)
+    ci = None if halfwidth is None else [loss - halfwidth, loss + halfwidth]
+    c["extra_info"].update(revenue_loss_rel=loss, revenue_paths=paths, revenue_loss_ci=ci)
     return c
 
 
@@ -192,12 +197,13 @@ def priced(tmp_path):
 
     At the largest rung (100,000 products): loss 0 at 1e-9, 2e-4 at 1e-6, 3e-3 at 1e-4. At 10,000
     products the 1e-4 loss is only 5e-4: the answer must come from the largest rung, not this one.
+    Every paired 95 % interval is the loss +- 1e-4 (+- 0 at 1e-9: the same bid prices as the reference).
     """
     cases = []
     for tol, a, losses in ((1e-9, 2e-6, (0.0, 0.0, 0.0)), (1e-6, 1e-6, (1e-5, -1e-4, 2e-4)),
                            (1e-4, 5e-7, (1e-4, 5e-4, 3e-3))):
         for n, loss in zip((1_000, 10_000, 100_000), losses):
-            cases.append(_priced(n, a * n, tol, loss))
+            cases.append(_priced(n, a * n, tol, loss, halfwidth=0.0 if tol == 1e-9 else 1e-4))
     cases.append(_case(100_000, 99.0, tol=1e-4, termination="time_limit"))   # stopped by a limit: ignored
     return _write(tmp_path, cases)
 
@@ -215,7 +221,11 @@ def test_loosest_tolerance_within_revenue_loss_by_hand(priced):
     assert [r["within"] for r in rv["by_tol"]] == [True, True, False]
     assert rv["seconds_saved_measured"] == pytest.approx(0.1, rel=1e-9)
     assert rv["seconds_saved_per_task"] == pytest.approx(0.1, rel=1e-9)
-    assert "point estimate" in rv["estimate"]
+    assert "upper end" in rv["estimate"]
+    # the interval rule: within 2.5e-4 the point estimate of tol 1e-6 (2e-4) is, its interval
+    # (up to 3e-4) is not, so tol 1e-6 is not recommended
+    rv = sizing.size_run(cases, revenue_loss=2.5e-4, **kw)["revenue"]
+    assert rv["loosest_tol"] == 1e-9 and rv["by_tol"][1]["why"] == "interval reaches past the limit"
     # within 1e-2 every tolerance qualifies: 1e-4, saving 0.2 - 0.05 = 0.15 s
     rv = sizing.size_run(cases, revenue_loss=1e-2, **kw)["revenue"]
     assert rv["loosest_tol"] == 1e-4 and rv["seconds_saved_per_task"] == pytest.approx(0.15, rel=1e-9)
@@ -236,7 +246,7 @@ def test_revenue_loss_needs_revenue_data(exact, tmp_path, capsys):
                "--out", str(tmp_path / "sz")])
     assert rc == 2 and "--revenue-paths" in capsys.readouterr().err
     bad = tmp_path / "badrev.json"
-    c = _priced(1000, 0.01, 1e-9, "lots")
+    c = _priced(1000, 0.01, 1e-9, "lots", halfwidth=None)
     bad.write_text(json.dumps({"benchmarks": [c]}))
     with pytest.raises(InstanceError, match="revenue_loss_rel"):
         sizing.load_bench(bad)
@@ -250,7 +260,34 @@ def test_size_command_revenue_loss(priced, tmp_path, capsys):
                "--revenue-loss", "0.001", "--out", str(out)])
     text = capsys.readouterr().out
     assert rc == 0 and "loosest tolerance within a revenue loss of 0.001: 1e-06" in text
-    assert "NOT within" in text and "point estimate" in text
+    assert "NOT within" in text and "95% upper end +3.000e-04" in text
     data = json.loads((out / "sizing.json").read_text())
     assert data["revenue"]["loosest_tol"] == 1e-6
     assert data["revenue"]["seconds_saved_per_task"] == pytest.approx(0.1, rel=1e-9)
+
+
+def test_fits_need_three_sizes_and_start_at_1000_products(tmp_path, capsys):
+    """Two sizes fit any power law exactly (no residual, no interval): refused, with exit 2 on the command line."""
+    from decomp.cli import main
+
+    two = _write(tmp_path, [_case(n, 1e-6 * n) for n in (10_000, 100_000)])
+    with pytest.raises(ConfigError, match="on 2 size"):
+        sizing.size_run(sizing.load_bench(two), model="pnlp", method="lagrangian", tol=1e-9,
+                        task_products=[1e5], workers=1, window=60.0)
+    one = tmp_path / "one.json"
+    one.write_text(json.dumps({"benchmarks": [_case(100_000, 0.1)]}))
+    for bench in (two, one):
+        rc = main(["size", "--bench", str(bench), "--products", "100000", "--window", "1h",
+                   "--out", str(tmp_path / "sz")])
+        assert rc == 2 and "at least 3" in capsys.readouterr().err
+    # by default the fit starts at 1,000 products: a 100-product case does not make the third size
+    small = tmp_path / "small.json"
+    small.write_text(json.dumps({"benchmarks": [_case(n, 1e-6 * n) for n in (100, 10_000, 100_000)]}))
+    assert main(["size", "--bench", str(small), "--products", "100000", "--window", "1h",
+                 "--out", str(tmp_path / "sz")]) == 2
+    capsys.readouterr()
+    assert main(["size", "--bench", str(small), "--products", "100000", "--window", "1h", "--fit-min-products",
+                 "0", "--dates", "2027-01-01:2027-01-10", "--workers", "2", "--json",
+                 "--out", str(tmp_path / "sz")]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["tasks"] == 10 and data["result"]["fit"]["n_points"] == 3

@@ -27,17 +27,20 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
                  "--allocation", str(alloc)])
     assert code == 0
     data = json.loads(out.read_text())
-    for key in ("status", "model", "method", "objective", "gap", "bid_prices", "iterations", "seconds",
-                "solver", "solver_version", "instance", "certificate"):
+    for key in ("schema", "schema_version", "termination", "solution_status", "ok", "model", "method",
+                "objective", "gap", "bid_prices", "iterations", "seconds", "solver", "solver_version",
+                "certificate", "context"):
         assert key in data, key
-    assert data["status"] == "optimal" and data["model"] == "pnlp" and data["method"] == "ipopt"
+    assert data["termination"] == "optimal" and data["model"] == "pnlp" and data["method"] == "ipopt"
+    assert data["schema"] == "decomp.result" and data["schema_version"] == 1 and data["ok"] is True
+    assert data["context"]["instance"] == "p100"
     assert set(data["seconds"]) == {"build", "solve", "certify"}
     # the versions are those the libraries themselves report (numpy, cyipopt.IPOPT_VERSION, highspy's
     # compile-time constants)
     import cyipopt
     import highspy
 
-    v = data["versions"]
+    v = data["context"]["versions"]
     assert v["numpy"] == np.__version__
     assert v["ipopt_library"] == ".".join(map(str, cyipopt.IPOPT_VERSION))
     assert v["highs_library"] == f"{highspy.HIGHS_VERSION_MAJOR}.{highspy.HIGHS_VERSION_MINOR}.{highspy.HIGHS_VERSION_PATCH}"
@@ -46,7 +49,8 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
     assert set(data["bid_prices"]) == set(inst.leg_ids.tolist())
     assert all(v >= 0 for v in data["bid_prices"].values())
     table = pcsv.read_csv(alloc)
-    assert table.column_names == ["product", "allocation"]
+    assert table.column_names == ["product", "legs", "fare", "mean", "std", "allocation", "displacement",
+                                  "margin", "decision"]
     assert table.num_rows == inst.n_products
     x = table.column("allocation").to_numpy()
     # the allocation file keeps capacities (checked from the file, against the instance)
@@ -65,7 +69,7 @@ def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
     second = tmp_path / "r2.json"
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(first),
                  "--out", str(second)]) == 0
-    assert json.loads(second.read_text())["status"] == "optimal"
+    assert json.loads(second.read_text())["termination"] == "optimal"
 
 
 def test_limits_exit_one_and_still_write(inst_dir, tmp_path):
@@ -73,7 +77,7 @@ def test_limits_exit_one_and_still_write(inst_dir, tmp_path):
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "2",
                  "--out", str(out)]) == 1
     data = json.loads(out.read_text())
-    assert data["status"] == "iteration_limit" and data["solution_status"] != "optimal"
+    assert data["termination"] == "iteration_limit" and data["solution_status"] != "optimal"
 
 
 def test_bad_input_exits_two(inst_dir, tmp_path, capsys):

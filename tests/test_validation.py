@@ -241,6 +241,7 @@ def test_unknown_distribution(tmp_path):
 def test_known_distributions_are_kept(tmp_path):
     prods = [PRODUCTS[0] + ",distribution"] + [p + "," + d for p, d in
                                                zip(PRODUCTS[1:], ["normal", "gamma", "poisson", "negbin"])]
+    prods[4] = prods[4].replace(",4,1,", ",4,3,")       # a negative binomial needs std^2 > mean
     inst = read_instance(make(tmp_path, products=prods))
     assert list(inst.distribution) == ["normal", "gamma", "poisson", "negbin"]
 
@@ -323,8 +324,12 @@ def test_invalid_instance_is_not_written(tmp_path):
 
 
 def test_check_instance_connections():
-    inst = Instance.from_lists([("A", "X1", "Y1", 10), ("B", "Z1", "X1", 10)],
-                               [("p", ["A", "B"], 10.0, 1.0, 1.0)])
+    legs, products = [("A", "X1", "Y1", 10), ("B", "Z1", "X1", 10)], [("p", ["A", "B"], 10.0, 1.0, 1.0)]
+    # from_lists runs the same checks and names the list
+    with pytest.raises(InstanceError, match="products, row 1, column 'legs': legs do not connect"):
+        Instance.from_lists(legs, products)
+    inst = Instance(leg_ids=["A", "B"], leg_origin=["X1", "Z1"], leg_destination=["Y1", "X1"], capacity=[10, 10],
+                    product_ids=["p"], leg_ptr=[0, 2], leg_index=[0, 1], fare=[10.0], mean=[1.0], std=[1.0])
     with pytest.raises(InstanceError, match="do not connect"):
         check_instance(inst)
 

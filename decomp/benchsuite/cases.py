@@ -3,8 +3,10 @@
 A :class:`Case` is one timed measurement. ``kind="solve"`` times one call of
 :func:`decomp.solve` (for the Pyomo methods that call includes building the
 model: it is what a user waits for; the phases are kept in ``extra_info``);
-``kind="build"`` times the Pyomo model builder alone. Instance generation and
-loading are never timed.
+``kind="build"`` times the Pyomo model builder alone; ``kind="tables"`` times
+the dynamic-programming decomposition by leg (:func:`decomp.dynamic.decompose`,
+``method="decomposition"``) from the reference solve's bid prices of ``model``
+over ``periods`` booking periods. Instance generation and loading are never timed.
 
 Suites:
 
@@ -53,7 +55,7 @@ BID_PRICE_FLOOR = 1e-3
 class Case:
     """One benchmark case. ``knobs`` are SolverOptions fields (tol, segments, dual_method, limits)."""
 
-    kind: str            # "solve" or "build"
+    kind: str            # "solve", "build" or "tables"
     rung: str
     model: str
     method: str          # for kind "build": the builder family ("pyomo")
@@ -87,6 +89,8 @@ class Case:
             parts.append(f"K{o['segments']}")
         if "tol" in o:
             parts.append(f"tol{o['tol']:.0e}")
+        if "periods" in o:
+            parts.append(f"T{o['periods']}")
         return "-".join(parts)
 
     @property
@@ -139,6 +143,9 @@ _SPECS = (
     _Spec("pnlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
     _Spec("dlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
     _Spec("pwl", "pyomo", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, kind="build", rounds_cap=1),
+    # Bid-price tables by leg, period and seats left from the DLP's bid prices (about 1 s at p10k, 200 periods).
+    _Spec("dlp", "decomposition", ({"periods": 200},), {"quick": "p10k", "full": "p100k"}, kind="tables",
+          rounds_cap=2),
 )
 
 #: Rounds by rung (each round is one solve; the report uses the minimum and the median).
@@ -146,6 +153,15 @@ _ROUNDS = {"tiny": 1, "p100": 3, "p1k": 3, "p10k": 2, "p100k": 1, "p1m": 1}
 
 #: The Pyomo method whose builders a build case times, by model.
 BUILD_METHOD = {"pnlp": "pyomo-ipopt", "dlp": "pyomo-highs", "pwl": "pyomo-highs"}
+
+
+def _checked_method(spec) -> str:
+    """The registered method a case needs: the builder's, the reference's (tables) or its own."""
+    if spec.kind == "build":
+        return BUILD_METHOD[spec.model]
+    if spec.kind == "tables":
+        return REFERENCES[spec.model][0][0]
+    return spec.method
 
 
 def _method_ok(method: str, model: str, registry_pairs, available) -> bool:
@@ -161,7 +177,7 @@ def suite_cases(suite: str, registry_pairs, available) -> list:
         raise ValueError(f"unknown suite {suite!r}; suites: {', '.join(SUITES)}")
     cases = []
     for spec in _SPECS:
-        method_for_check = BUILD_METHOD[spec.model] if spec.kind == "build" else spec.method
+        method_for_check = _checked_method(spec)
         if not _method_ok(method_for_check, spec.model, registry_pairs, available):
             continue
         if suite == "micro":
@@ -273,7 +289,7 @@ def excluded(suite: str, pairs, status) -> list:
     out = []
     seen = set()
     for spec in _SPECS:
-        name = BUILD_METHOD[spec.model] if spec.kind == "build" else spec.method
+        name = _checked_method(spec)
         key = (spec.model, name)
         if key in seen:
             continue

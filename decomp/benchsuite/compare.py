@@ -58,18 +58,42 @@ class Comparison:
 
 
 def parse_threshold(text) -> float:
-    """'10%' or '0.1' -> 0.1."""
+    """Allowed growth: '10%' or '0.1' -> 0.1; a ratio new/old '1.1x' -> 0.1 (as ``baseline check
+    --time-ratio 1.1``)."""
+    from ..errors import ConfigError
+
     s = str(text).strip()
     try:
-        v = float(s[:-1]) / 100.0 if s.endswith("%") else float(s)
+        if s.endswith("%"):
+            v = float(s[:-1]) / 100.0
+        elif s.lower().endswith("x"):
+            v = float(s[:-1]) - 1.0
+        else:
+            v = float(s)
     except ValueError as exc:
-        from ..errors import ConfigError
-
-        raise ConfigError(f"threshold must be a fraction or a percentage such as 10%, got {text!r}") from exc
+        raise ConfigError(f"threshold must be a fraction, a percentage such as 10% or a ratio such as 1.1x, "
+                          f"got {text!r}") from exc
     if not v > 0:
-        from ..errors import ConfigError
+        raise ConfigError(f"threshold must be positive (a ratio above 1x), got {text!r}")
+    return v
 
-        raise ConfigError(f"threshold must be positive, got {text!r}")
+
+def parse_ratio(text) -> float:
+    """An allowed ratio new/old (``baseline check --time-ratio``): '2x' or '100%' -> 2.0, through
+    :func:`parse_threshold` (1 + the growth it reads); a bare number is the ratio itself ('2' -> 2.0),
+    as the option has always read it, not a growth fraction as ``--threshold`` reads one."""
+    from ..errors import ConfigError
+
+    s = str(text).strip()
+    if s.endswith("%") or s.lower().endswith("x"):
+        return 1.0 + parse_threshold(s)
+    try:
+        v = float(s)
+    except ValueError as exc:
+        raise ConfigError(f"ratio must be a number such as 2, a ratio such as 2x or a growth such as 100%, "
+                          f"got {text!r}") from exc
+    if not v >= 1:
+        raise ConfigError(f"ratio must be at least 1 (new no faster than old allowed), got {text!r}")
     return v
 
 

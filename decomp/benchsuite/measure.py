@@ -189,10 +189,19 @@ def price_bid_prices(instance, bid_prices, paths: int, seed: int) -> dict | None
     bp = np.asarray(bid_prices, dtype=np.float64)
     if bp.shape != (instance.n_legs,) or not np.all(np.isfinite(bp)):
         return None
-    from decomp.simulation.run import revenue_for_bid_prices
+    from decomp.simulation.run import path_revenues_for_bid_prices
+    from decomp.simulation.statistics import mean_ci
 
-    mean, (low, high) = revenue_for_bid_prices(instance, bp, int(paths), int(seed))
-    return {"mean": _num(mean), "ci": [_num(low), _num(high)], "paths": int(paths), "seed": int(seed)}
+    per_path = path_revenues_for_bid_prices(instance, bp, int(paths), int(seed))
+    ci = mean_ci(per_path)
+    # path_revenue: kept in memory for the paired interval of the loss, not written
+    return {"mean": _num(ci["mean"]), "ci": [_num(ci["low"]), _num(ci["high"])], "paths": int(paths),
+            "seed": int(seed), "path_revenue": per_path}
+
+
+def public_revenue(rev: dict | None) -> dict | None:
+    """A priced revenue without its per-path values (for the benchmark JSON)."""
+    return None if rev is None else {k: v for k, v in rev.items() if k != "path_revenue"}
 
 
 def revenue_fields(case_rev: dict | None, ref_rev: dict | None) -> dict:
@@ -200,8 +209,10 @@ def revenue_fields(case_rev: dict | None, ref_rev: dict | None) -> dict:
 
     ``revenue_loss_rel`` = (reference revenue - case revenue) / reference revenue, both
     means over the same sample paths (a point estimate; negative when the case earned more).
+    ``revenue_loss_ci``: its paired 95 % t interval, from the per-path differences (common
+    random numbers: path k is the same demand for the case and the reference).
     """
-    out = {"revenue_mean": None, "revenue_ci": None, "revenue_loss_rel": None,
+    out = {"revenue_mean": None, "revenue_ci": None, "revenue_loss_rel": None, "revenue_loss_ci": None,
            "revenue_reference_mean": None, "revenue_paths": None, "revenue_seed": None}
     if case_rev is None:
         return out
@@ -211,6 +222,12 @@ def revenue_fields(case_rev: dict | None, ref_rev: dict | None) -> dict:
         out["revenue_reference_mean"] = ref_rev["mean"]
         if ref_rev["mean"] != 0:
             out["revenue_loss_rel"] = (ref_rev["mean"] - case_rev["mean"]) / abs(ref_rev["mean"])
+            a, b = ref_rev.get("path_revenue"), case_rev.get("path_revenue")
+            if a is not None and b is not None and len(a) == len(b) >= 2:
+                from decomp.simulation.statistics import mean_ci
+
+                d = mean_ci((np.asarray(a) - np.asarray(b)) / abs(ref_rev["mean"]))
+                out["revenue_loss_ci"] = [_num(d["low"]), _num(d["high"])]
     return out
 
 

@@ -52,7 +52,7 @@ def headline_series(run, stat: str = "min") -> dict:
     """(model, label) -> sorted list of (n_products, time, row) at the headline knob."""
     groups = {}
     for r in run.rows:
-        if r.get("kind") != "solve" and r.get("kind") != "build":
+        if r.get("kind") not in ("solve", "build", "tables"):
             continue
         groups.setdefault((r.get("model"), r.get("label")), []).append(r)
     out = {}
@@ -87,6 +87,8 @@ def knob_parts(row, limits: bool = False) -> list:
         parts.append(f"K={k['segments']}")
     if "tol" in k:
         parts.append(f"tol={k['tol']:.0e}")
+    if "periods" in k:
+        parts.append(f"T={k['periods']}")
     if limits:
         parts += [f"{name}={k[name]:g}" for name in ("time_limit", "iteration_limit") if k.get(name) is not None]
     return parts
@@ -140,28 +142,48 @@ def pareto_front(points):
     return front
 
 
-def _scatter(ax, rows, field, stat, title):
-    pts, labels = [], []
+def _base_label(row) -> str:
+    """A case's method label without its knobs: one colour per method across the panels."""
+    return f"{row.get('model')} {row.get('label')}".strip()
+
+
+def method_colors(rows) -> dict:
+    """Base label -> colour, fixed for a rung so that both Pareto panels agree."""
+    import matplotlib.pyplot as plt
+
+    cycle = plt.get_cmap("tab10").colors
+    names = sorted({_base_label(r) for r in rows})
+    return {name: cycle[i % len(cycle)] for i, name in enumerate(names)}
+
+
+def _scatter(ax, rows, field, stat, title, colors, on_front=lambda r: True):
+    """Time against ``field``; the Pareto front is drawn over the rows ``on_front`` accepts."""
+    pts, kept = [], []
     for r in rows:
         v = r.get(field)
         if v is None:
             continue
         pts.append((r.time(stat), max(float(v), LOG_FLOOR)))
-        labels.append(f"{r.get('model')} {r.get('label')} {_knob_text(r)}".strip())
+        kept.append(r)
     if not pts:
         ax.set_visible(False)
         return
-    markers = {}
-    for (t, e), lab in zip(pts, labels):
-        base = lab.rsplit(" ", 1)[0] if ("tol=" in lab or "K=" in lab) else lab
-        if base not in markers:
-            markers[base] = ax.plot([], [], "o", label=base)[0].get_color()
-        ax.plot([t], [e], "o", color=markers[base])
-        ax.annotate(_knob_text_from(lab), (t, e), fontsize=6, xytext=(3, 3), textcoords="offset points")
-    front = pareto_front(pts)
+    seen = set()
+    for (t, e), r in zip(pts, kept):
+        base = _base_label(r)
+        front_case = on_front(r)
+        label = None
+        if base not in seen:
+            seen.add(base)
+            label = base if front_case else f"{base} (not on the front)"
+        ax.plot([t], [e], "o" if front_case else "x", color=colors[base], label=label)
+        ax.annotate(_knob_text(r), (t, e), fontsize=6, xytext=(3, 3), textcoords="offset points")
+    idx = [i for i, r in enumerate(kept) if on_front(r)]
+    front = [idx[i] for i in pareto_front([pts[i] for i in idx])]
     fx = [pts[i][0] for i in front]
     fy = [pts[i][1] for i in front]
-    ax.step(fx, fy, where="post", color="k", lw=1, alpha=0.6, label="Pareto front")
+    if fx:
+        ax.step(fx, fy, where="post", color="k", lw=1, alpha=0.6, label="Pareto front")
     ax.set_xscale("log")
     ax.set_yscale("log")
     _no_minor_labels(ax)
@@ -178,18 +200,17 @@ def _no_minor_labels(ax):
     ax.yaxis.set_minor_formatter(NullFormatter())
 
 
-def _knob_text_from(label: str) -> str:
-    return " ".join(p for p in label.split(" ") if p.startswith(("tol=", "K=")))
-
-
 def plot_pareto(run, rung, path, stat="min"):
     plt = _plt()
     rows = [r for r in run.rows if r.get("rung") == rung and r.get("kind") == "solve"]
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(12, 5))
+    colors = method_colors(rows)
     _scatter(ax1, [r for r in rows if r.get("model") in ("pnlp", "pwl")], "bid_price_error", stat,
-             "largest relative bid-price error vs exact PNLP")
+             "largest relative bid-price error vs exact PNLP", colors)
     ax1.set_ylabel("error (log)")
-    _scatter(ax2, rows, "gap", stat, "certified relative gap")
+    # a DLP's gap is to its own LP, not to the PNLP: drawn (x), but kept off the PNLP front
+    _scatter(ax2, rows, "gap", stat, "certified relative gap (front: PNLP and PWL cases; DLP gap is to its own LP)",
+             colors, on_front=lambda r: r.get("model") != "dlp")
     n = rows[0].get("n_products") if rows else "?"
     fig.suptitle(f"Time against accuracy, rung {rung} ({n} products); zeros drawn at {LOG_FLOOR:g}")
     try:

@@ -59,6 +59,20 @@ def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0) 
     return cmd + list(extra)
 
 
+def list_cases(suite: str, k: str | None = None, python: str | None = None) -> list:
+    """The case ids of ``suite`` (selected by ``k``), as pytest collects them; nothing is run."""
+    cmd = [python or sys.executable, "-m", "pytest", str(bench_dir()), "--suite", suite, "--collect-only", "-q",
+           "-p", "no:cacheprovider", "-o", "addopts=", "--rootdir", str(bench_dir().parent)]
+    if k:
+        cmd += ["-k", k]
+    proc = subprocess.run(cmd, capture_output=True, text=True, cwd=str(bench_dir().parent))
+    ids = [line.split("::", 1)[1] for line in proc.stdout.splitlines() if "::" in line]
+    if proc.returncode not in (0, 5):      # 5: nothing collected
+        raise RuntimeError(f"pytest could not collect the suite (exit code {proc.returncode}): "
+                           f"{(proc.stdout + proc.stderr)[-2000:]}")
+    return ids
+
+
 def _read_progress(path, pos):
     """New complete JSON lines of the progress file from byte ``pos``."""
     try:
@@ -91,7 +105,8 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
         raise ValueError(f"revenue_paths must be 0 (off) or positive, got {revenue_paths}")
     from tqdm import tqdm
 
-    out = pathlib.Path(out)
+    # absolute: pytest runs in the project folder, the caller may be anywhere
+    out = pathlib.Path(out).absolute()
     out.mkdir(parents=True, exist_ok=True)
     python = python or sys.executable
     t0 = time.perf_counter()

@@ -23,7 +23,7 @@ def register(sub):
 
     r = bsub.add_parser("record", help="solve a suite and write a baseline folder")
     r.add_argument("--suite", default="quick", help="suite name (default: %(default)s; see --list)")
-    r.add_argument("--out", help="baseline folder to create")
+    r.add_argument("--out", help="baseline folder to create (default: none; needed unless --list)")
     r.add_argument("--force", action="store_true", help="replace an existing baseline folder")
     r.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
     r.add_argument("--no-warmup", action="store_true",
@@ -34,7 +34,7 @@ def register(sub):
     c = bsub.add_parser("check", help="re-solve a baseline's cases and report what changed")
     c.add_argument("baseline", help="baseline folder written by 'decomp baseline record'")
     c.add_argument("--out", help="folder for check.json and check.md (default: print the Markdown only)")
-    c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable)")
+    c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable; default: every case)")
     c.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
     c.add_argument("--confirm-runs", type=int, default=2,
                    help="time a case over the time ratio this many more times, judge the best run (default 2)")
@@ -52,12 +52,14 @@ def register(sub):
     g.add_argument("--kkt-floor", type=float, default=1e-6, help="KKT residual (default 1e-6)")
     g.add_argument("--certificate-factor", type=float, default=10.0,
                    help="a certificate measure may grow to this multiple of its recorded value (default 10)")
-    g.add_argument("--time-ratio", type=float, default=2.0, help="wall-time ratio new/old (default 2.0)")
+    g.add_argument("--time-ratio", default="2x",
+                   help="allowed wall-time ratio new/old: 2x, 2 or a growth of 100%%; the forms of bench "
+                        "compare --threshold, except that a bare number is the ratio (default: %(default)s)")
     g.add_argument("--time-floor", type=float, default=0.5,
                    help="seconds below which times count as this value in the ratio (default 0.5)")
     c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
                    help="change a solver option of every case, e.g. tol=1e-3 (to see that the check "
-                        "catches a change; value parsed as JSON)")
+                        "catches a change; value parsed as JSON; repeatable; default: none)")
     c.set_defaults(func=run_check)
     p.set_defaults(func=lambda args: (p.print_help(), 2)[1])
 
@@ -123,14 +125,17 @@ def _parse_override(items) -> dict:
 def run_check(args) -> int:
     from .. import baseline
 
+    from ..benchsuite.compare import parse_ratio
+
     try:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
+    time_ratio = parse_ratio(args.time_ratio)          # a ConfigError: exit 2, naming the value
     th = baseline.Thresholds(
         objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
         allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
-        kkt_floor=args.kkt_floor, certificate_factor=args.certificate_factor, time_ratio=args.time_ratio,
+        kkt_floor=args.kkt_floor, certificate_factor=args.certificate_factor, time_ratio=time_ratio,
         time_floor=args.time_floor)
 
     def progress(rep):

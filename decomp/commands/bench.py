@@ -1,6 +1,6 @@
 """``decomp bench``: run the benchmark suite; ``decomp bench compare``: compare two runs.
 
-    decomp bench [--suite quick|full|micro] [--out DIR] [-k EXPR] [--revenue-paths N]
+    decomp bench [--suite quick|full|micro] [--out DIR] [-k EXPR] [--revenue-paths N] [--list]
     decomp bench compare OLD NEW [--threshold 10%] [--stat min|median] [--json FILE]
     decomp bench report RUN [--out DIR]
 
@@ -22,10 +22,14 @@ def register(sub):
     p = sub.add_parser("bench", help="run the benchmark suite (time against accuracy), or compare two runs",
                        description=__doc__, formatter_class=__import__("argparse").RawDescriptionHelpFormatter)
     p.add_argument("--suite", choices=("micro", "quick", "full"), default="quick",
-                   help="quick: to 100,000 products in <= 5 min; full: to 1,000,000 products; micro: a tiny smoke run")
-    p.add_argument("--out", default=None, metavar="DIR", help="output folder (default bench/results/SUITE)")
-    p.add_argument("-k", dest="k", default=None, metavar="EXPR", help="pytest -k expression selecting cases")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+                   help="quick: to 100,000 products in <= 5 min; full: to 1,000,000 products; micro: a tiny smoke run (default: %(default)s)")
+    p.add_argument("--out", default=None, metavar="DIR",
+                   help="output folder, relative to the current folder (default bench/results/SUITE)")
+    p.add_argument("-k", dest="k", default=None, metavar="EXPR",
+                   help="pytest -k expression selecting cases (default: all; see --list for the ids)")
+    p.add_argument("--list", action="store_true", help="print the case ids of the suite (with -k: the selected "
+                                                       "ones) and exit without running them")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
     p.add_argument("--revenue-paths", type=int, default=0, metavar="N",
                    help="after timing, price each case's bid prices on N booking sample paths against the "
                         "reference's (same paths); adds a revenue-loss column (default 0: off)")
@@ -38,12 +42,15 @@ def register(sub):
                                   "missing or corrupt file.")
     c.add_argument("old", metavar="OLD", help="the earlier run: folder or benchmark.json")
     c.add_argument("new", metavar="NEW", help="the later run: folder or benchmark.json")
-    c.add_argument("--threshold", default="10%", help="allowed growth of time and errors (default 10%%)")
+    c.add_argument("--threshold", default="10%",
+                   help="allowed growth of time and errors: 10%%, 0.1, or a ratio new/old such as 1.1x "
+                        "(the form of baseline check --time-ratio) (default: %(default)s)")
     c.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare (default min)")
     c.add_argument("--accuracy-floor", type=float, default=1e-9,
                    help="errors and gaps below this are round-off, never a regression (default 1e-9)")
-    c.add_argument("--json", default=None, metavar="FILE", help="also write the comparison as JSON")
+    c.add_argument("--json", default=None, metavar="FILE",
+                   help="also write the comparison as JSON (default: not written)")
     c.set_defaults(func=run_compare)
     r = ss.add_parser("report", help="re-write report.md and plots from a run's benchmark.json")
     r.add_argument("run", metavar="RUN", help="folder or benchmark.json")
@@ -82,6 +89,16 @@ def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True, rev
 
 
 def run(args) -> int:
+    if args.list:
+        from ..benchsuite.runner import list_cases
+
+        ids = list_cases(args.suite, args.k)
+        for case in ids:
+            print(case)
+        if not ids:
+            print(f"decomp bench: no case of suite {args.suite} matches -k {args.k!r}", file=sys.stderr)
+            return 2
+        return 0
     return run_suite(args.suite, args.out, k=args.k, progress=not args.no_progress,
                      revenue_paths=args.revenue_paths)
 

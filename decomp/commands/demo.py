@@ -17,8 +17,9 @@ def register(sub):
                        description=__doc__)
     p.add_argument("--rungs", nargs="+", default=["p100", "p1k", "p10k", "p100k"],
                    help="ladder rungs to solve (default: %(default)s)")
-    p.add_argument("--no-bench", action="store_true", help="skip the quick benchmark suite")
-    p.add_argument("--out", default="bench/results/quick", help="folder for the benchmark output")
+    p.add_argument("--no-bench", action="store_true", help="skip the quick benchmark suite (default: run it)")
+    p.add_argument("--out", default="bench/results/quick",
+                   help="folder for the benchmark output, relative to the current folder (default: %(default)s)")
     p.set_defaults(func=run)
 
 
@@ -52,6 +53,6 @@ def run(args) -> int:
         return 1 if failed else 0
     from . import bench as bench_cmd
 
-    print(f"\nRunning the quick benchmark suite into {pathlib.Path(args.out)} ...")
+    print(f"\nRunning the quick benchmark suite into {pathlib.Path(args.out).absolute()} ...")
     rc = bench_cmd.run_suite(suite="quick", out=args.out)
     return rc or (1 if failed else 0)

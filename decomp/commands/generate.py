@@ -18,11 +18,11 @@ def register(sub):
     p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default: %(default)s)")
     p.add_argument("--out", required=True, metavar="DIR", help="instance folder to write (replaced atomically)")
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", help="table format (default: %(default)s)")
-    p.add_argument("--hubs", type=int, help="number of hubs")
-    p.add_argument("--spokes", type=int, help="number of spoke stations")
-    p.add_argument("--banks", type=int, help="departure banks a day (legs per spoke and direction)")
-    p.add_argument("--fare-classes", type=int, help="fare classes per itinerary")
-    p.add_argument("--fare-ratio", type=float, help="fare ladder step: fare of a class over the one above, in (0, 1)")
+    p.add_argument("--hubs", type=int, help="number of hubs (default: chosen from --products)")
+    p.add_argument("--spokes", type=int, help="number of spoke stations (default: chosen from --products)")
+    p.add_argument("--banks", type=int, help="departure banks a day (legs per spoke and direction; default: chosen from --products)")
+    p.add_argument("--fare-classes", type=int, help="fare classes per itinerary (default: chosen from --products)")
+    p.add_argument("--fare-ratio", type=float, help="fare ladder step: fare of a class over the one above, in (0, 1) (default: decomp.generator's)")
     p.add_argument("--demand-factor", type=float, nargs=2, metavar=("LO", "HI"),
                    help="range of the per-leg mean demand over capacity (default: 0.8 1.4)")
     p.add_argument("--cv", type=float, nargs=2, metavar=("LO", "HI"),
@@ -35,6 +35,7 @@ def register(sub):
 def run(args) -> int:
     from ..generator import generate
     from ..io import write_instance
+    from ..production.outputs import is_output_error
 
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
                                                "demand_factor", "cv", "two_stop")
@@ -44,8 +45,14 @@ def run(args) -> int:
     t1 = time.perf_counter()
     try:
         out = write_instance(inst, args.out, format=args.format)
-    except FileExistsError as exc:
-        print(f"decomp generate: error: {exc}", file=sys.stderr)
+    except OSError as exc:
+        # A full disk or a read-only folder is the machine's trouble, not bad input: decomp.cli says
+        # so with the errno and exits 1. write_instance's own refusals carry a message, the system's
+        # (a file where a folder should be) an errno: bad input, exit 2. Either way nothing was written.
+        if is_output_error(exc):
+            raise
+        why = str(exc) if exc.errno is None else f"cannot write {exc.filename or args.out}: {exc.strerror}"
+        print(f"decomp generate: error: {why}", file=sys.stderr)
         return 2
     t2 = time.perf_counter()
     p = inst.meta["params"]

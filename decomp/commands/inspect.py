@@ -2,7 +2,7 @@
 
 Counts, the legs-per-product histogram, the demand factor per leg (mean demand
 of the products using the leg over its capacity), the most loaded legs, and the
-fare and demand ranges.
+fare and demand ranges. ``--json`` prints the same figures as one JSON object.
 """
 
 from __future__ import annotations
@@ -19,6 +19,7 @@ def register(sub):
     p.add_argument("instance", metavar="INSTANCE", help="instance folder")
     p.add_argument("--top", type=_positive_int, default=10, metavar="K",
                    help="how many of the most loaded legs (default: %(default)s)")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON (default: text)")
     p.set_defaults(func=run)
 
 
@@ -42,6 +43,11 @@ def run(args) -> int:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         inst = read_instance(args.instance)
+    if args.json:
+        import json
+
+        print(json.dumps(facts(inst, args.top, [str(w.message) for w in caught]), indent=2))
+        return 0
     for w in caught:
         print(f"warning: {w.message}")
 
@@ -97,3 +103,43 @@ def run(args) -> int:
         print(f"  std/mean: {_q(cv[np.isfinite(cv)])}")
     print(f"  revenue at mean demand, all fares: {float(inst.fare @ inst.mean):,.0f}")
     return 0
+
+
+def _quantiles(x, qs=(0, 10, 50, 90, 100)) -> dict:
+    return {f"p{q}": float(v) for q, v in zip(qs, np.percentile(x, qs))} if len(x) else {}
+
+
+def facts(inst, top: int, warnings_seen=()) -> dict:
+    """The figures of the text report as a dict (for ``--json``)."""
+    L, P = inst.n_legs, inst.n_products
+    demand = inst.leg_load(inst.mean)
+    users = np.bincount(inst.leg_index, minlength=L)
+    cap = inst.capacity
+    with np.errstate(divide="ignore", invalid="ignore"):
+        df = np.where(cap > 0, demand / cap, np.inf)
+    finite = np.isfinite(df)
+    order = np.lexsort((np.arange(L), -np.where(finite, df, np.finfo(float).max)))[:min(top, L)]
+    hist = np.bincount(inst.legs_per_product)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cv = np.where(inst.mean > 0, inst.std / inst.mean, np.nan)
+    stations = np.unique(np.concatenate([inst.leg_origin, inst.leg_destination]).astype(str))
+    return {
+        "name": inst.name, "n_legs": L, "n_products": P, "n_stations": int(len(stations)),
+        "n_product_legs": int(len(inst.leg_index)),
+        "meta": {k: inst.meta[k] for k in ("generator", "seed") if k in inst.meta},
+        "extra_columns": {"legs": list(inst.leg_extra), "products": list(inst.product_extra)},
+        "legs_per_product": {str(k): int(hist[k]) for k in np.flatnonzero(hist)},
+        "demand_factor": {**_quantiles(df[finite]), "mean": float(df[finite].mean()) if finite.any() else None,
+                          "over_capacity": int((df[finite] > 1).sum()), "zero_capacity": int((~finite).sum())},
+        "unused_legs": int((users == 0).sum()),
+        "capacity": {**_quantiles(cap), "total": float(cap.sum())},
+        "most_loaded_legs": [{"leg": str(inst.leg_ids[i]), "origin": str(inst.leg_origin[i]),
+                              "destination": str(inst.leg_destination[i]), "capacity": float(cap[i]),
+                              "demand": float(demand[i]), "demand_factor": float(df[i]) if finite[i] else None,
+                              "products": int(users[i])} for i in order],
+        "fare": _quantiles(inst.fare),
+        "mean_demand": {**_quantiles(inst.mean), "total": float(inst.mean.sum())},
+        "std_over_mean": _quantiles(cv[np.isfinite(cv)]),
+        "revenue_at_mean_demand": float(inst.fare @ inst.mean),
+        "warnings": list(warnings_seen),
+    }

@@ -14,7 +14,8 @@ def register(sub):
     p = sub.add_parser("ladder", help="list the instance ladder, or rebuild rungs from the manifest",
                        description=__doc__)
     p.add_argument("--build", nargs="*", metavar="RUNG",
-                   help="write these rungs from the manifest (no names: generated rungs missing or stale)")
+                   help="write these rungs from the manifest (no names: generated rungs missing or stale; "
+                        "default: list the rungs, write nothing)")
     p.set_defaults(func=run)
 
 

@@ -5,8 +5,21 @@ BATCH is a folder of instance folders (one task each), an instance folder, or
 ``--days N`` every base network is solved once per departure date, with a
 deterministic per-date demand variation. Each task's bid prices (Parquet) and
 result (JSON) land in OUT/tasks/<key>/, written atomically; rerunning with the
-same arguments skips finished tasks. ``--warm-start-from`` an earlier run's
-OUT starts each task from the bid prices of the same key there.
+same arguments skips finished tasks once their output is verified (checksum,
+one bid price per leg, same instance content); a task that ended non-optimal
+is solved again. ``--warm-start-from`` an earlier run's OUT starts each task
+from the bid prices of the same key there.
+
+A task whose method ends non-optimal is solved again by ``--fallback`` (default
+``auto``: highs for dlp/pwl, ipopt for a normal-demand pnlp, lagrangian:lbfgsb
+for other pnlp demand; ``none`` turns it off); the task record and the summary
+say which method produced the published bid prices.
+
+One run at a time per OUT (a lock; a second run exits 1 naming the holder).
+SIGTERM and Ctrl-C both stop the run, keep what is finished and write the
+summary marked interrupted. A full or read-only OUT stops the run with that
+reason, keeping every finished task. The Dask dashboard is off unless
+``--dashboard PORT`` (loopback only).
 The summary is written to OUT/summary.json and OUT/summary.md.
 """
 
@@ -22,23 +35,36 @@ def register(sub):
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
     p.add_argument("--method", default="lagrangian", help="default: %(default)s")
     p.add_argument("--tol", type=float, default=1e-9, help="optimality tolerance (default: %(default)g)")
-    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve")
-    p.add_argument("--iteration-limit", type=int, default=None)
+    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve (default: none)")
+    p.add_argument("--iteration-limit", type=int, default=None, metavar="N",
+                   help="iterations per task solve (default: the method's own)")
+    p.add_argument("--fallback", default="auto", metavar="METHOD",
+                   help="method for tasks the primary leaves non-optimal: auto, none, a method "
+                        "name, or lagrangian:DUAL (newton, lbfgsb, subgradient) (default: %(default)s)")
     g = p.add_argument_group("departure dates")
-    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31")
-    g.add_argument("--days", type=int, help="N dates from --start")
+    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31 "
+                                   "(default: --days from --start)")
+    g.add_argument("--days", type=int, help="N dates from --start (default: one date, --start)")
     g.add_argument("--start", help="first date for --days (default: today, UTC)")
-    g.add_argument("--variation-seed", type=int, default=0, help="seed of the per-date demand variation")
+    g.add_argument("--variation-seed", type=int, default=0,
+                   help="seed of the per-date demand variation (default: %(default)s)")
     g.add_argument("--variation-sigma", type=float, default=0.10,
                    help="per-product lognormal sigma of the daily variation (default: %(default)s)")
     g.add_argument("--seasonal", type=float, default=0.15, help="seasonal amplitude (default: %(default)s)")
     c = p.add_argument_group("cluster")
-    c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its workers)")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its "
+                                       "workers; default: an embedded cluster)")
     c.add_argument("--workers", type=int, help="worker processes of the embedded cluster (default: one per core)")
     c.add_argument("--retries", type=int, default=2, help="retries of a task that raised (default: %(default)s)")
-    p.add_argument("--warm-start-from", metavar="DIR", help="an earlier run's OUT folder to warm-start from")
-    p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    c.add_argument("--dashboard", type=int, metavar="PORT",
+                   help="serve the Dask dashboard of the embedded cluster on 127.0.0.1:PORT (0: any free "
+                        "port; default: no dashboard)")
+    p.add_argument("--warm-start-from", metavar="DIR",
+                   help="an earlier run's OUT folder: each task starts from the bid prices of the same key "
+                        "there (default: cold starts)")
+    p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary; "
+                                    "default: none)")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
     p.set_defaults(func=run)
 
 
@@ -55,7 +81,9 @@ def run(args) -> int:
     from ..options import SolverOptions
     from ..production.batch import DateVariation, build_batch, date_range
     from ..production.durations import format_duration, parse_duration
-    from ..production.runner import RunConfig, run_batch
+    from ..production.lock import RunLockedError
+    from ..production.runner import OutputFolderError, RunConfig, run_batch
+    from ..production.signals import terminate_as_interrupt
 
     window = parse_duration(args.window) if args.window else None
     dates = date_range(args.dates, args.days, args.start)
@@ -64,7 +92,7 @@ def run(args) -> int:
     options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
                             threads=1)
     cfg = RunConfig(model=args.model, method=args.method, options=options, out=args.out,
-                    warm_start_from=args.warm_start_from)
+                    warm_start_from=args.warm_start_from, fallback=args.fallback)
     bar = {}
 
     def on_event(kind, rec, prog):
@@ -91,8 +119,12 @@ def run(args) -> int:
 
     print(f"decomp run: {batch.description}; {args.model} by {args.method}, tol {args.tol:g}; out {cfg.out}")
     try:
-        s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
-                      window=window, on_event=on_event)
+        with terminate_as_interrupt():
+            s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
+                          window=window, on_event=on_event, dashboard=args.dashboard)
+    except (RunLockedError, OutputFolderError) as exc:
+        print(f"decomp run: error: {exc}", file=sys.stderr)
+        return 1
     except (OSError, TimeoutError) as exc:
         where = f"the scheduler at {args.scheduler}" if args.scheduler else "the embedded cluster"
         print(f"decomp run: error: could not use {where}: {type(exc).__name__}: {exc}", file=sys.stderr)
@@ -105,8 +137,20 @@ def run(args) -> int:
           f"{t['skipped']} skipped (finished earlier); wall {format_duration(t['wall_seconds'])}"
           + (f" of window {format_duration(window)}: {'fits' if t['fits_window'] else 'DOES NOT FIT'}"
              if window else ""))
+    if t.get("fallback_used"):
+        print(f"fallback ({args.fallback}) published the bid prices of {t['fallback_used']} task(s)")
+    if s.get("stopped"):
+        print(f"decomp run: STOPPED: {s['stopped']}; {t['ok']} finished task(s) kept; rerun with the same "
+              f"arguments once the folder can be written", file=sys.stderr)
     for task in s["tasks"]:
-        if task["status"] in ("failed", "not_optimal"):
-            print(f"  {task['key']}: {task['status']}: {task.get('error')}")
+        if task["task_status"] in ("failed", "not_optimal") and not (s.get("stopped")
+                                                                     and task.get("error") == s["stopped"]):
+            print(f"  {task['key']}: {task['task_status']}: {task.get('error')}")
+    if s.get("summary_error"):
+        from ..production.summary import to_markdown
+
+        print(f"decomp run: summary {s['summary_error']}; the summary follows here instead", file=sys.stderr)
+        print(to_markdown(s))
+        return 1
     print(f"summary: {cfg.out}/summary.md, {cfg.out}/summary.json")
     return 0 if t["ok"] == t["n_tasks"] else 1

@@ -8,14 +8,30 @@ first-come-first-served is added as a baseline. Policies (comma-separated):
 model's allocation), ``plain:MODEL[:METHOD[:TOL]]`` (every request whose fare is
 at least the sum), ``partitioned:MODEL[:METHOD[:TOL]]`` booking limits from the
 model's allocation, ``fcfs``, and on single-leg instances ``emsrb`` or
-``nested:Y1[/Y2...]`` nested protection levels. ``--reoptimize-every``,
+``nested:Y1[/Y2...]`` nested protection levels, ``dynamic:MODEL[:METHOD[:TOL]]``
+capacity- and time-dependent bid-price tables (one dynamic program per leg
+over ``--periods`` periods, from the static model's bid prices; computed once)
+and ``relaxed:MODEL[:METHOD[:TOL]]`` (tables of the Lagrangian relaxation of the
+network program; needs at most one request per period). With a table policy the
+report also gives each policy's revenue as a share of the network bound (the
+DLP value). ``--reoptimize-every``,
 ``--forecast-bias`` and ``--sigma-factor`` take comma-separated lists; every
 combination is a scenario, and lists give the plots. Writes
 OUT/simulation.json, OUT/simulation.md and PNG plots.
+
+A re-optimization whose method ends non-optimal (iteration or time limit,
+numerical trouble) is solved again by ``--fallback`` (default ``auto``, as in
+``decomp run``: ``highs`` for the DLP and PWL, ``ipopt`` for a normal-demand
+PNLP, ``lagrangian:lbfgsb`` otherwise; ``none`` turns it off). Each policy
+counts its re-optimizations, those that ended non-optimal, those the fallback
+rescued and those that still priced with a non-optimal answer
+(``reoptimizations`` in simulation.json); the last are a WARNING in the report
+and on stderr.
 """
 
 from __future__ import annotations
 
+import re
 import sys
 
 
@@ -34,27 +50,38 @@ def _floats(text: str, what: str) -> list:
 def register(sub):
     p = sub.add_parser("simulate", help="booking simulation of bid-price and other controls (Dask)",
                        description=__doc__)
+    # argparse takes "-0.2,0,0.2" for an option (only "-0.2" looks like a number to it); a list of
+    # numbers starting with a negative one is a value here (no option of this command looks like one)
+    p._negative_number_matcher = re.compile(r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(,[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)*$")
     p.add_argument("instance", help="instance folder, or a ladder rung name (p1k, p10k, ...)")
     p.add_argument("--policies", default="pnlp:lagrangian:1e-9,dlp:highs,fcfs",
                    help="comma-separated policy specifications (default: %(default)s)")
     p.add_argument("--paths", type=int, default=200,
                    help="sample paths (the maximum with --target-halfwidth; default: %(default)s)")
     p.add_argument("--target-halfwidth", type=float, default=None,
-                   help="add paths until every paired 95%% half-width (vs the first policy) is at most this")
+                   help="add paths until every paired 95%% half-width (vs the first policy) is at most this "
+                        "(default: off, run --paths)")
     p.add_argument("--reoptimize-every", default="7", help="days between re-optimizations, list allowed (default: 7)")
     p.add_argument("--horizon", type=float, default=60.0, help="booking horizon in days (default: %(default)g)")
-    p.add_argument("--forecast-bias", default="0", help="optimizer sees mean x (1 + B); list allowed")
-    p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed")
+    p.add_argument("--forecast-bias", default="0",
+                   help="optimizer sees mean x (1 + B); list allowed, e.g. -0.2,0,0.2 (default: %(default)s)")
+    p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed (default: %(default)s)")
     p.add_argument("--bias-spread", type=float, default=0.0,
                    help="per-product random bias B + spread x N(0,1), seeded (default: 0, aggregate)")
+    p.add_argument("--periods", type=int, default=200,
+                   help="booking periods of the table policies (dynamic:, relaxed:) (default: %(default)s)")
+    p.add_argument("--fallback", default="auto", metavar="METHOD",
+                   help="method that solves again a re-optimization the policy's method leaves non-optimal: "
+                        "auto, none, a method name, or lagrangian:DUAL (newton, lbfgsb, subgradient); "
+                        "as in decomp run (default: %(default)s)")
     p.add_argument("--seed", type=int, default=0, help="seed of the sample paths (default: %(default)s)")
     p.add_argument("--chunk", type=int, default=50, help="paths per task (default: %(default)s)")
     c = p.add_argument_group("cluster")
-    c.add_argument("--scheduler", help="address of an existing Dask scheduler")
+    c.add_argument("--scheduler", help="address of an existing Dask scheduler (default: an embedded cluster)")
     c.add_argument("--workers", type=int, default=None,
                    help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
     p.add_argument("--out", required=True, help="output folder")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
     p.set_defaults(func=run)
 
 
@@ -90,7 +117,11 @@ def run(args) -> int:
     biases = _floats(args.forecast_bias, "--forecast-bias")
     sigmas = _floats(args.sigma_factor, "--sigma-factor")
     errors = [ForecastError(bias=b, sigma_factor=s, spread=args.bias_spread) for b in biases for s in sigmas]
-    policies = parse_policies(args.policies)
+    if args.periods < 1:
+        raise SimulationConfigError(f"--periods must be a positive integer, got {args.periods}")
+    from ..production import fallback
+
+    policies = parse_policies(args.policies, periods=args.periods, fallback=fallback.parse(args.fallback))
     cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
                            forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
                            chunk=args.chunk)
@@ -126,8 +157,7 @@ def run(args) -> int:
     print()
     for f in files:
         print(f"wrote {f}")
-    failed = int(result.failures.sum())
-    if failed:
-        print(f"warning: {failed} re-optimizations did not end optimal (see solve_statuses in simulation.json)",
-              file=sys.stderr)
+    for line in report.reoptimization_lines(summary):
+        if line.startswith("WARNING"):
+            print(f"decomp simulate: {line}", file=sys.stderr)
     return 0

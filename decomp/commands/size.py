@@ -6,8 +6,12 @@ a ``decomp run`` summary), and says whether it fits, by what margin, the
 fewest workers that fit, and what a looser tolerance (other benchmarked
 tolerances) would buy. Prints a table; writes sizing.json and sizing.png to
 --out. With --revenue-loss X (benchmark from ``decomp bench --revenue-paths N``)
-it also answers the loosest benchmarked tolerance whose revenue loss (the point
-estimate) is within X at the largest priced rung, and the time that saves per task.
+it also answers the loosest benchmarked tolerance whose revenue loss is within X
+at the largest priced rung, the upper end of its paired 95 % interval included
+(a point estimate inside X with an interval reaching past it is not enough),
+and the time that saves per task. Fits need benchmark cases at three sizes or
+more (from --fit-min-products, 1,000 by default); fewer is an error (exit 2).
+``--json`` prints sizing.json instead of the table. Exit 0 fits, 1 does not, 2 bad input.
 """
 
 from __future__ import annotations
@@ -15,30 +19,64 @@ from __future__ import annotations
 
 def register(sub):
     p = sub.add_parser("size", help="project a production run's wall time against the window", description=__doc__)
-    p.add_argument("--bench", required=True, metavar="FILE_OR_DIR", help="decomp bench output (benchmark.json or its folder)")
-    p.add_argument("--dates", type=int, default=365, help="departure dates (default: %(default)s)")
-    p.add_argument("--products", type=int, help="products per network")
-    p.add_argument("--networks", type=int, default=1, help="networks per date (default: %(default)s)")
-    p.add_argument("--instances", metavar="DIR", help="folder of instance folders (sizes read from it) x --dates")
-    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"))
-    p.add_argument("--method", default="lagrangian")
+    p.add_argument("--bench", required=True, metavar="FILE_OR_DIR",
+                   help="decomp bench output (benchmark.json or its folder)")
+    p.add_argument("--dates", type=_dates, default=365, metavar="N|FIRST:LAST",
+                   help="departure dates: a count, or FIRST:LAST inclusive ISO dates as for decomp run "
+                        "(default: %(default)s)")
+    p.add_argument("--products", type=int, metavar="P", help="products per network (no default: give it or --instances)")
+    p.add_argument("--networks", type=int, default=1, metavar="N", help="networks per date (default: %(default)s)")
+    p.add_argument("--instances", metavar="DIR",
+                   help="folder of instance folders (sizes read from it), each solved once per date "
+                        "(default: --products)")
+    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
+    p.add_argument("--method", default="lagrangian", help="default: %(default)s")
     p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
-    p.add_argument("--tol", type=float, default=1e-9)
-    p.add_argument("--fit-min-products", type=int, metavar="N",
-                   help="fit only benchmark cases of at least N products (small ones carry fixed costs)")
-    p.add_argument("--workers", type=int, default=2)
+    p.add_argument("--tol", type=float, default=1e-9, help="tolerance of the run (default: %(default)g)")
+    p.add_argument("--fit-min-products", type=int, default=1000, metavar="N",
+                   help="fit only benchmark cases of at least N products: small ones carry fixed costs that "
+                        "bend the curve (default: %(default)s; 0 fits every case)")
+    p.add_argument("--workers", type=int, default=None, metavar="W",
+                   help="workers of the production run (default: one per core of this machine, as decomp run)")
     p.add_argument("--window", required=True, help="optimization window, e.g. 2h, 90m, 180s")
-    p.add_argument("--overhead", type=float, help="seconds per task beyond the solve")
-    p.add_argument("--startup", type=float, help="seconds to start the cluster (default: from --run-summary, else 0)")
-    p.add_argument("--run-summary", metavar="FILE", help="a decomp run summary.json to take the overhead from")
+    p.add_argument("--overhead", type=float, metavar="S",
+                   help="seconds per task beyond the solve (default: from --run-summary, else 0)")
+    p.add_argument("--startup", type=float, metavar="S",
+                   help="seconds to start the cluster (default: from --run-summary, else 0)")
+    p.add_argument("--run-summary", metavar="FILE",
+                   help="a decomp run summary.json to take the overhead from (default: none)")
     p.add_argument("--calibrate", action="store_true",
                    help="scale the benchmark fit by the solve times measured in --run-summary (a pilot run "
-                        "of the same method and tolerance on the production machine)")
+                        "of the same method and tolerance on the production machine; default: off)")
     p.add_argument("--revenue-loss", type=float, metavar="X",
                    help="also answer the loosest benchmarked tolerance whose relative revenue loss is within X "
-                        "(e.g. 0.001) at the largest priced rung, from a 'decomp bench --revenue-paths N' run")
+                        "(e.g. 0.001), upper end of its 95%% interval included, at the largest priced rung, from "
+                        "a 'decomp bench --revenue-paths N' run (default: not asked)")
     p.add_argument("--out", default="sizing", help="folder for sizing.json and sizing.png (default: %(default)s)")
+    p.add_argument("--json", action="store_true", help="print sizing.json to stdout instead of the table")
     p.set_defaults(func=run)
+
+
+def _dates(text: str) -> int:
+    """A number of dates, or FIRST:LAST (inclusive ISO dates) counted."""
+    import argparse
+    import datetime as dt
+
+    if ":" in text:
+        try:
+            first, last = (dt.date.fromisoformat(x.strip()) for x in text.split(":", 1))
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected N or FIRST:LAST ISO dates, got {text!r}") from None
+        if last < first:
+            raise argparse.ArgumentTypeError(f"the last date {last} is before the first {first}")
+        return (last - first).days + 1
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected N or FIRST:LAST ISO dates, got {text!r}") from None
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"at least 1 date, got {n}")
+    return n
 
 
 def _m(s):
@@ -48,6 +86,8 @@ def _m(s):
 
 
 def run(args) -> int:
+    import json
+    import os
     import pathlib
 
     from .. import atomic
@@ -70,10 +110,11 @@ def run(args) -> int:
 
             raise ConfigError("--calibrate needs --run-summary (a decomp run summary.json)")
         calibration = sizing.read_run_solves(args.run_summary)
+    workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
     cases = sizing.load_bench(args.bench)
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
     s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
-                        workers=args.workers, window=window, overhead=overhead, startup=startup,
+                        workers=workers, window=window, overhead=overhead, startup=startup,
                         variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration,
                         revenue_loss=args.revenue_loss)
     s["overhead_source"] = source
@@ -81,6 +122,9 @@ def run(args) -> int:
     out = pathlib.Path(args.out)
     atomic.write_json(out / "sizing.json", s)
     sizing.plot(s, out / "sizing.png")
+    if args.json:
+        print(json.dumps(s, indent=2))
+        return 0 if r["fits"] else 1
 
     print(f"decomp size: {s['tasks']} tasks of {s['products_min']:,.0f}..{s['products_max']:,.0f} products, "
           f"{s['model']} by {s['variant']}, tol {r['tol']:g}, {s['workers']} workers, window {_m(window)}")
@@ -106,7 +150,10 @@ def run(args) -> int:
         print("  " + "  ".join(c.ljust(w) for c, w in zip(row, widths)))
         if i == 0:
             print("  " + "  ".join("-" * w for w in widths))
-    if not s["looser"]:
+    if s["looser_too_few_sizes"]:
+        print(f"  (not fitted, fewer than {sizing.MIN_FIT_SIZES} sizes: tol "
+              + ", ".join(f"{t:g}" for t in s["looser_too_few_sizes"]) + ")")
+    elif not s["looser"]:
         print("  (no benchmark cases at a looser tolerance for this method)")
     if s["revenue"] is not None:
         _print_revenue(s["revenue"])
@@ -119,9 +166,10 @@ def _print_revenue(rv: dict) -> None:
     n = rv["rung_products"]
     print(f"  revenue loss at {n:,} products (the largest priced rung; {rv['estimate']}):")
     for row in rv["by_tol"]:
-        print(f"    tol {row['tol']:g}: loss {row['revenue_loss_rel']:+.3e} ({row['paths'] or '?'} paths), "
-              f"median {row['seconds']:.4g} s, {'within' if row['within'] else 'NOT within'} "
-              f"{rv['max_loss_rel']:g}")
+        high = "?" if row["revenue_loss_high"] is None else f"{row['revenue_loss_high']:+.3e}"
+        print(f"    tol {row['tol']:g}: loss {row['revenue_loss_rel']:+.3e}, 95% upper end {high} "
+              f"({row['paths'] or '?'} paths), median {row['seconds']:.4g} s, "
+              f"{'within' if row['within'] else 'NOT within'} {rv['max_loss_rel']:g} ({row['why']})")
     if rv["loosest_tol"] is None:
         print(f"  loosest tolerance within a revenue loss of {rv['max_loss_rel']:g}: none of the benchmarked ones")
         return

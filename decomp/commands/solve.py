@@ -1,12 +1,17 @@
 """``decomp solve``: solve one instance with one model and method, write the result.
 
 INSTANCE is an instance folder (CSV or Parquet), or the name of a ladder rung
-(p100, p1k, ...) when no such folder exists. The result JSON holds the
-status, model, method, objective, bound, certified gap, bid prices by leg id,
-iterations, seconds by phase, solver name and version, the certificate and
-the versions of Python, numpy, scipy, Pyomo, highspy, cyipopt and the HiGHS and
-Ipopt libraries (``versions``);
-``--allocation`` writes the allocation per product (CSV or Parquet by suffix).
+(p100, p1k, ...) when no such folder exists. The result JSON follows the one
+output schema (``decomp.result``, version in ``schema_version``; see README):
+termination, solution status, model, method, objective, bound, certified gap,
+bid prices by leg id, iterations, seconds by phase, solver name and version,
+the certificate, and under ``context`` the instance and the versions of Python,
+numpy, scipy, Pyomo, highspy, cyipopt and the HiGHS and Ipopt libraries.
+``--out -`` writes the JSON to stdout and the summary to stderr.
+``--legs`` writes one row per leg (capacity, allocated seats, load factor, bid
+price, binding / slack / closed), ``--products`` one row per product (legs,
+fare, demand, allocation, displacement = sum of its legs' bid prices, margin,
+open / closed); CSV or Parquet by suffix.
 Exit code 0 when the answer is certified optimal, 1 when the solve stopped
 short of that (limit, numerical trouble, uncertified), 2 on bad input.
 """
@@ -17,6 +22,9 @@ import argparse
 import pathlib
 import sys
 
+#: Methods that use --warm-start (the others would ignore it, so it is refused for them).
+WARM_START_METHODS = ("ipopt", "pyomo-ipopt", "lagrangian")
+
 
 def register(sub):
     p = sub.add_parser("solve", help="solve an instance (dlp, pnlp or pwl) with a named method",
@@ -26,12 +34,22 @@ def register(sub):
     p.add_argument("--method", required=True, metavar="NAME",
                    help="highs, pyomo-highs (dlp, pwl); ipopt, pyomo-ipopt, lagrangian (pnlp)")
     p.add_argument("--tol", type=float, metavar="T", help="solver tolerance (default: 1e-9)")
-    p.add_argument("--time-limit", type=float, metavar="S", help="wall-clock limit of the solve in seconds")
-    p.add_argument("--iteration-limit", type=int, metavar="N", help="iteration limit")
-    p.add_argument("--segments", type=int, metavar="K", help="segments per product of the pwl model (default: 16)")
-    p.add_argument("--warm-start", metavar="RESULT.json", help="start from the bid prices of an earlier result")
-    p.add_argument("--allocation", metavar="FILE", help="write the allocation per product (.csv or .parquet)")
-    p.add_argument("--out", required=True, metavar="RESULT.json", help="result file (written atomically)")
+    p.add_argument("--time-limit", type=float, metavar="S",
+                   help="wall-clock limit of the solve in seconds (default: none)")
+    p.add_argument("--iteration-limit", type=int, metavar="N",
+                   help="iteration limit (default: the method's own)")
+    p.add_argument("--segments", type=int, metavar="K",
+                   help="segments per product of the pwl model (default: 16; pwl only)")
+    p.add_argument("--warm-start", metavar="RESULT",
+                   help="start from earlier bid prices: a result JSON of decomp solve, a decomp run task "
+                        "(its folder or result.json), a baseline case, or a leg,bid_price table "
+                        f"(methods {', '.join(WARM_START_METHODS)} only; default: none)")
+    p.add_argument("--legs", metavar="FILE", help="write the leg table (.csv or .parquet; default: not written)")
+    p.add_argument("--products", "--allocation", dest="products", metavar="FILE",
+                   help="write the product table (.csv or .parquet; --allocation is the old name; "
+                        "default: not written)")
+    p.add_argument("--out", required=True, metavar="RESULT.json",
+                   help="result file (written atomically), or - for stdout (the summary then goes to stderr)")
     p.set_defaults(func=run)
 
 
@@ -49,33 +67,17 @@ def _load(spec):
     raise InstanceError(f"no instance folder here (and not a ladder rung: {', '.join(ladder.RUNGS)})", file=spec)
 
 
-def write_allocation(result, path) -> None:
-    """Allocation per product as CSV (``product,allocation``) or Parquet, atomically."""
-    import pyarrow as pa
-    import pyarrow.csv as pcsv
-    import pyarrow.parquet as pq
-
-    from ..atomic import atomic_path
-    from ..errors import InstanceError
-
-    path = pathlib.Path(path)
-    suffix = path.suffix.lower()
-    if suffix not in (".csv", ".parquet"):
-        raise InstanceError("allocation file must end in .csv or .parquet", file=path)
-    table = pa.table({"product": pa.array(result.product_ids.astype(str), type=pa.string()),
-                      "allocation": pa.array(result.allocation, type=pa.float64())})
-    with atomic_path(path) as tmp:
-        if suffix == ".csv":
-            pcsv.write_csv(table, tmp)
-        else:
-            pq.write_table(table, tmp)
-
-
 def _num(v, fmt):
     return "n/a" if v is None else format(v, fmt)
 
 
-def summary(result, instance_name) -> str:
+def _names(ids, k=8) -> str:
+    ids = [str(x) for x in ids]
+    return ", ".join(ids[:k]) + (f", ... ({len(ids) - k} more)" if len(ids) > k else "")
+
+
+def summary(result, instance_name, legs=None) -> str:
+    """The human summary; ``legs``: the leg table, for the binding and slack legs."""
     lines = [
         f"{instance_name}: {result.model} by {result.method} ({result.solver}, {result.solver_version})",
         f"  status      {result.termination.value} (solver: {result.raw_status}); "
@@ -83,6 +85,8 @@ def summary(result, instance_name) -> str:
         f"  objective   {_num(result.objective, ',.6f')}    bound {_num(result.bound, ',.6f')}    "
         f"gap {_num(result.gap, '.2e')}",
     ]
+    if result.message and not result.ok:
+        lines.append(f"  message     {result.message}")
     c = result.certificate
     if c is not None:
         lines.append(f"  certificate capacity violation {c.max_violation:.2e} seats ({c.max_violation_rel:.2e} rel), "
@@ -90,6 +94,18 @@ def summary(result, instance_name) -> str:
     secs = result.seconds
     lines.append(f"  time        {sum(secs.values()):.2f} s  (" +
                  ", ".join(f"{k} {v:.2f}" for k, v in secs.items()) + f"); iterations {result.iterations}")
+    if legs is not None and result.bid_price_array is not None:
+        by_state = {st: legs[legs["state"] == st] for st in ("binding", "slack", "closed")}
+        binding = by_state["binding"].sort_values("bid_price", ascending=False)
+        lines.append(f"  legs        {len(binding)} binding, {len(by_state['slack'])} slack, "
+                     f"{len(by_state['closed'])} closed (capacity 0) of {len(legs)}")
+        if len(binding):
+            lines.append(f"  binding     {_names(binding['leg'])}  (highest bid price first)")
+        if len(by_state["slack"]):
+            slack = by_state["slack"].sort_values("load_factor")
+            lines.append(f"  slack       {_names(slack['leg'])}  (lowest load factor first)")
+        if len(by_state["closed"]):
+            lines.append(f"  closed      {_names(by_state['closed']['leg'])}")
     top = sorted(result.bid_prices.items(), key=lambda kv: -kv[1])[:10]
     if top:
         lines.append("  highest bid prices:")
@@ -98,45 +114,88 @@ def summary(result, instance_name) -> str:
     return "\n".join(lines)
 
 
+def _options(args):
+    """SolverOptions from the flags, refusing those that do not apply to the model or method."""
+    from ..errors import ConfigError
+    from ..options import SolverOptions
+
+    if args.segments is not None and args.model != "pwl":
+        raise ConfigError(f"--segments applies to the pwl model only, not {args.model}")
+    if args.warm_start and args.method not in WARM_START_METHODS:
+        raise ConfigError(f"--warm-start is not used by method {args.method!r} (it is used by "
+                          f"{', '.join(WARM_START_METHODS)}); leave it out")
+    kw = {k: getattr(args, k) for k in ("tol", "time_limit", "iteration_limit", "segments")
+          if getattr(args, k) is not None}
+    return SolverOptions(verbose=bool(getattr(args, "verbose", False)), **kw)
+
+
+def _check_outputs(args):
+    """Refuse bad output paths before the solve (a folder, a device, a wrong suffix)."""
+    from ..errors import InstanceError
+    from ..tables import check_table_path
+
+    if args.out != "-":
+        out = pathlib.Path(args.out)
+        if out.exists() and not out.is_file():
+            raise InstanceError("--out exists and is not a regular file; not replacing it "
+                                "(use --out - for stdout)", file=out)
+    for flag, path in (("--legs", args.legs), ("--products", args.products)):
+        if path:
+            check_table_path(path)
+            if path == args.out:
+                raise InstanceError(f"{flag} and --out name the same file", file=path)
+
+
 def run(args) -> int:
+    import json
+    import logging
+
     from .. import solve as _solve
     from ..atomic import write_json
     from ..baseline import library_versions
     from ..errors import SolverUnavailableError
-    from ..options import SolverOptions
     from ..result import read_bid_prices
+    from ..tables import leg_table, product_table, write_table
 
-    kw = {}
-    if args.tol is not None:
-        kw["tol"] = args.tol
-    if args.time_limit is not None:
-        kw["time_limit"] = args.time_limit
-    if args.iteration_limit is not None:
-        kw["iteration_limit"] = args.iteration_limit
-    if args.segments is not None:
-        kw["segments"] = args.segments
-    options = SolverOptions(verbose=bool(getattr(args, "verbose", False)), **kw)
-    if args.allocation and pathlib.Path(args.allocation).suffix.lower() not in (".csv", ".parquet"):
-        print(f"decomp solve: error: {args.allocation}: allocation file must end in .csv or .parquet",
-              file=sys.stderr)
-        return 2
+    options = _options(args)
+    _check_outputs(args)
     warm = read_bid_prices(args.warm_start) if args.warm_start else None
     instance = _load(args.instance)
+    if warm is not None:        # values beyond [0, largest fare on the leg] (1e308, -5) cannot be optimal
+        from ..warmstart import bounded_warm_start
+
+        warm, _ = bounded_warm_start(instance, warm)
+    # long direct solves report their progress (iteration, revenue, time) every few seconds
+    logging.getLogger("decomp.progress").setLevel(logging.INFO)
     try:
         result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
     except SolverUnavailableError as exc:
         print(f"decomp solve: error: {exc}", file=sys.stderr)
         return 1
-    out = result.to_json_dict()
-    out = {"instance": instance.name, "instance_path": str(args.instance), **out,
-           "versions": library_versions()}
-    write_json(args.out, out)
-    if args.allocation and result.allocation is not None:
-        write_allocation(result, args.allocation)
-    print(summary(result, instance.name))
-    wrote_alloc = bool(args.allocation) and result.allocation is not None
-    print(f"  wrote {args.out}" + (f" and {args.allocation}" if wrote_alloc else ""))
-    if args.allocation and not wrote_alloc:
-        print(f"decomp solve: {args.allocation} not written: the solve returned no allocation "
+    context = {"instance": instance.name, "instance_path": str(args.instance), "versions": library_versions()}
+    out = result.to_json_dict(context=context)
+    human = sys.stderr if args.out == "-" else sys.stdout
+    written = []
+    try:
+        if args.out == "-":
+            sys.stdout.write(json.dumps(out, indent=2) + "\n")
+            sys.stdout.flush()
+        else:
+            write_json(args.out, out)
+            written.append(args.out)
+        legs = leg_table(instance, result)
+        if args.legs:
+            written.append(str(write_table(legs, args.legs)))
+        if args.products and result.allocation is not None:
+            written.append(str(write_table(product_table(instance, result), args.products)))
+    except OSError as exc:      # a full disk or a read-only folder: say so, no traceback (atomic: nothing half-written)
+        print(f"decomp solve: error: cannot write {exc.filename or args.out}: {exc.strerror or exc} "
+              f"[Errno {exc.errno}]", file=sys.stderr)
+        return 1
+    print(summary(result, instance.name, legs), file=human)
+    if written:
+        print(f"  wrote {', '.join(written)}", file=human)
+    if args.products and result.allocation is None:
+        print(f"decomp solve: {args.products} not written: the solve returned no allocation "
               f"({result.termination.value})", file=sys.stderr)
     return 0 if result.ok else 1

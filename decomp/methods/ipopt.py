@@ -35,6 +35,9 @@ from ..result import Termination
 from .common import certified_result, import_available, import_solver
 
 log = logging.getLogger(__name__)
+#: Progress of long solves (iteration, revenue, time), every PROGRESS_SECONDS; ``decomp solve`` shows it.
+progress = logging.getLogger("decomp.progress.ipopt")
+PROGRESS_SECONDS = 5.0
 
 #: Ipopt's ApplicationReturnStatus (IpReturnCodes_inc.h of Ipopt 3.14; the same
 #: values are declared in cyipopt's ipopt.pxd, which lacks -5) -> (name, Termination).
@@ -144,7 +147,47 @@ class PnlpArrays:
     def intermediate(self, alg_mod, iter_count, obj_value, inf_pr, inf_du, mu, d_norm,
                      regularization_size, alpha_du, alpha_pr, ls_trials):
         self.iterations = int(iter_count)
+        if not hasattr(self, "progress"):
+            self.progress = ProgressLog("ipopt")
+        self.progress(iter_count, -obj_value, inf_pr)
         return True
+
+
+class ProgressLog:
+    """Logs iteration, revenue, primal infeasibility and time on ``decomp.progress``, at most every
+    :data:`PROGRESS_SECONDS` (``decomp solve`` shows it; nothing is printed by the library)."""
+
+    def __init__(self, method: str):
+        self.method = method
+        self.start = self.last = time.perf_counter()
+
+    def __call__(self, iteration, revenue, primal_infeasibility) -> None:
+        now = time.perf_counter()
+        if now - self.last >= PROGRESS_SECONDS:
+            self.last = now
+            progress.info("%s: iteration %d, revenue %.10g, primal infeasibility %.2e, %.1f s", self.method,
+                          iteration, revenue, primal_infeasibility, now - self.start)
+
+
+def nonnegative_bid_prices(pi, fare):
+    """Bid prices >= 0 from Ipopt's constraint multipliers, and a note when any was negative.
+
+    Ipopt's ``mult_g`` is the multiplier of g(x) - s = 0 with s <= c; only at a
+    converged point does it equal the (>= 0) multiplier of the bound, so an
+    iterate stopped early (iteration or time limit) can carry negative values.
+    Any pi >= 0 gives a valid Lagrangian dual bound, so the prices are clipped
+    at 0; the note says how far below 0 they were (round-off below 1e-9 of the
+    largest fare is not mentioned).
+    """
+    pi = np.asarray(pi, dtype=np.float64)
+    low = float(pi.min()) if pi.size else 0.0
+    clipped = np.maximum(pi, 0.0)
+    scale = max(1.0, float(np.max(fare))) if len(fare) else 1.0
+    if low < -1e-9 * scale:
+        n = int(np.sum(pi < 0))
+        return clipped, (f"{n} of Ipopt's leg multipliers were negative (down to {low:.4g}; the iterate is "
+                         f"not dual feasible); those bid prices are set to 0")
+    return clipped, None
 
 
 def start_point(instance, warm_start_pi=None):
@@ -246,6 +289,10 @@ class IpoptArrays:
         msg = msg.decode(errors="replace") if isinstance(msg, bytes) else str(msg)
         if msg == "Unknown status":
             msg = name
+        if pi is not None and finite:
+            pi, note = nonnegative_bid_prices(pi, instance.fare)
+            if note:
+                msg = f"{msg}; {note}"
         return certified_result(
             instance, model, self.name, options, termination=term, x=x if finite else None,
             pi=pi if finite else None, marks=(t0, t1, t2), iterations=cb.iterations,

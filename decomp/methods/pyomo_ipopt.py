@@ -26,7 +26,8 @@ from ..registry import register
 from ..result import Termination
 from .common import certified_result, map_status
 from .ipopt import ipopt_options, ipopt_version, start_point, termination as ipopt_termination
-from .ipopt import require_normal, warm_start_array
+from .ipopt import ProgressLog, nonnegative_bid_prices, require_normal, warm_start_array
+from .ipopt import progress as ipopt_progress
 
 log = logging.getLogger(__name__)
 
@@ -119,12 +120,18 @@ class PyomoIpopt:
         if "max_wall_time" in opts and "max_wall_time" not in options.solver_options:
             opts["max_cpu_time"] = opts.pop("max_wall_time")
         counter = {"iterations": 0}
+        t1 = time.perf_counter()
+        ipopt_progress.info("pyomo-ipopt: model of %d products built in %.1f s; solving", instance.n_products,
+                            t1 - t0)
+        # iteration lines are logged too, but Pyomo captures the process's output while it solves
+        # (unless verbose), so on the terminal only the line above shows before the solve returns
+        show = ProgressLog("pyomo-ipopt")
 
         def on_iteration(nlp, problem, alg_mod, iter_count, obj_value, inf_pr, inf_du, mu, d_norm,
                          regularization_size, alpha_du, alpha_pr, ls_trials):   # Pyomo >= 6.8 signature
             counter["iterations"] = int(iter_count)
+            show(iter_count, -obj_value, inf_pr)      # PyNumero minimizes -revenue for the maximized model
             return True
-        t1 = time.perf_counter()
         with paused_gc(), quiet_pyomo_load():
             res = solver.solve(m, tee=bool(options.verbose), options=opts,
                                intermediate_callback=on_iteration)
@@ -141,6 +148,10 @@ class PyomoIpopt:
         finite = bool(np.all(np.isfinite(x)) and np.all(np.isfinite(pi)))
         msg = res.solver.message
         msg = msg.decode(errors="replace") if isinstance(msg, bytes) else (None if msg is None else str(msg))
+        if pi is not None and finite:
+            pi, note = nonnegative_bid_prices(pi, instance.fare)
+            if note:
+                msg = f"{msg}; {note}" if msg else note
         return certified_result(
             instance, model, self.name, options, termination=term, x=x if finite else None,
             pi=pi if finite else None, marks=(t0, t1, t2), iterations=counter["iterations"],

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import hashlib
 import math
 import pathlib
 import re
@@ -94,7 +95,9 @@ class TaskSpec:
     :func:`decomp.generator.generate` with ``n_products`` and ``seed``);
     ``date`` (ISO) applies ``variation`` for that departure date, None uses the
     instance as it is. ``size`` estimates the work (products, or bytes on disk
-    for an unread folder) and orders the submission largest first.
+    for an unread folder) and orders the submission largest first. ``content``
+    is the sha256 of a folder's instance files (:func:`folder_digest`), so that
+    the run's fingerprint changes when a file is edited in place.
     """
 
     key: str
@@ -105,17 +108,23 @@ class TaskSpec:
     date: str | None = None
     variation: DateVariation | None = None
     size: float = 0.0
+    content: str | None = None
 
     def to_dict(self) -> dict:
         return {"key": self.key, "source": self.source, "path": self.path, "n_products": self.n_products,
                 "seed": self.seed, "date": self.date,
-                "variation": None if self.variation is None else self.variation.to_dict()}
+                "variation": None if self.variation is None else self.variation.to_dict(),
+                "content": self.content}
 
     def load(self):
         """Build this task's instance (on the worker)."""
         if self.source == "folder":
             from ..io import read_instance
 
+            if self.content is not None and folder_digest(pathlib.Path(self.path)) != self.content:
+                raise InstanceError("the instance files changed after the run started (their content no "
+                                    "longer matches the run's fingerprint); rerun to solve what is there now",
+                                    file=self.path)
             inst = read_instance(self.path)
         elif self.source == "generate":
             from ..generator import generate
@@ -200,6 +209,21 @@ def _folder_bytes(path: pathlib.Path) -> int:
     return sum(p.stat().st_size for p in path.iterdir() if p.is_file())
 
 
+def folder_digest(path: pathlib.Path) -> str:
+    """sha256 over the names and bytes of the instance files in ``path`` (what read_instance reads)."""
+    from ..io import _INSTANCE_FILES
+
+    h = hashlib.sha256(b"decomp-instance-files;")
+    for p in sorted(path.iterdir()):
+        if p.name in _INSTANCE_FILES and p.is_file():
+            h.update(p.name.encode() + b"\0")
+            with open(p, "rb") as fh:
+                for chunk in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(chunk)
+            h.update(b"\0")
+    return h.hexdigest()
+
+
 def base_sources(batch: str) -> list:
     """The base networks named by a BATCH argument: a list of (name, TaskSpec template)."""
     m = _GEN.match(str(batch).strip())
@@ -221,7 +245,7 @@ def base_sources(batch: str) -> list:
         if not folders:
             raise InstanceError("the batch folder holds no instance folders", file=path)
     return [(p.name, TaskSpec(key=safe_key(p.name), source="folder", path=str(p.resolve()),
-                              size=float(_folder_bytes(p)))) for p in folders]
+                              size=float(_folder_bytes(p)), content=folder_digest(p))) for p in folders]
 
 
 def build_batch(batch: str, dates: list | None = None, variation: DateVariation | None = None) -> Batch:

@@ -1,27 +1,38 @@
-"""The production run on Dask: one task per instance, atomic output, resumable.
+"""The production run on Dask: one task per instance, atomic output, verified resume.
 
 Output layout under ``out``::
 
+    .lock                          held by the run writing here (:mod:`.lock`)
     run.json                       the arguments of the latest invocation
-    tasks/<key>/bid_prices.parquet leg_id, bid_price (fare units per seat, >= 0)
-    tasks/<key>/result.json        the task record and the SolveResult (written last)
-    tasks/<key>/error.json         the error of a failed task (removed once it succeeds)
+    tasks/<key>/...                bid_prices.parquet (leg, bid_price), result.json (the one result
+                                   schema, the task record under ``context``), error.json (:mod:`.outputs`)
     summary.json, summary.md       the end-of-run summary (see :mod:`.summary`)
 
-A task is finished when its ``result.json`` exists, parses, says ``ok`` or
-``not_optimal`` and carries the same fingerprint (model, method, options, task
-source, warm-start folder), and its Parquet file exists. A rerun with the same
-arguments skips finished tasks; the others are solved again from the same
-inputs, so the results are identical (the solves are deterministic).
+A rerun with the same arguments skips a task only once :func:`.outputs.read_finished`
+has verified it (same fingerprint -- model, method, options, task source and the
+content of its instance files, warm-start folder --, task status ``ok``, the bid-price
+file matching the checksum in ``result.json``, one finite bid price >= 0 per leg);
+every other task is solved again from the same inputs, so the results are identical
+(the solves are deterministic). A task that ended non-optimal is solved again too.
+
+Fallback: a task whose method ends non-optimal is solved again by a robust method
+(:mod:`.fallback`); the record says which method produced the published bid prices.
+The fallback setting is not part of the fingerprint: an ``ok`` task is ok whichever
+method produced it.
 
 Warm starts: ``warm_start_from`` is an earlier run's ``out`` folder; a task
 starts from the bid prices of the same task key there when present (legs
-matched by id, legs missing there start at 0), and cold otherwise.
+matched by id, legs missing there start at 0, values clamped to [0, largest fare
+on the leg] by :func:`decomp.warmstart.bounded_warm_start`), and cold otherwise.
 
 A task raising a :class:`~decomp.errors.DecompError` (bad instance, missing
-solver) fails at once: retrying cannot help. Any other exception, and a worker
-that dies, makes Dask retry the task (``retries``) or reschedule it; a task
-that still fails is reported with its error and never hides the others.
+solver) fails at once: retrying cannot help. So does a task that cannot write
+its output because the folder is full, read-only or not permitted
+(:data:`.outputs.OUTPUT_ERRNOS`): the run then stops submitting, says so once,
+keeps every finished task and writes what summary it can. Any other exception,
+and a worker that dies, makes Dask retry the task (``retries``) or reschedule
+it; a task that still fails is reported with its error and never hides the
+others.
 """
 
 from __future__ import annotations
@@ -40,15 +51,23 @@ import uuid
 import numpy as np
 
 from .. import atomic
+from ..warmstart import bounded_warm_start
 from ..errors import DecompError
+from . import fallback as fallback_mod
 from .batch import Batch, TaskSpec
+from .lock import OutputLock
+from .outputs import (BID_FILE, ERROR_FILE, RESULT_FILE, is_output_error, read_bid_prices, read_finished,  # noqa: F401
+                      task_dir, write_bid_prices)
 
 log = logging.getLogger(__name__)
 
-#: Task statuses that count as finished (a not_optimal solve is an answer with
-#: its status, which a rerun would only repeat).
-FINISHED = ("ok", "not_optimal")
-RESULT_FILE, BID_FILE, ERROR_FILE = "result.json", "bid_prices.parquet", "error.json"
+#: Task statuses (``task_status`` of a record) that count as finished (a not_optimal task is
+#: solved again on a rerun).
+FINISHED = ("ok",)
+
+
+class OutputFolderError(DecompError):
+    """The output folder cannot be written (full, read-only, no permission)."""
 
 
 @dataclasses.dataclass(frozen=True)
@@ -60,19 +79,22 @@ class RunConfig:
     options: object            # SolverOptions
     out: str
     warm_start_from: str | None = None
+    fallback: str | None = fallback_mod.AUTO     # auto, none, METHOD or lagrangian:DUAL (see .fallback)
 
     def __post_init__(self):
+        fallback_mod.parse(self.fallback)          # a bad name fails here, before anything starts
         object.__setattr__(self, "out", str(pathlib.Path(self.out).resolve()))
         if self.warm_start_from is not None:
             object.__setattr__(self, "warm_start_from", str(pathlib.Path(self.warm_start_from).resolve()))
 
     def to_dict(self) -> dict:
         return {"model": self.model, "method": self.method, "options": options_dict(self.options),
-                "out": self.out, "warm_start_from": self.warm_start_from}
+                "out": self.out, "warm_start_from": self.warm_start_from, "fallback": self.fallback}
 
     def __reduce__(self):
         # SolverOptions holds a mappingproxy, which does not pickle: ship its dict.
-        return (_make_config, (self.model, self.method, options_dict(self.options), self.out, self.warm_start_from))
+        return (_make_config, (self.model, self.method, options_dict(self.options), self.out, self.warm_start_from,
+                               self.fallback))
 
     def fingerprint(self, spec: TaskSpec) -> str:
         ident = {"model": self.model, "method": self.method, "options": options_dict(self.options),
@@ -88,57 +110,14 @@ def options_dict(options) -> dict:
     return d
 
 
-def _make_config(model, method, options, out, warm_start_from) -> RunConfig:
+def _make_config(model, method, options, out, warm_start_from, fallback=fallback_mod.AUTO) -> RunConfig:
     from ..options import SolverOptions
 
     return RunConfig(model=model, method=method, options=SolverOptions(**options), out=out,
-                     warm_start_from=warm_start_from)
+                     warm_start_from=warm_start_from, fallback=fallback)
 
 
-def task_dir(out, key) -> pathlib.Path:
-    return pathlib.Path(out) / "tasks" / key
-
-
-# -- files ------------------------------------------------------------------------
-
-def write_bid_prices(path, leg_ids, bid_prices) -> None:
-    """Bid prices as Parquet (columns leg_id, bid_price), atomically."""
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    legs = [str(x) for x in leg_ids]
-    values = (np.full(len(legs), np.nan) if bid_prices is None
-              else np.asarray(bid_prices, dtype=np.float64))
-    table = pa.table({"leg_id": pa.array(legs, pa.string()), "bid_price": pa.array(values, pa.float64())})
-    with atomic.atomic_path(path) as tmp:
-        pq.write_table(table, tmp)
-
-
-def read_bid_prices(path) -> dict:
-    """Bid prices by leg id from a task's Parquet file."""
-    import pyarrow.parquet as pq
-
-    table = pq.read_table(path, columns=["leg_id", "bid_price"])
-    return dict(zip(table.column("leg_id").to_pylist(), table.column("bid_price").to_pylist()))
-
-
-def read_finished(out, spec: TaskSpec, fingerprint: str) -> dict | None:
-    """The stored record of a finished task with this fingerprint, else None."""
-    d = task_dir(out, spec.key)
-    try:
-        with open(d / RESULT_FILE) as fh:
-            data = json.load(fh)
-    except (OSError, ValueError):
-        return None
-    rec = data.get("record") if isinstance(data, dict) else None
-    if not isinstance(rec, dict) or rec.get("status") not in FINISHED:
-        return None
-    if data.get("fingerprint") != fingerprint or not (d / BID_FILE).is_file():
-        return None
-    return rec
-
-
-def _warm_start(cfg: RunConfig, key: str, leg_ids):
+def _warm_start(cfg: RunConfig, key: str, inst):
     """(array aligned with leg_ids or None, info dict) from the earlier run's output."""
     if cfg.warm_start_from is None:
         return None, {"from": None}
@@ -146,12 +125,15 @@ def _warm_start(cfg: RunConfig, key: str, leg_ids):
     if not path.is_file():
         return None, {"from": None, "reason": f"no {BID_FILE} for task {key} in {cfg.warm_start_from}"}
     prices = read_bid_prices(path)
-    values = np.array([prices.get(str(leg), np.nan) for leg in leg_ids], dtype=np.float64)
+    values = np.array([prices.get(str(leg), np.nan) for leg in inst.leg_ids], dtype=np.float64)
     matched = int(np.count_nonzero(np.isfinite(values)))
     if matched == 0:
         return None, {"from": str(path), "legs_matched": 0, "reason": "no leg ids in common"}
-    values = np.where(np.isfinite(values), np.maximum(values, 0.0), 0.0)
-    return values, {"from": str(path), "legs_matched": matched}
+    values, changed = bounded_warm_start(inst, np.where(np.isfinite(values), values, 0.0))
+    info = {"from": str(path), "legs_matched": matched}
+    if changed:
+        info["clamped"] = changed       # values outside [0, largest fare on the leg]
+    return values, info
 
 
 # -- the task (runs on a worker) -----------------------------------------------------
@@ -205,10 +187,13 @@ def prepare_worker(model: str, method: str) -> bool:
 
 
 def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
-    """Build, solve and write one task; return its (small) record.
+    """Build, solve (falling back when the method ends non-optimal) and write one task; return its
+    (small) record.
 
     Only the record travels back to the client; the instance and the result
-    are dropped when this returns.
+    are dropped when this returns. A full, read-only or forbidden output folder
+    gives a failed record with ``output_error`` set (not an exception: a retry
+    would meet the same folder).
     """
     from ..registry import solve
 
@@ -217,24 +202,26 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
     try:
         inst = spec.load()
     except DecompError as exc:      # bad input: a retry cannot help
-        return {**base, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+        return {**base, "task_status": "failed", "error": f"{type(exc).__name__}: {exc}",
                 "seconds": {"total": time.perf_counter() - t0}}
     t1 = time.perf_counter()
     try:
-        warm, warm_info = _warm_start(cfg, spec.key, inst.leg_ids)
+        warm, warm_info = _warm_start(cfg, spec.key, inst)
     except Exception as exc:        # an unreadable earlier output only costs the warm start
         warm, warm_info = None, {"from": None, "reason": f"unreadable: {type(exc).__name__}: {exc}"}
     try:
-        result = solve(inst, model=cfg.model, method=cfg.method, options=cfg.options, warm_start=warm)
+        result, published_by, attempts = fallback_mod.solve_with_fallback(
+            inst, cfg.model, cfg.method, cfg.options, warm, fallback_mod.parse(cfg.fallback), solve)
     except DecompError as exc:
-        return {**base, "status": "failed", "error": f"{type(exc).__name__}: {exc}",
+        return {**base, "task_status": "failed", "error": f"{type(exc).__name__}: {exc}",
                 "seconds": {"load": t1 - t0, "total": time.perf_counter() - t0}}
     t2 = time.perf_counter()
-    d = task_dir(cfg.out, spec.key)
-    write_bid_prices(d / BID_FILE, result.leg_ids, result.bid_price_array)
     record = {
         **base,
-        "status": "ok" if result.ok else "not_optimal",
+        "task_status": "ok" if result.ok else "not_optimal",
+        "method": published_by,
+        "fallback_used": published_by != attempts[0]["method"],
+        "attempts": attempts,
         "termination": result.termination.value,
         "solution_status": result.solution_status.value,
         "objective": _num(result.objective),
@@ -243,14 +230,34 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         "iterations": result.iterations,
         "n_products": int(inst.n_products),
         "n_legs": int(inst.n_legs),
+        "closed_legs": int(np.count_nonzero(inst.capacity == 0)),   # bid price not unique there (README, Closed legs)
         "warm_start": warm_info,
         "error": None if result.ok else (result.message or result.termination.value),
         "seconds": {"load": t1 - t0, "solve": t2 - t1,
                     "solver": {k: float(v) for k, v in result.seconds.items()}},
     }
     del inst
-    payload = {"fingerprint": fingerprint, "task": spec.to_dict(), "record": record,
-               "result": result.to_json_dict(include_history=True)}
+    try:
+        _write_task(cfg.out, spec, fingerprint, record, result, t0, t2)
+    except OSError as exc:
+        if not is_output_error(exc):
+            raise                   # anything else: Dask retries the task
+        return {**base, "task_status": "failed", "output_error": True,
+                "error": f"cannot write the task's output in {cfg.out}: {exc.strerror or exc} "
+                         f"[Errno {exc.errno}]",
+                "seconds": {"load": t1 - t0, "solve": t2 - t1, "total": time.perf_counter() - t0}}
+    return record
+
+
+def _write_task(out, spec, fingerprint, record, result, t0, t2) -> None:
+    """bid_prices.parquet, then result.json (last: its presence and checksum mark the task finished).
+
+    result.json is the result in the one output schema; the fingerprint, the task and its record
+    (with the checksum of bid_prices.parquet) go under ``context``."""
+    d = task_dir(out, spec.key)
+    record["bid_prices_sha256"] = write_bid_prices(d / BID_FILE, result.leg_ids, result.bid_price_array)
+    payload = result.to_json_dict(include_history=True, context={
+        "fingerprint": fingerprint, "task": spec.to_dict(), "record": record})
     record["seconds"]["write"] = time.perf_counter() - t2
     record["seconds"]["total"] = time.perf_counter() - t0
     atomic.write_json(d / RESULT_FILE, json.loads(json.dumps(payload, default=str)))
@@ -258,7 +265,6 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         os.unlink(d / ERROR_FILE)
     except FileNotFoundError:
         pass
-    return record
 
 
 # -- the client side ----------------------------------------------------------------
@@ -301,55 +307,107 @@ def _remove_stale_temporaries(d: pathlib.Path) -> None:
 def _failure_record(spec, fingerprint, exc, tb) -> dict:
     text = "".join(traceback.format_exception_only(type(exc), exc)).strip()
     tail = "".join(traceback.format_tb(tb)[-3:]) if tb is not None else ""
-    return {"key": spec.key, "status": "failed", "fingerprint": fingerprint, "error": text,
+    return {"key": spec.key, "task_status": "failed", "fingerprint": fingerprint, "error": text,
             "traceback": tail, "seconds": {}}
 
 
-def start_cluster(workers: int | None = None):
-    """An embedded LocalCluster: one single-threaded worker process per core."""
+#: HTTP routes of the embedded cluster without a dashboard: a health check only (Dask always starts
+#: an HTTP server; its default routes serve scheduler and worker details and metrics).
+_HEALTH_ONLY = ["distributed.http.health"]
+
+
+def start_cluster(workers: int | None = None, dashboard: int | None = None):
+    """An embedded LocalCluster: one single-threaded worker process per core, on the loopback address.
+
+    The scheduler and workers listen on 127.0.0.1 only. Dask's HTTP servers (the dashboard, which
+    serves scheduler and worker details to anyone who can reach it) serve only ``/health`` unless
+    ``dashboard`` gives a port (0: any free port); then the dashboard is served, on 127.0.0.1 only.
+    """
+    import dask
     from distributed import Client, LocalCluster
 
     n = int(workers or os.cpu_count() or 1)
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                           dashboard_address=":0", silence_logs=logging.ERROR)
+    routes = {} if dashboard is not None else {"distributed.scheduler.http.routes": _HEALTH_ONLY,
+                                                "distributed.worker.http.routes": _HEALTH_ONLY}
+    with dask.config.set(routes):
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
+                               dashboard_address=f"127.0.0.1:{int(dashboard or 0)}",
+                               scheduler_kwargs={"dashboard": dashboard is not None},
+                               silence_logs=logging.ERROR)
     return cluster, Client(cluster)
+
+
+def _prepare_output(out: pathlib.Path, cfg: RunConfig, batch: Batch, retries, window) -> None:
+    """Create the folder and write run.json; an unwritable folder is an OutputFolderError (said once)."""
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        atomic.write_json(out / "run.json", {"config": cfg.to_dict(), "batch": batch.to_dict(),
+                                             "retries": retries, "window_seconds": window})
+    except OSError as exc:
+        raise OutputFolderError(f"cannot write to the output folder {out}: {exc.strerror or exc} "
+                                f"[Errno {exc.errno}]; nothing was run") from exc
 
 
 def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | None = None,
               workers: int | None = None, retries: int = 2, window: float | None = None,
-              on_event=None) -> dict:
+              on_event=None, dashboard: int | None = None) -> dict:
     """Run every unfinished task of ``batch``; write and return the summary dict.
 
     ``client``: a connected :class:`distributed.Client` to use; else
     ``scheduler`` (an address) is connected to; else an embedded LocalCluster
-    with ``workers`` processes (default: one per core) is started and closed.
+    with ``workers`` processes (default: one per core; ``dashboard`` as in
+    :func:`start_cluster`) is started and closed.
     ``on_event(kind, record, progress)`` is called with kind ``"start"``
     (record None), ``"done"`` or ``"failed"`` as tasks complete. A
-    KeyboardInterrupt (or any exception from ``on_event``) cancels what is not
-    finished, writes the summary of what is, and is raised again.
+    KeyboardInterrupt (SIGTERM too, see :mod:`.signals`), or any exception from
+    ``on_event``, cancels what is not finished, writes the summary of what is,
+    and is raised again. The output folder is locked for the whole call
+    (:class:`.lock.RunLockedError` when another run holds it). When the folder
+    fills up or turns read-only, the run stops, keeps what is finished, and the
+    summary (if it can still be written; else ``summary_error`` in the returned
+    dict) says why in ``stopped``.
     """
     from ..registry import get_method
-    from . import summary as summary_mod
 
     get_method(cfg.method, cfg.model)           # unknown names fail before anything starts
+    fb = fallback_mod.parse(cfg.fallback)
+    if isinstance(fb, fallback_mod.Fallback):
+        get_method(fb.method, cfg.model)
     out = pathlib.Path(cfg.out)
-    out.mkdir(parents=True, exist_ok=True)
-    atomic.write_json(out / "run.json", {"config": cfg.to_dict(), "batch": batch.to_dict(),
-                                         "retries": retries, "window_seconds": window})
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        lock = OutputLock(out)
+        lock.__enter__()
+    except OSError as exc:
+        raise OutputFolderError(f"cannot write to the output folder {out}: {exc.strerror or exc} "
+                                f"[Errno {exc.errno}]; nothing was run") from exc
+    try:
+        return _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on_event, dashboard)
+    finally:
+        lock.__exit__(None, None, None)
+
+
+def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on_event, dashboard) -> dict:
+    from . import summary as summary_mod
+
+    _prepare_output(out, cfg, batch, retries, window)
     fps = {spec.key: cfg.fingerprint(spec) for spec in batch.tasks}
-    records, todo = {}, []
+    records, todo, redo = {}, [], {}
     for spec in batch.tasks:
-        rec = read_finished(out, spec, fps[spec.key])
+        rec = read_finished(out, spec, fps[spec.key], redo)
         if rec is None:
             todo.append(spec)
             _remove_stale_temporaries(task_dir(out, spec.key))
         else:
             records[spec.key] = {**rec, "skipped": True}
+    for key, why in redo.items():
+        log.info("task %s is solved again: %s", key, why)
     progress = Progress(total=len(batch), skipped=len(records), todo=len(todo))
     t_start = time.perf_counter()
     own_cluster = own_client = None
     cluster_seconds = 0.0
     interrupted = None
+    stopped = None
     n_workers = None
     try:
         if todo:
@@ -359,7 +417,7 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
 
                     client = own_client = Client(scheduler)
                 else:
-                    own_cluster, client = start_cluster(workers)
+                    own_cluster, client = start_cluster(workers, dashboard)
                     own_client = client
             client.run(prepare_worker, cfg.model, cfg.method)
             cluster_seconds = time.perf_counter() - t_start
@@ -377,7 +435,7 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
                                     retries=retries, pure=False, priority=len(todo) - rank)
                 by_key[fut.key] = spec
                 futures.append(fut)
-            _collect(futures, by_key, fps, records, progress, out, on_event)
+            stopped = _collect(futures, by_key, fps, records, progress, out, on_event)
     except BaseException as exc:
         interrupted = exc
     finally:
@@ -386,19 +444,37 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
             own_client.close()
         if own_cluster is not None:
             own_cluster.close()
+    if stopped is not None or interrupted is not None:   # tasks that ended meanwhile count as what they are
+        for spec in todo:
+            if spec.key not in records:
+                rec = read_finished(out, spec, fps[spec.key])
+                if rec is not None:
+                    records[spec.key] = {**rec, "skipped": False}
+    for key, why in redo.items():
+        if key in records:
+            records[key]["redone"] = why
+    reason = None
+    if interrupted is not None:
+        reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
     summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
-                                     workers=n_workers or workers, window=window,
-                                     interrupted=None if interrupted is None else type(interrupted).__name__)
-    summary_mod.write_summary(out, summ)
+                                     workers=n_workers or workers, window=window, interrupted=reason,
+                                     stopped=stopped)
+    failed = summary_mod.write_summary(out, summ)
+    if failed:
+        summ["summary_error"] = f"not written to {out}: " + "; ".join(
+            f"{name} ({exc.strerror or exc} [Errno {exc.errno}])" for name, exc in failed)
+        log.error(summ["summary_error"])
     if interrupted is not None:
         raise interrupted
     return summ
 
 
 def _collect(futures, by_key, fps, records, progress, out, on_event):
+    """Gather the tasks as they finish; returns why the run stopped early (output folder), or None."""
     from distributed import as_completed
 
     pending = {f.key: f for f in futures}
+    stopped = None
     try:
         for fut in as_completed(futures):
             spec = by_key[fut.key]
@@ -414,14 +490,31 @@ def _collect(futures, by_key, fps, records, progress, out, on_event):
             fut.release()
             rec["skipped"] = False
             records[spec.key] = rec
-            if rec["status"] == "failed":
+            if rec["task_status"] == "failed":
                 progress.failed += 1
-                atomic.write_json(task_dir(out, spec.key) / ERROR_FILE, rec)
-                log.warning("task %s failed: %s", spec.key, rec.get("error"))
+                if rec.get("output_error"):
+                    # the folder is full or read-only: every other task would fail the same way, so stop
+                    # (the finally below cancels what is pending; those tasks are reported as not run)
+                    stopped = rec["error"]
+                    log.error("stopping the run: %s", stopped)
+                    if on_event is not None:
+                        on_event("failed", rec, progress)
+                    break
+                else:
+                    _write_error(out, spec.key, rec)
+                    log.warning("task %s failed: %s", spec.key, rec.get("error"))
             else:
                 progress.done += 1
             if on_event is not None:
-                on_event("failed" if rec["status"] == "failed" else "done", rec, progress)
+                on_event("failed" if rec["task_status"] == "failed" else "done", rec, progress)
     finally:
         for fut in pending.values():
             fut.cancel()
+    return stopped
+
+
+def _write_error(out, key, rec) -> None:
+    try:
+        atomic.write_json(task_dir(out, key) / ERROR_FILE, rec)
+    except OSError as exc:          # the summary still carries the error
+        log.warning("could not write %s for task %s: %s", ERROR_FILE, key, exc)

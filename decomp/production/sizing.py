@@ -47,6 +47,7 @@ class BenchCase:
     accuracy_failures: int = 0   # accuracy checks the case failed (kept: its time is still real)
     revenue_loss_rel: float | None = None   # from ``decomp bench --revenue-paths N`` (None: not priced)
     revenue_paths: int | None = None
+    revenue_loss_high: float | None = None  # upper end of its paired 95 % interval (None: not recorded)
 
 
 # -- reading benchmark output --------------------------------------------------------
@@ -102,12 +103,16 @@ def load_bench(path) -> list:
                 raise InstanceError("revenue loss is not a finite number", file=f, row=i,
                                     column="extra_info.revenue_loss_rel", value=loss)
             paths = info.get("revenue_paths")
+            ci = info.get("revenue_loss_ci")
+            high = (float(ci[1]) if isinstance(ci, (list, tuple)) and len(ci) == 2
+                    and isinstance(ci[1], (int, float)) and math.isfinite(ci[1]) else None)
             out.append(BenchCase(name=str(b.get("name", f"case {i}")), model=str(model), method=str(method),
                                  variant=str(info.get("label") or method), tol=tol, n_products=int(n),
                                  seconds=float(t), source=str(f),
                                  accuracy_failures=len(info.get("accuracy_failures") or ()),
                                  revenue_loss_rel=None if loss is None else float(loss),
-                                 revenue_paths=int(paths) if isinstance(paths, (int, float)) else None))
+                                 revenue_paths=int(paths) if isinstance(paths, (int, float)) else None,
+                                 revenue_loss_high=high))
     return out
 
 
@@ -290,16 +295,18 @@ def read_run_solves(path) -> list:
     except (OSError, ValueError, KeyError, TypeError) as exc:
         raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="tasks") from exc
     out = [(float(t["n_products"]), float(t["seconds_solve"])) for t in tasks
-           if t.get("status") == "ok" and not t.get("skipped")
+           if t.get("task_status", t.get("status")) == "ok" and not t.get("skipped")   # "status": earlier runs
            and isinstance(t.get("n_products"), (int, float)) and isinstance(t.get("seconds_solve"), (int, float))]
     if not out:
         raise InstanceError("the summary has no task that ran to ok in it", file=path, column="tasks")
     return out
 
 
-REVENUE_ESTIMATE = ("point estimate: the benchmark's revenue_loss_rel, (reference mean - case mean) / "
-                    "reference mean over common sample paths; the benchmark keeps no interval of the paired "
-                    "difference, so no upper end is used")
+REVENUE_ESTIMATE = ("the benchmark's revenue_loss_rel, (reference mean - case mean) / reference mean over "
+                    "common sample paths, and the upper end of its paired 95 % interval (revenue_loss_ci): a "
+                    "tolerance is within the limit only when that upper end is")
+#: Fewest benchmark sizes a time fit is made from (two points fit any line exactly: no spread, no interval).
+MIN_FIT_SIZES = 3
 
 
 def loosest_within_loss(groups: dict, max_loss: float, baseline_tol: float) -> dict:
@@ -326,9 +333,16 @@ def loosest_within_loss(groups: dict, max_loss: float, baseline_tol: float) -> d
         if not at:
             continue
         loss = max(c.revenue_loss_rel for c in at)
-        rows.append({"tol": t, "revenue_loss_rel": loss, "seconds": float(np.median([c.seconds for c in at])),
+        highs = [c.revenue_loss_high for c in at]
+        high = None if any(h is None for h in highs) else max(highs)
+        why = ("no interval recorded (rerun decomp bench --revenue-paths N)" if high is None else
+               "interval within" if high <= max_loss else
+               "interval reaches past the limit" if loss <= max_loss else "point estimate past the limit")
+        rows.append({"tol": t, "revenue_loss_rel": loss, "revenue_loss_high": high,
+                     "seconds": float(np.median([c.seconds for c in at])),
                      "paths": min((c.revenue_paths for c in at if c.revenue_paths), default=None),
-                     "cases": [c.name for c in at], "within": bool(loss <= max_loss)})
+                     "cases": [c.name for c in at], "within": bool(high is not None and high <= max_loss),
+                     "why": why})
     ok = [r for r in rows if r["within"]]
     best = max(ok, key=lambda r: r["tol"]) if ok else None
     base = [r for r in rows if math.isclose(r["tol"], baseline_tol, rel_tol=1e-9)]
@@ -365,6 +379,14 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
     if not match:
         raise ConfigError(f"no benchmark cases at tol {tol:g} for {model}/{method}; "
                           f"tolerances there: {', '.join(f'{t:g}' for t in tols)}")
+    sizes = sorted({c.n_products for c in groups[match[0]]})
+    if len(sizes) < MIN_FIT_SIZES:
+        raise ConfigError(
+            f"the benchmark has {model}/{method} at tol {tol:g} on {len(sizes)} size(s) "
+            f"({', '.join(f'{n:,}' for n in sizes)} products"
+            + (f", from {fit_min_products:,} up" if fit_min_products else "") + f"); a time fit needs at least "
+            f"{MIN_FIT_SIZES} (with fewer there is no spread to size a prediction interval from): benchmark "
+            f"more rungs, or lower --fit-min-products")
     task_products = np.asarray(task_products, dtype=np.float64)
 
     factor = None
@@ -394,7 +416,9 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
         return res, tm
 
     main, tm = one(match[0])
-    others = [one(t)[0] for t in tols if t > match[0] * (1 + 1e-9)]
+    looser = [t for t in tols if t > match[0] * (1 + 1e-9)]
+    others = [one(t)[0] for t in looser if len({c.n_products for c in groups[t]}) >= MIN_FIT_SIZES]
+    too_few = [t for t in looser if len({c.n_products for c in groups[t]}) < MIN_FIT_SIZES]
     w_max = min(max(2 * workers, (main["smallest_workers"] or 2 * workers) + 2, 8), len(task_products))
     curve_w = list(range(1, w_max + 1))
     curve = [project(task_products, tm, w, overhead, startup) for w in curve_w]
@@ -403,7 +427,7 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
         revenue = loosest_within_loss(groups, revenue_loss, match[0])
         revenue["seconds_saved_per_task"] = None
         lt = revenue["loosest_tol"]
-        if lt is not None and len({c.n_products for c in groups[lt]}) >= 2:
+        if lt is not None and len({c.n_products for c in groups[lt]}) >= MIN_FIT_SIZES:
             tm_l = TimeModel.fit([c.n_products for c in groups[lt]], [c.seconds for c in groups[lt]])
             if factor is not None:
                 tm_l = dataclasses.replace(tm_l, a=tm_l.a * factor)
@@ -415,7 +439,7 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
             "tasks": int(task_products.size), "products_min": float(task_products.min()),
             "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
             "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
-            "result": main, "looser": others, "curve": curve}
+            "result": main, "looser": others, "looser_too_few_sizes": too_few, "curve": curve}
 
 
 def plot(sizing: dict, path) -> None:
@@ -439,7 +463,11 @@ def plot(sizing: dict, path) -> None:
     ax.set_xlabel("workers")
     ax.set_ylabel("wall time (minutes)")
     ax.set_yscale("log")
-    ax.set_title(f"{sizing['tasks']} tasks of {sizing['products_max']:,.0f} products: {sizing['model']}")
+    factor = sizing.get("calibration_factor")
+    calibrated = (f"calibrated: benchmark fit x {factor:.2f} from a pilot run" if factor is not None
+                  else "NOT calibrated: benchmark machine times (use --calibrate with a pilot run)")
+    ax.set_title(f"{sizing['tasks']} tasks of {sizing['products_max']:,.0f} products: {sizing['model']}\n"
+                 f"{calibrated}", fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()

@@ -12,39 +12,58 @@ import pathlib
 
 from .. import atomic
 from .durations import format_duration
+from .outputs import task_status
 
 
 def _f(v):
     return float(v) if isinstance(v, (int, float)) else None
 
 
+#: Longest error text kept per task (a 10 MB bad input line must not become a 10 MB summary).
+ERROR_CHARS = 500
+
+
+def short(text, limit: int = ERROR_CHARS):
+    if text is None:
+        return None
+    text = str(text)
+    return text if len(text) <= limit else text[:limit] + f"... ({len(text)} characters in all)"
+
+
 def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_seconds: float = 0.0,
-                  workers=None, window=None, interrupted=None) -> dict:
-    """The summary dict. ``records`` maps task key to its record (missing: not run)."""
+                  workers=None, window=None, interrupted=None, stopped=None) -> dict:
+    """The summary dict. ``records`` maps task key to its record (missing: not run).
+
+    ``interrupted``: why the run was cut short by the operator (KeyboardInterrupt, SIGTERM);
+    ``stopped``: why it stopped by itself (the output folder cannot be written)."""
     tasks = []
     for spec in batch.tasks:
         rec = records.get(spec.key)
         if rec is None:
-            tasks.append({"key": spec.key, "status": "not_run", "skipped": False})
+            tasks.append({"key": spec.key, "task_status": "not_run", "skipped": False})
             continue
         sec = rec.get("seconds") or {}
         tasks.append({
-            "key": spec.key, "status": rec.get("status"), "skipped": bool(rec.get("skipped")),
+            "key": spec.key, "task_status": task_status(rec), "skipped": bool(rec.get("skipped")),
             "termination": rec.get("termination"), "gap": rec.get("gap"),
             "iterations": rec.get("iterations"), "objective": rec.get("objective"),
             "n_products": rec.get("n_products"),
             "warm_started": bool((rec.get("warm_start") or {}).get("from")),
             "seconds_total": _f(sec.get("total")), "seconds_solve": _f(sec.get("solve")),
-            "seconds_load": _f(sec.get("load")), "error": rec.get("error"),
+            "seconds_load": _f(sec.get("load")), "error": short(rec.get("error")),
+            "method": rec.get("method"), "fallback_used": bool(rec.get("fallback_used")),
+            "redone": rec.get("redone"),
         })
-    count = lambda st: sum(1 for t in tasks if t["status"] == st)  # noqa: E731
-    ran = [t for t in tasks if not t["skipped"] and t["status"] in ("ok", "not_optimal", "failed")]
+    count = lambda st: sum(1 for t in tasks if t["task_status"] == st)  # noqa: E731
+    ran = [t for t in tasks if not t["skipped"] and t["task_status"] in ("ok", "not_optimal", "failed")]
     solve_sum = sum(t["seconds_solve"] or 0.0 for t in ran)
     task_sum = sum(t["seconds_total"] or 0.0 for t in ran)
     totals = {
         "n_tasks": len(tasks), "ok": count("ok"), "not_optimal": count("not_optimal"),
         "failed": count("failed"), "not_run": count("not_run"),
         "skipped": sum(1 for t in tasks if t["skipped"]), "run": len(ran),
+        "fallback_used": sum(1 for t in tasks if t.get("fallback_used")),
+        "redone": sum(1 for t in tasks if t.get("redone")),
         "wall_seconds": wall_seconds, "cluster_start_seconds": cluster_seconds,
         "workers": workers, "task_seconds_sum": task_sum, "solve_seconds_sum": solve_sum,
         "max_gap": max((t["gap"] for t in tasks if isinstance(t.get("gap"), (int, float))), default=None),
@@ -66,7 +85,8 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
         "written": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
         "batch": batch.description, "model": cfg.model, "method": cfg.method,
         "tol": cfg.options.tol, "out": cfg.out, "warm_start_from": cfg.warm_start_from,
-        "interrupted": interrupted, "totals": totals, "tasks": tasks,
+        "fallback": getattr(cfg, "fallback", None),
+        "interrupted": interrupted, "stopped": short(stopped), "totals": totals, "tasks": tasks,
     }
 
 
@@ -95,20 +115,36 @@ def to_markdown(s: dict) -> str:
     if t.get("overhead_per_task_seconds") is not None:
         lines.append(f"- overhead per task beyond the solve: {t['overhead_per_task_seconds']:.3f} s; "
                      f"throughput {t['throughput_tasks_per_minute']:.1f} tasks/min")
+    lines.append(f"- fallback: {s.get('fallback') or 'none'}; used by {t.get('fallback_used', 0)} task(s); "
+                 f"{t.get('redone', 0)} task(s) with earlier output solved again (why: `redone` in summary.json)")
     if s.get("interrupted"):
         lines.append(f"- INTERRUPTED ({s['interrupted']}): rerun with the same arguments to finish")
-    lines += ["", "| task | status | skipped | gap | iterations | solve s | task s | warm | error |",
-              "|---|---|---|---|---|---|---|---|---|"]
+    if s.get("stopped"):
+        lines.append(f"- STOPPED: {s['stopped']}; finished tasks are kept, rerun with the same arguments "
+                     f"once the folder can be written")
+    lines += ["", "| task | status | method | skipped | gap | iterations | solve s | task s | warm | error |",
+              "|---|---|---|---|---|---|---|---|---|---|"]
     for r in s["tasks"]:
         lines.append("| " + " | ".join([
-            _cell(r["key"]), _cell(r["status"]), "yes" if r.get("skipped") else "",
+            _cell(r["key"]), _cell(r["task_status"]),
+            _cell(r.get("method")) + (" (fallback)" if r.get("fallback_used") and r.get("task_status") == "ok"
+                                      else ""),
+            "yes" if r.get("skipped") else "",
             _cell(r.get("gap"), "{:.1e}"), _cell(r.get("iterations")),
             _cell(r.get("seconds_solve"), "{:.3f}"), _cell(r.get("seconds_total"), "{:.3f}"),
             "yes" if r.get("warm_started") else "", _cell(r.get("error"))]) + " |")
     return "\n".join(lines) + "\n"
 
 
-def write_summary(out, s: dict) -> None:
+def write_summary(out, s: dict) -> list:
+    """Write summary.json and summary.md (each atomically); returns the ones that could not be
+    written as ``[(name, OSError)]`` (a full disk may take one and leave room for the other)."""
     out = pathlib.Path(out)
-    atomic.write_json(out / "summary.json", s)
-    atomic.write_text(out / "summary.md", to_markdown(s))
+    failed = []
+    for name, write in (("summary.json", lambda p: atomic.write_json(p, s)),
+                        ("summary.md", lambda p: atomic.write_text(p, to_markdown(s)))):
+        try:
+            write(out / name)
+        except OSError as exc:
+            failed.append((name, exc))
+    return failed

@@ -9,6 +9,11 @@ the k-th request of every row at once, so the Python loop runs over request
 
     accept = sold[row, j] < limit[row, j]  and  min over legs of cap[row, leg] > protect[row, j]
 
+and, for the rows of a policy with bid-price tables (capacity- and
+time-dependent bid prices, :mod:`decomp.dynamic`), also
+
+    fare[j] >= sum over j's legs of table[leg, period of the request, cap[row, leg]],
+
 then the accepted rows' sold counts go up and their legs lose a seat. A
 padding product (index P, limit 0) fills the positions beyond a path's last
 request of the period; a padding leg (index L, unlimited seats) fills the legs
@@ -22,7 +27,7 @@ import dataclasses
 import numpy as np
 
 from .booking import leg_matrix, remaining_forecast, remaining_share
-from .policies import ControlContext
+from .policies import TIE_RTOL, ControlContext
 
 #: Seats of the padding leg.
 _UNLIMITED = np.int64(1) << 40
@@ -42,7 +47,9 @@ class PolicyOutcome:
     seats: np.ndarray
     seconds: float
     solves: int
-    failures: int
+    failures: int                     # solves whose method ended non-optimal
+    rescued: int                      # ... priced with the fallback's optimal answer
+    priced_non_optimal: int           # ... priced with a non-optimal answer anyway
     statuses: dict
 
 
@@ -54,7 +61,7 @@ def _set_controls(limit, protect, rows, cs):
 
 
 def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_std, curve_params,
-                 initial=None) -> list:
+                 initial=None, curve=None, arrivals=None) -> list:
     """Simulate every policy on every path of ``requests``; a :class:`PolicyOutcome` per policy.
 
     ``opt_mean``/``opt_std``: the optimizer's forecast for the whole horizon;
@@ -73,7 +80,11 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
     sold = np.zeros((rows_n, P + 1), dtype=np.int64)
     limit = np.zeros((rows_n, P + 1))
     protect = np.zeros((rows_n, P + 1))
-    stats = [{"seconds": 0.0, "solves": 0, "failures": 0, "statuses": {}} for _ in policies]
+    stats = [{"seconds": 0.0, "solves": 0, "failures": 0, "rescued": 0, "priced_non_optimal": 0, "statuses": {}}
+             for _ in policies]
+    tables = [None] * npol
+    fare = np.r_[np.asarray(instance.fare, dtype=np.float64), 0.0]             # padding product earns 0
+    fare_tol = TIE_RTOL * np.maximum(1.0, fare)
     states = [[None] * n for _ in policies]
 
     times = reoptimization_times(horizon, every)
@@ -94,7 +105,8 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
             elif k == 0 or pol.reoptimizes:
                 if ctx is None:
                     m, s = remaining_forecast(opt_mean, opt_std, remaining_share(curve_params, t))
-                    ctx = ControlContext(instance=instance, mean=m, std=s, t_frac=float(t))
+                    ctx = ControlContext(instance=instance, mean=m, std=s, t_frac=float(t), curve=curve,
+                                         arrivals=arrivals)
                 if k == 0:     # every path starts alike: one computation, shared
                     cs = pol.controls(ctx, cap[rows][:1, :L].astype(np.float64), sold[rows][:1, :P], [None])
                     states[p] = [cs.states[0] if cs.states else None] * n
@@ -102,14 +114,14 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
                     cs = pol.controls(ctx, cap[rows, :L].astype(np.float64), sold[rows, :P], states[p])
                     states[p] = cs.states
                 st = stats[p]
-                st["seconds"] += cs.seconds
-                st["solves"] += cs.solves
-                st["failures"] += cs.failures
+                for name in ("seconds", "solves", "failures", "rescued", "priced_non_optimal"):
+                    st[name] += getattr(cs, name)
                 for key, v in cs.statuses.items():
                     st["statuses"][key] = st["statuses"].get(key, 0) + v
             else:
                 continue
             _set_controls(limit, protect, rows, cs)
+            tables[p] = cs.tables
 
         lo, hi = bounds[:, k], bounds[:, k + 1]
         steps = int((hi - lo).max()) if n else 0
@@ -119,10 +131,20 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
         prod = np.where(pos < hi[None, :], requests.products[path_ix[None, :], np.minimum(pos, K - 1)], P)
         PR = np.tile(prod, (1, npol))                                  # (steps, rows): same requests for every policy
         FP = PR + p_off[None, :]
+        with_tables = [(p, tb) for p, tb in enumerate(tables) if tb is not None]
+        if with_tables:
+            tt = np.where(pos < hi[None, :], requests.times[path_ix[None, :], np.minimum(pos, K - 1)], 0.0)
         for s in range(steps):
             fl = legs[PR[s]] + l_off
             fp = FP[s]
             ok = (sold_f[fp] < lim_f[fp]) & (cap_f[fl].min(axis=1) > prot_f[fp])
+            for p, tb in with_tables:
+                rows = slice(p * n, (p + 1) * n)
+                period = np.minimum((tt[s] * tb.periods).astype(np.int64), tb.periods - 1)
+                pl = legs[PR[s, rows]]                                         # (n, W), padding leg L
+                seats = cap[rows][np.arange(n)[:, None], pl]
+                price = tb.lookup(pl, period[:, None], seats).sum(axis=1)
+                ok[rows] &= fare[PR[s, rows]] >= price - fare_tol[PR[s, rows]]
             sold_f[fp] += ok
             cap_f[fl] -= ok[:, None]
 

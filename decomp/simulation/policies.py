@@ -24,10 +24,27 @@ seat left, and when the smallest remaining capacity over its legs exceeds
   (normal approximation of the aggregated demand of the higher classes, as is
   common practice); with two classes it is Littlewood's rule.
 * :class:`FCFSPolicy` (``fcfs``): every request is sold while seats last.
+* :class:`TablePolicy` (``dynamic:MODEL[:METHOD[:TOL]]``, ``relaxed:MODEL[:METHOD[:TOL]]``):
+  capacity- and time-dependent bid prices (:mod:`decomp.dynamic`), computed
+  once at time 0 from the static model's bid prices, by the decomposition by
+  leg (``dynamic``) or the Lagrangian relaxation of the network program
+  (``relaxed``; needs at most one request per period). A request is accepted
+  when its fare covers the sum of its legs' table values for the period it
+  arrives in and the seats its legs have left.
 
 Policies with a model re-optimize at every re-optimization time from the
 remaining capacity of the path and the optimizer's remaining forecast,
 warm-started from the previous bid prices of that path.
+
+A solve that ends non-optimal (iteration or time limit, numerical trouble,
+uncertified) is solved again from a cold start by the policy's fallback, the
+one ``decomp run --fallback`` uses (:func:`decomp.production.fallback.solve_with_fallback`;
+``auto``: ``highs`` for the DLP and PWL, ``ipopt`` for a normal-demand PNLP,
+``lagrangian:lbfgsb`` otherwise; ``None`` turns it off). Each :class:`ControlSet`
+counts its solves, those whose method ended non-optimal (``failures``), those
+the fallback rescued (``rescued``: priced with the fallback's optimal answer)
+and those that still priced with a non-optimal answer (``priced_non_optimal``);
+a non-optimal solve with no usable bid prices keeps the previous controls.
 """
 
 from __future__ import annotations
@@ -41,6 +58,7 @@ import numpy as np
 from scipy import special
 
 from ..errors import UnknownMethodError
+from ..production.fallback import AUTO, solve_with_fallback
 from .errors import SimulationConfigError
 
 log = logging.getLogger(__name__)
@@ -60,8 +78,12 @@ class ControlSet:
     states: list                      # per row: what the next re-optimization starts from
     seconds: float = 0.0
     solves: int = 0
-    failures: int = 0
+    failures: int = 0                 # solves whose method ended non-optimal
+    rescued: int = 0                  # ... of which the fallback's optimal answer priced
+    priced_non_optimal: int = 0       # ... of which a non-optimal answer priced anyway
     statuses: dict = dataclasses.field(default_factory=dict)
+    tables: object = None             # BidPriceTables: also require fare >= sum of the legs' table values
+    bounds: dict = dataclasses.field(default_factory=dict)   # upper bounds on expected revenue, by name
 
 
 @dataclasses.dataclass(frozen=True)
@@ -72,6 +94,8 @@ class ControlContext:
     mean: np.ndarray                  # optimizer's remaining mean per product
     std: np.ndarray                   # optimizer's remaining std per product
     t_frac: float
+    curve: object = None              # the booking curve (per-period demand of the table policies)
+    arrivals: object = None           # PeriodDemand when requests come by periods, else None
 
 
 class Policy:
@@ -89,6 +113,10 @@ class Policy:
         return {"label": self.label, "spec": self.spec}
 
 
+def _fallback_label(setting):
+    return None if setting is None else (setting if isinstance(setting, str) else setting.label)
+
+
 class FCFSPolicy(Policy):
     def __init__(self):
         self.label = self.spec = "fcfs"
@@ -101,8 +129,9 @@ class FCFSPolicy(Policy):
 class _ModelPolicy(Policy):
     reoptimizes = True
 
-    def __init__(self, model: str, method: str | None, tol: float | None, spec: str):
+    def __init__(self, model: str, method: str | None, tol: float | None, spec: str, fallback=AUTO):
         self.model, self.method, self.tol, self.spec = model, method or DEFAULT_METHOD[model], tol, spec
+        self.fallback = fallback          # AUTO, a production.fallback.Fallback, or None (off)
 
     def options(self):
         from ..options import SolverOptions
@@ -116,59 +145,82 @@ class _ModelPolicy(Policy):
         from ..registry import get_method
 
         get_method(self.method, self.model)   # UnknownMethodError names the valid ones
+        if self.fallback is not None and not isinstance(self.fallback, str):
+            get_method(self.fallback.method, self.model)
         self.options()                        # ConfigError on a bad tolerance
 
-    def _solve_rows(self, ctx, capacity, states):
-        """One solve per row; returns (bid prices (n, L), allocations (n, P), stats)."""
+    def _solve(self, sub, warm_start, counts: dict, t_frac: float):
+        """One solve, with the fallback when the method ends non-optimal; counted in ``counts``.
+
+        Returns (the result to price with, its status key). ``counts`` holds
+        ``failures``, ``rescued``, ``priced_non_optimal`` and ``statuses`` (of
+        the policy's own method).
+        """
         from ..registry import solve
 
+        res, used, attempts = solve_with_fallback(sub, self.model, self.method, self.options(), warm_start,
+                                                  self.fallback, solve)
+        first = attempts[0]
+        key = f"{first['termination']}/{first['solution_status']}"
+        counts["statuses"][key] = counts["statuses"].get(key, 0) + 1
+        if first["task_status"] == "ok":
+            return res, key
+        counts["failures"] += 1
+        usable = res.bid_price_array is not None and np.all(np.isfinite(res.bid_price_array))
+        tried = ", then ".join(f"{a['method']} {a.get('termination') or a['task_status']}" for a in attempts)
+        if res.ok:
+            counts["rescued"] += 1
+            log.warning("%s: solve at t=%.3f ended %s (%s); priced with the fallback %s (%s)",
+                        self.label, t_frac, key, first["message"], used, tried)
+        elif usable:
+            counts["priced_non_optimal"] += 1
+            log.warning("%s: solve at t=%.3f ended %s (%s); PRICING WITH A NON-OPTIMAL ANSWER of %s (%s)",
+                        self.label, t_frac, key, first["message"], used, tried)
+        else:
+            log.warning("%s: solve at t=%.3f ended %s (%s); no usable bid prices (%s)",
+                        self.label, t_frac, key, first["message"], tried)
+        return res, f"{res.termination.value}/{res.solution_status.value}"
+
+    def _solve_rows(self, ctx, capacity, states):
+        """One solve per row; returns (bid prices (n, L), allocations (n, P), new states, counts)."""
         inst = ctx.instance
         n = capacity.shape[0]
-        opts = self.options()
         pis = np.zeros((n, inst.n_legs))
         xs = np.zeros((n, inst.n_products))
-        seconds, failures, statuses = 0.0, 0, {}
+        counts = {"seconds": 0.0, "failures": 0, "rescued": 0, "priced_non_optimal": 0, "statuses": {}}
         new_states = []
         for r in range(n):               # one solve per path: a Python step per path, not per product
             prev = states[r] if r < len(states) else None
             sub = inst.with_forecast(mean=ctx.mean, std=ctx.std, capacity=np.maximum(capacity[r], 0.0))
             t0 = time.perf_counter()
-            res = solve(sub, model=self.model, method=self.method, options=opts,
-                        warm_start=None if prev is None else prev["pi"])
-            seconds += time.perf_counter() - t0
-            key = f"{res.termination.value}/{res.solution_status.value}"
-            statuses[key] = statuses.get(key, 0) + 1
+            res, key = self._solve(sub, None if prev is None else prev["pi"], counts, ctx.t_frac)
+            counts["seconds"] += time.perf_counter() - t0
             pi, x = res.bid_price_array, res.allocation
-            usable = pi is not None and np.all(np.isfinite(pi))
-            if not res.ok:
-                failures += 1
-                log.warning("%s: solve at t=%.3f ended %s (%s); %s", self.label, ctx.t_frac, key, res.message,
-                            "using its bid prices" if usable else "keeping the previous controls")
-            if not usable:
+            if pi is None or not np.all(np.isfinite(pi)):
                 if prev is None:
                     raise SimulationConfigError(
                         f"policy {self.spec!r}: the first solve returned no bid prices ({key}: {res.message})")
-                pi, x = prev["pi"], prev["x"]
+                pi, x = prev["pi"], prev["x"]           # keep the previous controls
             if x is None:
                 x = np.full(inst.n_products, np.nan)
             pis[r], xs[r] = pi, x
             new_states.append({"pi": np.array(pi), "x": np.array(x)})
-        return pis, xs, new_states, seconds, failures, statuses
+        return pis, xs, new_states, counts
 
 
 class BidPricePolicy(_ModelPolicy):
-    def __init__(self, model, method=None, tol=None, spec=None, ties="allocation"):
+    def __init__(self, model, method=None, tol=None, spec=None, ties="allocation", fallback=AUTO):
         if ties not in ("allocation", "accept"):
             raise SimulationConfigError(f"ties must be 'allocation' or 'accept', got {ties!r}")
         method = method or DEFAULT_METHOD[model]
         spec = spec or ":".join([model, method] + ([f"{tol:g}"] if tol is not None else []))
-        super().__init__(model, method, tol, spec)
+        super().__init__(model, method, tol, spec, fallback)
         self.ties = ties
         self.label = f"bid {spec}"
 
     def controls(self, ctx, capacity, sold, states):
         inst = ctx.instance
-        pis, xs, new_states, seconds, failures, statuses = self._solve_rows(ctx, capacity, states)
+        pis, xs, new_states, counts = self._solve_rows(ctx, capacity, states)
         bp_sum = (inst.AT @ pis.T).T                         # (n, P): sum of leg bid prices
         fare = inst.fare[None, :]
         tie_tol = TIE_RTOL * np.maximum(1.0, fare)
@@ -179,31 +231,97 @@ class BidPricePolicy(_ModelPolicy):
         else:
             alloc = np.where(np.isfinite(xs), np.floor(xs + 0.5), np.inf)
             limit = np.where(tie, sold + alloc, limit)
-        return ControlSet(limit=limit, protect=None, states=new_states, seconds=seconds,
-                          solves=len(new_states), failures=failures, statuses=statuses)
+        return ControlSet(limit=limit, protect=None, states=new_states, solves=len(new_states), **counts)
 
     def to_dict(self):
         return {**super().to_dict(), "kind": "bid_price", "model": self.model, "method": self.method,
-                "tol": self.tol, "ties": self.ties}
+                "tol": self.tol, "ties": self.ties, "fallback": _fallback_label(self.fallback)}
 
 
 class PartitionedPolicy(_ModelPolicy):
-    def __init__(self, model, method=None, tol=None, spec=None):
+    def __init__(self, model, method=None, tol=None, spec=None, fallback=AUTO):
         method = method or DEFAULT_METHOD[model]
         spec = spec or ":".join(["partitioned", model, method] + ([f"{tol:g}"] if tol is not None else []))
-        super().__init__(model, method, tol, spec)
+        super().__init__(model, method, tol, spec, fallback)
         self.label = spec
 
     def controls(self, ctx, capacity, sold, states):
-        pis, xs, new_states, seconds, failures, statuses = self._solve_rows(ctx, capacity, states)
+        pis, xs, new_states, counts = self._solve_rows(ctx, capacity, states)
         if not np.all(np.isfinite(xs)):
             raise SimulationConfigError(f"policy {self.spec!r}: the method returned no allocation to partition")
         limit = sold + np.floor(np.maximum(xs, 0.0) + 0.5)
-        return ControlSet(limit=limit, protect=None, states=new_states, seconds=seconds,
-                          solves=len(new_states), failures=failures, statuses=statuses)
+        return ControlSet(limit=limit, protect=None, states=new_states, solves=len(new_states), **counts)
 
     def to_dict(self):
-        return {**super().to_dict(), "kind": "partitioned", "model": self.model, "method": self.method, "tol": self.tol}
+        return {**super().to_dict(), "kind": "partitioned", "model": self.model, "method": self.method, "tol": self.tol,
+                "fallback": _fallback_label(self.fallback)}
+
+
+class TablePolicy(_ModelPolicy):
+    """Bid-price tables by leg, period and seats left, from a static model's bid prices."""
+
+    reoptimizes = False
+    KINDS = ("dynamic", "relaxed")
+
+    def __init__(self, kind, model, method=None, tol=None, spec=None, periods: int = 200, fallback=AUTO):
+        if kind not in self.KINDS:
+            raise SimulationConfigError(f"table policy kind must be one of {', '.join(self.KINDS)}, got {kind!r}")
+        if not isinstance(periods, int) or isinstance(periods, bool) or periods < 1:
+            raise SimulationConfigError(f"periods of the table policy must be a positive integer, got {periods!r}")
+        method = method or DEFAULT_METHOD[model]
+        spec = spec or ":".join([kind, model, method] + ([f"{tol:g}"] if tol is not None else []))
+        super().__init__(model, method, tol, spec, fallback)
+        self.kind, self.periods = kind, periods
+        self.label = spec
+
+    def demand(self, ctx):
+        from ..dynamic.demand import from_arrival_curves
+
+        if ctx.arrivals is not None:
+            return ctx.arrivals
+        return from_arrival_curves(ctx.instance, self.periods, mean=ctx.mean, curve=ctx.curve)
+
+    def controls(self, ctx, capacity, sold, states):
+        from ..dynamic.decomposition import decompose
+        from ..dynamic.demand import DemandError
+        from ..dynamic.relaxation import CONVERGED, STATIONARY, relax
+
+        inst = ctx.instance
+        n, P = sold.shape
+        if states and states[0] is not None:          # computed once, at time 0
+            return ControlSet(limit=np.full((n, P), np.inf), protect=None, states=list(states),
+                              tables=states[0]["tables"], bounds=dict(states[0]["bounds"]))
+        t0 = time.perf_counter()
+        sub = inst.with_forecast(mean=ctx.mean, std=ctx.std, capacity=np.maximum(capacity[0], 0.0))
+        counts = {"failures": 0, "rescued": 0, "priced_non_optimal": 0, "statuses": {}}
+        res, key = self._solve(sub, None, counts, ctx.t_frac)
+        pi = res.bid_price_array
+        if pi is None or not np.all(np.isfinite(pi)):
+            raise SimulationConfigError(f"policy {self.spec!r}: the static solve returned no bid prices "
+                                        f"({key}: {res.message})")
+        bounds = {}
+        if self.model == "dlp" and res.ok and res.objective is not None:
+            bounds["DLP"] = float(res.objective)
+        try:
+            demand = self.demand(ctx)
+            if self.kind == "dynamic":
+                tables = decompose(sub, demand, pi, threads=1, source=f"{self.model}:{self.method}")
+            else:
+                out = relax(sub, demand, pi)
+                tables = out.tables
+                if ctx.arrivals is not None:     # a bound for the period model, which is then what books
+                    bounds["Lagrangian relaxation"] = float(out.bound)
+                if out.termination not in (CONVERGED, STATIONARY):
+                    log.warning("%s: the bound's search stopped at %s", self.label, out.termination)
+        except DemandError as exc:
+            raise SimulationConfigError(f"policy {self.spec!r}: {exc}") from exc
+        state = {"tables": tables, "bounds": bounds}
+        return ControlSet(limit=np.full((n, P), np.inf), protect=None, states=[state] * n,
+                          seconds=time.perf_counter() - t0, solves=1, tables=tables, bounds=bounds, **counts)
+
+    def to_dict(self):
+        return {**super().to_dict(), "kind": f"table:{self.kind}", "model": self.model, "method": self.method,
+                "tol": self.tol, "periods": self.periods, "fallback": _fallback_label(self.fallback)}
 
 
 def emsrb_levels(fare_desc, mean_desc, std_desc) -> np.ndarray:
@@ -285,13 +403,17 @@ def _tol(text: str, spec: str) -> float:
     return v
 
 
-def parse_policy(spec: str) -> Policy:
-    """One policy from its specification (see the module docstring)."""
+def parse_policy(spec: str, periods: int = 200, fallback=AUTO) -> Policy:
+    """One policy from its specification (see the module docstring).
+
+    ``periods``: of the table policies; ``fallback``: of the policies with a
+    model (``production.fallback.parse`` of ``--fallback``: AUTO, a Fallback, or None).
+    """
     text = spec.strip()
     parts = [p.strip() for p in text.split(":")]
     head = parts[0].lower()
     valid = ("MODEL[:METHOD[:TOL]] with MODEL in dlp, pnlp, pwl; plain:MODEL[:METHOD[:TOL]]; "
-             "partitioned:MODEL[:METHOD[:TOL]]; "
+             "partitioned:MODEL[:METHOD[:TOL]]; dynamic:MODEL[:METHOD[:TOL]]; relaxed:MODEL[:METHOD[:TOL]]; "
              "fcfs; emsrb; nested:Y1[/Y2...]")
     if not text:
         raise SimulationConfigError(f"empty policy specification; valid forms: {valid}")
@@ -305,27 +427,29 @@ def parse_policy(spec: str) -> Policy:
         except ValueError as exc:
             raise SimulationConfigError(f"policy {spec!r}: protection levels must be numbers separated by '/'") from exc
         return NestedPolicy(levels, spec=text)
-    if head in ("partitioned", "plain") and 2 <= len(parts) <= 4:
+    if head in ("partitioned", "plain") + TablePolicy.KINDS and 2 <= len(parts) <= 4:
         model = parts[1].lower()
         if model not in MODELS:
             raise SimulationConfigError(f"policy {spec!r}: unknown model {parts[1]!r}; valid models: {', '.join(MODELS)}")
         method = parts[2] if len(parts) > 2 and parts[2] else None
         tol = _tol(parts[3], spec) if len(parts) > 3 else None
         if head == "plain":
-            return BidPricePolicy(model, method, tol, spec=text, ties="accept")
-        return PartitionedPolicy(model, method, tol, spec=text)
+            return BidPricePolicy(model, method, tol, spec=text, ties="accept", fallback=fallback)
+        if head in TablePolicy.KINDS:
+            return TablePolicy(head, model, method, tol, spec=text, periods=periods, fallback=fallback)
+        return PartitionedPolicy(model, method, tol, spec=text, fallback=fallback)
     if head in MODELS and 1 <= len(parts) <= 3:
         method = parts[1] if len(parts) > 1 and parts[1] else None
         tol = _tol(parts[2], spec) if len(parts) > 2 else None
-        return BidPricePolicy(head, method, tol, spec=text)
+        return BidPricePolicy(head, method, tol, spec=text, fallback=fallback)
     raise SimulationConfigError(f"unknown policy {spec!r}; valid forms: {valid}")
 
 
-def parse_policies(text: str, instance=None) -> list:
+def parse_policies(text: str, instance=None, periods: int = 200, fallback=AUTO) -> list:
     """A comma-separated list of specifications; checked against ``instance`` when given."""
     if not isinstance(text, str) or not text.strip():
         raise SimulationConfigError("no policies given (e.g. --policies 'pnlp:lagrangian:1e-9,dlp:highs,fcfs')")
-    out = [parse_policy(s) for s in text.split(",")]
+    out = [parse_policy(s, periods=periods, fallback=fallback) for s in text.split(",")]
     labels = [p.label for p in out]
     dup = sorted({l for l in labels if labels.count(l) > 1})
     if dup:

@@ -17,6 +17,49 @@ def _pm(ci: dict, scale: float = 1.0, digits: int = 0) -> str:
     return f"{m:,.{digits}f} ± {h:,.{digits}f}"
 
 
+def _non_optimal_note(r: dict) -> str:
+    """' (3 not optimal: 2 rescued by the fallback, 1 PRICED NON-OPTIMAL)', or '' when all were optimal."""
+    if not r["non_optimal"]:
+        return ""
+    parts = [f"{r['rescued_by_fallback']} rescued by the fallback"]
+    if r["priced_non_optimal"]:
+        parts.append(f"{r['priced_non_optimal']} PRICED NON-OPTIMAL")
+    kept = r["non_optimal"] - r["rescued_by_fallback"] - r["priced_non_optimal"]
+    if kept:
+        parts.append(f"{kept} kept the previous controls")
+    return f" ({r['non_optimal']} not optimal: {', '.join(parts)})"
+
+
+def reoptimization_totals(summary: dict) -> dict:
+    """Per policy label, its re-optimization counts summed over the scenarios."""
+    out = {}
+    for sc in summary["scenarios"]:
+        for p in sc["policies"]:
+            r = p.get("reoptimizations")
+            if r is None:
+                continue
+            t = out.setdefault(p["policy"], dict.fromkeys(r, 0))
+            for k, v in r.items():
+                t[k] += v
+    return out
+
+
+def reoptimization_lines(summary: dict) -> list:
+    """What the re-optimizations that ended non-optimal priced with, policy by policy (loud when non-optimal)."""
+    fallback = {p["label"]: p.get("fallback") for p in summary["config"]["policies"]}
+    lines = []
+    for label, t in reoptimization_totals(summary).items():
+        if t["priced_non_optimal"]:
+            lines.append(f"WARNING: {label}: {t['priced_non_optimal']} of {t['solves']} re-optimizations "
+                         f"PRICED WITH A NON-OPTIMAL ANSWER (fallback {fallback.get(label) or 'none'}; "
+                         f"see solve_statuses in simulation.json)")
+        if t["rescued_by_fallback"]:
+            lines.append(f"{label}: {t['rescued_by_fallback']} of {t['solves']} re-optimizations ended "
+                         f"non-optimal and were rescued by the fallback ({fallback.get(label)}), "
+                         f"which priced with its optimal answer")
+    return lines
+
+
 def rows(summary: dict) -> list:
     """One row per (scenario, policy): the cells of the tables."""
     out = []
@@ -26,11 +69,15 @@ def rows(summary: dict) -> list:
             d = paired.get(p["policy"])
             diff = "reference" if d is None else (
                 f"{d['mean']:+,.0f} ± {d['halfwidth']:,.0f} (unpaired ± {d['unpaired_halfwidth']:,.0f})")
-            solves = f"{p['solves']}" + (f" ({p['failed_solves']} not optimal)" if p["failed_solves"] else "")
+            solves = f"{p['solves']}" + _non_optimal_note(p.get("reoptimizations") or {
+                "non_optimal": p["failed_solves"], "rescued_by_fallback": 0, "priced_non_optimal": 0})
             out.append({
                 "R": f"{sc['reoptimize_every']:g}", "forecast": sc["forecast_error_label"], "policy": p["policy"],
                 "revenue": _pm(p["revenue"]), "load factor %": _pm(p["load_factor"], 100, 1),
-                "share of bound %": _pm(p["share_of_bound"], 100, 2), "vs reference (paired)": diff,
+                "share of bound %": _pm(p["share_of_bound"], 100, 2),
+                **({} if p.get("share_of_network_bound") is None else
+                   {"of network bound %": _pm(p["share_of_network_bound"], 100, 2)}),
+                "vs reference (paired)": diff,
                 "re-opt s": f"{p['reopt_seconds']:.1f}", "solves": solves,
                 "s/solve": f"{p['reopt_seconds'] / p['solves']:.3f}" if p["solves"] else "-",
             })
@@ -56,6 +103,11 @@ def header_lines(summary: dict) -> list:
         f"{summary['paths']} sample paths (seed {cfg['seed']}), horizon {cfg['horizon']:g} days, "
         f"{q['mean']:,.0f} requests per path on average",
         f"hindsight bound (DLP on realized demand): {_pm(b)} per path; intervals are 95% t intervals",
+        *([] if not summary.get("network_bounds") else [
+            "network bounds on the optimal expected revenue (time 0, true forecast): " + ", ".join(
+                f"{k} {v:,.1f}" for k, v in sorted(summary["network_bounds"].items(), key=lambda kv: kv[1]))
+            + f"; 'of network bound %' is against the lowest ({summary['network_bound']['name']})"]),
+        *reoptimization_lines(summary),
         f"wall time {summary['wall_seconds']:.1f} s; CPU time in the path tasks "
         f"{summary['phase_seconds'].get('task_cpu', float('nan')):.1f} s (sampling, hindsight LPs, policies and re-optimizations)",
     ]
@@ -104,20 +156,30 @@ def plots(summary: dict, out_dir) -> list:
     def cell(fe_i, r_i, p):
         return scen[fe_i * len(every) + r_i]["policies"][p]["revenue"]
 
+    # fares carry no currency in an instance: the unit is the fare's own (meta "currency" when given)
+    unit = str(summary["instance"].get("currency") or "fare units")
+
     def draw(name, xs, xlabel, panels, get, panel_title):
-        fig, axes = plt.subplots(1, len(panels), figsize=(5.5 * len(panels), 4.2), squeeze=False)
+        # at most two panels a row, so that the text stays readable at the saved size
+        ncols = min(2, len(panels))
+        nrows = math.ceil(len(panels) / ncols)
+        fig, grid = plt.subplots(nrows, ncols, figsize=(6.4 * ncols, 4.8 * nrows), squeeze=False)
+        axes = [list(grid.ravel())]
+        for ax in axes[0][len(panels):]:
+            ax.set_visible(False)
         for ax, panel in zip(axes[0], panels):
             for p, label in enumerate(policies):
                 cis = [get(panel, i, p) for i in range(len(xs))]
                 ax.errorbar(xs, [c["mean"] for c in cis],
                             yerr=[0 if math.isnan(c["halfwidth"]) else c["halfwidth"] for c in cis],
                             marker="o", capsize=3, label=label)
-            ax.set_xlabel(xlabel)
-            ax.set_ylabel("mean revenue per path (95% CI)")
-            ax.set_title(panel_title(panel), fontsize=10)
+            ax.set_xlabel(xlabel, fontsize=11)
+            ax.set_ylabel(f"mean revenue per path, {unit} (95% CI)", fontsize=11)
+            ax.set_title(panel_title(panel), fontsize=12)
+            ax.tick_params(labelsize=10)
             ax.grid(alpha=0.3)
-        axes[0][0].legend(fontsize=8)
-        fig.suptitle(f"{summary['instance']['name']}: {summary['paths']} paths", fontsize=10)
+        axes[0][0].legend(fontsize=9)
+        fig.suptitle(f"{summary['instance']['name']}: {summary['paths']} paths", fontsize=12)
         fig.tight_layout()
         path = out_dir / name
         with atomic.atomic_path(path) as tmp:

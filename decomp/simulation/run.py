@@ -52,6 +52,7 @@ class SimulationConfig:
     target_halfwidth: float | None = None
     chunk: int = 50
     add_fcfs: bool = True
+    arrivals: object = None          # PeriodDemand: requests by periods (at most one per period) instead of the curve
 
     def __post_init__(self):
         pols = self.policies
@@ -99,12 +100,22 @@ class SimulationConfig:
     def check(self, instance) -> None:
         for p in self.policies:
             p.check(instance)
+        if self.arrivals is not None:
+            from ..dynamic.demand import DemandError
+
+            try:
+                self.arrivals.check(instance)
+                self.arrivals.require_at_most_one_request("sampling requests by periods")
+            except DemandError as exc:
+                raise SimulationConfigError(str(exc)) from exc
 
     def to_dict(self) -> dict:
         return {"policies": [p.to_dict() for p in self.policies], "paths": self.paths,
                 "horizon": self.horizon, "reoptimize_every": list(self.reoptimize_every),
                 "forecast_errors": [f.to_dict() for f in self.forecast_errors], "seed": self.seed,
-                "curve": self.curve.to_dict(), "target_halfwidth": self.target_halfwidth, "chunk": self.chunk}
+                "curve": self.curve.to_dict(), "target_halfwidth": self.target_halfwidth, "chunk": self.chunk,
+                "arrivals": None if self.arrivals is None else {"periods": self.arrivals.periods,
+                                                                "source": self.arrivals.source}}
 
 
 def initial_controls(instance, config: SimulationConfig) -> dict:
@@ -116,7 +127,8 @@ def initial_controls(instance, config: SimulationConfig) -> dict:
     for i, fe in enumerate(config.forecast_errors):
         m, s = fe.apply(instance.mean, instance.std, config.seed)
         rm, rs = remaining_forecast(m, s, remaining_share(params, 0.0))
-        ctx = ControlContext(instance=instance, mean=rm, std=rs, t_frac=0.0)
+        ctx = ControlContext(instance=instance, mean=rm, std=rs, t_frac=0.0, curve=config.curve,
+                             arrivals=config.arrivals)
         cap = np.floor(np.asarray(instance.capacity, dtype=np.float64) + 1e-9)[None, :]
         sold = np.zeros((1, instance.n_products), dtype=np.int64)
         out[i] = [p.controls(ctx, cap, sold, [None]) for p in config.policies]
@@ -129,7 +141,10 @@ def run_chunk(instance, config: SimulationConfig, paths, initial) -> dict:
     t0 = time.perf_counter()
     rank = fare_rank(instance)
     params = config.curve.parameters(rank)
-    req = sample_paths(instance, paths, config.seed, config.curve, rank=rank)
+    if config.arrivals is None:
+        req = sample_paths(instance, paths, config.seed, config.curve, rank=rank)
+    else:
+        req = config.arrivals.sample_paths(instance, paths, config.seed)
     t1 = time.perf_counter()
     bound = HindsightLP(instance).revenues(req.demand)
     t2 = time.perf_counter()
@@ -137,7 +152,8 @@ def run_chunk(instance, config: SimulationConfig, paths, initial) -> dict:
     for fe_i, every in config.scenarios:
         m, s = config.forecast_errors[fe_i].apply(instance.mean, instance.std, config.seed)
         scen.append(run_policies(instance, req, config.policies, horizon=config.horizon, every=every,
-                                 opt_mean=m, opt_std=s, curve_params=params, initial=initial[fe_i]))
+                                 opt_mean=m, opt_std=s, curve_params=params, initial=initial[fe_i],
+                                 curve=config.curve, arrivals=config.arrivals))
     t3 = time.perf_counter()
     return {"paths": np.asarray(paths), "bound": bound, "requests": req.counts.astype(np.float64),
             "scenarios": scen, "seconds": {"sample": t1 - t0, "hindsight": t2 - t1, "policies": t3 - t2,
@@ -160,11 +176,21 @@ class SimulationResult:
     seats: np.ndarray            # (scenarios, policies, paths)
     seconds: np.ndarray          # (scenarios, policies): re-optimization seconds (all paths, with time 0)
     solves: np.ndarray
-    failures: np.ndarray
+    failures: np.ndarray           # [scenario, policy]: solves whose method ended non-optimal
+    rescued: np.ndarray            # ... of which the fallback's optimal answer priced
+    priced_non_optimal: np.ndarray  # ... of which a non-optimal answer priced anyway
     statuses: list               # [scenario][policy] -> {status: count}
     wall_seconds: float
     phase_seconds: dict
     rounds: list
+    network_bounds: dict = dataclasses.field(default_factory=dict)   # name -> upper bound on expected revenue
+
+    def network_bound(self):
+        """(name, value) of the lowest network bound the policies computed, or None."""
+        if not self.network_bounds:
+            return None
+        name = min(self.network_bounds, key=self.network_bounds.get)
+        return name, self.network_bounds[name]
 
     @property
     def n_paths(self) -> int:
@@ -193,8 +219,10 @@ class SimulationResult:
         scen = []
         for s, (fe_i, every) in enumerate(cfg.scenarios):
             pols = []
+            nb = self.network_bound()
             for p, pol in enumerate(cfg.policies):
                 pols.append({
+                    "share_of_network_bound": None if nb is None else mean_ci(self.revenue[s, p] / nb[1]),
                     "policy": pol.label, "spec": pol.spec,
                     "revenue": mean_ci(self.revenue[s, p]),
                     "load_factor": mean_ci(self.seats[s, p] / max(self.total_capacity, 1e-300)),
@@ -202,6 +230,9 @@ class SimulationResult:
                     "reopt_seconds": float(self.seconds[s, p]),
                     "reopt_seconds_per_path": float(self.seconds[s, p]) / max(1, self.n_paths),
                     "solves": int(self.solves[s, p]), "failed_solves": int(self.failures[s, p]),
+                    "reoptimizations": {"solves": int(self.solves[s, p]), "non_optimal": int(self.failures[s, p]),
+                                        "rescued_by_fallback": int(self.rescued[s, p]),
+                                        "priced_non_optimal": int(self.priced_non_optimal[s, p])},
                     "solve_statuses": dict(self.statuses[s][p]),
                 })
             scen.append({"reoptimize_every": every, "forecast_error": cfg.forecast_errors[fe_i].to_dict(),
@@ -213,6 +244,9 @@ class SimulationResult:
             "config": cfg.to_dict(), "paths": self.n_paths,
             "requests_per_path": mean_ci(self.requests),
             "hindsight_bound": mean_ci(self.bound),
+            "network_bounds": dict(self.network_bounds),
+            "network_bound": None if self.network_bound() is None else {
+                "name": self.network_bound()[0], "value": self.network_bound()[1]},
             "scenarios": scen,
             "rounds": self.rounds,
             "wall_seconds": self.wall_seconds, "phase_seconds": self.phase_seconds,
@@ -232,6 +266,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
     seconds = np.zeros((n_scen, n_pol))
     solves = np.zeros((n_scen, n_pol), dtype=np.int64)
     failures = np.zeros((n_scen, n_pol), dtype=np.int64)
+    rescued = np.zeros((n_scen, n_pol), dtype=np.int64)
+    priced_non_optimal = np.zeros((n_scen, n_pol), dtype=np.int64)
     statuses = [[{} for _ in range(n_pol)] for _ in range(n_scen)]
     for s, (fe_i, _) in enumerate(config.scenarios):
         for p in range(n_pol):
@@ -239,6 +275,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
             seconds[s, p] += cs.seconds
             solves[s, p] += cs.solves
             failures[s, p] += cs.failures
+            rescued[s, p] += cs.rescued
+            priced_non_optimal[s, p] += cs.priced_non_optimal
             for k, v in cs.statuses.items():
                 statuses[s][p][k] = statuses[s][p].get(k, 0) + v
             for r in parts:
@@ -246,6 +284,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
                 seconds[s, p] += o.seconds
                 solves[s, p] += o.solves
                 failures[s, p] += o.failures
+                rescued[s, p] += o.rescued
+                priced_non_optimal[s, p] += o.priced_non_optimal
                 for k, v in o.statuses.items():
                     statuses[s][p][k] = statuses[s][p].get(k, 0) + v
     phases = {}
@@ -253,7 +293,8 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
         for k, v in r["seconds"].items():
             phases[k] = phases.get(k, 0.0) + v
     return dict(paths=cat("paths"), bound=cat("bound"), requests=cat("requests"), revenue=rev, seats=seats,
-                seconds=seconds, solves=solves, failures=failures, statuses=statuses, phase_seconds=phases)
+                seconds=seconds, solves=solves, failures=failures, rescued=rescued,
+                priced_non_optimal=priced_non_optimal, statuses=statuses, phase_seconds=phases)
 
 
 def simulate(instance, config: SimulationConfig, *, client=None, on_progress=None) -> SimulationResult:
@@ -297,6 +338,7 @@ def simulate(instance, config: SimulationConfig, *, client=None, on_progress=Non
             config=config, instance_name=instance.name, n_legs=instance.n_legs, n_products=instance.n_products,
             total_capacity=float(np.floor(np.asarray(instance.capacity) + 1e-9).sum()),
             wall_seconds=time.perf_counter() - t_start, rounds=rounds,
+            network_bounds=_network_bounds(initial, config),
             **{**merged, "phase_seconds": {**merged["phase_seconds"], "initial_controls": t_initial}})
         hw = result.max_paired_halfwidth()
         rounds.append({"paths": int(done), "max_paired_halfwidth": None if math.isnan(hw) else hw})
@@ -309,6 +351,23 @@ def simulate(instance, config: SimulationConfig, *, client=None, on_progress=Non
         log.info("paired half-width %.4g > target %.4g with %d paths; going to %d", hw, config.target_halfwidth,
                  done, planned)
     return result
+
+
+def _network_bounds(initial: dict, config) -> dict:
+    """Upper bounds on expected revenue the policies computed at time 0 with the true forecast.
+
+    Only scenarios without forecast error count (a bound for a biased forecast
+    bounds nothing about the true demand); the lowest value per name is kept.
+    """
+    out = {}
+    for fe_i, fe in enumerate(config.forecast_errors):
+        if not fe.exact:
+            continue
+        for cs in initial[fe_i]:
+            for name, v in (cs.bounds or {}).items():
+                if v is not None and math.isfinite(v):
+                    out[name] = min(v, out.get(name, math.inf))
+    return out
 
 
 class _StaticBidPrices(Policy):
@@ -353,3 +412,17 @@ def revenue_for_bid_prices(instance, bid_prices, paths: int = 200, seed: int = 0
     res = simulate(instance, cfg)
     ci = mean_ci(res.revenue[0, 0])
     return ci["mean"], (ci["low"], ci["high"])
+
+
+def path_revenues_for_bid_prices(instance, bid_prices, paths: int = 200, seed: int = 0, *,
+                                 horizon: float = 60.0, curve: BookingCurve | None = None) -> np.ndarray:
+    """Revenue of each sample path under fixed bid-price control (the paths of :func:`revenue_for_bid_prices`).
+
+    Path ``k`` is the same demand for every call with the same seed, so two sets of
+    bid prices give paired revenues (for a paired interval of their difference).
+    """
+    if isinstance(bid_prices, dict):
+        bid_prices = np.array([float(bid_prices[l]) for l in instance.leg_ids.tolist()])
+    cfg = SimulationConfig(policies=(_StaticBidPrices(bid_prices),), paths=paths, horizon=horizon,
+                           reoptimize_every=(horizon,), seed=seed, curve=curve or BookingCurve(), add_fcfs=False)
+    return np.asarray(simulate(instance, cfg).revenue[0, 0], dtype=np.float64)
