@@ -587,6 +587,16 @@ class Subproblems:
                 out[..., hit] = fn(np.maximum(x[..., hit], 0.0), pos[hit])
         return out
 
+    def marginal_sales_of(self, idx, x):
+        """S_j'(x) (right derivative) for the products ``idx`` at their ``x``."""
+        idx = np.asarray(idx, dtype=np.int64)
+        x = np.asarray(x, dtype=np.float64)
+        if self.all_normal:
+            return normal.marginal_sales(x, self.mean[idx], self.std[idx])
+        full = np.zeros(self.n)
+        full[idx] = x
+        return self.marginal_sales(full)[0][idx]
+
     def marginal_sales(self, x):
         """(right, left) derivatives of S_j at x_j: S'(x+) <= S'(x-) (equal where smooth)."""
         x = np.asarray(x, dtype=np.float64)

@@ -21,6 +21,7 @@ import numpy as np
 from ..result import IterationRecord, Termination
 from . import newton
 from .polish import complete
+from .prices import ZERO_RESOLUTION
 from .recovery import recover
 from .smoothing import Continuation
 
@@ -32,12 +33,14 @@ RECOVER_ALWAYS_BELOW = 50_000
 BID_TOL = 1e-7
 
 
-def _settled(pt, dirn, floor, bid_tol):
+def _settled(pt, dirn, bid_tol, fare_max):
     """Newton's next step moves every bid price by at most bid_tol of itself (or of 1e-3
     of the largest, for the smallest ones)."""
-    step = np.maximum(pt.pi + dirn.d, dirn.lower) - pt.pi
+    new = np.maximum(pt.pi + dirn.d, dirn.lower)
     scale = np.maximum(pt.pi, 1e-3 * float(pt.pi.max(initial=0.0)))
-    return bool(np.all(np.abs(step) <= bid_tol * scale))
+    # legs below the reporting resolution on both sides are reported at 0 either way
+    zero = np.maximum(pt.pi, new) <= ZERO_RESOLUTION * fare_max
+    return bool(np.all((np.abs(new - pt.pi) <= bid_tol * scale) | zero))
 
 
 @dataclasses.dataclass
@@ -86,7 +89,8 @@ def _record(it, pt, best, step, t0):
 def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     cont = Continuation(net.segments, tol)
     pt = net.evaluate(np.maximum(pi0, floor), cont.delta)
-    eps_bar = 1e-3 * float(net.sub.fare.max(initial=1.0))
+    fare_max = float(net.sub.fare.max(initial=1.0))
+    eps_bar = 1e-3 * fare_max
     lam = newton.LAM_START
     best = Certified()
     best.offer_dual(pt)
@@ -106,7 +110,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
                 if completed is not None:
                     best.offer_primal(*completed)
         history.append(_record(it, pt, best, step_len, t0))
-        if best.gap <= tol and (settle is None or _settled(pt, dirn, floor, settle)):
+        if best.gap <= tol and (settle is None or _settled(pt, dirn, settle, fare_max)):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
         if deadline is not None and time.perf_counter() > deadline:
             return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)

@@ -158,6 +158,21 @@ class Network:
             return np.bincount(self.g_of_p, weights=per_product, minlength=self.G)
         return per_product
 
+    def products_by_group(self):
+        """(ptr, members): the products of group g are members[ptr[g]:ptr[g + 1]]."""
+        if getattr(self, "_by_group", None) is None:
+            P = self.n_products
+            if self.g_start is not None:
+                self._by_group = (np.append(self.g_start, P), np.arange(P))
+            elif self.g_of_p is not None:
+                members = np.argsort(self.g_of_p, kind="stable")
+                ptr = np.zeros(self.G + 1, dtype=np.int64)
+                np.cumsum(np.bincount(self.g_of_p, minlength=self.G), out=ptr[1:])
+                self._by_group = (ptr, members)
+            else:
+                self._by_group = (np.arange(P + 1), np.arange(P))
+        return self._by_group
+
     def fare_of(self, products):
         return self.sub.fare[products]
 

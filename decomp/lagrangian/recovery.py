@@ -41,7 +41,12 @@ def _feasible(net, y):
     load = net.A_g @ net.to_groups(y)
     over = load > net.cap
     if np.any(over):
-        y = _cut_cheapest(net, y, load, over)
+        if len(net.segments):
+            # piecewise-linear products: an overload is usually one fractional product's
+            # doing, and scaling would also cut the full ones beside it
+            y = _cut_cheapest(net, y, load, over)
+        else:
+            y *= net.to_products(_smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
         for _ in range(FILL_ROUNDS):
             y = _fill(net, y, target)
     return y, net.revenue(y)
@@ -51,13 +56,15 @@ def _cut_cheapest(net, y, load, over):
     """On each overloaded leg, take the excess from the products whose next seat is
     worth least (f S'(y), the right derivative), cheapest first; a product on several
     overloaded legs keeps the smallest of what they leave it. Vectorized over the
-    (overloaded leg, product) pairs."""
-    group = _group_of_products(net)
-    legs_of = net.Mg[group] - 1                              # per product, -1 where no leg
-    hit = np.isin(legs_of, np.flatnonzero(over)) & (legs_of >= 0)
-    prod, pos = np.nonzero(hit)
-    leg = legs_of[prod, pos]
-    value = net.fare_of(prod) * net.sub.marginal_sales(np.maximum(y, 0.0))[0][prod]
+    (overloaded leg, product) pairs, which are few near the optimum."""
+    rows = net.A_g[np.flatnonzero(over)].tocoo()
+    leg = np.flatnonzero(over)[rows.row]
+    ptr, members = net.products_by_group()
+    counts = ptr[rows.col + 1] - ptr[rows.col]
+    leg = np.repeat(leg, counts)
+    starts = np.repeat(ptr[rows.col], counts)
+    prod = members[starts + np.arange(len(leg)) - np.repeat(np.cumsum(counts) - counts, counts)]
+    value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
     order = np.lexsort((value, leg))                         # by leg, then by value per seat
     prod, leg = prod[order], leg[order]
     amount = y[prod]
@@ -72,13 +79,6 @@ def _cut_cheapest(net, y, load, over):
     np.minimum.at(keep, prod, frac)
     return y * keep
 
-
-def _group_of_products(net):
-    if net.g_start is not None:
-        return np.repeat(np.arange(net.G), net.g_count)
-    if net.g_of_p is not None:
-        return net.g_of_p
-    return np.arange(net.n_products)
 
 
 FILL_ROUNDS = 2
