@@ -30,7 +30,7 @@ from .smoothing import Continuation
 RECOVER_ALWAYS_BELOW = 50_000
 #: With only smooth products (unique bid prices) and tol <= 1e-7, the loop also waits
 #: until Newton's next step moves no bid price by more than this fraction of itself.
-BID_TOL = 1e-7
+BID_TOL = 1e-6
 
 
 def _settled(pt, dirn, bid_tol, fare_max):
