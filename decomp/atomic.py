@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import hashlib
 import json
 import os
 import pathlib
@@ -42,3 +43,12 @@ def write_text(path, text: str) -> None:
 
 def write_json(path, obj) -> None:
     write_text(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")
+
+
+def file_sha256(path) -> str:
+    """The SHA-256 hex digest of a file's bytes, read in 1 MiB chunks."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()

@@ -17,14 +17,6 @@ def _sha256_bytes(b: bytes) -> str:
     return hashlib.sha256(b).hexdigest()
 
 
-def _sha256_file(path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 def round_significant(x, digits: int = SIG_DIGITS):
     """(mantissa, exponent) int64 arrays with x ~= mantissa * 10**(exponent - digits + 1).
 

@@ -28,7 +28,8 @@ from ..errors import InstanceError
 from ..instance import Instance
 from ..result import SCHEMA, SCHEMA_VERSION
 from ..tables import BID_PRICE_COLUMNS
-from .digests import _sha256_bytes, _sha256_file
+from ..atomic import file_sha256
+from .digests import _sha256_bytes
 
 FORMAT = "decomp-baseline"
 #: 2: each case's result.json is the one result schema (``decomp.result``), the case's own facts under
@@ -120,7 +121,7 @@ def _write_manifest(folder: pathlib.Path, suite, case_ids) -> None:
     for p in sorted(folder.rglob("*")):
         if p.is_file() and p.name != MANIFEST and not p.name.startswith("."):
             rel = p.relative_to(folder).as_posix()
-            files.append({"path": rel, "sha256": _sha256_file(p), "bytes": p.stat().st_size})
+            files.append({"path": rel, "sha256": file_sha256(p), "bytes": p.stat().st_size})
     manifest = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
@@ -248,7 +249,7 @@ def _verify_files(path: pathlib.Path, mpath: pathlib.Path, files) -> dict:
         if size != size_rec:
             raise BaselineError(f"baseline file has {size} bytes, manifest.json recorded {size_rec}: "
                                 f"truncated or edited after recording; re-record the baseline", file=fpath)
-        digest = _sha256_file(fpath)
+        digest = file_sha256(fpath)
         if digest != digest_rec:
             raise BaselineError(f"baseline file's sha256 {digest[:12]}... differs from manifest.json's "
                                 f"{digest_rec[:12]}...: edited after recording; re-record the baseline",

@@ -20,13 +20,13 @@ task that ended non-optimal -- is solved again, and the reason is kept.
 from __future__ import annotations
 
 import errno
-import hashlib
 import json
 import pathlib
 
 import numpy as np
 
 from .. import atomic
+from ..atomic import file_sha256
 from ..result import read_bid_price_table
 from ..tables import BID_PRICE_COLUMNS
 
@@ -43,14 +43,6 @@ def is_output_error(exc: BaseException) -> bool:
 
 def task_dir(out, key) -> pathlib.Path:
     return pathlib.Path(out) / "tasks" / key
-
-
-def file_sha256(path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def write_bid_prices(path, leg_ids, bid_prices) -> str:
