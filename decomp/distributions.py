@@ -25,13 +25,9 @@ the marginal sales ``S_j'(x) = P(D_j > x)`` equal ``a_j / f_j`` (0 when
 Products with std = 0 (any continuous family, or a discrete family with mean
 0) are deterministic: S(x) = min(x, max(mean, 0)) and x = mean when a < f.
 
-Non-smooth products (deterministic and discrete) make the dual non-smooth. For
-second-order methods :meth:`Subproblems.evaluate` can replace each of their
-terms by its average over a window a +- eps (eps = ``smoothing`` * fare): a
-convex, continuously differentiable upper bound that equals the exact term
-outside eps of a breakpoint, with dx/da = -(jump)/(2 eps) inside. The
-Lagrangian method uses it only to compute Newton steps and certifies with the
-exact dual (``smoothing=0``).
+Non-smooth products (deterministic and discrete) make the dual piecewise
+linear in their a_j; the Lagrangian method smooths those parts itself
+(:mod:`decomp.lagrangian.segments`) and certifies with the exact dual computed here.
 """
 
 from __future__ import annotations
@@ -53,8 +49,6 @@ MIN_RATIO = normal.MIN_RATIO
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 #: 1 - (largest double below 1): the closest a/f gets to 1 short of it.
 _TOP_RATIO_GAP = 2.0 ** -53
-#: Most breakpoints of a discrete product smoothed in one window.
-_MAX_JUMP = 16
 
 
 # ---------------------------------------------------------------------------
@@ -224,10 +218,10 @@ def family_codes(instance) -> np.ndarray | None:
 class SubproblemValues:
     """The product subproblems at one vector a of bid-price sums.
 
-    ``x``: solutions; ``w``: -dx/da (>= 0, smoothed for non-smooth products when
-    smoothing > 0); ``value``: sum_j f_j S_j(x_j) - a_j x_j (the smoothed terms
-    when smoothing > 0); ``exact_value``: the same sum without smoothing (an exact
-    dual term); ``revenue``: sum_j f_j S_j(x_j) (exact, at x).
+    ``x``: solutions; ``w``: -dx/da (>= 0; 0 for piecewise-linear products);
+    ``value`` and ``exact_value`` (the same number, kept for callers of either name):
+    sum_j f_j S_j(x_j) - a_j x_j, the dual's product terms; ``revenue``:
+    sum_j f_j S_j(x_j) (exact, at x).
     """
 
     x: np.ndarray
@@ -331,33 +325,31 @@ class Subproblems:
                    None if codes is None else codes[products])
 
     # -- solutions ---------------------------------------------------------------
-    def evaluate(self, a, smoothing: float = 0.0) -> SubproblemValues:
+    def evaluate(self, a) -> SubproblemValues:
         """Solve every subproblem at bid-price sums ``a`` (one per product)."""
         a = np.asarray(a, dtype=np.float64)
         if self.all_normal:
-            x, w, value, rev, exact, dens = self._normal(a, smoothing)
-            return SubproblemValues(x, w, value, rev, exact, dens)
+            x, w, value, rev, dens = self._normal(a)
+            return SubproblemValues(x, w, value, rev, value, dens)
         x = np.zeros(self.n)
         w = np.zeros(self.n)
-        rev = value = exact = 0.0
-        for idx, fn in ((self.i_norm, lambda aa: self._normal(aa, smoothing)), (self.i_gam, self._gamma),
-                        (self.i_dis, lambda aa: self._discrete(aa, smoothing)),
-                        (self.i_det, lambda aa: self._deterministic(aa, smoothing))):
+        rev = value = 0.0
+        for idx, fn in ((self.i_norm, self._normal), (self.i_gam, self._gamma),
+                        (self.i_dis, self._discrete), (self.i_det, self._deterministic)):
             if len(idx):
-                xs, ws, v, rs, *ex = fn(a[idx])
+                xs, ws, v, rs, *_ = fn(a[idx])
                 x[idx], w[idx] = xs, ws
                 rev += rs
                 value += v
-                exact += ex[0] if ex else v
-        return SubproblemValues(x, w, value, rev, exact)
+        return SubproblemValues(x, w, value, rev, value)
 
-    def _normal(self, a, smoothing=0.0):
+    def _normal(self, a):
         """x = max(0, m - s ndtri(a/f)) and, on the inside (x > 0, f ratio = a),
         f S(x) - a x = f s (G(-m/s) - pdf(z)) - a m, w = s / (f pdf(z))."""
         n = len(a)
         x, w, e = np.empty(n), np.empty(n), np.empty(n)
         value, rev = self.normal_slice(a, 0, n, x, w, e)
-        return self._normal_smoothing(a, smoothing, x, w, e, value, rev)
+        return x, w, value, rev, e
 
     def normal_slice(self, a, lo, hi, x, w, e):
         """The normal fast path on the products lo:hi (``a`` their bid-price
@@ -390,25 +382,6 @@ class Subproblems:
             np.minimum(ws, 1e300, out=ws)
         return value, rev
 
-    def _normal_smoothing(self, a, smoothing, x, w, e, value, rev):
-        exact = value
-        if smoothing > 0 and self.n_has_jump:
-            # average the jump of height J at a = f over a +- eps (see _set_normal)
-            f, J = self.n_f, self.n_jump
-            u = f - a
-            eps = smoothing * f
-            band = np.nonzero((np.abs(u) < eps) & (J > 0))[0]
-            if len(band):
-                ub, eb, Jb = u[band], eps[band], J[band]
-                xb = Jb * np.clip((ub + eb) / (2 * eb), 0.0, 1.0)
-                # S(x) <= x, and S(x) >= x (1 - 2^-53) for x <= J: a lower bound on the change
-                rev += float(f[band] @ (xb * (1.0 - 2.0 ** -52) - x[band]))
-                x[band] = xb
-                w[band] = Jb / (2 * eb)
-                value += float(np.sum(Jb * (eb - np.abs(ub)) ** 2 / (4 * eb)))
-                e = None                     # x moved: the density no longer belongs to it
-        return x, w, value, rev, exact, e
-
     def _gamma(self, a):
         ratio = a / self.g_f
         x, dxdr = gamma_fractile(ratio, self.g_m, self.g_s)
@@ -416,21 +389,11 @@ class Subproblems:
         rev = self.g_f * gamma_expected_sales(x, self.g_m, self.g_s)
         return x, w, float(np.sum(rev - a * x)), float(rev.sum())
 
-    def _deterministic(self, a, smoothing):
+    def _deterministic(self, a):
         f, m = self.t_f, self.t_m
         x = np.where(a < f, m, 0.0)
-        w = np.zeros(len(a))
-        extra = 0.0
-        if smoothing > 0:
-            eps = smoothing * f
-            u = f - a
-            band = np.abs(u) < eps
-            x = np.where(band, m * np.clip((u + eps) / (2 * eps), 0.0, 1.0), x)
-            w = np.where(band, m / (2 * eps), 0.0)
-            extra = float(np.sum(np.where(band, m * (eps - np.abs(u)) ** 2 / (4 * eps), 0.0)))
-        rev = float(f @ np.minimum(x, m))
         exact = float(np.sum(m * np.maximum(f - a, 0.0)))
-        return x, w, exact + extra, rev, exact
+        return x, np.zeros(len(a)), exact, float(f @ np.minimum(x, m))
 
     def set_upper(self, upper):
         """Bound every product's allocation by ``upper`` (per product). Exact for
@@ -447,35 +410,13 @@ class Subproblems:
         """min(u, smallest n with f P(D > n) <= b): the bounded subproblem's solution."""
         return np.minimum(discrete_fractile(b / f, fam, m, s), u)
 
-    def _discrete(self, a, smoothing):
-        """Discrete demand: h(b) = f S(x(b)) - b x(b) is piecewise linear in b with
-        breakpoints beta_k = f P(D > k), k < u. Smoothed, each term is its average
-        over the window [a - eps, a + eps] (eps = smoothing * f): x is then
-        (h(a - eps) - h(a + eps)) / (2 eps), w = (x(a - eps) - x(a + eps)) / (2 eps),
-        and the value h(a) + sum over the window's breakpoints of
-        (eps - |beta_k - a|)^2 / (4 eps)."""
+    def _discrete(self, a):
+        """Discrete demand: the bounded subproblem's solution n = min(u, smallest n with
+        f P(D > n) <= a); the term f S(n) - a n is piecewise linear in a (w = 0)."""
         f, m, s, fam, u = self.d_f, self.d_m, self.d_s, self.d_fam, self.d_u
         n = self._discrete_allocation(a, f, fam, m, s, u)
-        exact_terms = f * discrete_expected_sales(n, fam, m, s) - a * n
-        exact = float(np.sum(exact_terms))
-        if smoothing <= 0:
-            return n, np.zeros(len(a)), exact, exact + float(a @ n), exact
-        eps = smoothing * f
-        lo, hi = a - eps, a + eps
-        n1 = self._discrete_allocation(lo, f, fam, m, s, u)      # x(a - eps) >= x(a + eps)
-        n2 = self._discrete_allocation(hi, f, fam, m, s, u)
-        h_lo = f * discrete_expected_sales(n1, fam, m, s) - lo * n1
-        h_hi = f * discrete_expected_sales(n2, fam, m, s) - hi * n2
-        x = (h_lo - h_hi) / (2 * eps)
-        w = (n1 - n2) / (2 * eps)
-        extra = np.zeros(len(a))
-        jump = n1 - n2
-        for k in range(int(jump.max(initial=0))):          # a loop over the window's breakpoints
-            sel = np.flatnonzero(jump > k)
-            beta = f[sel] * discrete_sf(n2[sel] + k, fam[sel], m[sel], s[sel])
-            extra[sel] += np.maximum(eps[sel] - np.abs(beta - a[sel]), 0.0) ** 2 / (4 * eps[sel])
-        rev = float(f @ discrete_expected_sales(x, fam, m, s))
-        return x, w, exact + float(np.sum(extra)), rev, exact
+        value = float(np.sum(f * discrete_expected_sales(n, fam, m, s) - a * n))
+        return n, np.zeros(len(a)), value, value + float(a @ n)
 
     def revenue(self, y):
         """sum_j f_j S_j(y_j), exactly (normal fast path: f s (G(-m/s) - G(z)))."""

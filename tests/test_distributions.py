@@ -118,24 +118,6 @@ def test_normal_dual_terms_match_the_direct_formula():
     assert np.allclose(v.w[ok], fd[ok], rtol=1e-4)
 
 
-def test_smoothing_is_an_upper_bound_equal_away_from_breakpoints():
-    # The window average of a convex function lies above it (Jensen) and equals it where
-    # the function is linear on the window; x_s averages the step.
-    f = np.array([100.0, 100.0, 80.0])
-    m = np.array([10.0, 10.0, 3.0])
-    s = np.array([0.0, 0.0, 2.0])
-    fam = np.array([D.NORMAL, D.NORMAL, D.POISSON])
-    sub = D.Subproblems(f, m, s, fam)
-    a = np.array([50.0, 99.99, 30.0])
-    exact = sub.evaluate(a, 0.0)
-    smooth = sub.evaluate(a, 1e-3)
-    assert smooth.value >= exact.exact_value
-    assert smooth.exact_value == pytest.approx(exact.exact_value, rel=1e-15)
-    assert smooth.x[0] == exact.x[0] == 10.0              # 50 is far from the kink at 100
-    assert smooth.x[1] == pytest.approx(10.0 * (0.01 + 0.1) / 0.2)  # inside the band
-    assert smooth.w[1] == pytest.approx(10.0 / 0.2)
-
-
 def test_family_names_are_validated():
     # built with the constructor: from_lists itself refuses an unknown distribution, as files do
     def one(distribution):

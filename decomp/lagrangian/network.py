@@ -80,15 +80,11 @@ class Network:
         self.sub.set_upper(self.upper)
         self.segments = Segments(self.sub, self.upper)
         self._setup_threads(threads)
-        #: per leg: sum over its products of mean / fare (the curvature a term
-        #: shows when smoothed over a window of width f)
-        self.leg_scale = self.A_g @ self.to_groups(np.maximum(self.sub.mean, 1e-12) / self.sub.fare)
         #: per leg: the largest fare of its products (a price scale)
         self.fare_scale = np.zeros(self.n)
         if self.G:
             f_g = self._max_fare_g()
             np.maximum.at(self.fare_scale, self.A_g.nonzero()[0], f_g[self.A_g.nonzero()[1]])
-        self.n_pp = Pl
 
     # -- grouping ------------------------------------------------------------------------
     def _group(self, lpp_l, idx_l):
