@@ -292,3 +292,12 @@ def test_embedded_cluster_and_warm_start(clean, tmp_path):
     for k in ref:
         assert got[k][1] == pytest.approx(ref[k][1], rel=1e-8)    # same optimum from a warm start
         assert got[k][3] < ref[k][3]                               # in fewer iterations
+
+
+def test_run_takes_warm_start_like_solve():
+    # one option name across solve and run (the older --warm-start-from still works)
+    from decomp.cli import build_parser
+
+    for flag in ("--warm-start", "--warm-start-from"):
+        args = build_parser().parse_args(["run", "gen:100", "--days", "1", "--out", "o", flag, "prev"])
+        assert args.warm_start_from == "prev"

@@ -59,9 +59,10 @@ def register(sub):
     c.add_argument("--dashboard", type=int, metavar="PORT",
                    help="serve the Dask dashboard of the embedded cluster on 127.0.0.1:PORT (0: any free "
                         "port; default: no dashboard)")
-    p.add_argument("--warm-start-from", metavar="DIR",
+    p.add_argument("--warm-start", "--warm-start-from", dest="warm_start_from", metavar="DIR",
                    help="an earlier run's OUT folder: each task starts from the bid prices of the same key "
-                        "there (default: cold starts)")
+                        "there, as solve --warm-start does from one result (--warm-start-from is the older "
+                        "name; default: cold starts)")
     p.add_argument("--window", help="optimization window, e.g. 2h, 90m (for the progress bar and summary; "
                                     "default: none)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")

@@ -19,6 +19,9 @@ short of that (limit, numerical trouble, uncertified), 2 on bad input.
 from __future__ import annotations
 
 import argparse
+import contextlib
+import logging
+import os
 import pathlib
 import sys
 
@@ -148,7 +151,6 @@ def _check_outputs(args):
 
 def run(args) -> int:
     import json
-    import logging
 
     from .. import solve as _solve
     from ..atomic import write_json
@@ -165,10 +167,9 @@ def run(args) -> int:
         from ..warmstart import bounded_warm_start
 
         warm, _ = bounded_warm_start(instance, warm)
-    # long direct solves report their progress (iteration, revenue, time) every few seconds
-    logging.getLogger("decomp.progress").setLevel(logging.INFO)
     try:
-        result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
+        with _progress_to_terminal():
+            result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
     except SolverUnavailableError as exc:
         print(f"decomp solve: error: {exc}", file=sys.stderr)
         return 1
@@ -199,3 +200,31 @@ def run(args) -> int:
         print(f"decomp solve: {args.products} not written: the solve returned no allocation "
               f"({result.termination.value})", file=sys.stderr)
     return 0 if result.ok else 1
+
+
+@contextlib.contextmanager
+def _progress_to_terminal():
+    """Long direct solves report their progress (iteration, revenue, time) every few seconds
+    on the ``decomp.progress`` logger. Its lines go to a duplicate of standard error taken
+    now: Pyomo's solver interfaces redirect file descriptor 2 while they solve, which would
+    hold the lines back until the solve returns."""
+    logger = logging.getLogger("decomp.progress")
+    try:
+        stream = os.fdopen(os.dup(sys.stderr.fileno()), "w", buffering=1)
+    except (OSError, ValueError, AttributeError):        # no real stderr (captured, closed)
+        logger.setLevel(logging.INFO)
+        yield
+        return
+    handler = logging.StreamHandler(stream)
+    handler.setFormatter(logging.Formatter("%(message)s"))
+    saved = (logger.level, logger.propagate)
+    logger.setLevel(logging.INFO)
+    logger.addHandler(handler)
+    logger.propagate = False
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+        logger.setLevel(saved[0])
+        logger.propagate = saved[1]
+        stream.close()
