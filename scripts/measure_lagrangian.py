@@ -87,10 +87,6 @@ def measure(n, repeats, ipopt_upto, seed=15):
     }
     it1, s1 = _first_certified(best)
     out.update(first_certified_iteration=it1, first_certified_solve_s=s1)
-    # the gap alone (no bid-price settling, see the bid_tol option)
-    g = _run(inst, solver_options={"bid_tol": 1e300})
-    out.update(gap_only_iterations=g.iterations, gap_only_gap=g.gap,
-               gap_only_method_s=g.seconds["build"] + g.seconds["solve"], gap_only_cpu_s=_cpu(g))
     # memory: tracemalloc peak during one solve (numpy reports its buffers to it)
     tracemalloc.start()
     tracemalloc.reset_peak()
@@ -139,9 +135,7 @@ def main(argv=None):
               f"per-it={row['per_iteration_s'] * 1e3:.1f}ms mem={row['tracemalloc_peak_mib']:.0f}MiB "
               f"warm it={row['warm_iterations']} (gap<=1e-9 at it {row['warm_first_certified_iteration']}; "
               f"cold {row['cold_moved_iterations']}) load={load:.1f} "
-              f"| certified at it {row['first_certified_iteration']} after {row['first_certified_solve_s']:.2f}s; "
-              f"gap-only run: it={row['gap_only_iterations']} {row['gap_only_method_s']:.2f}s "
-              f"(cpu incl. certify {row['gap_only_cpu_s']:.2f}s)"
+              f"| certified at it {row['first_certified_iteration']} after {row['first_certified_solve_s']:.2f}s"
               + (f" ipopt={row['ipopt_s']:.2f}s x{row['speedup_vs_ipopt']:.0f}" if "ipopt_s" in row else ""),
               flush=True)
     if len(rows) >= 2:
