@@ -91,7 +91,7 @@ def direction(net, system, pt, lam, eps_bar, floor) -> Direction:
     b[held | flat] = 0.0
     d = system.solve(hv, scale, held | flat, lam, b) * scale
     if np.any(held):
-        d[held] = -np.maximum(pi[held] - floor, g[held] / h[held])
+        d[held] = -g[held] / h[held]
     if np.any(flat):
         d[flat] = flat_step(pt, flat, net.fare_scale)
     lower = step_floor(pi, held, floor)
@@ -106,7 +106,7 @@ def step_floor(pi, held, floor):
     a factor KAPPA in one step. Without it a free leg could be thrown from a moderate
     bid price deep into the demand's tail (1e-4 of the fare), where its curvature is
     huge and Newton climbs back out only a little per step; held legs (slack, near
-    the floor) still go to the floor at once."""
+    the floor) are bounded by the floor alone."""
     out = np.maximum(pi / KAPPA, floor)
     out[held] = floor
     return out
