@@ -255,7 +255,6 @@ class Subproblems:
             self._set_normal(fare, mean, std)
             empty = np.zeros(0, dtype=np.int64)
             self.i_gam = self.i_dis = self.i_det = empty
-            self.nonsmooth = self.n_has_jump
             return
         if codes is None:
             codes = np.zeros(n, dtype=np.int8)
@@ -286,7 +285,6 @@ class Subproblems:
         self.i_det = np.nonzero(det)[0]
         self.t_f = fare[self.i_det]
         self.t_m = np.maximum(mean[self.i_det], 0.0)
-        self.nonsmooth = bool(len(self.i_dis) or len(self.i_det) or self.n_has_jump)
 
     def _set_normal(self, f, m, s):
         self.n_f, self.n_m, self.n_s = f, m, s
@@ -310,8 +308,6 @@ class Subproblems:
                 fs_pdf=fs * _INV_SQRT_2PI,                                   # f s / sqrt(2 pi)
                 fsG0=fs * _loss_at_minus(m / s),                             # f s G(-m/s)
                 sof_pdf=(s / f) * np.sqrt(2.0 * np.pi),                       # w = this / exp(-z^2/2)
-                curv=f * _INV_SQRT_2PI / s,                                  # f max pdf (bounds f |S''|)
-                invs2=1.0 / (s * s),
                 invs=1.0 / s,
             )
         return self._n_const
@@ -426,70 +422,6 @@ class Subproblems:
         z = y - self.n_m
         z *= k["invs"]
         return float(k["fsG0"].sum() - self.n_f @ (self.n_s * normal.loss(z)))
-
-    def normal_allocation(self, idx, a):
-        """x = max(0, m - s ndtri(a/f)) of the products ``idx`` at bid-price sums
-        ``a`` (normal fast path)."""
-        r = np.clip(a / self.n_f[idx], MIN_RATIO, 1.0)
-        return np.maximum(self.n_m[idx] - self.n_s[idx] * special.ndtri(r), 0.0)
-
-    def open_threshold(self):
-        """Per product (normal fast path) the bid-price sum below which it gets
-        seats: f P(D > 0) = f Phi(m / s)."""
-        k = self._normal_constants()
-        if "a_open" not in k:
-            k["a_open"] = self.n_f * special.ndtr(self.n_m * k["invs"])
-        return k["a_open"]
-
-    def revenue_change(self, idx, x, y):
-        """sum over products ``idx`` of f (S(y) - S(x)), exactly (normal fast path)."""
-        k = self._normal_constants()
-        m, s, invs = self.n_m[idx], self.n_s[idx], k["invs"][idx]
-        gx = normal.loss((x - m) * invs)
-        gy = normal.loss((y - m) * invs)
-        return float((self.n_f[idx] * s) @ (gx - gy))
-
-    def curvature(self):
-        """Per product f_j max_x pdf_j(x): bounds f |S''| everywhere."""
-        return self._normal_constants()["curv"]
-
-    def curvature_bound_at(self, x, y, density):
-        """Like :meth:`curvature_bound` from ``density`` = exp(-z^2/2) at x
-        (``last_density`` of the evaluation that gave x), without an exp: on
-        the interval, -z^2/2 <= -z_x^2/2 + |z_x| |z - z_x|, and
-        exp(t) <= 1 / (1 - t) for 0 <= t < 1 (the global maximum otherwise)."""
-        k = self._normal_constants()
-        t = np.abs(x - self.n_m)
-        t *= np.abs(y - x)
-        t *= k["invs2"]
-        small = t < 1.0
-        np.subtract(1.0, t, out=t)
-        np.maximum(t, 1e-300, out=t)
-        np.divide(density, t, out=t)
-        np.minimum(t, 1.0, out=t)
-        t[~small] = 1.0
-        t *= k["curv"]
-        return t
-
-    def curvature_bound(self, x, y):
-        """Per product f_j max |S_j''| over the interval between x_j and y_j
-        (normal fast path): the density is unimodal, so its largest value on the
-        interval is at the point closest to the mean. With it, by Taylor's
-        theorem with remainder,
-        f S(y) >= f S(x) + f S'(x) (y - x) - bound (y - x)^2 / 2,
-        and f S'(x) = a at an inside fractile."""
-        k = self._normal_constants()
-        m = self.n_m
-        lo = np.minimum(x, y)
-        hi = np.maximum(x, y)
-        dist = np.maximum(lo - m, 0.0)
-        dist += np.maximum(m - hi, 0.0)        # 0 when the mean lies in [lo, hi]
-        dist *= k["invs"]
-        np.square(dist, out=dist)
-        dist *= -0.5
-        np.exp(dist, out=dist)
-        dist *= k["curv"]
-        return dist
 
     # -- expected sales and marginal sales --------------------------------------
     def expected_sales(self, x):

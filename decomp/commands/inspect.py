@@ -71,12 +71,7 @@ def run(args) -> int:
         share = hist[k] / P
         print(f"  {k:>3} legs: {hist[k]:>10,} products ({share:6.1%}) {'#' * int(round(40 * share))}")
 
-    demand = inst.leg_load(inst.mean)
-    users = np.bincount(inst.leg_index, minlength=L)
-    cap = inst.capacity
-    with np.errstate(divide="ignore", invalid="ignore"):
-        df = np.where(cap > 0, demand / cap, np.inf)
-    finite = np.isfinite(df)
+    demand, users, cap, df, finite = _leg_loads(inst)
     print("\ndemand factor per leg (mean demand / capacity):")
     if finite.any():
         print(f"  {_q(df[finite])}  mean={df[finite].mean():.3f}")
@@ -105,6 +100,17 @@ def run(args) -> int:
     return 0
 
 
+def _leg_loads(inst):
+    """Per leg: mean demand, number of products, capacity, demand factor (inf on closed
+    legs) and where that factor is finite."""
+    demand = inst.leg_load(inst.mean)
+    users = np.bincount(inst.leg_index, minlength=inst.n_legs)
+    cap = inst.capacity
+    with np.errstate(divide="ignore", invalid="ignore"):
+        df = np.where(cap > 0, demand / cap, np.inf)
+    return demand, users, cap, df, np.isfinite(df)
+
+
 def _quantiles(x, qs=(0, 10, 50, 90, 100)) -> dict:
     return {f"p{q}": float(v) for q, v in zip(qs, np.percentile(x, qs))} if len(x) else {}
 
@@ -112,12 +118,7 @@ def _quantiles(x, qs=(0, 10, 50, 90, 100)) -> dict:
 def facts(inst, top: int, warnings_seen=()) -> dict:
     """The figures of the text report as a dict (for ``--json``)."""
     L, P = inst.n_legs, inst.n_products
-    demand = inst.leg_load(inst.mean)
-    users = np.bincount(inst.leg_index, minlength=L)
-    cap = inst.capacity
-    with np.errstate(divide="ignore", invalid="ignore"):
-        df = np.where(cap > 0, demand / cap, np.inf)
-    finite = np.isfinite(df)
+    demand, users, cap, df, finite = _leg_loads(inst)
     order = np.lexsort((np.arange(L), -np.where(finite, df, np.finfo(float).max)))[:min(top, L)]
     hist = np.bincount(inst.legs_per_product)
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -28,7 +28,7 @@ class LegSystem:
     """Solves (H_FF + lam I) u = b in the diagonally scaled space of the free legs."""
 
     def __init__(self, net, linear_solver="auto", mixed=True):
-        self.n = n = net.n
+        self.n = net.n
         self.mixed = bool(mixed)
         self._pattern(net)
         self._setup(linear_solver)

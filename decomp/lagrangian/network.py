@@ -72,7 +72,7 @@ class Network:
         idx_l = leg_map[leg_index[live_nnz]]
         self.cap = np.ascontiguousarray(cap[self.legs], dtype=np.float64)
         self.sub = distributions.Subproblems.from_instance(instance, self.prods)
-        self.n_products = Pl = len(lpp_l)
+        self.n_products = len(lpp_l)
         self._group(lpp_l, idx_l)
         # the allocation bound u_j = 2 min(capacity of its legs) + 1 (whole seats), per group
         self.upper_g = np.ceil(2.0 * self._min_capacity_g()) + 1.0
@@ -154,6 +154,14 @@ class Network:
             return np.bincount(self.g_of_p, weights=per_product, minlength=self.G)
         return per_product
 
+    def group_of(self, products):
+        """The group index of each of the given product indices."""
+        if self.g_start is not None:
+            return np.searchsorted(self.g_start, products, side="right") - 1
+        if self.g_of_p is not None:
+            return self.g_of_p[products]
+        return products
+
     def products_by_group(self):
         """(ptr, members): the products of group g are members[ptr[g]:ptr[g + 1]]."""
         if getattr(self, "_by_group", None) is None:
@@ -193,10 +201,10 @@ class Network:
         ``value`` is the smoothed dual while ``exact`` stays q(pi)."""
         a_g = self.AT_g @ pi
         if self._chunks is not None:
-            x, w, x_g, w_g, exact, revenue = self._evaluate_threads(a_g)
+            x, w, x_g, w_g, exact = self._evaluate_threads(a_g)
         else:
             v = self.sub.evaluate(self.to_products(a_g))
-            x, w, exact, revenue = v.x, v.w, v.exact_value, v.revenue
+            x, w, exact = v.x, v.w, v.exact_value
             x_g = w_g = None
         x, w, change = self._apply_bound(a_g, x, w)
         if change is not None:
@@ -256,10 +264,9 @@ class Network:
 
         def part(chunk):
             g0, g1, p0, p1 = chunk
-            value, rev = sub.normal_slice(np.repeat(a_g[g0:g1], count[g0:g1]), p0, p1, x, w, e)
+            value, _ = sub.normal_slice(np.repeat(a_g[g0:g1], count[g0:g1]), p0, p1, x, w, e)
             x_g[g0:g1] = np.add.reduceat(x[p0:p1], start[g0:g1] - p0)
             w_g[g0:g1] = np.add.reduceat(w[p0:p1], start[g0:g1] - p0)
-            return value, rev
+            return value
 
-        sums = list(self._pool.map(part, self._chunks))
-        return x, w, x_g, w_g, sum(v for v, _ in sums), sum(r for _, r in sums)
+        return x, w, x_g, w_g, sum(self._pool.map(part, self._chunks))

@@ -90,15 +90,7 @@ def _feasible(net, y):
 
 def _product_legs(net, products):
     """(column index, leg) pairs: column c uses every leg of product products[c]."""
-    groups = _group_of(net, products)
+    groups = net.group_of(products)
     legs = net.Mg[groups] - 1                                  # -1 where no leg
     c, k = np.nonzero(legs >= 0)
     return c, legs[c, k]
-
-
-def _group_of(net, products):
-    if net.g_start is not None:
-        return np.searchsorted(net.g_start, products, side="right") - 1
-    if net.g_of_p is not None:
-        return net.g_of_p[products]
-    return products
