@@ -15,14 +15,15 @@ MODELS = ("dlp", "pnlp", "pwl")
 
 _METHODS: dict = {}
 
-# Modules whose import registers the built-in methods (imported on first use).
-_BUILTIN_MODULES = (
-    "decomp.methods.highs",
-    "decomp.methods.pyomo_highs",
-    "decomp.methods.ipopt",
-    "decomp.methods.pyomo_ipopt",
-    "decomp.methods.lagrangian",
-)
+# The module whose import registers each built-in method (imported on first use:
+# one solve imports only its own method's solver libraries).
+_BUILTIN_MODULES = {
+    "highs": "decomp.methods.highs",
+    "pyomo-highs": "decomp.methods.pyomo_highs",
+    "ipopt": "decomp.methods.ipopt",
+    "pyomo-ipopt": "decomp.methods.pyomo_ipopt",
+    "lagrangian": "decomp.methods.lagrangian",
+}
 
 
 def register(cls):
@@ -33,8 +34,12 @@ def register(cls):
     return cls
 
 
-def _load_builtins():
-    for mod in _BUILTIN_MODULES:
+def _load_builtins(name: str | None = None):
+    """Import the module registering built-in method ``name`` (every one if None or unknown)."""
+    if name in _BUILTIN_MODULES:
+        importlib.import_module(_BUILTIN_MODULES[name])
+        return
+    for mod in _BUILTIN_MODULES.values():
         importlib.import_module(mod)
 
 
@@ -51,9 +56,11 @@ def pairs() -> list:
 
 def get_method(name: str, model: str):
     """The method class for ``name``, checked against ``model``."""
-    _load_builtins()
+    _load_builtins(name)
     if model not in MODELS:
         raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")
+    if name not in _METHODS:
+        _load_builtins()
     if name not in _METHODS:
         raise UnknownMethodError(f"unknown method {name!r}; valid methods: {', '.join(sorted(_METHODS))}")
     cls = _METHODS[name]

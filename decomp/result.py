@@ -399,7 +399,8 @@ def read_bid_price_table(path) -> dict:
     path = pathlib.Path(path)
     try:
         if path.suffix.lower() == ".parquet":
-            table = pq.read_table(path)
+            with pq.ParquetFile(path) as parquet:   # pq.read_table would import pyarrow.dataset
+                table = parquet.read()
         else:
             table = pcsv.read_csv(path, convert_options=pcsv.ConvertOptions(
                 column_types={"leg": pa.string(), "leg_id": pa.string()}))

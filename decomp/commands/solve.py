@@ -25,6 +25,8 @@ import os
 import pathlib
 import sys
 
+import numpy as np
+
 #: Methods that use --warm-start (the others would ignore it, so it is refused for them).
 WARM_START_METHODS = ("ipopt", "pyomo-ipopt", "lagrangian")
 
@@ -79,10 +81,10 @@ def _names(ids, k=8) -> str:
     return ", ".join(ids[:k]) + (f", ... ({len(ids) - k} more)" if len(ids) > k else "")
 
 
-def summary(result, instance_name, legs=None) -> str:
-    """The human summary; ``legs``: the leg table, for the binding and slack legs."""
+def summary(result, instance) -> str:
+    """The human summary of ``result`` on ``instance``: status, certificate, times, and the legs by state."""
     lines = [
-        f"{instance_name}: {result.model} by {result.method} ({result.solver}, {result.solver_version})",
+        f"{instance.name}: {result.model} by {result.method} ({result.solver}, {result.solver_version})",
         f"  status      {result.termination.value} (solver: {result.raw_status}); "
         f"solution {result.solution_status.value}",
         f"  objective   {_num(result.objective, ',.6f')}    bound {_num(result.bound, ',.6f')}    "
@@ -97,24 +99,39 @@ def summary(result, instance_name, legs=None) -> str:
     secs = result.seconds
     lines.append(f"  time        {sum(secs.values()):.2f} s  (" +
                  ", ".join(f"{k} {v:.2f}" for k, v in secs.items()) + f"); iterations {result.iterations}")
-    if legs is not None and result.bid_price_array is not None:
-        by_state = {st: legs[legs["state"] == st] for st in ("binding", "slack", "closed")}
-        binding = by_state["binding"].sort_values("bid_price", ascending=False)
-        lines.append(f"  legs        {len(binding)} binding, {len(by_state['slack'])} slack, "
-                     f"{len(by_state['closed'])} closed (capacity 0) of {len(legs)}")
-        if len(binding):
-            lines.append(f"  binding     {_names(binding['leg'])}  (highest bid price first)")
-        if len(by_state["slack"]):
-            slack = by_state["slack"].sort_values("load_factor")
-            lines.append(f"  slack       {_names(slack['leg'])}  (lowest load factor first)")
-        if len(by_state["closed"]):
-            lines.append(f"  closed      {_names(by_state['closed']['leg'])}")
+    if result.bid_price_array is not None:
+        lines.extend(_leg_lines(instance, result))
     top = sorted(result.bid_prices.items(), key=lambda kv: -kv[1])[:10]
     if top:
         lines.append("  highest bid prices:")
         width = max(len(str(k)) for k, _ in top)
         lines.extend(f"    {str(k):<{width}}  {v:12,.4f}" for k, v in top)
     return "\n".join(lines)
+
+
+def _leg_lines(instance, result) -> list:
+    """Binding legs (highest bid price first), slack legs (lowest load factor first), closed legs."""
+    from ..tables import leg_states
+
+    bp = np.asarray(result.bid_price_array, dtype=np.float64)
+    state = leg_states(instance, bp)
+    ids = instance.leg_ids.astype(str)
+    binding = np.flatnonzero(state == "binding")
+    binding = binding[np.argsort(-bp[binding], kind="stable")]
+    slack = np.flatnonzero(state == "slack")
+    if result.allocation is not None:
+        load = instance.leg_load(result.allocation)[slack] / instance.capacity[slack]
+        slack = slack[np.argsort(load, kind="stable")]
+    closed = np.flatnonzero(state == "closed")
+    lines = [f"  legs        {len(binding)} binding, {len(slack)} slack, {len(closed)} closed (capacity 0) "
+             f"of {instance.n_legs}"]
+    if len(binding):
+        lines.append(f"  binding     {_names(ids[binding])}  (highest bid price first)")
+    if len(slack):
+        lines.append(f"  slack       {_names(ids[slack])}  (lowest load factor first)")
+    if len(closed):
+        lines.append(f"  closed      {_names(ids[closed])}")
+    return lines
 
 
 def _options(args):
@@ -173,7 +190,7 @@ def run(args) -> int:
     except SolverUnavailableError as exc:
         print(f"decomp solve: error: {exc}", file=sys.stderr)
         return 1
-    context = {"instance": instance.name, "instance_path": str(args.instance), "versions": library_versions()}
+    context = {"instance": instance.name, "instance_path": str(args.instance), "versions": library_versions(ipopt="cyipopt" in sys.modules)}
     out = result.to_json_dict(context=context)
     human = sys.stderr if args.out == "-" else sys.stdout
     written = []
@@ -184,16 +201,15 @@ def run(args) -> int:
         else:
             write_json(args.out, out)
             written.append(args.out)
-        legs = leg_table(instance, result)
         if args.legs:
-            written.append(str(write_table(legs, args.legs)))
+            written.append(str(write_table(leg_table(instance, result), args.legs)))
         if args.products and result.allocation is not None:
             written.append(str(write_table(product_table(instance, result), args.products)))
     except OSError as exc:      # a full disk or a read-only folder: say so, no traceback (atomic: nothing half-written)
         print(f"decomp solve: error: cannot write {exc.filename or args.out}: {exc.strerror or exc} "
               f"[Errno {exc.errno}]", file=sys.stderr)
         return 1
-    print(summary(result, instance.name, legs), file=human)
+    print(summary(result, instance), file=human)
     if written:
         print(f"  wrote {', '.join(written)}", file=human)
     if args.products and result.allocation is None:
