@@ -7,15 +7,17 @@ and for every instance an independent certificate computed from scipy.stats alon
 (weak duality: the Lagrangian dual at any bid prices >= 0 bounds the optimum from
 above, a feasible allocation's expected revenue from below; a mathematical fact).
 
-What is asserted:
-- smooth instances (every product normal or gamma with a fractile that does not jump
-  in double precision): optimal, certified gap <= 1e-8 by the independent certificate,
-  and for normal demand the objective within 1e-7 of Ipopt's;
-- every instance: the answer is feasible, its reported gap is the independent one, and
-  it never claims optimality that the independent certificate does not confirm.
-Instances with piecewise-linear parts (std = 0, Poisson, negative binomial, very low
-CV) are not all solved to tol yet: `pytest --run-slow -m family_strict tests/test_family.py`
-asserts that too and lists which fail (see the README's solver notes).
+What is asserted, on every instance:
+- the answer is feasible, its reported gap is the independent one, and it never
+  claims optimality that the independent certificate does not confirm;
+- it is optimal at the default tol, with certified gap <= 1e-8 by the independent
+  certificate, and for normal demand its objective is within 1e-7 of Ipopt's (where
+  Ipopt stops short, on some near-deterministic demand, Ipopt's feasible allocation
+  must not earn more than ours).
+KNOWN_MISSES lists the draws on which the method is known to stop short (strict xfail:
+the test fails as soon as one of them is solved, so the list cannot go stale).
+`pytest --run-slow -m family_strict tests/test_family.py` runs the same draws at up
+to 3,000 products.
 """
 
 from __future__ import annotations
@@ -25,16 +27,21 @@ import pytest
 
 import family
 from decomp import SolverOptions, Termination, solve
-from decomp.lagrangian import Network
 
 pytestmark = pytest.mark.solver
 
 SEEDS = range(300)
 
 
-def _smooth(inst) -> bool:
-    """No product has a piecewise-linear part (decomp.lagrangian.segments)."""
-    return len(Network(inst).segments) == 0
+#: (max_products, seed) draws on which the method ends at the iteration limit: a
+#: 60-product grid with mixed, very-low-CV demand and tight legs, where the dual
+#: settles 1e-7 above the optimum and the LP completion stays 6e-6 below it.
+KNOWN_MISSES = {(600, 179)}
+
+
+def _params(max_products):
+    return [pytest.param(seed, marks=pytest.mark.xfail(strict=True, reason="known miss, see KNOWN_MISSES"))
+            if (max_products, seed) in KNOWN_MISSES else seed for seed in SEEDS]
 
 
 def _relative(dual, primal):
@@ -57,21 +64,24 @@ def _checked(seed, max_products):
     return inst, desc, r, gap
 
 
-@pytest.mark.parametrize("seed", SEEDS)
+@pytest.mark.parametrize("seed", _params(600))
 def test_family_instance(seed):
     inst, desc, r, gap = _checked(seed, max_products=600)
-    if _smooth(inst):
-        assert r.termination is Termination.OPTIMAL, (desc, r.message)
-        assert gap <= 1e-8, desc
-        if desc["demand"] == "normal":
-            ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-10))
-            assert ref.termination is Termination.OPTIMAL
+    assert r.termination is Termination.OPTIMAL, (desc, r.message)
+    assert gap <= 1e-8, desc
+    if desc["demand"] == "normal":
+        ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-10))
+        if ref.termination is Termination.OPTIMAL:
             assert r.objective == pytest.approx(ref.objective, rel=1e-7), desc
+        else:
+            # Ipopt stops short on some near-deterministic demand (numerical_error); its
+            # allocation is still feasible (bound_relax_factor = 0), so it cannot beat an optimum
+            assert ref.objective <= r.objective * (1.0 + 1e-9), desc
 
 
 @pytest.mark.slow
 @pytest.mark.family_strict
-@pytest.mark.parametrize("seed", SEEDS)
+@pytest.mark.parametrize("seed", _params(3000))
 def test_family_instance_strict(seed):
     # every valid instance solved to the default tol, up to 3,000 products (issue 12's target)
     inst, desc, r, gap = _checked(seed, max_products=3000)

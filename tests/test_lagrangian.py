@@ -320,6 +320,33 @@ def test_barrier_segment_solves_its_subproblem():
         assert w[0] > 0.0
 
 
+def test_barrier_segment_value_is_smooth_at_small_mu():
+    # With g w / mu = 1e5 the closed form once cancelled D - g w against 2 mu, and the
+    # smoothed term was noisy at 1e-16 g w / mu relative: the arc
+    # search then stalled. Fact checked: its derivative in a is -(x(a) beyond the
+    # exact allocation), so the value's change over a step h matches the midpoint rule
+    # to second order (central differences; a mathematical fact of smooth functions).
+    from decomp.lagrangian.segments import Segments
+
+    class _One:                                       # one deterministic product (std = 0)
+        all_normal = False
+        n = 1
+        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
+        i_det = np.array([0])
+        fare = np.array([190.0])
+
+    sub = _One()
+    sub.t_m, sub.t_f = np.array([40.0]), np.array([190.0])
+    seg = Segments(sub, np.array([100.0]))
+    delta = 1e-6                                       # mu = delta r w: g w / mu about 1e5
+    x_exact = np.array([40.0])
+    for a in (150.0, 165.0, 189.0):
+        h = 1e-9 * a
+        lo, hi, mid = (seg.smooth(np.array([b]), x_exact, delta) for b in (a - h, a + h, a))
+        slope = -(mid[0][0] - 40.0)                   # d(change)/da = -(y - w) where full
+        assert (hi[2] - lo[2]) == pytest.approx(2 * h * slope, rel=1e-3, abs=1e-11)
+
+
 def test_smoothed_dual_brackets_the_exact_dual():
     # q_delta <= q <= q_delta + delta (1 + log(1 + 1/delta)) E (the barrier bound, see
     # decomp.lagrangian.segments), on a Poisson network at random bid prices.

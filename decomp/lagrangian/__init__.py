@@ -23,6 +23,10 @@ Modules, in the order of the algorithm:
 - :mod:`.newton`: the projected Newton step and the arc search;
 - :mod:`.smoothing`: the continuation for non-smooth products;
 - :mod:`.recovery`: a feasible allocation and its exact revenue;
+- :mod:`.polish`: near the optimum, an LP that splits capacity among the
+  undetermined linear segments (an exact primal completion);
+- :mod:`.crossover`: the bid prices that allocation asks for (its optimality
+  conditions as an LP), another exact upper bound;
 - :mod:`.loop`: the iteration and its stopping test;
 - :mod:`.alternatives`: L-BFGS-B and projected subgradient on the same dual;
 - :mod:`.prices`: starting points, warm starts, exact zeros, closed legs.

@@ -20,6 +20,7 @@ import numpy as np
 
 from ..result import IterationRecord, Termination
 from . import newton
+from .crossover import prices_from_allocation
 from .polish import complete
 from .prices import ZERO_RESOLUTION
 from .recovery import recover
@@ -28,6 +29,15 @@ from .smoothing import Continuation
 #: Below this many products the recovery runs at every iteration; above, only
 #: once the decrement (about twice q(pi) - q*) allows a gap within tol.
 RECOVER_ALWAYS_BELOW = 50_000
+#: The LP completion (:mod:`.polish`) runs once the decrement allows a gap within tol,
+#: and every POLISH_EVERY iterations in any case: on degenerate instances the barrier's
+#: stages can settle the dual while the decrement stays large.
+POLISH_EVERY = 10
+#: From this iteration on (the barrier's stages are slow to settle the dual: the family's
+#: median is 20 iterations), the completion's allocation also proposes bid prices
+#: (:mod:`.crossover`). Not earlier: where the dual is degenerate, its prices are a
+#: vertex of the optimal set, while Newton's settle on the smoothed central path's limit.
+CROSSOVER_FROM = 50
 #: With only smooth products (unique bid prices) and tol <= 1e-7, the loop also waits
 #: until Newton's next step moves no bid price by more than this fraction of itself.
 BID_TOL = 1e-6
@@ -105,10 +115,15 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
         if always or it == 1 or dirn.decrement <= 10.0 * tol * q:
             y, value = recover(net, pt, dirn.d, dirn.lower)
             best.offer_primal(y, value)
-            if best.gap > tol and dirn.decrement <= 10.0 * tol * q:
+            if best.gap > tol and (dirn.decrement <= 10.0 * tol * q or it % POLISH_EVERY == 0):
                 completed = complete(net, pt, y)
                 if completed is not None:
                     best.offer_primal(*completed)
+                    if it >= CROSSOVER_FROM:
+                        # the bid prices this allocation asks for: an exact dual bound
+                        pi_x = prices_from_allocation(net, completed[0])
+                        if pi_x is not None:
+                            best.offer_dual(net.evaluate(np.maximum(pi_x, floor)))
         history.append(_record(it, pt, best, step_len, t0))
         if best.gap <= tol and (settle is None or _settled(pt, dirn, settle, fare_max)):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)

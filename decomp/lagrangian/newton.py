@@ -6,7 +6,8 @@ legs in the epsilon-active set
 
     held = {i : pi_i <= eps and g_i > 0},  eps = min(eps_bar, |pi - [pi - D g]^+|)
 
-(slack legs at or next to bid price 0) take a diagonally scaled gradient step;
+(slack legs at or next to bid price 0) take a diagonally scaled gradient step
+(falling by at most a factor KAPPA per step, see :func:`step_floor`);
 the others (the free legs) take the Newton step of the reduced Hessian
 H_FF (+ lam I, Levenberg-Marquardt, after diagonal scaling). The trial point
 follows the projection arc pi(t) = [pi + t d]^+ and is accepted by Armijo's
@@ -45,7 +46,7 @@ MAX_HALVINGS = 50
 #: (a quadratic model gives 1/2) is tried longer, up to 2^MAX_DOUBLINGS.
 EXPAND = 0.75
 MAX_DOUBLINGS = 8
-#: A free leg's bid price falls by at most this factor in one step (see step_floor).
+#: A bid price falls by at most this factor in one step (see step_floor).
 KAPPA = 10.0
 #: Levenberg-Marquardt factor on the scaled system: start, bounds.
 LAM_START, LAM_MIN, LAM_MAX = 1e-8, 1e-12, 1e6
@@ -94,29 +95,31 @@ def direction(net, system, pt, lam, eps_bar, floor) -> Direction:
         d[held] = -g[held] / h[held]
     if np.any(flat):
         d[flat] = flat_step(pt, flat, net.fare_scale)
-    lower = step_floor(pi, held, floor)
+    lower = step_floor(pi, floor)
     # the decrement counts only what the projection lets the step realize
     realized = pi - np.maximum(pi + d, lower)
     return Direction(d=d, held=held, decrement=float(g @ realized), curvature=h, stationarity=float(g @ proj),
                      lower=lower)
 
 
-def step_floor(pi, held, floor):
-    """The step's lower bounds: the floor for held legs; for free legs a decrease by at most
-    a factor KAPPA in one step. Without it a free leg could be thrown from a moderate
-    bid price deep into the demand's tail (1e-4 of the fare), where its curvature is
-    huge and Newton climbs back out only a little per step; held legs (slack, near
-    the floor) are bounded by the floor alone."""
-    out = np.maximum(pi / KAPPA, floor)
-    out[held] = floor
-    return out
+def step_floor(pi, floor):
+    """The step's lower bounds: every bid price falls by at most a factor KAPPA in one
+    step, and never below the floor. Without it a leg could be thrown from a moderate
+    bid price deep into the demand's tail (1e-10 of the fare), where its curvature is
+    huge and Newton climbs back out only a little per step: legs held at the
+    optimum's start are often only nearly slack. A leg truly slack reaches the
+    reporting resolution in a few steps (a factor 10 each). The bound is a box
+    around pi that the arc search projects on, holding a neighbourhood of pi in
+    the feasible set (every bid price above the floor may fall by (1 - 1/KAPPA)
+    of itself), so Armijo's rule and the convergence argument are unchanged."""
+    return np.maximum(pi / KAPPA, floor)
 
 
 def gradient_direction(pt, curvature, floor) -> Direction:
     d = -pt.grad / curvature
     held = np.zeros(len(d), bool)
     return Direction(d=d, held=held, decrement=float(-(pt.grad @ d)), curvature=curvature,
-                     stationarity=float(-(pt.grad @ d)), lower=step_floor(pt.pi, held, floor))
+                     stationarity=float(-(pt.grad @ d)), lower=step_floor(pt.pi, floor))
 
 
 def arc_search(net, pt, d, smoothing, lower):

@@ -5,13 +5,17 @@ g = r - a is clearly positive is full at every primal optimum paired with
 these bid prices, and every one with g clearly negative is empty; only the
 segments with g near 0 are undetermined, and the dual says nothing about how
 to split capacity among them (that is the degenerate, LP-like part of the
-PNLP). With the smooth products held at their recovered allocation, the
-remaining segments get their optimal split from the linear program
+PNLP). They get their split from the linear program
 
     max sum r_k y_k  s.t.  (A y)_i <= c_i - (load of the rest)_i,  0 <= y_k <= w_k,
 
-solved by HiGHS (through scipy.optimize.linprog). The result is feasible by
-construction; its exact revenue is the lower bound, as in :mod:`.recovery`.
+solved by HiGHS (through scipy.optimize.linprog), in which the smooth part of
+each product may move along chords of its expected revenue around where the
+subproblems (or the recovery) put it: breakpoints dense near that point, so
+the LP can trade seats between smooth products and segments. Chords lie below
+the concave revenue, so the exact revenue of the result is at least the LP's
+value; the result is feasible by construction, and its exact revenue is the
+lower bound, as in :mod:`.recovery`.
 """
 
 from __future__ import annotations
@@ -20,15 +24,18 @@ import numpy as np
 import scipy.sparse as sp
 
 #: A segment's reduced revenue within this fraction of its product's fare counts as undetermined.
-THRESHOLD = 1e-6
+THRESHOLD = 1e-3
 #: Largest LP (undetermined segments) tried; smooth parts join it up to this many products.
 MAX_COLUMNS = 200_000
-#: How far (seats, times 1 + allocation) the LP may move a smooth product's allocation.
-SMOOTH_MOVE = 1e-4
+#: Chord pieces of a smooth part around its allocation s: breakpoints s (1 - t) below it
+#: (down to 0, so the LP can always make room) and s + SPAN (1 + s) t above it, for
+#: t = 2^-LEVELS, ..., 1/2, 1 (fine near s, where the optimum is once pi is close).
+SPAN = 1e-3
+LEVELS = 20
 
 
 def complete(net, pt, y_recovered):
-    """A feasible allocation with the segments' split chosen by the LP, or None."""
+    """A feasible allocation with the segments' split chosen by the LP and its exact revenue, or None."""
     seg = net.segments
     if not len(seg):
         return None
@@ -42,38 +49,62 @@ def complete(net, pt, y_recovered):
     full = g > theta
     n = net.n_products
     seg_width = np.bincount(seg.prod, weights=seg.width, minlength=n)
-    smooth = np.maximum(y_recovered - seg_width, 0.0)          # the allocation outside segments
+    best = None
+    # the smooth parts beyond the segments, centred where the subproblems put them and
+    # where the recovery did (feasible): the better completion is kept
+    for y in (pt.x, y_recovered):
+        found = _segment_lp(net, seg, open_, full, np.maximum(y - seg_width, 0.0), seg_width)
+        if found is not None and (best is None or found[1] > best[1]):
+            best = found
+    return best
+
+
+def _segment_lp(net, seg, open_, full, smooth, seg_width):
+    """The LP over the open segments and chord pieces of the smooth parts around ``smooth``.
+
+    Chords lie below the concave expected revenue, so the exact revenue of the
+    LP's allocation is at least the LP's value (the pieces fill in order, their
+    slopes decreasing); with the smooth parts fixed instead, as many products as
+    there are segments would carry the whole error of the recovery."""
+    n = net.n_products
+    fare = net.sub.fare
     fixed = smooth + np.bincount(seg.prod, weights=seg.width * full, minlength=n)
+    cols = np.flatnonzero(open_)
+    owners, price, width = [seg.prod[cols]], [seg.slope[cols]], [seg.width[cols]]
+    if n <= MAX_COLUMNS:
+        movable = np.flatnonzero(smooth > 0)
+        t = 2.0 ** -np.arange(LEVELS + 1)
+        s_m = smooth[movable]
+        top = np.maximum(net.upper[movable] - seg_width[movable], 0.0)
+        points = np.concatenate([s_m * (1.0 - t[:, None]), s_m[None, :],
+                                 s_m + SPAN * (1.0 + s_m) * t[::-1, None]])
+        points = np.clip(points, 0.0, top)
+        # a smooth part lies beyond its product's segments: S at the whole allocation
+        sales = net.sub.expected_sales_of(movable, points + seg_width[movable])
+        widths = np.diff(points, axis=0)
+        gains = fare[movable] * np.diff(sales, axis=0)
+        keep = widths > 0
+        owners.append(np.broadcast_to(movable, widths.shape)[keep])
+        width.append(widths[keep])
+        price.append(gains[keep] / widths[keep])
+        fixed[movable] += points[0] - smooth[movable]
+    owners, price, width = np.concatenate(owners), np.concatenate(price), np.concatenate(width)
     room = net.cap - net.A_g @ net.to_groups(fixed)
     if np.any(room < -1e-9 * np.maximum(net.cap, 1.0)):
         return None
     room = np.maximum(room, 0.0)
-    cols = np.flatnonzero(open_)
-    # columns: the open segments, then small moves of the smooth parts (linearized: their
-    # exact revenue is computed afterwards), which let the LP give back slack on priced legs
-    owners = seg.prod[cols]
-    price = seg.slope[cols]
-    lo, hi = np.zeros(len(cols)), seg.width[cols]
-    if n <= MAX_COLUMNS:
-        movable = np.flatnonzero(smooth > 0)
-        move = SMOOTH_MOVE * (1.0 + smooth[movable])
-        slope = fare[movable] * net.sub.marginal_sales(np.maximum(fixed, 0.0))[0][movable]
-        owners = np.r_[owners, movable]
-        price = np.r_[price, slope]
-        lo = np.r_[lo, -np.minimum(move, smooth[movable])]
-        hi = np.r_[hi, np.minimum(move, np.maximum(net.upper[movable] - fixed[movable], 0.0))]
     if len(owners) == 0:
         return _feasible(net, fixed)
     col, leg = _product_legs(net, owners)
     A = sp.csr_matrix((np.ones(len(col)), (leg, col)), shape=(net.n, len(owners)))
     from scipy.optimize import linprog
 
-    res = linprog(-price, A_ub=A, b_ub=room, bounds=np.column_stack([lo, hi]),
+    res = linprog(-price, A_ub=A, b_ub=room, bounds=np.column_stack([np.zeros(len(width)), width]),
                   method="highs", options={"primal_feasibility_tolerance": 1e-10,
                                            "dual_feasibility_tolerance": 1e-10})
     if res.status != 0:
         return None
-    return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, lo, hi), minlength=n))
+    return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n))
 
 
 def _feasible(net, y):

@@ -89,16 +89,22 @@ class Segments:
         mu = delta * r * w
         gw = g * w
         D = np.sqrt(gw * gw + 4.0 * mu * mu)
-        denom = D - gw + 2.0 * mu
+        # D - g w = 4 mu^2 / (D + g w) where g >= 0, and D + g w = 4 mu^2 / (D - g w) where
+        # g < 0: written so, neither cancels (a cancellation of 1e-16 g w against mu would
+        # make y, and the smoothed dual with it, noisy at 1e-16 g w / mu relative)
+        small = 4.0 * mu * mu / (D + np.abs(gw))        # D - |g w|
+        big = D + np.abs(gw)                             # D + |g w|
+        up = gw >= 0
+        denom = np.where(up, small, big) + 2.0 * mu
         y = 2.0 * mu * w / denom
-        # w - y = w (D - g w) / denom, with D - g w = 4 mu^2 / (D + g w) where g >= 0 (no cancellation)
-        rest = w * np.where(gw >= 0, 4.0 * mu * mu / (D + np.abs(gw)), D - gw) / denom
+        rest = w * np.where(up, small, big) / denom     # w - y = w (D - g w) / denom
         curv = 1.0 / (mu * (1.0 / (y * y) + 1.0 / (rest * rest)))
         full = x_exact[p] >= self.off + w * (1.0 - 1e-12)
         n = self.n_products
-        x = x_exact + np.bincount(p, weights=y - w * full, minlength=n)
+        # the exact allocation holds the whole segment where it is full and none of it otherwise
+        x = x_exact + np.bincount(p, weights=np.where(full, -rest, y), minlength=n)
         x = np.maximum(x, 0.0)
         dw = np.bincount(p, weights=curv, minlength=n)
         barrier = np.log(2.0 * y / w) + np.log(2.0 * rest / w)
-        change = float(np.sum(g * y + mu * barrier - g * w * full))
+        change = float(np.sum(np.where(full, -g * rest, g * y) + mu * barrier))
         return x, dw, change
