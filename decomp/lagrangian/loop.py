@@ -119,7 +119,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
         dirn = newton.direction(net, system, pt, lam, eps_bar, floor)
         q = max(1.0, abs(pt.exact))
         if always or it == 1 or dirn.decrement <= 10.0 * tol * q:
-            y, value = recover(net, pt, dirn.d, dirn.lower)
+            y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
             best.offer_primal(y, value)
             if best.gap > tol and (dirn.decrement <= 10.0 * tol * q or it % POLISH_EVERY == 0):
                 completed = complete(net, pt, y)

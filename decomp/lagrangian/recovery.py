@@ -22,16 +22,20 @@ from __future__ import annotations
 import numpy as np
 
 
-def recover(net, pt, d=None, lower=0.0):
+def recover(net, pt, d=None, lower=0.0, both=True):
     """(y, exact expected revenue of y) for the dual point ``pt`` and step ``d``: the
     better of the predicted allocation and x(pi) itself, each made feasible. (The
     prediction is first-order: where a product's curvature is extreme, as for
-    near-deterministic demand, or the step is damped, x(pi) can be the better one.)"""
-    plain = _feasible(net, pt.x.copy())
+    near-deterministic demand, or the step is damped, x(pi) can be the better one.)
+    ``both=False``: the predicted one only (large instances recover only near the
+    optimum, where it is the better one; each candidate costs a pass over the products)."""
     if d is None:
-        return plain
+        return _feasible(net, pt.x.copy())
     step = np.maximum(pt.pi + d, lower) - pt.pi
     predicted = _feasible(net, pt.x - pt.w * net.to_products(net.AT_g @ step))
+    if not both:
+        return predicted
+    plain = _feasible(net, pt.x.copy())
     return predicted if predicted[1] >= plain[1] else plain
 
 
