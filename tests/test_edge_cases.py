@@ -119,3 +119,19 @@ def test_generator_instance_with_tight_and_loose_legs():
     inst = generate(2000, seed=9, demand_factor=(0.3, 2.0))
     _, got = _compare_with_ipopt(inst)
     assert got.bid_price_array.min() < 1e-6 * got.bid_price_array.max()
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_every_product_deterministic_is_the_dlp(seed):
+    # With std = 0 everywhere, E[min(D, x)] = min(mean, x) and the PNLP is the DLP (a
+    # mathematical fact): the Lagrangian method, working on a smoothed dual with an LP
+    # completion and the crossover, must reach HiGHS's DLP optimum, certified.
+    rng = np.random.default_rng(100 + seed)
+    prods = [(p[0], p[1], p[2], p[3], 0.0) for p in _products(rng, 60)]
+    inst = Instance.from_lists(LEGS, prods)
+    ref = solve(inst, "dlp", "highs")
+    got = solve(inst, "pnlp", "lagrangian")
+    assert ref.termination is Termination.OPTIMAL
+    assert got.termination is Termination.OPTIMAL, (got.message, got.gap)
+    assert got.objective == pytest.approx(ref.objective, rel=1e-9)
+    assert got.certificate.max_violation_rel <= 1e-9

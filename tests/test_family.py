@@ -14,8 +14,6 @@ What is asserted, on every instance:
   certificate, and for normal demand its objective is within 1e-7 of Ipopt's (where
   Ipopt stops short, on some near-deterministic demand, Ipopt's feasible allocation
   must not earn more than ours).
-KNOWN_MISSES lists the draws on which the method is known to stop short (strict xfail:
-the test fails as soon as one of them is solved, so the list cannot go stale).
 `pytest --run-slow -m family_strict tests/test_family.py` runs the same draws at up
 to 3,000 products.
 """
@@ -31,17 +29,6 @@ from decomp import SolverOptions, Termination, solve
 pytestmark = pytest.mark.solver
 
 SEEDS = range(300)
-
-
-#: (max_products, seed) draws on which the method ends at the iteration limit: a
-#: 60-product grid with mixed, very-low-CV demand and tight legs, where the dual
-#: settles 1e-7 above the optimum and the LP completion stays 6e-6 below it.
-KNOWN_MISSES = {(600, 179)}
-
-
-def _params(max_products):
-    return [pytest.param(seed, marks=pytest.mark.xfail(strict=True, reason="known miss, see KNOWN_MISSES"))
-            if (max_products, seed) in KNOWN_MISSES else seed for seed in SEEDS]
 
 
 def _relative(dual, primal):
@@ -64,7 +51,7 @@ def _checked(seed, max_products):
     return inst, desc, r, gap
 
 
-@pytest.mark.parametrize("seed", _params(600))
+@pytest.mark.parametrize("seed", SEEDS)
 def test_family_instance(seed):
     inst, desc, r, gap = _checked(seed, max_products=600)
     assert r.termination is Termination.OPTIMAL, (desc, r.message)
@@ -81,7 +68,7 @@ def test_family_instance(seed):
 
 @pytest.mark.slow
 @pytest.mark.family_strict
-@pytest.mark.parametrize("seed", _params(3000))
+@pytest.mark.parametrize("seed", SEEDS)
 def test_family_instance_strict(seed):
     # every valid instance solved to the default tol, up to 3,000 products (issue 12's target)
     inst, desc, r, gap = _checked(seed, max_products=3000)

@@ -115,21 +115,17 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     # bid prices are unique when every term is smooth: then also wait until they settle
     settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
     step_len = 0.0
+    lp_time = LPTime(t0)
     for it in range(1, limit + 1):
         dirn = newton.direction(net, system, pt, lam, eps_bar, floor)
         q = max(1.0, abs(pt.exact))
         if always or it == 1 or dirn.decrement <= 10.0 * tol * q:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
             best.offer_primal(y, value)
-            if best.gap > tol and (dirn.decrement <= 10.0 * tol * q or it % POLISH_EVERY == 0):
-                completed = complete(net, pt, y)
-                if completed is not None:
-                    best.offer_primal(*completed)
-                    if it >= CROSSOVER_FROM:
-                        # the bid prices this allocation asks for: an exact dual bound
-                        pi_x = prices_from_allocation(net, completed[0])
-                        if pi_x is not None:
-                            best.offer_dual(net.evaluate(np.maximum(pi_x, floor)))
+            due = dirn.decrement <= 10.0 * tol * q or it % POLISH_EVERY == 0
+            if best.gap > tol and due and lp_time.allows():
+                with lp_time:
+                    _polish(net, pt, y, best, it >= CROSSOVER_FROM, floor)
         history.append(_record(it, pt, best, step_len, t0))
         if best.gap <= tol and (settle is None or _settled(pt, dirn, settle, fare_max)):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
@@ -163,6 +159,40 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
         pt, _, step_len, lam = taken
         best.offer_dual(pt)
     return _outcome(best, Termination.ITERATION_LIMIT, "iteration_limit", limit, history)
+
+
+def _polish(net, pt, y, best, crossover, floor):
+    """The LP completion of ``y`` (:mod:`.polish`) and, with ``crossover``, the bid prices
+    its allocation asks for (:mod:`.crossover`), offered as bounds."""
+    completed = complete(net, pt, y)
+    if completed is None:
+        return
+    best.offer_primal(*completed)
+    if crossover:
+        pi_x = prices_from_allocation(net, completed[0])
+        if pi_x is not None:
+            best.offer_dual(net.evaluate(np.maximum(pi_x, floor)))
+
+
+class LPTime:
+    """The time spent in the LPs of :func:`_polish`, kept at most the time of the rest
+    of the run (so they at most double it): on large degenerate instances one LP can
+    cost as much as a hundred Newton iterations."""
+
+    def __init__(self, t0):
+        self.t0 = t0
+        self.spent = 0.0
+
+    def allows(self) -> bool:
+        return self.spent <= (time.perf_counter() - self.t0) - self.spent
+
+    def __enter__(self):
+        self._start = time.perf_counter()
+        return self
+
+    def __exit__(self, *exc):
+        self.spent += time.perf_counter() - self._start
+        return False
 
 
 def _outcome(best, term, raw, it, history, why=""):

@@ -25,11 +25,13 @@ import scipy.sparse as sp
 
 #: A segment's reduced revenue within this fraction of its product's fare counts as undetermined.
 THRESHOLD = 1e-3
-#: Largest LP (undetermined segments) tried; smooth parts join it up to this many products.
+#: Largest LP (undetermined segments) tried; the smooth parts' chords join it within about
+#: this many columns (fewer levels for more products; none above a quarter of it).
 MAX_COLUMNS = 200_000
 #: Chord pieces of a smooth part around its allocation s: breakpoints s (1 - t) below it
-#: (down to 0, so the LP can always make room) and s + SPAN (1 + s) t above it, for
-#: t = 2^-LEVELS, ..., 1/2, 1 (fine near s, where the optimum is once pi is close).
+#: (down to 0, so the LP can always make room), s + SPAN (1 + s) t and s + (u - s) t above
+#: it (up to the product's bound u), for t = 2^-LEVELS, ..., 1/2, 1 (fine near s, where the
+#: optimum is once pi is close; coarse far from it, where the LP can still move it).
 SPAN = 1e-3
 LEVELS = 20
 
@@ -71,13 +73,16 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     fixed = smooth + np.bincount(seg.prod, weights=seg.width * full, minlength=n)
     cols = np.flatnonzero(open_)
     owners, price, width = [seg.prod[cols]], [seg.slope[cols]], [seg.width[cols]]
-    if n <= MAX_COLUMNS:
-        movable = np.flatnonzero(smooth > 0)
-        t = 2.0 ** -np.arange(LEVELS + 1)
+    if n <= MAX_COLUMNS // 4:
+        movable = _smooth_products(net)
+        # 3 (levels + 1) + 1 pieces per product, as many levels as MAX_COLUMNS allows
+        levels = min(LEVELS, max(0, (MAX_COLUMNS // max(len(movable), 1) - 4) // 3))
+        t = 2.0 ** -np.arange(levels + 1)
         s_m = smooth[movable]
-        top = np.maximum(net.upper[movable] - seg_width[movable], 0.0)
-        points = np.concatenate([s_m * (1.0 - t[:, None]), s_m[None, :],
-                                 s_m + SPAN * (1.0 + s_m) * t[::-1, None]])
+        top = np.maximum(net.upper[movable] - seg_width[movable], s_m)
+        above = np.sort(np.concatenate([s_m + SPAN * (1.0 + s_m) * t[:, None], s_m + (top - s_m) * t[:, None]]),
+                        axis=0)
+        points = np.concatenate([s_m * (1.0 - t[:, None]), s_m[None, :], above])
         points = np.clip(points, 0.0, top)
         # a smooth part lies beyond its product's segments: S at the whole allocation
         sales = net.sub.expected_sales_of(movable, points + seg_width[movable])
@@ -105,6 +110,14 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     if res.status != 0:
         return None
     return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n))
+
+
+def _smooth_products(net):
+    """The products with a smooth part (normal and gamma demand with std > 0)."""
+    sub = net.sub
+    if sub.all_normal:
+        return np.arange(net.n_products)
+    return np.sort(np.concatenate([sub.i_norm, sub.i_gam])).astype(np.int64)
 
 
 def _feasible(net, y):
