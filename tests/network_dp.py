@@ -19,6 +19,18 @@ def _incidence(instance):
 
 def optimal_values(instance, prob):
     """V_0 over the whole grid of seat vectors: an array of shape (c_1 + 1, ..., c_L + 1)."""
+    return _backward(instance, prob, lambda t, x, j, gain: max(0.0, gain))
+
+
+def policy_value(instance, prob, accept):
+    """Expected revenue from full capacity of the rule ``accept(t, x, j) -> bool`` (seats permitting)."""
+    V = _backward(instance, prob, lambda t, x, j, gain: gain if accept(t, x, j) else 0.0)
+    return float(V[tuple(np.floor(instance.capacity + 1e-9).astype(np.int64))])
+
+
+def _backward(instance, prob, take):
+    """The backward recursion V_t(x) = V_{t+1}(x) + sum_j p_tj take(t, x, j, f_j - (V_{t+1}(x)
+    - V_{t+1}(x - A_j))) over products j that fit in x; V_0 over the whole grid."""
     A = _incidence(instance)
     cap = np.floor(instance.capacity + 1e-9).astype(np.int64)
     T, P = prob.shape
@@ -31,25 +43,6 @@ def optimal_values(instance, prob):
             for j in range(P):
                 y = x - A[:, j]
                 if np.all(y >= 0):
-                    new[tuple(x)] += prob[t, j] * max(0.0, instance.fare[j] - (V[tuple(x)] - V[tuple(y)]))
+                    new[tuple(x)] += prob[t, j] * take(t, x, j, instance.fare[j] - (V[tuple(x)] - V[tuple(y)]))
         V = new
     return V
-
-
-def policy_value(instance, prob, accept):
-    """Expected revenue from full capacity of the rule ``accept(t, x, j) -> bool`` (seats permitting)."""
-    A = _incidence(instance)
-    cap = np.floor(instance.capacity + 1e-9).astype(np.int64)
-    T, P = prob.shape
-    V = np.zeros(tuple(cap + 1))
-    states = list(itertools.product(*[range(c + 1) for c in cap]))
-    for t in range(T - 1, -1, -1):
-        new = V.copy()
-        for x in states:
-            x = np.array(x)
-            for j in range(P):
-                y = x - A[:, j]
-                if np.all(y >= 0) and accept(t, x, j):
-                    new[tuple(x)] += prob[t, j] * (instance.fare[j] - (V[tuple(x)] - V[tuple(y)]))
-        V = new
-    return float(V[tuple(cap)])

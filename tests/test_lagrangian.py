@@ -291,23 +291,28 @@ def test_slack_leg_shared_with_a_tight_leg_gets_exactly_zero():
         assert got.bid_prices["L2"] == pytest.approx(ref.bid_prices["L2"], rel=1e-6)
 
 
+def _deterministic_segment(fare, mean, upper):
+    """The Segments of one deterministic product (std = 0): one segment of slope fare."""
+    from decomp.lagrangian.segments import Segments
+
+    class _One:
+        all_normal = False
+        n = 1
+        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
+        i_det = np.array([0])
+
+    sub = _One()
+    sub.fare = sub.t_f = np.array([fare])
+    sub.t_m = np.array([mean])
+    return Segments(sub, np.array([upper]))
+
+
 def test_barrier_segment_solves_its_subproblem():
     # Closed form of max_{0<y<w} g y + mu (log(2y/w) + log(2(w-y)/w)) against a bounded
     # scalar minimization (scipy.optimize.minimize_scalar), and its value change.
     from scipy.optimize import minimize_scalar
 
-    from decomp.lagrangian.segments import Segments
-
-    class _One:                                       # one deterministic product (std = 0)
-        all_normal = False
-        n = 1
-        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
-        i_det = np.array([0])
-        fare = np.array([10.0])
-
-    sub = _One()
-    sub.t_m, sub.t_f = np.array([4.0]), np.array([10.0])
-    seg = Segments(sub, np.array([9.0]))
+    seg = _deterministic_segment(fare=10.0, mean=4.0, upper=9.0)
     for a, delta in ((3.0, 0.1), (9.999, 1e-3), (10.5, 1e-2), (25.0, 1e-6)):
         x_exact = np.array([4.0 if a < 10.0 else 0.0])
         x, w, change = seg.smooth(np.array([a]), x_exact, delta)
@@ -326,18 +331,7 @@ def test_barrier_segment_value_is_smooth_at_small_mu():
     # search then stalled. Fact checked: its derivative in a is -(x(a) beyond the
     # exact allocation), so the value's change over a step h matches the midpoint rule
     # to second order (central differences; a mathematical fact of smooth functions).
-    from decomp.lagrangian.segments import Segments
-
-    class _One:                                       # one deterministic product (std = 0)
-        all_normal = False
-        n = 1
-        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
-        i_det = np.array([0])
-        fare = np.array([190.0])
-
-    sub = _One()
-    sub.t_m, sub.t_f = np.array([40.0]), np.array([190.0])
-    seg = Segments(sub, np.array([100.0]))
+    seg = _deterministic_segment(fare=190.0, mean=40.0, upper=100.0)
     delta = 1e-6                                       # mu = delta r w: g w / mu about 1e5
     x_exact = np.array([40.0])
     for a in (150.0, 165.0, 189.0):

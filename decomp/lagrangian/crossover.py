@@ -46,8 +46,7 @@ def prices_from_allocation(net, y):
     lo = fare * net.sub.marginal_sales(y + eps)[0]
     hi = fare * net.sub.marginal_sales(np.maximum(y - eps, 0.0))[1]
     hi = np.where(y <= eps, np.inf, hi)
-    load = net.A_g @ net.to_groups(y)
-    room = load < net.cap - ROOM * (1.0 + net.cap)
+    room = net.load(y) < net.cap - ROOM * (1.0 + net.cap)
     # columns: pi (legs), then s (products); rows: a - s <= hi and -a - s <= -lo
     At = _product_rows(net)
     eye = sp.identity(P, format="csr")

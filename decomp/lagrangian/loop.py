@@ -49,10 +49,25 @@ BID_TOL = 1e-6
 FINAL_STEP = 1e-4
 
 
-def _settled(pt, dirn, bid_tol, fare_max):
-    """Newton's next step moves every bid price by at most bid_tol of itself (or of 1e-3
-    of the largest, for the smallest ones)."""
+def _may_stop(net, pt, dirn, best, settle, fare_max) -> bool:
+    """At a certified gap within tol: stop unless bid prices must settle (``settle``) and
+    Newton's next step still moves one by more than that; a step of at most FINAL_STEP
+    is taken first, its point becoming the reported one if the dual did not rise."""
     new = np.maximum(pt.pi + dirn.d, dirn.lower)
+    if settle is None or _settled(pt, new, settle, fare_max):
+        return True
+    if not _settled(pt, new, FINAL_STEP, fare_max):
+        return False
+    final = net.evaluate(new)
+    if final.exact > best.dual:
+        return False
+    best.dual, best.pi = final.exact, final.pi
+    return True
+
+
+def _settled(pt, new, bid_tol, fare_max):
+    """The step to ``new`` moves every bid price by at most bid_tol of itself (or of 1e-3
+    of the largest, for the smallest ones)."""
     scale = np.maximum(pt.pi, 1e-3 * float(pt.pi.max(initial=0.0)))
     # legs below the reporting resolution on both sides are reported at 0 either way
     zero = np.maximum(pt.pi, new) <= ZERO_RESOLUTION * fare_max
@@ -118,22 +133,16 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     lp_time = LPTime(t0)
     for it in range(1, limit + 1):
         dirn = newton.direction(net, system, pt, lam, eps_bar, floor)
-        q = max(1.0, abs(pt.exact))
-        if always or it == 1 or dirn.decrement <= 10.0 * tol * q:
+        near = dirn.decrement <= 10.0 * tol * max(1.0, abs(pt.exact))
+        if always or it == 1 or near:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
             best.offer_primal(y, value)
-            due = dirn.decrement <= 10.0 * tol * q or it % POLISH_EVERY == 0
-            if best.gap > tol and due and lp_time.allows():
+            if best.gap > tol and (near or it % POLISH_EVERY == 0) and lp_time.allows():
                 with lp_time:
                     _polish(net, pt, y, best, it >= CROSSOVER_FROM, floor)
         history.append(_record(it, pt, best, step_len, t0))
-        if best.gap <= tol and (settle is None or _settled(pt, dirn, settle, fare_max)):
+        if best.gap <= tol and _may_stop(net, pt, dirn, best, settle, fare_max):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
-        if best.gap <= tol and _settled(pt, dirn, FINAL_STEP, fare_max):
-            final = net.evaluate(np.maximum(pt.pi + dirn.d, dirn.lower))
-            if final.exact <= best.dual:
-                best.dual, best.pi = final.exact, final.pi
-                return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
         if deadline is not None and time.perf_counter() > deadline:
             return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)
         lower = cont.next(max(dirn.decrement, dirn.stationarity), pt.exact)

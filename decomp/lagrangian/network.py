@@ -154,6 +154,10 @@ class Network:
             return np.bincount(self.g_of_p, weights=per_product, minlength=self.G)
         return per_product
 
+    def load(self, per_product):
+        """A y: the load of an allocation on each live leg."""
+        return self.A_g @ self.to_groups(per_product)
+
     def group_of(self, products):
         """The group index of each of the given product indices."""
         if self.g_start is not None:

@@ -117,9 +117,9 @@ def step_floor(pi, floor):
 
 def gradient_direction(pt, curvature, floor) -> Direction:
     d = -pt.grad / curvature
-    held = np.zeros(len(d), bool)
-    return Direction(d=d, held=held, decrement=float(-(pt.grad @ d)), curvature=curvature,
-                     stationarity=float(-(pt.grad @ d)), lower=step_floor(pt.pi, floor))
+    decrement = float(-(pt.grad @ d))
+    return Direction(d=d, held=np.zeros(len(d), bool), decrement=decrement, curvature=curvature,
+                     stationarity=decrement, lower=step_floor(pt.pi, floor))
 
 
 def arc_search(net, pt, d, smoothing, lower):

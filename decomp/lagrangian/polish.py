@@ -23,6 +23,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from .recovery import scale_to_capacity
+
 #: A segment's reduced revenue within this fraction of its product's fare counts as undetermined.
 THRESHOLD = 1e-3
 #: Largest LP (undetermined segments) tried; the smooth parts' chords join it within about
@@ -69,32 +71,16 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     slopes decreasing); with the smooth parts fixed instead, as many products as
     there are segments would carry the whole error of the recovery."""
     n = net.n_products
-    fare = net.sub.fare
     fixed = smooth + np.bincount(seg.prod, weights=seg.width * full, minlength=n)
     cols = np.flatnonzero(open_)
     owners, price, width = [seg.prod[cols]], [seg.slope[cols]], [seg.width[cols]]
     if n <= MAX_COLUMNS // 4:
-        movable = _smooth_products(net)
-        # 3 (levels + 1) + 1 pieces per product, as many levels as MAX_COLUMNS allows
-        levels = min(LEVELS, max(0, (MAX_COLUMNS // max(len(movable), 1) - 4) // 3))
-        t = 2.0 ** -np.arange(levels + 1)
-        s_m = smooth[movable]
-        top = np.maximum(net.upper[movable] - seg_width[movable], s_m)
-        above = np.sort(np.concatenate([s_m + SPAN * (1.0 + s_m) * t[:, None], s_m + (top - s_m) * t[:, None]]),
-                        axis=0)
-        points = np.concatenate([s_m * (1.0 - t[:, None]), s_m[None, :], above])
-        points = np.clip(points, 0.0, top)
-        # a smooth part lies beyond its product's segments: S at the whole allocation
-        sales = net.sub.expected_sales_of(movable, points + seg_width[movable])
-        widths = np.diff(points, axis=0)
-        gains = fare[movable] * np.diff(sales, axis=0)
-        keep = widths > 0
-        owners.append(np.broadcast_to(movable, widths.shape)[keep])
-        width.append(widths[keep])
-        price.append(gains[keep] / widths[keep])
-        fixed[movable] += points[0] - smooth[movable]
+        movable, pieces, start = _chords(net, smooth, seg_width)
+        for part, new in zip((owners, price, width), pieces):
+            part.append(new)
+        fixed[movable] += start - smooth[movable]
     owners, price, width = np.concatenate(owners), np.concatenate(price), np.concatenate(width)
-    room = net.cap - net.A_g @ net.to_groups(fixed)
+    room = net.cap - net.load(fixed)
     if np.any(room < -1e-9 * np.maximum(net.cap, 1.0)):
         return None
     room = np.maximum(room, 0.0)
@@ -112,6 +98,27 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n))
 
 
+def _chords(net, smooth, seg_width):
+    """(products, (owner, slope, width) of their chord pieces, the first breakpoint of
+    each): the pieces of every smooth part around ``smooth`` (see SPAN and LEVELS), with
+    3 (levels + 1) + 1 pieces per product, as many levels as MAX_COLUMNS allows."""
+    movable = _smooth_products(net)
+    levels = min(LEVELS, max(0, (MAX_COLUMNS // max(len(movable), 1) - 4) // 3))
+    t = 2.0 ** -np.arange(levels + 1)
+    s_m = smooth[movable]
+    top = np.maximum(net.upper[movable] - seg_width[movable], s_m)
+    above = np.sort(np.concatenate([s_m + SPAN * (1.0 + s_m) * t[:, None], s_m + (top - s_m) * t[:, None]]),
+                    axis=0)
+    points = np.clip(np.concatenate([s_m * (1.0 - t[:, None]), s_m[None, :], above]), 0.0, top)
+    # a smooth part lies beyond its product's segments: S at the whole allocation
+    sales = net.sub.expected_sales_of(movable, points + seg_width[movable])
+    widths = np.diff(points, axis=0)
+    gains = net.sub.fare[movable] * np.diff(sales, axis=0)
+    keep = widths > 0
+    pieces = (np.broadcast_to(movable, widths.shape)[keep], gains[keep] / widths[keep], widths[keep])
+    return movable, pieces, points[0]
+
+
 def _smooth_products(net):
     """The products with a smooth part (normal and gamma demand with std > 0)."""
     sub = net.sub
@@ -123,12 +130,10 @@ def _smooth_products(net):
 def _feasible(net, y):
     """y with the rare product on an overloaded leg scaled back (rounding, HiGHS's
     feasibility tolerance), and its exact revenue."""
-    load = net.A_g @ net.to_groups(y)
+    load = net.load(y)
     over = load > net.cap
     if np.any(over):
-        from .recovery import _smallest_over_legs
-
-        y *= net.to_products(_smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
+        y = scale_to_capacity(net, y, load, over)
     return y, net.revenue(y)
 
 

@@ -28,8 +28,8 @@ def fare_start(net):
     share_g = 1.0 / np.maximum(np.asarray(net.AT_g.sum(axis=1)).ravel(), 1.0)
     share = sub.fare * net.to_products(share_g)
     mean = np.maximum(sub.mean, 0.0)
-    dem = net.A_g @ net.to_groups(mean)
-    rev = net.A_g @ net.to_groups(share * mean)
+    dem = net.load(mean)
+    rev = net.load(share * mean)
     return 0.5 * rev / np.maximum(dem, 1e-300)
 
 

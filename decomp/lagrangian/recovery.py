@@ -21,6 +21,9 @@ from __future__ import annotations
 
 import numpy as np
 
+#: Rounds of giving back room freed by the cuts (:func:`_fill`).
+FILL_ROUNDS = 2
+
 
 def recover(net, pt, d=None, lower=0.0, both=True):
     """(y, exact expected revenue of y) for the dual point ``pt`` and step ``d``: the
@@ -42,7 +45,7 @@ def recover(net, pt, d=None, lower=0.0, both=True):
 def _feasible(net, y):
     np.clip(y, 0.0, net.upper, out=y)
     target = y.copy()
-    load = net.A_g @ net.to_groups(y)
+    load = net.load(y)
     over = load > net.cap
     if np.any(over):
         if len(net.segments):
@@ -50,7 +53,7 @@ def _feasible(net, y):
             # doing, and scaling would also cut the full ones beside it
             y = _cut_cheapest(net, y, load, over)
         else:
-            y *= net.to_products(_smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
+            y = scale_to_capacity(net, y, load, over)
         for _ in range(FILL_ROUNDS):
             y = _fill(net, y, target)
     return y, net.revenue(y)
@@ -84,8 +87,10 @@ def _cut_cheapest(net, y, load, over):
     return y * keep
 
 
-
-FILL_ROUNDS = 2
+def scale_to_capacity(net, y, load, over):
+    """y with every product on an overloaded leg scaled down by the smallest
+    capacity / load over its legs (which makes it feasible)."""
+    return y * net.to_products(_smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
 
 
 def _smallest_over_legs(net, ratio_on, legs):
@@ -101,7 +106,7 @@ def _fill(net, y, target):
     want_g = net.to_groups(want)
     if not np.any(want_g > 0):
         return y
-    room = np.maximum(net.cap - net.A_g @ net.to_groups(y), 0.0)
+    room = np.maximum(net.cap - net.load(y), 0.0)
     asked = net.A_g @ want_g
     share = np.where(asked > room, room / np.where(asked > 0, asked, 1.0) * (1.0 - 1e-14), 1.0)
     frac = _smallest_over_legs(net, share, np.ones(net.n, dtype=bool))

@@ -89,15 +89,13 @@ class Segments:
         mu = delta * r * w
         gw = g * w
         D = np.sqrt(gw * gw + 4.0 * mu * mu)
-        # D - g w = 4 mu^2 / (D + g w) where g >= 0, and D + g w = 4 mu^2 / (D - g w) where
-        # g < 0: written so, neither cancels (a cancellation of 1e-16 g w against mu would
-        # make y, and the smoothed dual with it, noisy at 1e-16 g w / mu relative)
-        small = 4.0 * mu * mu / (D + np.abs(gw))        # D - |g w|
-        big = D + np.abs(gw)                             # D + |g w|
-        up = gw >= 0
-        denom = np.where(up, small, big) + 2.0 * mu
+        # D - g w, as 4 mu^2 / (D + g w) where g >= 0: it does not cancel (a cancellation of
+        # 1e-16 g w against mu would make y, and the smoothed dual with it, noisy at
+        # 1e-16 g w / mu relative)
+        D_less = np.where(gw >= 0, 4.0 * mu * mu / (D + np.abs(gw)), D - gw)
+        denom = D_less + 2.0 * mu
         y = 2.0 * mu * w / denom
-        rest = w * np.where(up, small, big) / denom     # w - y = w (D - g w) / denom
+        rest = w * D_less / denom                        # w - y
         curv = 1.0 / (mu * (1.0 / (y * y) + 1.0 / (rest * rest)))
         full = x_exact[p] >= self.off + w * (1.0 - 1e-12)
         n = self.n_products
