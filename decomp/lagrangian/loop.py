@@ -186,14 +186,18 @@ def _polish(net, pt, y, best, crossover, floor):
 class LPTime:
     """The time spent in the LPs of :func:`_polish`, kept at most the time of the rest
     of the run (so they at most double it): on large degenerate instances one LP can
-    cost as much as a hundred Newton iterations."""
+    cost as much as a hundred Newton iterations. The first FREE_SECONDS of LPs are
+    always allowed, so that on small instances (LPs of milliseconds beside iterations
+    of less) the answer does not depend on the machine's speed or load."""
+
+    FREE_SECONDS = 1.0
 
     def __init__(self, t0):
         self.t0 = t0
         self.spent = 0.0
 
     def allows(self) -> bool:
-        return self.spent <= (time.perf_counter() - self.t0) - self.spent
+        return self.spent <= max(self.FREE_SECONDS, (time.perf_counter() - self.t0) - self.spent)
 
     def __enter__(self):
         self._start = time.perf_counter()
