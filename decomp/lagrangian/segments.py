@@ -33,6 +33,7 @@ from scipy import special
 from .. import distributions
 
 _TOP_RATIO_GAP = 2.0 ** -53
+_TAIL = 1e-12
 
 
 class Segments:
@@ -62,7 +63,11 @@ class Segments:
                 p = sub.i_det
                 prod.append(p); off.append(np.zeros(len(p))); width.append(sub.t_m.copy()); slope.append(sub.t_f.copy())
             if len(sub.i_dis):
-                u = np.asarray(sub.d_u, dtype=np.int64)
+                # whole seats up to the bound u, but not beyond the tail where P(D > k) <= 1e-12
+                # (those segments are dropped below, and a bound of twice a large capacity
+                # would otherwise mean millions of them)
+                tail = distributions.discrete_fractile(_TAIL, sub.d_fam, sub.d_m, sub.d_s)
+                u = np.minimum(np.asarray(sub.d_u, dtype=np.float64), tail).astype(np.int64)
                 p = np.repeat(sub.i_dis, u)
                 pos = np.repeat(np.arange(len(u)), u)
                 k = np.arange(len(p)) - np.repeat(np.cumsum(u) - u, u)
@@ -71,9 +76,9 @@ class Segments:
                 slope.append(sub.d_f[pos] * sf)
         cat = (lambda parts, dt=np.float64: np.concatenate(parts).astype(dt) if parts else np.zeros(0, dt))
         prod, off, width, slope = cat(prod, np.int64), cat(off), cat(width), cat(slope)
-        # segments worth less than 1e-12 of their product's fare stay exact (unsmoothed): their
+        # segments worth less than _TAIL of their product's fare stay exact (unsmoothed): their
         # value is below any tolerance, and their barrier would underflow
-        keep = (width > 0) & (slope * width > 1e-12 * sub.fare[prod] if len(prod) else np.zeros(0, bool))
+        keep = (width > 0) & (slope * width > _TAIL * sub.fare[prod] if len(prod) else np.zeros(0, bool))
         self.prod, self.off, self.width, self.slope = prod[keep], off[keep], width[keep], slope[keep]
         self.n_products = sub.n
         self.scale = float(self.slope @ self.width)
