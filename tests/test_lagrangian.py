@@ -355,3 +355,47 @@ def test_smoothed_dual_brackets_the_exact_dual():
         pt = net.evaluate(base * rng.uniform(0.3, 2.0, net.n), delta)
         assert pt.value <= pt.exact + 1e-9 * abs(pt.exact)
         assert pt.exact <= pt.value + error_bound(delta, net.segments.scale) + 1e-9 * abs(pt.exact)
+
+
+def test_poisson_segments_are_every_seat_above_the_tail():
+    # Whole-seat segments of Poisson demand: one per seat k below the product's bound u
+    # with P(D > k) > 1e-12 (the rest are worth less than 1e-12 of the fare), at slope
+    # f P(D > k). Reference: scipy.stats.poisson.sf. Large capacities make u about twice
+    # them, far beyond the demand's tail, where the segments are cut off early.
+    from scipy import stats
+
+    inst = generate(300, seed=4)
+    inst = inst.with_forecast(capacity=inst.capacity * 50.0,
+                              meta={**inst.meta, "distribution": "poisson"})
+    net = m_lagr.Network(inst)
+    seg = net.segments
+    mean = net.sub.d_m
+    for j in range(0, net.n_products, 37):
+        k = np.arange(int(net.upper[j]))
+        sf = stats.poisson.sf(k, mean[j])
+        want = k[sf > 1e-12]
+        mine = np.sort(seg.off[seg.prod == j])
+        assert np.array_equal(mine, want)
+        assert seg.slope[seg.prod == j][np.argsort(seg.off[seg.prod == j])] == pytest.approx(
+            net.sub.fare[j] * sf[sf > 1e-12], rel=1e-9)
+
+
+def test_answer_does_not_depend_on_the_clock(monkeypatch):
+    # When the LP completions run is decided by counted work, not by elapsed time: the
+    # same instance on a machine 1,000 times slower gives the same iterations and bid
+    # prices. Draws from the test family whose runs call many LPs (it once depended on
+    # the load: 2 of 4 identical runs of draw 357 ended at the iteration limit).
+    import time
+
+    import family
+
+    real = time.perf_counter
+    for seed in (194, 208, 357, 475):
+        inst, _ = family.draw(seed)
+        fast = solve(inst, "pnlp", "lagrangian")
+        with monkeypatch.context() as m:
+            m.setattr(time, "perf_counter", lambda: 1000.0 * real())
+            slow = solve(inst, "pnlp", "lagrangian")
+        assert fast.termination is Termination.OPTIMAL
+        assert slow.iterations == fast.iterations
+        assert np.array_equal(slow.bid_price_array, fast.bid_price_array)

@@ -54,6 +54,8 @@ class Network:
     def __init__(self, instance, threads=1):
         P, L = instance.n_products, instance.n_legs
         self.instance = instance
+        #: how many times the dual was evaluated (the loop's measure of its own work)
+        self.evaluations = 0
         cap = instance.capacity
         lpp = instance.legs_per_product
         leg_index = instance.leg_index
@@ -203,6 +205,7 @@ class Network:
         """q(pi) with every product's allocation in [0, u_j]; with ``smoothing`` delta > 0
         the linear segments take their barrier solutions (:mod:`.segments`), and
         ``value`` is the smoothed dual while ``exact`` stays q(pi)."""
+        self.evaluations += 1
         a_g = self.AT_g @ pi
         if self._chunks is not None:
             x, w, x_g, w_g, exact = self._evaluate_threads(a_g)

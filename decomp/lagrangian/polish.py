@@ -39,32 +39,35 @@ LEVELS = 20
 
 
 def complete(net, pt, y_recovered):
-    """A feasible allocation with the segments' split chosen by the LP and its exact revenue, or None."""
+    """(A feasible allocation with the segments' split chosen by the LP and its exact
+    revenue, or None; the sizes, in columns, of the LPs solved for it)."""
     seg = net.segments
     if not len(seg):
-        return None
+        return None, []
     a = net.to_products(pt.a_g)
     fare = net.sub.fare
     g = seg.slope - a[seg.prod]
     theta = THRESHOLD * fare[seg.prod]
     open_ = np.abs(g) <= theta
     if open_.sum() > MAX_COLUMNS:
-        return None
+        return None, []
     full = g > theta
     n = net.n_products
     seg_width = np.bincount(seg.prod, weights=seg.width, minlength=n)
-    best = None
+    best, columns = None, []
     # the smooth parts beyond the segments, centred where the subproblems put them and
     # where the recovery did (feasible): the better completion is kept
     for y in (pt.x, y_recovered):
-        found = _segment_lp(net, seg, open_, full, np.maximum(y - seg_width, 0.0), seg_width)
+        found, size = _segment_lp(net, seg, open_, full, np.maximum(y - seg_width, 0.0), seg_width)
+        columns.append(size)
         if found is not None and (best is None or found[1] > best[1]):
             best = found
-    return best
+    return best, columns
 
 
 def _segment_lp(net, seg, open_, full, smooth, seg_width):
-    """The LP over the open segments and chord pieces of the smooth parts around ``smooth``.
+    """The LP over the open segments and chord pieces of the smooth parts around
+    ``smooth``: (allocation and revenue, or None; the LP's number of columns).
 
     Chords lie below the concave expected revenue, so the exact revenue of the
     LP's allocation is at least the LP's value (the pieces fill in order, their
@@ -82,10 +85,10 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     owners, price, width = np.concatenate(owners), np.concatenate(price), np.concatenate(width)
     room = net.cap - net.load(fixed)
     if np.any(room < -1e-9 * np.maximum(net.cap, 1.0)):
-        return None
+        return None, 0
     room = np.maximum(room, 0.0)
     if len(owners) == 0:
-        return _feasible(net, fixed)
+        return _feasible(net, fixed), 0
     col, leg = _product_legs(net, owners)
     A = sp.csr_matrix((np.ones(len(col)), (leg, col)), shape=(net.n, len(owners)))
     from scipy.optimize import linprog
@@ -94,8 +97,8 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
                   method="highs", options={"primal_feasibility_tolerance": 1e-10,
                                            "dual_feasibility_tolerance": 1e-10})
     if res.status != 0:
-        return None
-    return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n))
+        return None, len(owners)
+    return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n)), len(owners)
 
 
 def _chords(net, smooth, seg_width):
