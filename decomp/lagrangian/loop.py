@@ -8,7 +8,11 @@ at the best pi so far is an upper bound; stop when
     gap = (q(pi_best) - F(y_best)) / max(1, |F(y_best)|) <= tol;
 
 otherwise lower the smoothing level (:mod:`.smoothing`) or take the step
-(Armijo along the projection arc).
+(Armijo along the projection arc). Where products have linear segments, an LP
+completes the recovered allocation now and then (:mod:`.polish`, within the
+work budget of :class:`LPBudget`), and from iteration CROSSOVER_FROM on the bid
+prices that allocation asks for (:mod:`.crossover`) are a further dual bound,
+from which Newton goes on when they are lower on its smoothed dual too.
 """
 
 from __future__ import annotations
@@ -141,15 +145,14 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             if best.gap > tol and (near or it % POLISH_EVERY == 0) and lp_budget.allows():
                 lp_budget.charge(_polish(net, pt, y, best, it >= CROSSOVER_FROM, floor))
         history.append(_record(it, pt, best, step_len, t0))
-        jump = _jump(net, pt, best)
-        if jump is not None and not (best.gap <= tol):
-            pt = jump
-            lam = newton.LAM_START
-            continue
         if best.gap <= tol and _may_stop(net, pt, dirn, best, settle, fare_max):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
         if deadline is not None and time.perf_counter() > deadline:
             return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)
+        jump = _jump(net, pt, best)
+        if jump is not None:
+            pt, lam = jump, newton.LAM_START
+            continue
         lower = cont.next(max(dirn.decrement, dirn.stationarity), pt.exact)
         if lower is not None:
             lam = newton.LAM_START
