@@ -175,6 +175,9 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
                             "gradient direction (the dual is flat to rounding here)")
         pt, _, step_len, lam = taken
         best.offer_dual(pt)
+    if best.gap <= tol:
+        # the last step's dual value closed the gap: certified, as at any stop
+        return _outcome(best, Termination.OPTIMAL, "optimal", limit, history)
     return _outcome(best, Termination.ITERATION_LIMIT, "iteration_limit", limit, history)
 
 
