@@ -23,6 +23,9 @@ import numpy as np
 
 #: Rounds of giving back room freed by the cuts (:func:`_fill`).
 FILL_ROUNDS = 2
+#: Rounds of :func:`_fill_dearest` (room a product's other legs kept it from taking goes
+#: to the next product in the following round).
+DEAREST_ROUNDS = 4
 
 
 def recover(net, pt, d=None, lower=0.0, both=True):
@@ -56,6 +59,9 @@ def _feasible(net, y):
             y = scale_to_capacity(net, y, load, over)
         for _ in range(FILL_ROUNDS):
             y = _fill(net, y, target)
+    if len(net.segments):
+        for _ in range(DEAREST_ROUNDS):
+            y = _fill_dearest(net, y)
     return y, net.revenue(y)
 
 
@@ -85,6 +91,46 @@ def _cut_cheapest(net, y, load, over):
     frac = np.divide(amount - cut, amount, out=np.zeros_like(amount), where=amount > 0)
     np.minimum.at(keep, prod, frac)
     return y * keep
+
+
+def _fill_dearest(net, y):
+    """Room left on legs goes to the products whose next seat is worth most (f S'(y), the
+    right derivative), dearest first on each leg, each product taking the smallest of
+    what its legs allow (so no leg is overfilled). Expected sales never fall when a
+    product gets more seats, so this never lowers the revenue; with piecewise-linear
+    products it settles the split of a leg's last seats, which the dual leaves open
+    (where the bid prices have converged and an LP would be too large to solve)."""
+    room = net.cap - net.load(y)
+    has = room > 1e-12 * np.maximum(net.cap, 1.0)
+    if not np.any(has):
+        return y
+    # the groups whose every leg has room, and their products below the bound
+    open_g = _smallest_over_legs(net, np.where(has, 1.0, 0.0), np.ones(net.n, dtype=bool)) > 0
+    rows = net.A_g[:, np.flatnonzero(open_g)].tocoo()
+    if rows.nnz == 0:
+        return y
+    leg = rows.row
+    groups = np.flatnonzero(open_g)[rows.col]
+    ptr, members = net.products_by_group()
+    counts = ptr[groups + 1] - ptr[groups]
+    leg = np.repeat(leg, counts)
+    starts = np.repeat(ptr[groups], counts)
+    prod = members[starts + np.arange(len(leg)) - np.repeat(np.cumsum(counts) - counts, counts)]
+    # at most what the product's fullest leg leaves it
+    reach = net.to_products(_smallest_over_legs(net, np.maximum(room, 0.0), np.ones(net.n, dtype=bool)))
+    amount = np.minimum(np.maximum(net.upper[prod] - y[prod], 0.0), reach[prod])
+    value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
+    order = np.lexsort((-value, leg))                        # by leg, then dearest seat first
+    prod, leg, amount = prod[order], leg[order], amount[order]
+    start = np.flatnonzero(np.r_[True, leg[1:] != leg[:-1]])
+    csum = np.cumsum(amount)
+    first = np.repeat(start, np.diff(np.r_[start, len(leg)]))
+    before = csum - amount - (csum[first] - amount[first])
+    allowed = np.clip(room[leg] * (1.0 - 1e-12) - before, 0.0, amount)
+    add = np.full(len(y), np.inf)
+    np.minimum.at(add, prod, allowed)
+    add[~np.isfinite(add)] = 0.0
+    return y + add
 
 
 def scale_to_capacity(net, y, load, over):
