@@ -70,21 +70,14 @@ def _cut_cheapest(net, y, load, over):
     worth least (f S'(y), the right derivative), cheapest first; a product on several
     overloaded legs keeps the smallest of what they leave it. Vectorized over the
     (overloaded leg, product) pairs, which are few near the optimum."""
-    rows = net.A_g[np.flatnonzero(over)].tocoo()
-    leg = np.flatnonzero(over)[rows.row]
-    ptr, members = net.products_by_group()
-    counts = ptr[rows.col + 1] - ptr[rows.col]
-    leg = np.repeat(leg, counts)
-    starts = np.repeat(ptr[rows.col], counts)
-    prod = members[starts + np.arange(len(leg)) - np.repeat(np.cumsum(counts) - counts, counts)]
+    legs = np.flatnonzero(over)
+    rows = net.A_g[legs].tocoo()
+    leg, prod = _leg_product_pairs(net, legs[rows.row], rows.col)
     value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
     order = np.lexsort((value, leg))                         # by leg, then by value per seat
     prod, leg = prod[order], leg[order]
     amount = y[prod]
-    start = np.flatnonzero(np.r_[True, leg[1:] != leg[:-1]])
-    csum = np.cumsum(amount)
-    first = np.repeat(start, np.diff(np.r_[start, len(leg)]))
-    before = csum - amount - (csum[first] - amount[first])
+    before = _ahead_on_leg(leg, amount)
     excess = (load - net.cap)[leg] * (1.0 + 1e-12) + 1e-15 * np.maximum(net.cap[leg], 1.0)
     cut = np.clip(excess - before, 0.0, amount)
     keep = np.ones(len(y))
@@ -105,32 +98,41 @@ def _fill_dearest(net, y):
     if not np.any(has):
         return y
     # the groups whose every leg has room, and their products below the bound
-    open_g = _smallest_over_legs(net, np.where(has, 1.0, 0.0), np.ones(net.n, dtype=bool)) > 0
-    rows = net.A_g[:, np.flatnonzero(open_g)].tocoo()
+    every_leg = np.ones(net.n, dtype=bool)
+    open_groups = np.flatnonzero(_smallest_over_legs(net, np.where(has, 1.0, 0.0), every_leg) > 0)
+    rows = net.A_g[:, open_groups].tocoo()
     if rows.nnz == 0:
         return y
-    leg = rows.row
-    groups = np.flatnonzero(open_g)[rows.col]
-    ptr, members = net.products_by_group()
-    counts = ptr[groups + 1] - ptr[groups]
-    leg = np.repeat(leg, counts)
-    starts = np.repeat(ptr[groups], counts)
-    prod = members[starts + np.arange(len(leg)) - np.repeat(np.cumsum(counts) - counts, counts)]
+    leg, prod = _leg_product_pairs(net, rows.row, open_groups[rows.col])
     # at most what the product's fullest leg leaves it
-    reach = net.to_products(_smallest_over_legs(net, np.maximum(room, 0.0), np.ones(net.n, dtype=bool)))
+    reach = net.to_products(_smallest_over_legs(net, np.maximum(room, 0.0), every_leg))
     amount = np.minimum(np.maximum(net.upper[prod] - y[prod], 0.0), reach[prod])
     value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
     order = np.lexsort((-value, leg))                        # by leg, then dearest seat first
     prod, leg, amount = prod[order], leg[order], amount[order]
-    start = np.flatnonzero(np.r_[True, leg[1:] != leg[:-1]])
-    csum = np.cumsum(amount)
-    first = np.repeat(start, np.diff(np.r_[start, len(leg)]))
-    before = csum - amount - (csum[first] - amount[first])
+    before = _ahead_on_leg(leg, amount)
     allowed = np.clip(room[leg] * (1.0 - 1e-12) - before, 0.0, amount)
     add = np.full(len(y), np.inf)
     np.minimum.at(add, prod, allowed)
     add[~np.isfinite(add)] = 0.0
     return y + add
+
+
+def _leg_product_pairs(net, leg, groups):
+    """The (leg, product) pairs of the given (leg, group) pairs: each group's products."""
+    ptr, members = net.products_by_group()
+    counts = ptr[groups + 1] - ptr[groups]
+    starts = np.repeat(ptr[groups], counts)
+    prod = members[starts + np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)]
+    return np.repeat(leg, counts), prod
+
+
+def _ahead_on_leg(leg, amount):
+    """For pairs sorted by leg: the amount of the pairs before each one on its leg."""
+    start = np.flatnonzero(np.r_[True, leg[1:] != leg[:-1]])
+    csum = np.cumsum(amount)
+    first = np.repeat(start, np.diff(np.r_[start, len(leg)]))
+    return csum - amount - (csum[first] - amount[first])
 
 
 def scale_to_capacity(net, y, load, over):
