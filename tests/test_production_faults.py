@@ -257,13 +257,18 @@ def test_disk_full_mid_run_stops_once_and_keeps_finished_tasks(client, tmp_path,
                    for w in client.scheduler_info()["workers"]])
     assert "No space left on device" in s["stopped"] and "Errno 28" in s["stopped"]
     t = s["totals"]
-    assert 1 <= t["ok"] <= 2 and t["failed"] >= 1 and t["ok"] + t["failed"] + t["not_run"] == len(b)
+    assert t["failed"] >= 1 and t["ok"] + t["failed"] + t["not_run"] == len(b)
     assert len(set(calls)) == len(calls)    # no task was retried (a retry would meet the same full disk)
     summ = json.loads((out / "summary.json").read_text())
     assert summ["stopped"] == s["stopped"] and "STOPPED" in (out / "summary.md").read_text()
     fps = {x.key: _cfg(out).fingerprint(x) for x in b.tasks}
-    finished = [x for x in b.tasks if read_finished(out, x, fps[x.key]) is not None]
-    assert len(finished) == 2         # the earlier results are kept and verify
+    finished = {x.key for x in b.tasks if read_finished(out, x, fps[x.key]) is not None}
+    assert len(finished) == 2         # the two writes before the disk filled are kept and verify
+    # every task the summary counts ok is one of them; the other may still have been writing on
+    # the second worker when the summary was built (it is then counted not run, and the rerun
+    # below finds it finished)
+    counted_ok = {task["key"] for task in s["tasks"] if task["task_status"] == "ok"}
+    assert counted_ok and counted_ok <= finished
     assert not list(out.rglob(".*.tmp"))
     monkeypatch.setattr(runner, "write_bid_prices", real)
     s = runner.run_batch(b, _cfg(out), client=client)          # space again: the rerun finishes
