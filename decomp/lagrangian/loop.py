@@ -25,7 +25,7 @@ import numpy as np
 from ..result import IterationRecord, Termination
 from . import newton
 from .crossover import prices_from_allocation
-from .polish import complete
+from .polish import complete, planned_columns
 from .prices import ZERO_RESOLUTION
 from .recovery import recover
 from .smoothing import Continuation
@@ -142,7 +142,8 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
             best.offer_primal(y, value)
             lp_budget.observe(best.gap)
-            if best.gap > tol and (near or it % POLISH_EVERY == 0) and lp_budget.allows():
+            if (best.gap > tol and (near or it % POLISH_EVERY == 0)
+                    and lp_budget.allows(planned_columns(net, pt))):
                 lp_budget.charge(_polish(net, pt, y, best, it >= CROSSOVER_FROM, floor))
         history.append(_record(it, pt, best, step_len, t0))
         if best.gap <= tol and _may_stop(net, pt, dirn, best, settle, fare_max):
@@ -215,10 +216,11 @@ class LPBudget:
     and an LP are charged by a cost model measured on the reference machine (2-core
     x86 VM, HiGHS 1.12 through scipy): an evaluation 0.2 ms plus 1.2 us per product
     and 15 ns per linear segment (whole seats of discrete demand), an LP
-    LP_SECONDS (columns / LP_COLUMNS) ^ LP_POWER (HiGHS's time grows much faster
-    than its column count on these LPs of a few rows and many columns: 0.15 s at
-    28,000 columns, 1.3 s at 64,000, 7 to 40 s at 146,000). An LP's size is
-    predicted by the last one's, or by 64 columns per product (the chords) at first.
+    LP_BASE + LP_SECONDS (columns / LP_COLUMNS) ^ LP_POWER (HiGHS's time grows much
+    faster than its column count on these LPs of a few rows and many columns: 0.15 s
+    at 28,000 columns, 1.3 s at 64,000, 7 to 40 s at 146,000; 0.03 to 0.045 s at
+    6,300, most of it the call's set-up). An LP's size is
+    counted before it runs (:func:`.polish.planned_columns`).
 
     Over budget, the LPs still run once the certified gap has not shrunk in STALL
     consecutive recoveries, if they cost at most STALL_FACTOR times the rest: the
@@ -227,13 +229,12 @@ class LPBudget:
 
     FREE_SECONDS = 1.0
     EVAL_SECONDS, EVAL_PER_PRODUCT, EVAL_PER_SEGMENT = 2e-4, 1.2e-6, 1.5e-8
-    LP_SECONDS, LP_COLUMNS, LP_POWER = 1.3, 64_000, 2.5
+    LP_BASE, LP_SECONDS, LP_COLUMNS, LP_POWER = 0.03, 1.3, 64_000, 2.5
     STALL, STALL_FACTOR = 10, 10.0
 
     def __init__(self, net):
         self.net = net
         self.spent = 0.0
-        self.next_cost = 2 * self._lp_seconds(64 * net.n_products)
         self.wait = self.STALL
         self.gap = np.inf
         self.unmoved = 0
@@ -245,23 +246,26 @@ class LPBudget:
         else:
             self.unmoved += 1
 
-    def allows(self) -> bool:
+    def allows(self, sizes) -> bool:
+        """Whether LPs of these sizes (columns) may run now."""
+        if not sizes:
+            return False
         rest = self._rest()
-        if self.spent + self.next_cost <= max(self.FREE_SECONDS, rest):
+        cost = sum(self._lp_seconds(c) for c in sizes)
+        if self.spent + cost <= max(self.FREE_SECONDS, rest):
             return True
-        if self.unmoved >= self.wait and self.spent + self.next_cost <= self.STALL_FACTOR * rest:
+        if self.unmoved >= self.wait and self.spent + cost <= self.STALL_FACTOR * rest:
             self.wait *= 2
             self.unmoved = 0
             return True
         return False
 
     def charge(self, sizes):
-        if sizes:
-            self.next_cost = sum(self._lp_seconds(c) for c in sizes)
-            self.spent += self.next_cost
+        """After the LPs ran: their sizes (columns)."""
+        self.spent += sum(self._lp_seconds(c) for c in sizes)
 
     def _lp_seconds(self, columns):
-        return self.LP_SECONDS * (columns / self.LP_COLUMNS) ** self.LP_POWER
+        return self.LP_BASE + self.LP_SECONDS * (columns / self.LP_COLUMNS) ** self.LP_POWER
 
     def _rest(self):
         net = self.net

@@ -38,20 +38,32 @@ SPAN = 1e-3
 LEVELS = 20
 
 
+def planned_columns(net, pt) -> list:
+    """The sizes, in columns, of the LPs :func:`complete` would solve at ``pt`` (at
+    most: chord pieces of zero width are dropped), [] when it would solve none."""
+    seg = net.segments
+    if not len(seg):
+        return []
+    open_, _ = _open_segments(net, pt)
+    n_open = int(open_.sum())
+    if n_open > MAX_COLUMNS:
+        return []
+    chords = 0
+    if net.n_products <= MAX_COLUMNS // 4:
+        movable = len(_smooth_products(net))
+        chords = movable * (3 * (_levels(movable) + 1) + 1)
+    return [n_open + chords] * 2
+
+
 def complete(net, pt, y_recovered):
     """(A feasible allocation with the segments' split chosen by the LP and its exact
     revenue, or None; the sizes, in columns, of the LPs solved for it)."""
     seg = net.segments
     if not len(seg):
         return None, []
-    a = net.to_products(pt.a_g)
-    fare = net.sub.fare
-    g = seg.slope - a[seg.prod]
-    theta = THRESHOLD * fare[seg.prod]
-    open_ = np.abs(g) <= theta
+    open_, full = _open_segments(net, pt)
     if open_.sum() > MAX_COLUMNS:
         return None, []
-    full = g > theta
     n = net.n_products
     seg_width = np.bincount(seg.prod, weights=seg.width, minlength=n)
     best, columns = None, []
@@ -63,6 +75,15 @@ def complete(net, pt, y_recovered):
         if found is not None and (best is None or found[1] > best[1]):
             best = found
     return best, columns
+
+
+def _open_segments(net, pt):
+    """(undetermined segments, full segments): reduced revenue g = r - a within
+    THRESHOLD of the fare, and clearly positive."""
+    seg = net.segments
+    g = seg.slope - net.to_products(pt.a_g)[seg.prod]
+    theta = THRESHOLD * net.sub.fare[seg.prod]
+    return np.abs(g) <= theta, g > theta
 
 
 def _segment_lp(net, seg, open_, full, smooth, seg_width):
@@ -106,8 +127,7 @@ def _chords(net, smooth, seg_width):
     each): the pieces of every smooth part around ``smooth`` (see SPAN and LEVELS), with
     3 (levels + 1) + 1 pieces per product, as many levels as MAX_COLUMNS allows."""
     movable = _smooth_products(net)
-    levels = min(LEVELS, max(0, (MAX_COLUMNS // max(len(movable), 1) - 4) // 3))
-    t = 2.0 ** -np.arange(levels + 1)
+    t = 2.0 ** -np.arange(_levels(len(movable)) + 1)
     s_m = smooth[movable]
     top = np.maximum(net.upper[movable] - seg_width[movable], s_m)
     above = np.sort(np.concatenate([s_m + SPAN * (1.0 + s_m) * t[:, None], s_m + (top - s_m) * t[:, None]]),
@@ -120,6 +140,11 @@ def _chords(net, smooth, seg_width):
     keep = widths > 0
     pieces = (np.broadcast_to(movable, widths.shape)[keep], gains[keep] / widths[keep], widths[keep])
     return movable, pieces, points[0]
+
+
+def _levels(movable):
+    """Chord levels for this many smooth products: as many as MAX_COLUMNS allows."""
+    return min(LEVELS, max(0, (MAX_COLUMNS // max(movable, 1) - 4) // 3))
 
 
 def _smooth_products(net):
