@@ -456,3 +456,28 @@ def test_discrete_demand_at_scale_gets_its_lp_completion():
     primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
     assert viol <= 1e-9
     assert (dual - primal) / max(1.0, abs(primal)) <= 1e-8
+
+
+def test_kink_curvature_is_the_chord_for_products_that_crossed_zero():
+    # Normal demand: x(a) = max(0, mean + std * Phi^-1(1 - a/f)), with slope -std / (f phi(z))
+    # inside (the newsvendor fractile; scipy.stats.norm as the reference). Product P1 on L1
+    # is open at the previous bid price and closed (x = 0) at the current one: its curvature
+    # is the chord's slope x_prev / (a - a_prev). P2 on L2 stays open: its tangent stays.
+    from scipy import stats
+    from decomp.instance import Instance
+    from decomp.lagrangian.newton import kink_curvature
+
+    f, m, s = np.array([100.0, 80.0]), np.array([10.0, 20.0]), np.array([2.0, 6.0])
+    inst = Instance(leg_ids=["L1", "L2"], leg_origin=["QA1", "QB2"], leg_destination=["QB2", "QC3"],
+                    capacity=[30.0, 30.0], product_ids=["P1", "P2"], leg_ptr=np.array([0, 1, 2]),
+                    leg_index=np.array([0, 1]), fare=f, mean=m, std=s)
+    net = m_lagr.Network(inst)
+    kink = f[0] * stats.norm.cdf(m[0] / s[0])          # P1 closes at a above this
+    before = net.evaluate(np.array([kink - 0.02, 40.0]))
+    after = net.evaluate(np.array([kink + 0.01, 41.0]))
+    x_before = m[0] + s[0] * stats.norm.isf((kink - 0.02) / f[0])
+    assert before.x[0] == pytest.approx(x_before, rel=1e-9) and after.x[0] == 0.0
+    w_g = kink_curvature(net, after, before)
+    assert w_g[net.group_of(np.array([0]))[0]] == pytest.approx(x_before / 0.03, rel=1e-9)
+    z = stats.norm.isf(41.0 / f[1])
+    assert w_g[net.group_of(np.array([1]))[0]] == pytest.approx(s[1] / (f[1] * stats.norm.pdf(z)), rel=1e-9)

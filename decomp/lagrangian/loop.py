@@ -48,9 +48,11 @@ BID_TOL = 1e-6
 #: or by more than this fraction: then it takes that step (one more evaluation of the
 #: dual, not an iteration) and reports its point if the dual did not rise. Near a
 #: solution the steps converge quadratically (Newton's local theorem; the held set is
-#: identified there), so the bid prices after it are off by about the step's square
-#: (measured on the ladder, cold and warm: at most 4e-7 of the reference bid prices).
-FINAL_STEP = 1e-4
+#: identified there), so the bid prices after it are off by about C times the step's
+#: square. C is large where products sit at the edge of closing (measured up to 160 on
+#: the ladder's warm starts: a step of 9.4e-5 left an error of 1.4e-6), hence a step
+#: of at most 3e-5 (an error of at most 1.5e-7 at that C).
+FINAL_STEP = 3e-5
 
 
 def _may_stop(net, pt, dirn, best, settle, fare_max) -> bool:
@@ -135,8 +137,13 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
     step_len = 0.0
     lp_budget = LPBudget(net)
+    # the iterate before pt (newton.kink_curvature), kept only without linear segments: their
+    # smoothed allocations follow the barrier between stages, and with them a mixed-demand
+    # family draw (194) ended at the iteration limit
+    previous = None
+    chords = not len(net.segments)
     for it in range(1, limit + 1):
-        dirn = newton.direction(net, system, pt, lam, eps_bar, floor)
+        dirn = newton.direction(net, system, pt, lam, eps_bar, floor, previous)
         near = dirn.decrement <= 10.0 * tol * max(1.0, abs(pt.exact))
         if always or it == 1 or near:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
@@ -150,6 +157,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
         if deadline is not None and time.perf_counter() > deadline:
             return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)
+        previous = None
         jump = _jump(net, pt, best)
         if jump is not None:
             pt, lam = jump, newton.LAM_START
@@ -174,6 +182,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             return _outcome(best, Termination.NUMERICAL_ERROR, "no_decrease", it, history,
                             "no decrease along the projection arc of the Newton or the scaled "
                             "gradient direction (the dual is flat to rounding here)")
+        previous = pt if chords else None
         pt, _, step_len, lam = taken
         best.offer_dual(pt)
     if best.gap <= tol:

@@ -27,6 +27,12 @@ zig-zag there. Bounding below by r changes the optimal dual value by at most
 r sum_i c_i (convexity: q(pi* + r 1) <= q* + r c.1), and legs that end at r
 are reported at bid price 0, where the certificate is computed again.
 
+Curvatures: each product's w = -dx/da at pi, except for products whose
+allocation crossed 0 in the last step, which take the chord's slope across
+that step where it is larger (:func:`kink_curvature`; only without linear
+segments, see the loop). The dual is once differentiable at that kink, and
+the tangent there makes the steps oscillate across it.
+
 Safeguard: when the Newton arc gives no decrease (the projection turned it
 uphill, or rounding), a projected step along the diagonally scaled gradient
 is tried, which is gradient projection with Armijo's rule along the arc
@@ -78,9 +84,11 @@ def flat_step(pt, flat, fare_scale):
     return np.where(g > 0, -pi, np.where(g < 0, np.maximum(pi, fare_scale[flat]), 0.0))
 
 
-def direction(net, system, pt, lam, eps_bar, floor) -> Direction:
-    """The projected Newton direction at ``pt`` (see the module docstring)."""
-    hv = system.pair_values(pt.w_g)
+def direction(net, system, pt, lam, eps_bar, floor, previous=None) -> Direction:
+    """The projected Newton direction at ``pt`` (see the module docstring); with the
+    ``previous`` iterate, the curvatures of :func:`kink_curvature`."""
+    w_g = pt.w_g if previous is None else kink_curvature(net, pt, previous)
+    hv = system.pair_values(w_g)
     h, flat = leg_curvature(system, hv)
     g, pi = pt.grad, pt.pi
     proj = pi - np.maximum(pi - g / h, floor)
@@ -100,6 +108,31 @@ def direction(net, system, pt, lam, eps_bar, floor) -> Direction:
     realized = pi - np.maximum(pi + d, lower)
     return Direction(d=d, held=held, decrement=float(g @ realized), curvature=h, stationarity=float(g @ proj),
                      lower=lower)
+
+
+def kink_curvature(net, pt, previous):
+    """Per group: the curvatures w, where each product whose allocation crossed 0 between
+    the ``previous`` iterate and this one takes the larger of its w and the slope of the
+    chord between the two, (x - x_previous) / (a_previous - a). At x = 0 the allocation
+    has a kink: its slope -w climbs steeply as it approaches 0, then drops to 0 beyond.
+    The tangent there is the wrong model: 0 on the closed side, too flat on the open
+    one, and on a leg where such products carry much of the curvature the steps
+    overshoot and oscillate across the kink. The chord is the response the last step
+    measured. The curvatures stay nonnegative and bounded (the largest w along the
+    chord), as the convergence argument needs, and once the products stop crossing
+    the steps are Newton's again."""
+    crossed = np.flatnonzero((pt.x > 0) != (previous.x > 0))
+    groups = net.group_of(crossed)
+    a = pt.a_g[groups]
+    da = previous.a_g[groups] - a
+    moved = np.abs(da) > 1e-12 * np.maximum(np.abs(a), 1.0)
+    if not np.any(moved):
+        return pt.w_g
+    crossed, groups, da = crossed[moved], groups[moved], da[moved]
+    chord = (pt.x[crossed] - previous.x[crossed]) / da
+    w_g = pt.w_g.copy()
+    np.add.at(w_g, groups, np.maximum(chord - pt.w[crossed], 0.0))
+    return w_g
 
 
 def step_floor(pi, floor):
