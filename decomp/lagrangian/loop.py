@@ -157,7 +157,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
         if deadline is not None and time.perf_counter() > deadline:
             return _outcome(best, Termination.TIME_LIMIT, "time_limit", it, history)
-        previous = None
+        previous = None          # set again below only when a Newton step is taken
         jump = _jump(net, pt, best)
         if jump is not None:
             pt, lam = jump, newton.LAM_START
