@@ -23,9 +23,8 @@ import time
 import numpy as np
 
 from ..result import IterationRecord, Termination
-from . import newton
+from . import newton, polish
 from .crossover import prices_from_allocation
-from .polish import complete, planned_columns
 from .prices import ZERO_RESOLUTION
 from .recovery import recover
 from .smoothing import Continuation
@@ -149,9 +148,10 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)
             best.offer_primal(y, value)
             lp_budget.observe(best.gap)
-            if (best.gap > tol and (near or it % POLISH_EVERY == 0)
-                    and lp_budget.allows(planned_columns(net, pt))):
-                lp_budget.charge(_polish(net, pt, y, best, it >= CROSSOVER_FROM, floor))
+            if best.gap > tol and (near or it % POLISH_EVERY == 0):
+                plan = polish.plan(net, pt)
+                if plan is not None and lp_budget.allows(plan.sizes):
+                    lp_budget.charge(_polish(net, pt, y, best, plan, it >= CROSSOVER_FROM, floor))
         history.append(_record(it, pt, best, step_len, t0))
         if best.gap <= tol and _may_stop(net, pt, dirn, best, settle, fare_max):
             return _outcome(best, Termination.OPTIMAL, "optimal", it, history)
@@ -202,10 +202,11 @@ def _jump(net, pt, best):
     return cand if cand.value < pt.value - noise else None
 
 
-def _polish(net, pt, y, best, crossover, floor):
-    """The LP completion of ``y`` (:mod:`.polish`) and, with ``crossover``, the bid prices
-    its allocation asks for (:mod:`.crossover`), offered as bounds; the LPs' sizes (columns)."""
-    completed, sizes = complete(net, pt, y)
+def _polish(net, pt, y, best, plan, crossover, floor):
+    """The LP completion of ``y`` by the LPs of ``plan`` (:mod:`.polish`) and, with
+    ``crossover``, the bid prices its allocation asks for (:mod:`.crossover`), offered as
+    bounds; the LPs' sizes (columns)."""
+    completed, sizes = polish.complete(net, pt, y, plan)
     if completed is None:
         return sizes
     best.offer_primal(*completed)
@@ -229,7 +230,7 @@ class LPBudget:
     faster than its column count on these LPs of a few rows and many columns: 0.15 s
     at 28,000 columns, 1.3 s at 64,000, 7 to 40 s at 146,000; 0.03 to 0.045 s at
     6,300, most of it the call's set-up). An LP's size is
-    counted before it runs (:func:`.polish.planned_columns`).
+    counted before it runs (:func:`.polish.plan`).
 
     Over budget, the LPs still run once the certified gap has not shrunk in STALL
     consecutive recoveries, if they cost at most STALL_FACTOR times the rest: the
@@ -257,8 +258,6 @@ class LPBudget:
 
     def allows(self, sizes) -> bool:
         """Whether LPs of these sizes (columns) may run now."""
-        if not sizes:
-            return False
         rest = self._rest()
         cost = sum(self._lp_seconds(c) for c in sizes)
         if self.spent + cost <= max(self.FREE_SECONDS, rest):

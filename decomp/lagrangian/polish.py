@@ -20,6 +20,8 @@ lower bound, as in :mod:`.recovery`.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import scipy.sparse as sp
 
@@ -38,39 +40,42 @@ SPAN = 1e-3
 LEVELS = 20
 
 
-def planned_columns(net, pt) -> list:
-    """The sizes, in columns, of the LPs :func:`complete` would solve at ``pt`` (at
-    most: chord pieces of zero width are dropped), [] when it would solve none."""
-    seg = net.segments
-    if not len(seg):
-        return []
-    open_, _ = _open_segments(net, pt)
+@dataclasses.dataclass(frozen=True, eq=False)
+class Plan:
+    """The LPs :func:`complete` solves at one dual point, decided before they run."""
+
+    open_: np.ndarray     # per segment: undetermined (an LP column)
+    full: np.ndarray      # per segment: held full
+    chords: bool          # the smooth parts join the LP as chord pieces
+    sizes: list           # per LP, its columns (at most: chord pieces of zero width are dropped)
+
+
+def plan(net, pt) -> Plan | None:
+    """The LP completion at ``pt``, or None where there is none (no segments, or more
+    undetermined segments than MAX_COLUMNS)."""
+    if not len(net.segments):
+        return None
+    open_, full = _open_segments(net, pt)
     n_open = int(open_.sum())
     if n_open > MAX_COLUMNS:
-        return []
-    chords = 0
-    if net.n_products <= MAX_COLUMNS // 4:
-        movable = len(_smooth_products(net))
-        chords = movable * (3 * (_levels(movable) + 1) + 1)
-    return [n_open + chords] * 2
+        return None
+    chords = net.n_products <= MAX_COLUMNS // 4
+    movable = len(_smooth_products(net)) if chords else 0
+    columns = n_open + movable * (3 * (_levels(movable) + 1) + 1)
+    # two LPs: the smooth parts centred where the subproblems and where the recovery put them
+    return Plan(open_=open_, full=full, chords=chords, sizes=[columns] * 2)
 
 
-def complete(net, pt, y_recovered):
-    """(A feasible allocation with the segments' split chosen by the LP and its exact
-    revenue, or None; the sizes, in columns, of the LPs solved for it)."""
+def complete(net, pt, y_recovered, plan):
+    """(A feasible allocation with the segments' split chosen by the LPs of ``plan`` and
+    its exact revenue, or None; the sizes, in columns, of the LPs solved for it)."""
     seg = net.segments
-    if not len(seg):
-        return None, []
-    open_, full = _open_segments(net, pt)
-    if open_.sum() > MAX_COLUMNS:
-        return None, []
-    n = net.n_products
-    seg_width = np.bincount(seg.prod, weights=seg.width, minlength=n)
+    seg_width = np.bincount(seg.prod, weights=seg.width, minlength=net.n_products)
     best, columns = None, []
     # the smooth parts beyond the segments, centred where the subproblems put them and
     # where the recovery did (feasible): the better completion is kept
     for y in (pt.x, y_recovered):
-        found, size = _segment_lp(net, seg, open_, full, np.maximum(y - seg_width, 0.0), seg_width)
+        found, size = _segment_lp(net, plan, np.maximum(y - seg_width, 0.0), seg_width)
         columns.append(size)
         if found is not None and (best is None or found[1] > best[1]):
             best = found
@@ -86,7 +91,7 @@ def _open_segments(net, pt):
     return np.abs(g) <= theta, g > theta
 
 
-def _segment_lp(net, seg, open_, full, smooth, seg_width):
+def _segment_lp(net, plan, smooth, seg_width):
     """The LP over the open segments and chord pieces of the smooth parts around
     ``smooth``: (allocation and revenue, or None; the LP's number of columns).
 
@@ -94,11 +99,11 @@ def _segment_lp(net, seg, open_, full, smooth, seg_width):
     LP's allocation is at least the LP's value (the pieces fill in order, their
     slopes decreasing); with the smooth parts fixed instead, as many products as
     there are segments would carry the whole error of the recovery."""
-    n = net.n_products
-    fixed = smooth + np.bincount(seg.prod, weights=seg.width * full, minlength=n)
-    cols = np.flatnonzero(open_)
+    seg, n = net.segments, net.n_products
+    fixed = smooth + np.bincount(seg.prod, weights=seg.width * plan.full, minlength=n)
+    cols = np.flatnonzero(plan.open_)
     owners, price, width = [seg.prod[cols]], [seg.slope[cols]], [seg.width[cols]]
-    if n <= MAX_COLUMNS // 4:
+    if plan.chords:
         movable, pieces, start = _chords(net, smooth, seg_width)
         for part, new in zip((owners, price, width), pieces):
             part.append(new)
