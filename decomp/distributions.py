@@ -501,6 +501,8 @@ class Subproblems:
 
     def zero_threshold(self):
         """a above which x_j = 0 is optimal: f_j S_j'(0+)."""
+        if self.all_normal:
+            return self.fare * special.ndtr(self.mean / self.std)      # P(D > 0) = Phi(m / s)
         d, _ = self.marginal_sales(np.zeros(self.n))
         return self.fare * d
 

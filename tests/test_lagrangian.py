@@ -481,3 +481,55 @@ def test_kink_curvature_is_the_chord_for_products_that_crossed_zero():
     assert w_g[net.group_of(np.array([0]))[0]] == pytest.approx(x_before / 0.03, rel=1e-9)
     z = stats.norm.isf(41.0 / f[1])
     assert w_g[net.group_of(np.array([1]))[0]] == pytest.approx(s[1] / (f[1] * stats.norm.pdf(z)), rel=1e-9)
+
+
+def test_closing_update_is_the_newton_step_with_the_closing_products_chord():
+    # Three legs, products on L1, L2, L3 and L1-L2. At the step the tangent proposes, P1 (on
+    # L1 alone) closes: its zero threshold f Phi(m/s) (scipy.stats.norm) lies inside the step.
+    # closing_chords gives P1's chord x / da in place of its tangent w, and closing_update's
+    # Woodbury step equals the step solved directly (numpy) with the Hessian A diag(w') A^T
+    # of those curvatures, scaled as the system is (a mathematical identity, checked here on
+    # the method's own scaled system).
+    from scipy import stats
+    from decomp.instance import Instance
+    from decomp.lagrangian import newton
+    from decomp.lagrangian.hessian import LegSystem
+
+    f = np.array([100.0, 80.0, 60.0, 150.0])
+    m = np.array([10.0, 20.0, 15.0, 12.0])
+    s = np.array([2.0, 6.0, 5.0, 4.0])
+    inst = Instance(leg_ids=["L1", "L2", "L3"], leg_origin=["QA1", "QB2", "QC3"],
+                    leg_destination=["QB2", "QC3", "QD4"], capacity=[30.0, 30.0, 30.0],
+                    product_ids=["P1", "P2", "P3", "P4"], leg_ptr=np.array([0, 1, 2, 3, 5]),
+                    leg_index=np.array([0, 1, 2, 0, 1]), fare=f, mean=m, std=s)
+    net = m_lagr.Network(inst)
+    system = LegSystem(net)
+    kink = f[0] * stats.norm.cdf(m[0] / s[0])
+    pt = net.evaluate(np.array([kink - 0.05, 30.0, 20.0]))
+    assert net.zero_threshold[0] == pytest.approx(kink, rel=1e-12)
+    fixed = np.zeros(3, bool)
+    lower = np.zeros(3)
+    step = np.array([0.2, -1.0, 0.5])
+    groups, dw = newton.closing_chords(net, pt, step)
+    g1 = net.group_of(np.array([0]))[0]
+    assert list(groups) == [g1]
+    r1 = (kink - 0.05) / f[0]
+    x1 = m[0] + s[0] * stats.norm.isf(r1)
+    w1 = s[0] / (f[0] * stats.norm.pdf(stats.norm.isf(r1)))
+    assert dw[0] == pytest.approx(x1 / 0.2 - w1, rel=1e-9)
+    # the system is solved in the space scaled by the Hessian's diagonal: S = diag(h)^(-1/2);
+    # a right-hand side whose tangent step is that step: b = (S H S + lam I) S^-1 step
+    A = net.A_g.toarray()
+    H = A @ np.diag(pt.w_g) @ A.T
+    scale = 1.0 / np.sqrt(np.diag(H))
+    S = np.diag(scale)
+    lam = 1e-8
+    b = (S @ H @ S + lam * np.eye(3)) @ (step / scale)
+    u = system.solve(system.pair_values(pt.w_g), scale, fixed, lam, b)
+    assert u * scale == pytest.approx(step, rel=1e-6)
+    updated = newton.closing_update(net, system, pt, u, scale, fixed, lower)
+    w2 = pt.w_g.copy()
+    w2[g1] += dw[0]
+    H2 = A @ np.diag(w2) @ A.T
+    assert updated == pytest.approx(np.linalg.solve(S @ H2 @ S + lam * np.eye(3), b), rel=1e-6)
+    assert not np.allclose(updated, u, rtol=1e-3)

@@ -30,6 +30,9 @@ class LegSystem:
     def __init__(self, net, linear_solver="auto", mixed=True):
         self.n = net.n
         self.mixed = bool(mixed)
+        #: the last factorization's solve (:meth:`solve_again`); buffers are reused, so
+        #: it is valid until the next :meth:`solve`
+        self._last = None
         self._pattern(net)
         self._setup(linear_solver)
 
@@ -125,6 +128,7 @@ class LegSystem:
         sv[np.abs(sv) < (1e-15 if self.mixed else 1e-30)] = 0.0
         if np.any(held):
             sv[held[self.p_row] | held[self.p_col]] = 0.0
+        self._last = None
         for ridge in _RIDGES:
             sv[self.diag_pair] = 1.0 + max(lam, ridge)
             try:
@@ -133,21 +137,38 @@ class LegSystem:
                 continue
         return b / (1.0 + lam)                                # scaled steepest descent
 
+    def solve_again(self, B):
+        """U with the matrix of the last :meth:`solve` times U = B (columns of B), reusing its
+        factorization; None when that solve fell back to steepest descent or refinement
+        fails now."""
+        if self._last is None:
+            return None
+        try:
+            return self._last(B)
+        except (np.linalg.LinAlgError, sla.LinAlgError, FloatingPointError):
+            return None
+
     def _solve(self, sv, b):
         if not self.schur:
             H = self.Hbuf
             H.fill(0.0)
             H.ravel(order="F")[self.flat] = sv
             c = sla.cho_factor(H, lower=True, overwrite_a=True, check_finite=False)
-            return sla.cho_solve(c, b, check_finite=False)
+            return self._keep(lambda r: sla.cho_solve(c, r, check_finite=False), b)
         if self.mixed:
             try:
                 c = self._schur_factor(sv, self.MT32, self.S32, blas.ssyrk)
-                return self._refined(c, self.MT32, self._scaled_matrix(sv), b)
+                Hs = self._scaled_matrix(sv)
+                return self._keep(lambda r: self._refined(c, self.MT32, Hs, r), b)
             except (np.linalg.LinAlgError, sla.LinAlgError, FloatingPointError):
                 pass
         c = self._schur_factor(sv, self.MT, self.S, blas.dsyrk)
-        return self._schur_apply(c, self.MT, b)
+        return self._keep(lambda r: self._schur_apply(c, self.MT, r), b)
+
+    def _keep(self, apply, b):
+        u = apply(b)
+        self._last = apply
+        return u
 
     def _schur_factor(self, sv, MT, S, syrk):
         S.fill(0.0)
@@ -163,7 +184,7 @@ class LegSystem:
         bI, bR = b[self.I].astype(dt), b[self.R].astype(dt)
         d = self._dI
         uR = sla.cho_solve(c, bR - (MT.T @ bI) / d, check_finite=False)
-        u = np.empty(self.n)
+        u = np.empty(b.shape)
         u[self.R] = uR
         u[self.I] = (bI - MT @ uR) / d
         return u

@@ -142,7 +142,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     previous = None
     chords = not len(net.segments)
     for it in range(1, limit + 1):
-        dirn = newton.direction(net, system, pt, lam, eps_bar, floor, previous)
+        dirn = newton.direction(net, system, pt, lam, eps_bar, floor, previous, chords)
         near = dirn.decrement <= 10.0 * tol * max(1.0, abs(pt.exact))
         if always or it == 1 or near:
             y, value = recover(net, pt, dirn.d, dirn.lower, both=always)

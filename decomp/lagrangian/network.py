@@ -22,6 +22,7 @@ w = -dx/da.
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 import scipy.sparse as sp
@@ -182,6 +183,11 @@ class Network:
             else:
                 self._by_group = (np.arange(P + 1), np.arange(P))
         return self._by_group
+
+    @functools.cached_property
+    def zero_threshold(self):
+        """Per product: the bid-price sum a at and above which its allocation is 0."""
+        return self.sub.zero_threshold()
 
     def fare_of(self, products):
         return self.sub.fare[products]

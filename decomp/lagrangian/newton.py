@@ -29,9 +29,11 @@ are reported at bid price 0, where the certificate is computed again.
 
 Curvatures: each product's w = -dx/da at pi, except for products whose
 allocation crossed 0 in the last step, which take the chord's slope across
-that step where it is larger (:func:`kink_curvature`; only without linear
-segments, see the loop). The dual is once differentiable at that kink, and
-the tangent there makes the steps oscillate across it.
+that step where it is larger (:func:`kink_curvature`), and products the step
+itself would close, which take the chord of the step (:func:`closing_update`,
+a low-rank update of the factored system); both only without linear segments,
+see the loop. The dual is once differentiable at that kink, and the tangent
+there makes the steps oscillate across it or creep up to it.
 
 Safeguard: when the Newton arc gives no decrease (the projection turned it
 uphill, or rounding), a projected step along the diagonally scaled gradient
@@ -54,6 +56,8 @@ EXPAND = 0.75
 MAX_DOUBLINGS = 8
 #: A bid price falls by at most this factor in one step (see step_floor).
 KAPPA = 10.0
+#: At most this many product groups take the closing chord (see closing_update).
+MAX_RANK = 32
 #: Levenberg-Marquardt factor on the scaled system: start, bounds.
 LAM_START, LAM_MIN, LAM_MAX = 1e-8, 1e-12, 1e6
 
@@ -84,9 +88,10 @@ def flat_step(pt, flat, fare_scale):
     return np.where(g > 0, -pi, np.where(g < 0, np.maximum(pi, fare_scale[flat]), 0.0))
 
 
-def direction(net, system, pt, lam, eps_bar, floor, previous=None) -> Direction:
+def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False) -> Direction:
     """The projected Newton direction at ``pt`` (see the module docstring); with the
-    ``previous`` iterate, the curvatures of :func:`kink_curvature`."""
+    ``previous`` iterate, the curvatures of :func:`kink_curvature`; with ``chords``, the
+    correction of :func:`closing_update` for products the step closes."""
     w_g = pt.w_g if previous is None else kink_curvature(net, pt, previous)
     hv = system.pair_values(w_g)
     h, flat = leg_curvature(system, hv)
@@ -98,16 +103,62 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None) -> Direction:
     scale = 1.0 / np.sqrt(h)
     b = -g * scale
     b[held | flat] = 0.0
-    d = system.solve(hv, scale, held | flat, lam, b) * scale
+    lower = step_floor(pi, floor)
+    u = system.solve(hv, scale, held | flat, lam, b)
+    if chords:
+        u = closing_update(net, system, pt, u, scale, held | flat, lower)
+    d = u * scale
     if np.any(held):
         d[held] = -g[held] / h[held]
     if np.any(flat):
         d[flat] = flat_step(pt, flat, net.fare_scale)
-    lower = step_floor(pi, floor)
     # the decrement counts only what the projection lets the step realize
     realized = pi - np.maximum(pi + d, lower)
     return Direction(d=d, held=held, decrement=float(g @ realized), curvature=h, stationarity=float(g @ proj),
                      lower=lower)
+
+
+def closing_update(net, system, pt, u, scale, fixed, lower):
+    """The scaled step ``u`` solved again with the curvature of each product the step would
+    close (its allocation falls to 0 before the step's end) taken from the chord of the
+    step, x / da, instead of the tangent. At x = 0 a product's allocation has a kink
+    (its slope -w steepens towards 0, then is 0 beyond), so for it the tangent predicts
+    a fall in load that it cannot deliver. The change is A diag(dw) A^T over the k
+    groups of those products, a rank-k update of the factored system, solved by the
+    Woodbury identity with k more solves and a k x k system; only for 0 < k <= MAX_RANK
+    (beyond that, as on cold starts where thousands of products close, the step stays
+    the tangent's). The curvatures stay nonnegative and bounded (a chord's slope is at
+    most the largest w along it), so the convergence argument is unchanged."""
+    step = np.maximum(pt.pi + u * scale, lower) - pt.pi
+    step[fixed] = 0.0
+    groups, dw = closing_chords(net, pt, step)
+    if not 0 < len(groups) <= MAX_RANK:
+        return u
+    U = net.AT_g[groups].toarray().T * scale[:, None]     # each group's legs, scaled
+    U[fixed] = 0.0
+    Z = system.solve_again(U)
+    if Z is None:
+        return u
+    K = np.eye(len(groups)) + dw[:, None] * (U.T @ Z)
+    try:
+        y = np.linalg.solve(K, dw * (U.T @ u))
+    except np.linalg.LinAlgError:
+        return u
+    return u - Z @ y
+
+
+def closing_chords(net, pt, step):
+    """(groups, dw): the groups with products the step closes, and the change of each
+    group's curvature when those products take the chord x / da for their w."""
+    da_g = net.AT_g @ step
+    closing = np.flatnonzero(net.to_products(pt.a_g + da_g) >= net.zero_threshold)
+    closing = closing[pt.x[closing] > 0]
+    groups = net.group_of(closing)
+    rising = da_g[groups] > 0
+    closing, groups = closing[rising], groups[rising]
+    extra = pt.x[closing] / da_g[groups] - pt.w[closing]
+    unique, which = np.unique(groups, return_inverse=True)
+    return unique, np.bincount(which, weights=extra, minlength=len(unique))
 
 
 def kink_curvature(net, pt, previous):
