@@ -246,6 +246,7 @@ class Subproblems:
         std = np.asarray(std, dtype=np.float64)
         self.n = n = len(fare)
         self.fare, self.mean, self.std = fare, mean, std
+        self.codes = None if codes is None else np.asarray(codes, dtype=np.int8)
         if not np.all(fare > 0):
             j = int(np.nonzero(~(fare > 0))[0][0])
             raise InstanceError("fare must be positive", row=j + 1, column="fare", value=float(fare[j]))
@@ -319,6 +320,11 @@ class Subproblems:
             return cls(instance.fare, instance.mean, instance.std, codes)
         return cls(instance.fare[products], instance.mean[products], instance.std[products],
                    None if codes is None else codes[products])
+
+    def subset(self, idx) -> "Subproblems":
+        """The subproblems of the products ``idx`` (without allocation bounds)."""
+        codes = None if self.codes is None else self.codes[idx]
+        return Subproblems(self.fare[idx], self.mean[idx], self.std[idx], codes)
 
     # -- solutions ---------------------------------------------------------------
     def evaluate(self, a) -> SubproblemValues:

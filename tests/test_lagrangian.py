@@ -483,13 +483,13 @@ def test_kink_curvature_is_the_chord_for_products_that_crossed_zero():
     assert w_g[net.group_of(np.array([1]))[0]] == pytest.approx(s[1] / (f[1] * stats.norm.pdf(z)), rel=1e-9)
 
 
-def test_closing_update_is_the_newton_step_with_the_closing_products_chord():
+def test_chord_update_is_the_newton_step_with_the_closing_products_chord():
     # Three legs, products on L1, L2, L3 and L1-L2. At the step the tangent proposes, P1 (on
     # L1 alone) closes: its zero threshold f Phi(m/s) (scipy.stats.norm) lies inside the step.
-    # closing_chords gives P1's chord x / da in place of its tangent w, and closing_update's
-    # Woodbury step equals the step solved directly (numpy) with the Hessian A diag(w') A^T
-    # of those curvatures, scaled as the system is (a mathematical identity, checked here on
-    # the method's own scaled system).
+    # No bid-price sum moves by 5% of itself, so P1's group alone takes the chord x / da in
+    # place of its tangent w, and chord_update's Woodbury step equals the step solved
+    # directly (numpy) with the Hessian A diag(w') A^T of those curvatures, scaled as the
+    # system is (a mathematical identity, checked here on the method's own scaled system).
     from scipy import stats
     from decomp.instance import Instance
     from decomp.lagrangian import newton
@@ -510,13 +510,12 @@ def test_closing_update_is_the_newton_step_with_the_closing_products_chord():
     fixed = np.zeros(3, bool)
     lower = np.zeros(3)
     step = np.array([0.2, -1.0, 0.5])
-    groups, dw = newton.closing_chords(net, pt, step)
     g1 = net.group_of(np.array([0]))[0]
-    assert list(groups) == [g1]
+    assert list(newton.chord_groups(net, pt, net.AT_g @ step)) == [g1]
     r1 = (kink - 0.05) / f[0]
     x1 = m[0] + s[0] * stats.norm.isf(r1)
     w1 = s[0] / (f[0] * stats.norm.pdf(stats.norm.isf(r1)))
-    assert dw[0] == pytest.approx(x1 / 0.2 - w1, rel=1e-9)
+    assert pt.w[0] == pytest.approx(w1, rel=1e-9)
     # the system is solved in the space scaled by the Hessian's diagonal: S = diag(h)^(-1/2);
     # a right-hand side whose tangent step is that step: b = (S H S + lam I) S^-1 step
     A = net.A_g.toarray()
@@ -527,9 +526,43 @@ def test_closing_update_is_the_newton_step_with_the_closing_products_chord():
     b = (S @ H @ S + lam * np.eye(3)) @ (step / scale)
     u = system.solve(system.pair_values(pt.w_g), scale, fixed, lam, b)
     assert u * scale == pytest.approx(step, rel=1e-6)
-    updated = newton.closing_update(net, system, pt, u, scale, fixed, lower)
+    updated = newton.chord_update(net, system, pt, u, scale, fixed, lower, pt.w_g)
     w2 = pt.w_g.copy()
-    w2[g1] += dw[0]
+    w2[g1] += x1 / 0.2 - w1
     H2 = A @ np.diag(w2) @ A.T
     assert updated == pytest.approx(np.linalg.solve(S @ H2 @ S + lam * np.eye(3), b), rel=1e-6)
     assert not np.allclose(updated, u, rtol=1e-3)
+
+
+def test_chord_update_takes_the_chord_where_a_bid_price_sum_moves_far():
+    # One leg, one product (normal demand): the step raises a from 20 to 30, far more than
+    # 5% of itself. The chord (x(20) - x(30)) / 10 of the newsvendor fractile
+    # x(a) = m + s Phi^-1(1 - a/f) (scipy.stats.norm) replaces the tangent, and for one leg
+    # the step solved with it is exact: -g / chord moves a to 30 when g = -(x(20) - x(30)).
+    from scipy import stats
+    from decomp.instance import Instance
+    from decomp.lagrangian import newton
+    from decomp.lagrangian.hessian import LegSystem
+
+    f, m, s = np.array([100.0]), np.array([40.0]), np.array([12.0])
+    inst = Instance(leg_ids=["L1"], leg_origin=["QA1"], leg_destination=["QB2"], capacity=[30.0],
+                    product_ids=["P1"], leg_ptr=np.array([0, 1]), leg_index=np.array([0]),
+                    fare=f, mean=m, std=s)
+    net = m_lagr.Network(inst)
+    system = LegSystem(net)
+    pt = net.evaluate(np.array([20.0]))
+    x20 = m[0] + s[0] * stats.norm.isf(0.2)
+    x30 = m[0] + s[0] * stats.norm.isf(0.3)
+    w20 = s[0] / (f[0] * stats.norm.pdf(stats.norm.isf(0.2)))
+    assert pt.x[0] == pytest.approx(x20, rel=1e-12) and pt.w[0] == pytest.approx(w20, rel=1e-9)
+    scale = np.array([1.0 / np.sqrt(w20)])
+    lam = 1e-12
+    step = np.array([10.0])
+    b = (1.0 + lam) * step / scale                        # its tangent step is +10
+    u = system.solve(system.pair_values(pt.w_g), scale, np.zeros(1, bool), lam, b)
+    assert u * scale == pytest.approx(step, rel=1e-9)
+    assert list(newton.chord_groups(net, pt, net.AT_g @ step)) == [0]
+    # the same right-hand side g = -w20 * 10: with the chord the step is w20 * 10 / chord
+    chord = (x20 - x30) / 10.0
+    updated = newton.chord_update(net, system, pt, u, scale, np.zeros(1, bool), np.zeros(1), pt.w_g)
+    assert updated * scale == pytest.approx(w20 * 10.0 / chord, rel=1e-6)

@@ -184,6 +184,19 @@ class Network:
                 self._by_group = (np.arange(P + 1), np.arange(P))
         return self._by_group
 
+    def members_of(self, groups):
+        """(products, their groups): every product of the given groups."""
+        ptr, members = self.products_by_group()
+        counts = ptr[groups + 1] - ptr[groups]
+        ends = np.cumsum(counts)
+        at = np.arange(ends[-1] if len(ends) else 0) - np.repeat(ends - counts - ptr[groups], counts)
+        return members[at], np.repeat(groups, counts)
+
+    def allocation_of(self, products, a):
+        """The subproblem solutions x_j(a_j) of the given products (no smoothing)."""
+        x = self.sub.subset(products).evaluate(a).x
+        return np.minimum(x, self.upper[products])
+
     @functools.cached_property
     def zero_threshold(self):
         """Per product: the bid-price sum a at and above which its allocation is 0."""

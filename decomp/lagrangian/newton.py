@@ -30,8 +30,9 @@ are reported at bid price 0, where the certificate is computed again.
 Curvatures: each product's w = -dx/da at pi, except for products whose
 allocation crossed 0 in the last step, which take the chord's slope across
 that step where it is larger (:func:`kink_curvature`), and products the step
-itself would close, which take the chord of the step (:func:`closing_update`,
-a low-rank update of the factored system); both only without linear segments,
+itself would close or whose bid-price sum it moves far, which take the chord
+of the step (:func:`chord_update`, a low-rank update of the factored system);
+both only without linear segments,
 see the loop. The dual is once differentiable at that kink, and the tangent
 there makes the steps oscillate across it or creep up to it.
 
@@ -56,8 +57,12 @@ EXPAND = 0.75
 MAX_DOUBLINGS = 8
 #: A bid price falls by at most this factor in one step (see step_floor).
 KAPPA = 10.0
-#: At most this many product groups take the closing chord (see closing_update).
-MAX_RANK = 32
+#: At most this many product groups take the chord of the step (see chord_update), and
+#: those whose bid-price sum changes by more than this fraction of itself do.
+MAX_RANK = 64
+CHORD_CHANGE = 0.05
+#: ... and only when that changes some leg's curvature by more than this fraction.
+MIN_CHANGE = 0.05
 #: Levenberg-Marquardt factor on the scaled system: start, bounds.
 LAM_START, LAM_MIN, LAM_MAX = 1e-8, 1e-12, 1e6
 
@@ -91,7 +96,7 @@ def flat_step(pt, flat, fare_scale):
 def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False) -> Direction:
     """The projected Newton direction at ``pt`` (see the module docstring); with the
     ``previous`` iterate, the curvatures of :func:`kink_curvature`; with ``chords``, the
-    correction of :func:`closing_update` for products the step closes."""
+    correction of :func:`chord_update`."""
     w_g = pt.w_g if previous is None else kink_curvature(net, pt, previous)
     hv = system.pair_values(w_g)
     h, flat = leg_curvature(system, hv)
@@ -106,7 +111,7 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False)
     lower = step_floor(pi, floor)
     u = system.solve(hv, scale, held | flat, lam, b)
     if chords:
-        u = closing_update(net, system, pt, u, scale, held | flat, lower)
+        u = chord_update(net, system, pt, u, scale, held | flat, lower, w_g)
     d = u * scale
     if np.any(held):
         d[held] = -g[held] / h[held]
@@ -118,23 +123,35 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False)
                      lower=lower)
 
 
-def closing_update(net, system, pt, u, scale, fixed, lower):
-    """The scaled step ``u`` solved again with the curvature of each product the step would
-    close (its allocation falls to 0 before the step's end) taken from the chord of the
-    step, x / da, instead of the tangent. At x = 0 a product's allocation has a kink
-    (its slope -w steepens towards 0, then is 0 beyond), so for it the tangent predicts
-    a fall in load that it cannot deliver. The change is A diag(dw) A^T over the k
-    groups of those products, a rank-k update of the factored system, solved by the
-    Woodbury identity with k more solves and a k x k system; only for 0 < k <= MAX_RANK
-    (beyond that, as on cold starts where thousands of products close, the step stays
-    the tangent's). The curvatures stay nonnegative and bounded (a chord's slope is at
-    most the largest w along it), so the convergence argument is unchanged."""
+def chord_update(net, system, pt, u, scale, fixed, lower, w_g):
+    """The scaled step ``u`` solved again with the curvature of some groups taken from the
+    chord of the step, (x_g(a) - x_g(a + da)) / da, instead of the tangent (``w_g``, the
+    curvatures ``u`` was solved with): the groups with a product the step would close
+    (its allocation falls to 0 before the step's end: at x = 0 the allocation has a kink,
+    its slope -w steepening towards 0 and 0 beyond, so the tangent predicts a fall in
+    load the product cannot deliver), and the groups whose bid-price sum a changes by
+    more than CHORD_CHANGE of itself (in the demand's tail the slope varies like 1 / a,
+    and the tangent misjudges a large relative move). The change is A diag(dw) A^T over
+    those k groups, a rank-k update of the factored system, solved by the Woodbury
+    identity with k more solves and a k x k system; only for 0 < k <= MAX_RANK (beyond
+    that, as on cold starts, the step stays the tangent's). Chords of a nonincreasing
+    allocation are nonnegative and at most the largest w along them, so the curvatures
+    stay bounded and the convergence argument is unchanged."""
     step = np.maximum(pt.pi + u * scale, lower) - pt.pi
     step[fixed] = 0.0
-    groups, dw = closing_chords(net, pt, step)
+    da_g = net.AT_g @ step
+    groups = chord_groups(net, pt, da_g)
     if not 0 < len(groups) <= MAX_RANK:
         return u
-    U = net.AT_g[groups].toarray().T * scale[:, None]     # each group's legs, scaled
+    products, owner = net.members_of(groups)
+    x_new = net.allocation_of(products, pt.a_g[owner] + da_g[owner])
+    drop = np.bincount(np.searchsorted(groups, owner), weights=pt.x[products] - x_new, minlength=len(groups))
+    dw = drop / da_g[groups] - w_g[groups]
+    U = net.AT_g[groups].toarray().T                      # each group's legs
+    # a change below MIN_CHANGE of every leg's curvature is not worth the solves
+    if not np.any(U @ np.abs(dw) > MIN_CHANGE * (net.A_g @ w_g)):
+        return u
+    U *= scale[:, None]
     U[fixed] = 0.0
     Z = system.solve_again(U)
     if Z is None:
@@ -147,18 +164,18 @@ def closing_update(net, system, pt, u, scale, fixed, lower):
     return u - Z @ y
 
 
-def closing_chords(net, pt, step):
-    """(groups, dw): the groups with products the step closes, and the change of each
-    group's curvature when those products take the chord x / da for their w."""
-    da_g = net.AT_g @ step
+def chord_groups(net, pt, da_g):
+    """The groups (sorted) that take the chord in :func:`chord_update`, none of them with
+    da = 0; when they are clearly more than MAX_RANK, some array longer than that."""
+    moving = np.flatnonzero(np.abs(da_g) > CHORD_CHANGE * pt.a_g)
+    if len(moving) > MAX_RANK:
+        return moving
     closing = np.flatnonzero(net.to_products(pt.a_g + da_g) >= net.zero_threshold)
     closing = closing[pt.x[closing] > 0]
-    groups = net.group_of(closing)
-    rising = da_g[groups] > 0
-    closing, groups = closing[rising], groups[rising]
-    extra = pt.x[closing] / da_g[groups] - pt.w[closing]
-    unique, which = np.unique(groups, return_inverse=True)
-    return unique, np.bincount(which, weights=extra, minlength=len(unique))
+    if len(closing) > MAX_RANK * 4:               # more than MAX_RANK groups, most likely
+        return closing
+    groups = np.union1d(net.group_of(closing), moving)
+    return groups[da_g[groups] != 0]
 
 
 def kink_curvature(net, pt, previous):
