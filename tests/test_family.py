@@ -15,7 +15,8 @@ What is asserted, on every instance:
   Ipopt stops short, on some near-deterministic demand, Ipopt's feasible allocation
   must not earn more than ours).
 Draws have 5 to 3,000 products. `pytest --run-slow -m family_strict tests/test_family.py`
-runs the next 300 draws the same way.
+runs the next 300 draws the same way. Every fifteenth draw is also solved warm after a
+forecast change (means moved by up to 20%), from the unmoved draw's bid prices.
 """
 
 from __future__ import annotations
@@ -76,3 +77,22 @@ def test_family_instance_strict(seed):
     inst, desc, r, gap = _checked(seed, max_products=3000)
     assert r.termination is Termination.OPTIMAL, (desc, r.message)
     assert gap <= 1e-8, desc
+
+
+@pytest.mark.parametrize("seed", range(0, 300, 15))
+def test_family_warm_start_after_a_forecast_change(seed):
+    # A nightly re-optimization starts from the last night's bid prices: every mean moved by
+    # a factor U[0.8, 1.2], solved from the unmoved draw's bid prices. The warm answer must
+    # be optimal by the independent certificate (weak duality, scipy.stats only) and reach
+    # the cold solve's objective (one optimum: the PNLP's objective value is unique).
+    inst, desc = family.draw(seed, max_products=3000)
+    base = solve(inst, "pnlp", "lagrangian")
+    rng = np.random.default_rng(seed + 77)
+    moved = inst.with_forecast(mean=inst.mean * rng.uniform(0.8, 1.2, inst.n_products))
+    cold = solve(moved, "pnlp", "lagrangian")
+    warm = solve(moved, "pnlp", "lagrangian", warm_start=base.bid_price_array)
+    assert warm.termination is Termination.OPTIMAL, (desc, warm.message)
+    primal, dual, viol = family.independent_certificate(moved, warm.allocation, warm.bid_price_array)
+    assert viol <= 1e-9, desc
+    assert _relative(dual, primal) <= 1e-8, desc
+    assert warm.objective == pytest.approx(cold.objective, rel=1e-8), desc
