@@ -136,9 +136,10 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
     step_len = 0.0
     lp_budget = LPBudget(net)
-    # the iterate before pt (newton.kink_curvature), kept only without linear segments: their
-    # smoothed allocations follow the barrier between stages, and with them a mixed-demand
-    # family draw (194) ended at the iteration limit
+    # the chord corrections of the curvatures (newton.kink_curvature from the iterate before
+    # pt, newton.chord_update from the step) only without linear segments: their smoothed
+    # allocations follow the barrier between stages, and with them a mixed-demand family
+    # draw (194) ended at the iteration limit
     previous = None
     chords = not len(net.segments)
     for it in range(1, limit + 1):
