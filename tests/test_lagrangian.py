@@ -526,7 +526,8 @@ def test_chord_update_is_the_newton_step_with_the_closing_products_chord():
     b = (S @ H @ S + lam * np.eye(3)) @ (step / scale)
     u = system.solve(system.pair_values(pt.w_g), scale, fixed, lam, b)
     assert u * scale == pytest.approx(step, rel=1e-6)
-    updated = newton.chord_update(net, system, pt, u, scale, fixed, lower, pt.w_g)
+    updated = newton.chord_update(net, system, pt, u, scale, fixed, lower, pt.w_g,
+                                   system.pair_values(pt.w_g))
     w2 = pt.w_g.copy()
     w2[g1] += x1 / 0.2 - w1
     H2 = A @ np.diag(w2) @ A.T
@@ -564,5 +565,6 @@ def test_chord_update_takes_the_chord_where_a_bid_price_sum_moves_far():
     assert list(newton.chord_groups(net, pt, net.AT_g @ step)) == [0]
     # the same right-hand side g = -w20 * 10: with the chord the step is w20 * 10 / chord
     chord = (x20 - x30) / 10.0
-    updated = newton.chord_update(net, system, pt, u, scale, np.zeros(1, bool), np.zeros(1), pt.w_g)
+    updated = newton.chord_update(net, system, pt, u, scale, np.zeros(1, bool), np.zeros(1), pt.w_g,
+                                   system.pair_values(pt.w_g))
     assert updated * scale == pytest.approx(w20 * 10.0 / chord, rel=1e-6)

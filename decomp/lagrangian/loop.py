@@ -234,9 +234,9 @@ class LPBudget:
     counted before it runs (:func:`.polish.plan`).
 
     Over budget, the LPs still run once the certified gap has not fallen below PROGRESS
-    of its value at the last such fall in STALL consecutive recoveries, if they cost at most STALL_FACTOR
-    times the rest: the dual has then settled, or creeps, and the primal side must
-    close the gap (each time they fail the wait doubles, so there are at most a few).
+    of its value at the last such fall in STALL consecutive recoveries, if they cost at
+    most STALL_FACTOR times the rest: the dual has then settled, or creeps, and the
+    primal side must close the gap (each time they fail the wait doubles, so there are at most a few).
     A gap that shrinks by less than half in STALL recoveries counts as stalled: with
     "any shrinking" instead, a creeping dual kept a 52-product low-CV family draw
     (1163) from its LPs, which are 0.03 s each, and it ended at the iteration limit."""

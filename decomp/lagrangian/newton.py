@@ -32,8 +32,7 @@ allocation crossed 0 in the last step, which take the chord's slope across
 that step where it is larger (:func:`kink_curvature`), and products the step
 itself would close or whose bid-price sum it moves far, which take the chord
 of the step (:func:`chord_update`, a low-rank update of the factored system);
-both only without linear segments,
-see the loop. The dual is once differentiable at that kink, and the tangent
+both only without linear segments, see the loop. The dual is once differentiable at that kink, and the tangent
 there makes the steps oscillate across it or creep up to it.
 
 Safeguard: when the Newton arc gives no decrease (the projection turned it
@@ -111,7 +110,7 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False)
     lower = step_floor(pi, floor)
     u = system.solve(hv, scale, held | flat, lam, b)
     if chords:
-        u = chord_update(net, system, pt, u, scale, held | flat, lower, w_g)
+        u = chord_update(net, system, pt, u, scale, held | flat, lower, w_g, hv)
     d = u * scale
     if np.any(held):
         d[held] = -g[held] / h[held]
@@ -123,10 +122,10 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False)
                      lower=lower)
 
 
-def chord_update(net, system, pt, u, scale, fixed, lower, w_g):
+def chord_update(net, system, pt, u, scale, fixed, lower, w_g, hv):
     """The scaled step ``u`` solved again with the curvature of some groups taken from the
     chord of the step, (x_g(a) - x_g(a + da)) / da, instead of the tangent (``w_g``, the
-    curvatures ``u`` was solved with): the groups with a product the step would close
+    curvatures ``u`` was solved with, ``hv`` their pair values): the groups with a product the step would close
     (its allocation falls to 0 before the step's end: at x = 0 the allocation has a kink,
     its slope -w steepening towards 0 and 0 beyond, so the tangent predicts a fall in
     load the product cannot deliver), and the groups whose bid-price sum a changes by
@@ -141,7 +140,7 @@ def chord_update(net, system, pt, u, scale, fixed, lower, w_g):
     step[fixed] = 0.0
     da_g = net.AT_g @ step
     groups = chord_groups(net, pt, da_g)
-    if not 0 < len(groups) <= MAX_RANK:
+    if groups is None or not len(groups):
         return u
     products, owner = net.members_of(groups)
     x_new = net.allocation_of(products, pt.a_g[owner] + da_g[owner])
@@ -149,7 +148,7 @@ def chord_update(net, system, pt, u, scale, fixed, lower, w_g):
     dw = drop / da_g[groups] - w_g[groups]
     U = net.AT_g[groups].toarray().T                      # each group's legs
     # a change below MIN_CHANGE of every leg's curvature is not worth the solves
-    if not np.any(U @ np.abs(dw) > MIN_CHANGE * (net.A_g @ w_g)):
+    if not np.any(U @ np.abs(dw) > MIN_CHANGE * system.diagonal(hv)):
         return u
     U *= scale[:, None]
     U[fixed] = 0.0
@@ -166,16 +165,18 @@ def chord_update(net, system, pt, u, scale, fixed, lower, w_g):
 
 def chord_groups(net, pt, da_g):
     """The groups (sorted) that take the chord in :func:`chord_update`, none of them with
-    da = 0; when they are clearly more than MAX_RANK, some array longer than that."""
+    da = 0; None when they are more than MAX_RANK (or clearly so: the product-level test
+    is skipped when more than MAX_RANK groups move far, or 4 MAX_RANK products close)."""
     moving = np.flatnonzero(np.abs(da_g) > CHORD_CHANGE * pt.a_g)
     if len(moving) > MAX_RANK:
-        return moving
+        return None
     closing = np.flatnonzero(net.to_products(pt.a_g + da_g) >= net.zero_threshold)
     closing = closing[pt.x[closing] > 0]
-    if len(closing) > MAX_RANK * 4:               # more than MAX_RANK groups, most likely
-        return closing
+    if len(closing) > MAX_RANK * 4:
+        return None
     groups = np.union1d(net.group_of(closing), moving)
-    return groups[da_g[groups] != 0]
+    groups = groups[da_g[groups] != 0]
+    return groups if len(groups) <= MAX_RANK else None
 
 
 def kink_curvature(net, pt, previous):
