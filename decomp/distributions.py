@@ -505,12 +505,38 @@ class Subproblems:
             hi[i] = (xi <= m).astype(float) * (m > 0)
         return lo, hi
 
+    def sales_density(self, x):
+        """-S_j''(x_j): the demand density at x_j > 0 for the continuous families, 0 for
+        deterministic and discrete products (their S_j is piecewise linear)."""
+        x = np.asarray(x, dtype=np.float64)
+        if self.all_normal:
+            return _normal_pdf(x, self.mean, self.std)
+        out = np.zeros(self.n)
+        if len(self.i_norm):
+            i = self.i_norm
+            out[i] = _normal_pdf(x[i], self.n_m, self.n_s)
+        if len(self.i_gam):
+            i = self.i_gam
+            k, theta = gamma_params(self.g_m, self.g_s)
+            out[i] = _gamma_pdf(x[i], k, theta)
+        return out
+
     def zero_threshold(self):
         """a above which x_j = 0 is optimal: f_j S_j'(0+)."""
         if self.all_normal:
             return self.fare * special.ndtr(self.mean / self.std)      # P(D > 0) = Phi(m / s)
         d, _ = self.marginal_sales(np.zeros(self.n))
         return self.fare * d
+
+
+def _normal_pdf(x, m, s):
+    z = (x - m) / s
+    return np.exp(-0.5 * z * z) * (_INV_SQRT_2PI / s)
+
+
+def _gamma_pdf(x, k, theta):
+    t = np.maximum(x, 1e-300) / theta
+    return np.exp((k - 1.0) * np.log(t) - t - special.gammaln(k)) / theta
 
 
 # ---------------------------------------------------------------------------

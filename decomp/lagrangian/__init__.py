@@ -15,6 +15,12 @@ proven continuation. Each iterate's exact dual value is an upper bound and a
 recovered feasible allocation's exact revenue a lower bound; the method
 stops when their certified gap is within tol.
 
+Where projected Newton has not certified after INTERIOR_AFTER iterations and no
+product has discrete demand, a primal-dual interior-point method on the PNLP
+itself takes over (:mod:`.interior`), with the same certificate: on low-CV
+demand a product's dual term is nearly a kink and Newton creeps, while the
+primal term is merely nearly linear.
+
 Modules, in the order of the algorithm:
 
 - :mod:`.network`: live legs and products, groups by leg tuple, the bounded
@@ -27,7 +33,8 @@ Modules, in the order of the algorithm:
   undetermined linear segments (an exact primal completion);
 - :mod:`.crossover`: the bid prices that allocation asks for (its optimality
   conditions as an LP), another exact upper bound;
-- :mod:`.loop`: the iteration and its stopping test;
+- :mod:`.loop`: the iteration and its stopping test, and the handover;
+- :mod:`.interior`: the interior-point method on the primal, same leg system;
 - :mod:`.alternatives`: L-BFGS-B and projected subgradient on the same dual;
 - :mod:`.prices`: starting points, warm starts, exact zeros, closed legs.
 """
@@ -41,7 +48,7 @@ import numpy as np
 
 from .alternatives import run_lbfgsb, run_subgradient
 from .hessian import LegSystem
-from .loop import Outcome, run_newton
+from .loop import Outcome, run
 from .network import Network
 from .prices import FLOOR, fare_start, price_closed_legs, snap_zeros, warm_prices
 
@@ -95,7 +102,7 @@ def solve_dual(instance, tol, dual_method="newton", iteration_limit=None, time_l
     limit = iteration_limit or ITERATION_LIMITS[dual_method]
     deadline = None if time_limit is None else t0 + time_limit
     if dual_method == "newton":
-        out = run_newton(net, system, pi0, tol, limit, deadline, t1, floor)
+        out = run(net, system, pi0, tol, limit, deadline, t1, floor)
     elif dual_method == "lbfgsb":
         out = run_lbfgsb(net, pi0, tol, limit, deadline, t1, floor)
     else:

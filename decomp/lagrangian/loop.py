@@ -23,7 +23,7 @@ import time
 import numpy as np
 
 from ..result import IterationRecord, Termination
-from . import newton, polish
+from . import interior, newton, polish
 from .crossover import prices_from_allocation
 from .prices import ZERO_RESOLUTION
 from .recovery import recover
@@ -52,6 +52,16 @@ BID_TOL = 1e-6
 #: the ladder's warm starts: a step of 9.4e-5 left an error of 1.4e-6), hence a step
 #: of at most 3e-5 (an error of at most 1.5e-7 at that C).
 FINAL_STEP = 3e-5
+#: Projected Newton hands over to the interior-point method (:mod:`.interior`) after this
+#: many iterations without a certified gap within tol, where that method applies (no
+#: discrete demand). Newton settles the family's median draw in about 20 iterations and
+#: the ladder's rungs in 7 to 13; what it has not settled by this many is, as measured,
+#: the low-CV class whose dual terms are nearly kinks, where Newton creeps for hundreds
+#: of iterations and the interior-point method converges in 100 to 160.
+INTERIOR_AFTER = 50
+#: The interior-point phase's own iteration limit (or the caller's, if larger): from a
+#: cold start it takes 70 to 190 iterations on the low-CV class (generator sweep, family).
+INTERIOR_LIMIT = 400
 
 
 def _may_stop(net, pt, dirn, best, settle, fare_max) -> bool:
@@ -122,20 +132,43 @@ def _record(it, pt, best, step, t0):
                            pi_norm=float(np.linalg.norm(pt.pi)), seconds=time.perf_counter() - t0)
 
 
-def run_newton(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
+def run(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
+    """Projected Newton, then, if it has not certified within INTERIOR_AFTER iterations
+    and the network allows, the interior-point method (its own limit: the larger of
+    ``limit`` and INTERIOR_LIMIT), keeping the same best bounds (both certify with the
+    exact dual and an exact revenue)."""
+    best = Certified()
+    handover = INTERIOR_AFTER if interior.applies(net) and limit > INTERIOR_AFTER else limit
+    first = run_newton(net, system, pi0, tol, handover, deadline, t0, floor, best)
+    if first.termination is not Termination.ITERATION_LIMIT or handover == limit:
+        return first
+    fare_max = float(net.sub.fare.max(initial=1.0))
+    raw, its, history = interior.run_interior(net, system, tol, max(limit, INTERIOR_LIMIT), deadline,
+                                              t0, best.pi, fare_max, best)
+    history = first.history + tuple(dataclasses.replace(h, iteration=h.iteration + handover)
+                                    for h in history)
+    term = {"optimal": Termination.OPTIMAL, "time_limit": Termination.TIME_LIMIT,
+            "iteration_limit": Termination.ITERATION_LIMIT}.get(raw, Termination.NUMERICAL_ERROR)
+    msg = (f"projected Newton: no certified gap within tol after {handover} iterations; "
+           f"interior point: {raw} after {its} more, certified gap {best.gap:.3g}")
+    return Outcome(pi=best.pi, x=best.x, gap=best.gap, termination=term, raw_status=f"interior_{raw}",
+                   message=msg, iterations=handover + its, history=history)
+
+
+def run_newton(net, system, pi0, tol, limit, deadline, t0, floor, best=None) -> Outcome:
     cont = Continuation(net.segments, tol)
     pt = net.evaluate(np.maximum(pi0, floor), cont.delta)
     fare_max = float(net.sub.fare.max(initial=1.0))
     eps_bar = 1e-3 * fare_max
     lam = newton.LAM_START
-    best = Certified()
+    best = Certified() if best is None else best
     best.offer_dual(pt)
     history = []
     always = net.n_products < RECOVER_ALWAYS_BELOW
     # bid prices are unique when every term is smooth: then also wait until they settle
     settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
     step_len = 0.0
-    lp_budget = LPBudget(net)
+    lp_budget = LPBudget(net, overrun=not interior.applies(net))
     # the chord corrections of the curvatures (newton.kink_curvature from the iterate before
     # pt, newton.chord_update from the step) only without linear segments: their smoothed
     # allocations follow the barrier between stages, and with them a mixed-demand family
@@ -246,8 +279,12 @@ class LPBudget:
     LP_BASE, LP_SECONDS, LP_COLUMNS, LP_POWER = 0.03, 1.3, 64_000, 2.5
     STALL, STALL_FACTOR, PROGRESS = 10, 10.0, 0.5
 
-    def __init__(self, net):
+    def __init__(self, net, overrun=True):
         self.net = net
+        #: whether stalled LPs may run over budget (not where the interior-point method
+        #: takes over a stalled run: generator draw 25, 38,468 low-CV products, spent
+        #: 73 s in one such LP before the handover, and the method then took 1.5 s)
+        self.overrun = overrun
         self.spent = 0.0
         self.wait = self.STALL
         self.gap = np.inf
@@ -266,7 +303,7 @@ class LPBudget:
         cost = sum(self._lp_seconds(c) for c in sizes)
         if self.spent + cost <= max(self.FREE_SECONDS, rest):
             return True
-        if self.unmoved >= self.wait and self.spent + cost <= self.STALL_FACTOR * rest:
+        if self.overrun and self.unmoved >= self.wait and self.spent + cost <= self.STALL_FACTOR * rest:
             self.wait *= 2
             self.unmoved = 0
             return True
