@@ -530,8 +530,7 @@ class Subproblems:
 
 
 def _normal_pdf(x, m, s):
-    z = (x - m) / s
-    return np.exp(-0.5 * z * z) * (_INV_SQRT_2PI / s)
+    return normal.pdf((x - m) / s) / s
 
 
 def _gamma_pdf(x, k, theta):

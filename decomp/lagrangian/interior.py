@@ -44,7 +44,7 @@ import time
 import numpy as np
 
 from ..result import IterationRecord
-from .recovery import scale_to_capacity
+from .recovery import smallest_over_legs, within_capacity
 
 #: The first barrier level (objective in units of the largest fare).
 MU_START = 1e-1
@@ -89,10 +89,8 @@ class _Iterate:
         # a deterministic product with mean 0 keeps a sliver of room (it earns nothing)
         self.ub = np.maximum(ub, 1e-9)
         x = np.clip(np.maximum(sub.mean, 0.0), X_LOW * self.ub, X_HIGH * self.ub)
-        load = net.load(x)
-        ratio = np.minimum(1.0, FILL * net.cap / np.maximum(load, 1e-300))
-        capx = np.append(ratio, 1.0)
-        self.x = x * net.to_products(capx[net.Mg - 1].min(axis=1))
+        fill = np.minimum(1.0, FILL * net.cap / np.maximum(net.load(x), 1e-300))
+        self.x = x * net.to_products(smallest_over_legs(net, fill, np.ones(net.n, dtype=bool)))
         self.s = net.cap - net.load(self.x)
         self.y = np.maximum(y0 / fare_max, mu / self.s)
         self.z = mu / self.x
@@ -113,11 +111,15 @@ class _Iterate:
         """x z + (u - x) v + s y, summed (fare units)."""
         return float(self.x @ self.z + (self.ub - self.x) @ self.v + self.s @ self.y)
 
-    def error(self, g1, mu):
-        """The barrier level's optimality error (dual residual and complementarity)."""
+    def dual_residual(self, g1):
+        """The largest |f S'(x) - A^T y + z - v| (fare units), independent of mu."""
         net = self.net
         rd = -g1 + net.to_products(net.AT_g @ self.y) - self.z + self.v
-        return max(float(np.abs(rd).max(initial=0.0)),
+        return float(np.abs(rd).max(initial=0.0))
+
+    def error(self, residual, mu):
+        """A barrier level's optimality error: the dual residual and the complementarity."""
+        return max(residual,
                    float(np.abs(self.x * self.z - mu).max(initial=0.0)),
                    float(np.abs((self.ub - self.x) * self.v - mu).max(initial=0.0)),
                    float(np.abs(self.s * self.y - mu).max(initial=0.0)))
@@ -133,8 +135,7 @@ def run_interior(net, system, tol, limit, deadline, t0, y0, fare_max, best):
     step = 0.0
     pairs = 2 * net.n_products + net.n
     for it in range(1, limit + 1):
-        if it % CERTIFY_EVERY == 1 or cur.complementarity() * fare_max <= CERTIFY_WITHIN * tol * max(
-                1.0, abs(best.primal) if np.isfinite(best.primal) else 0.0):
+        if it % CERTIFY_EVERY == 1 or cur.complementarity() * fare_max <= CERTIFY_WITHIN * tol * _size(best):
             _certify(net, cur, fare_max, best)
         history.append(IterationRecord(iteration=it, dual_value=float(best.dual),
                                        primal_value=float(best.primal), gap=_finite(best.gap),
@@ -147,9 +148,9 @@ def run_interior(net, system, tol, limit, deadline, t0, y0, fare_max, best):
         g1, h = cur.derivatives()
         # the barrier's duality gap is about pairs * mu (fare units): the last level keeps
         # it at a tenth of tol, in the certificate's relative measure
-        scale = abs(best.primal) if np.isfinite(best.primal) else 0.0
-        mu_floor = 0.1 * tol * max(1.0, scale) / (pairs * fare_max)
-        while mu > mu_floor and cur.error(g1, mu) <= KAPPA_EPS * mu:
+        mu_floor = 0.1 * tol * _size(best) / (pairs * fare_max)
+        residual = cur.dual_residual(g1)
+        while mu > mu_floor and cur.error(residual, mu) <= KAPPA_EPS * mu:
             mu = max(mu_floor, min(KAPPA_MU * mu, mu ** THETA_MU))
         d = _direction(net, system, cur, g1, h, mu, held)
         if d is None:
@@ -220,15 +221,15 @@ def _longest(value, change):
 
 
 def _certify(net, cur, fare_max, best):
-    """Offer the iterate's bid prices (exact dual) and its allocation."""
+    """Offer the iterate's bid prices (exact dual) and its allocation (the carried slack
+    keeps A x <= c up to rounding; within_capacity removes that too)."""
     best.offer_dual(net.evaluate(np.maximum(cur.y, 0.0) * fare_max))
-    # the carried slack keeps A x <= c up to rounding; scaling removes that too
-    x = np.minimum(cur.x, net.upper)
-    load = net.load(x)
-    over = load > net.cap
-    if np.any(over):
-        x = scale_to_capacity(net, x, load, over)
-    best.offer_primal(x, net.revenue(x))
+    best.offer_primal(*within_capacity(net, np.minimum(cur.x, net.upper)))
+
+
+def _size(best):
+    """The objective's size in the certificate's relative measure: max(1, |best primal|)."""
+    return max(1.0, abs(best.primal)) if np.isfinite(best.primal) else 1.0
 
 
 def _finite(v):

@@ -139,7 +139,9 @@ def run(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     exact dual and an exact revenue)."""
     best = Certified()
     handover = INTERIOR_AFTER if interior.applies(net) and limit > INTERIOR_AFTER else limit
-    first = run_newton(net, system, pi0, tol, handover, deadline, t0, floor, best)
+    # stalled LPs may run over budget only where no interior-point phase follows
+    first = run_newton(net, system, pi0, tol, handover, deadline, t0, floor, best,
+                       lp_overrun=handover == limit)
     if first.termination is not Termination.ITERATION_LIMIT or handover == limit:
         return first
     fare_max = float(net.sub.fare.max(initial=1.0))
@@ -155,7 +157,7 @@ def run(net, system, pi0, tol, limit, deadline, t0, floor) -> Outcome:
                    message=msg, iterations=handover + its, history=history)
 
 
-def run_newton(net, system, pi0, tol, limit, deadline, t0, floor, best=None) -> Outcome:
+def run_newton(net, system, pi0, tol, limit, deadline, t0, floor, best=None, lp_overrun=True) -> Outcome:
     cont = Continuation(net.segments, tol)
     pt = net.evaluate(np.maximum(pi0, floor), cont.delta)
     fare_max = float(net.sub.fare.max(initial=1.0))
@@ -168,7 +170,7 @@ def run_newton(net, system, pi0, tol, limit, deadline, t0, floor, best=None) -> 
     # bid prices are unique when every term is smooth: then also wait until they settle
     settle = BID_TOL if (not len(net.segments) and tol <= 1e-7) else None
     step_len = 0.0
-    lp_budget = LPBudget(net, overrun=not interior.applies(net))
+    lp_budget = LPBudget(net, overrun=lp_overrun)
     # the chord corrections of the curvatures (newton.kink_curvature from the iterate before
     # pt, newton.chord_update from the step) only without linear segments: their smoothed
     # allocations follow the barrier between stages, and with them a mixed-demand family

@@ -25,7 +25,7 @@ import dataclasses
 import numpy as np
 import scipy.sparse as sp
 
-from .recovery import scale_to_capacity
+from .recovery import within_capacity
 
 #: A segment's reduced revenue within this fraction of its product's fare counts as undetermined.
 THRESHOLD = 1e-3
@@ -114,7 +114,7 @@ def _segment_lp(net, plan, smooth, seg_width):
         return None, 0
     room = np.maximum(room, 0.0)
     if len(owners) == 0:
-        return _feasible(net, fixed), 0
+        return within_capacity(net, fixed), 0
     col, leg = _product_legs(net, owners)
     A = sp.csr_matrix((np.ones(len(col)), (leg, col)), shape=(net.n, len(owners)))
     from scipy.optimize import linprog
@@ -124,7 +124,7 @@ def _segment_lp(net, plan, smooth, seg_width):
                                            "dual_feasibility_tolerance": 1e-10})
     if res.status != 0:
         return None, len(owners)
-    return _feasible(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n)), len(owners)
+    return within_capacity(net, fixed + np.bincount(owners, weights=np.clip(res.x, 0.0, width), minlength=n)), len(owners)
 
 
 def _chords(net, smooth, seg_width):
@@ -158,16 +158,6 @@ def _smooth_products(net):
     if sub.all_normal:
         return np.arange(net.n_products)
     return np.sort(np.concatenate([sub.i_norm, sub.i_gam])).astype(np.int64)
-
-
-def _feasible(net, y):
-    """y with the rare product on an overloaded leg scaled back (rounding, HiGHS's
-    feasibility tolerance), and its exact revenue."""
-    load = net.load(y)
-    over = load > net.cap
-    if np.any(over):
-        y = scale_to_capacity(net, y, load, over)
-    return y, net.revenue(y)
 
 
 def _product_legs(net, products):

@@ -99,13 +99,13 @@ def _fill_dearest(net, y):
         return y
     # the groups whose every leg has room, and their products below the bound
     every_leg = np.ones(net.n, dtype=bool)
-    open_groups = np.flatnonzero(_smallest_over_legs(net, np.where(has, 1.0, 0.0), every_leg) > 0)
+    open_groups = np.flatnonzero(smallest_over_legs(net, np.where(has, 1.0, 0.0), every_leg) > 0)
     rows = net.A_g[:, open_groups].tocoo()
     if rows.nnz == 0:
         return y
     leg, prod = _leg_product_pairs(net, rows.row, open_groups[rows.col])
     # at most what the product's fullest leg leaves it
-    reach = net.to_products(_smallest_over_legs(net, np.maximum(room, 0.0), every_leg))
+    reach = net.to_products(smallest_over_legs(net, np.maximum(room, 0.0), every_leg))
     amount = np.minimum(np.maximum(net.upper[prod] - y[prod], 0.0), reach[prod])
     value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
     order = np.lexsort((-value, leg))                        # by leg, then dearest seat first
@@ -135,13 +135,23 @@ def _ahead_on_leg(leg, amount):
     return csum - amount - (csum[first] - amount[first])
 
 
+def within_capacity(net, y):
+    """(y with every product on an overloaded leg scaled back, its exact revenue): for an
+    allocation that is feasible up to rounding (an LP's tolerance, a carried slack)."""
+    load = net.load(y)
+    over = load > net.cap
+    if np.any(over):
+        y = scale_to_capacity(net, y, load, over)
+    return y, net.revenue(y)
+
+
 def scale_to_capacity(net, y, load, over):
     """y with every product on an overloaded leg scaled down by the smallest
     capacity / load over its legs (which makes it feasible)."""
-    return y * net.to_products(_smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
+    return y * net.to_products(smallest_over_legs(net, net.cap[over] / load[over] * (1.0 - 1e-14), over))
 
 
-def _smallest_over_legs(net, ratio_on, legs):
+def smallest_over_legs(net, ratio_on, legs):
     """Per group: the smallest of a per-leg factor (1 on legs outside ``legs``) over its legs."""
     ratio = np.ones(net.n + 1)                # index -1 (no leg in that position) stays 1
     ratio[:-1][legs] = ratio_on
@@ -157,5 +167,5 @@ def _fill(net, y, target):
     room = np.maximum(net.cap - net.load(y), 0.0)
     asked = net.A_g @ want_g
     share = np.where(asked > room, room / np.where(asked > 0, asked, 1.0) * (1.0 - 1e-14), 1.0)
-    frac = _smallest_over_legs(net, share, np.ones(net.n, dtype=bool))
+    frac = smallest_over_legs(net, share, np.ones(net.n, dtype=bool))
     return y + want * net.to_products(frac)
