@@ -13,6 +13,10 @@ from .errors import SolverUnavailableError, UnknownMethodError
 
 MODELS = ("dlp", "pnlp", "pwl")
 
+#: The method a model is solved with when none is named, in the library and in every command
+#: (the fastest that certifies its answer on the instance ladder; see the README's benchmark).
+DEFAULT_METHOD = {"pnlp": "lagrangian", "dlp": "highs", "pwl": "highs"}
+
 _METHODS: dict = {}
 
 # The module whose import registers each built-in method (imported on first use:
@@ -72,9 +76,11 @@ def get_method(name: str, model: str):
     return cls
 
 
-def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=None, warm_start=None,
+def solve(instance, model: str = "pnlp", method: str | None = None, options=None, warm_start=None,
           **option_values):
     """Solve ``instance`` with the named model and method; see :class:`SolveResult`.
+
+    ``method``: None solves with the model's default method (:data:`DEFAULT_METHOD`).
 
     ``instance``: an :class:`~decomp.instance.Instance`, or the path of an
     instance folder (read and checked by :func:`decomp.read_instance`).
@@ -103,6 +109,10 @@ def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=Non
                           f"{type(instance).__name__}")
     options = as_options(options, **option_values)
     warm_start = warm_start_prices(warm_start)
+    if method is None:
+        if model not in DEFAULT_METHOD:
+            raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")
+        method = DEFAULT_METHOD[model]
     cls = get_method(method, model)
     ok, reason = cls.available()
     if not ok:

@@ -301,12 +301,12 @@ def test_edited_manifest_and_missing_folder(recorded, tmp_path):
         bl.load(tmp_path / "nowhere")
 
 
-def test_cli_time_ratio_takes_the_threshold_forms(recorded, capsys):
+def test_cli_time_growth_takes_the_forms_of_bench_compare(recorded, capsys):
     from decomp.cli import build_parser, main
 
-    assert build_parser().parse_args(["baseline", "check", str(recorded)]).time_ratio == "2x"
+    assert build_parser().parse_args(["baseline", "check", str(recorded)]).max_time_growth == "2x"
     for bad in ("fast", "0.5x", "0.5"):          # refused before anything is solved: exit 2, the value named
-        assert main(["baseline", "check", str(recorded), "--time-ratio", bad]) == 2
+        assert main(["baseline", "check", str(recorded), "--max-time-growth", bad]) == 2
         assert bad in capsys.readouterr().err
 
 

@@ -57,6 +57,27 @@ class Comparison:
                 "cases": [dataclasses.asdict(c) for c in self.cases]}
 
 
+def parse_growth(text) -> float:
+    """Allowed growth new/old as a fraction, written with its unit: '10%' -> 0.1, '1.1x' -> 0.1.
+
+    The form ``bench compare --max-growth`` and ``baseline check --max-time-growth`` share. A
+    bare number is refused: 10 read as a fraction is +1000%, read as a ratio 10x, and both
+    commands once read it one way each.
+    """
+    from ..errors import ConfigError
+
+    s = str(text).strip()
+    if not (s.endswith("%") or s.lower().endswith("x")):
+        try:
+            float(s)
+        except ValueError:
+            pass
+        else:
+            raise ConfigError(f"allowed growth {text!r} has no unit: write a growth such as {s}% or a ratio "
+                              f"such as {s}x (new / old)")
+    return parse_threshold(s)
+
+
 def parse_threshold(text) -> float:
     """Allowed growth: '10%' or '0.1' -> 0.1; a ratio new/old '1.1x' -> 0.1 (as ``baseline check
     --time-ratio 1.1``)."""

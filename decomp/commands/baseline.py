@@ -15,6 +15,8 @@ import argparse
 import json
 import sys
 
+from ._vocabulary import old_name
+
 
 def register(sub):
     p = sub.add_parser("baseline", help="record a solver baseline; check an upgraded environment against it",
@@ -52,9 +54,11 @@ def register(sub):
     g.add_argument("--kkt-floor", type=float, default=1e-6, help="KKT residual (default 1e-6)")
     g.add_argument("--certificate-factor", type=float, default=10.0,
                    help="a certificate measure may grow to this multiple of its recorded value (default 10)")
-    g.add_argument("--time-ratio", default="2x",
-                   help="allowed wall-time ratio new/old: 2x, 2 or a growth of 100%%; the forms of bench "
-                        "compare --threshold, except that a bare number is the ratio (default: %(default)s)")
+    g.add_argument("--max-time-growth", default="2x",
+                   help="allowed wall-time growth new/old: a ratio such as 2x or a growth such as 100%%, as "
+                        "bench compare --max-growth (default: %(default)s)")
+    old_name(g, "--time-ratio", new="--max-time-growth", dest="time_ratio", metavar="X",
+             note="; a bare number is the ratio there (2 = 2x)")
     g.add_argument("--time-floor", type=float, default=0.5,
                    help="seconds below which times count as this value in the ratio (default 0.5)")
     c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
@@ -125,13 +129,14 @@ def _parse_override(items) -> dict:
 def run_check(args) -> int:
     from .. import baseline
 
-    from ..benchsuite.compare import parse_ratio
+    from ..benchsuite.compare import parse_growth, parse_ratio
 
     try:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
-    time_ratio = parse_ratio(args.time_ratio)          # a ConfigError: exit 2, naming the value
+    old_ratio = getattr(args, "time_ratio", None)      # a ConfigError: exit 2, naming the value
+    time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
     th = baseline.Thresholds(
         objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
         allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,

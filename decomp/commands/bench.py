@@ -1,7 +1,7 @@
 """``decomp bench``: run the benchmark suite; ``decomp bench compare``: compare two runs.
 
     decomp bench [--suite quick|full|micro] [--out DIR] [-k EXPR] [--revenue-paths N] [--list]
-    decomp bench compare OLD NEW [--threshold 10%] [--stat min|median] [--json FILE]
+    decomp bench compare OLD NEW [--max-growth 10%] [--stat min|median] [--out FILE.json]
     decomp bench report RUN [--out DIR]
 
 The run writes into DIR: benchmark.json (pytest-benchmark, with machine
@@ -16,6 +16,8 @@ import pathlib
 import sys
 
 from ..errors import DecompError
+from . import _progress
+from ._vocabulary import old_name
 
 
 def register(sub):
@@ -29,7 +31,7 @@ def register(sub):
                    help="pytest -k expression selecting cases (default: all; see --list for the ids)")
     p.add_argument("--list", action="store_true", help="print the case ids of the suite (with -k: the selected "
                                                        "ones) and exit without running them")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
+    p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.add_argument("--revenue-paths", type=int, default=0, metavar="N",
                    help="after timing, price each case's bid prices on N booking sample paths against the "
                         "reference's (same paths); adds a revenue-loss column (default 0: off)")
@@ -42,15 +44,18 @@ def register(sub):
                                   "missing or corrupt file.")
     c.add_argument("old", metavar="OLD", help="the earlier run: folder or benchmark.json")
     c.add_argument("new", metavar="NEW", help="the later run: folder or benchmark.json")
-    c.add_argument("--threshold", default="10%",
-                   help="allowed growth of time and errors: 10%%, 0.1, or a ratio new/old such as 1.1x "
-                        "(the form of baseline check --time-ratio) (default: %(default)s)")
+    c.add_argument("--max-growth", default="10%",
+                   help="allowed growth of time and errors new/old: a growth such as 10%% or a ratio such as "
+                        "1.1x, as baseline check --max-time-growth (default: %(default)s)")
+    old_name(c, "--threshold", new="--max-growth", dest="threshold", metavar="X",
+             note="; a bare number is a growth fraction there (0.1 = 10%%, 10 = 1000%%)")
     c.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare (default min)")
     c.add_argument("--accuracy-floor", type=float, default=1e-9,
                    help="errors and gaps below this are round-off, never a regression (default 1e-9)")
-    c.add_argument("--json", default=None, metavar="FILE",
+    c.add_argument("--out", default=None, metavar="FILE.json",
                    help="also write the comparison as JSON (default: not written)")
+    old_name(c, "--json", new="--out", dest="out", metavar="FILE")
     c.set_defaults(func=run_compare)
     r = ss.add_parser("report", help="re-write report.md and plots from a run's benchmark.json")
     r.add_argument("run", metavar="RUN", help="folder or benchmark.json")
@@ -99,23 +104,25 @@ def run(args) -> int:
             print(f"decomp bench: no case of suite {args.suite} matches -k {args.k!r}", file=sys.stderr)
             return 2
         return 0
-    return run_suite(args.suite, args.out, k=args.k, progress=not args.no_progress,
+    return run_suite(args.suite, args.out, k=args.k, progress=_progress.wanted(args),
                      revenue_paths=args.revenue_paths)
 
 
 def run_compare(args) -> int:
     from .. import atomic
-    from ..benchsuite.compare import compare_runs, parse_threshold, render
+    from ..benchsuite.compare import compare_runs, parse_growth, parse_threshold, render
 
+    old_threshold = getattr(args, "threshold", None)
+    growth = parse_threshold(old_threshold) if old_threshold is not None else parse_growth(args.max_growth)
     try:
-        cmp = compare_runs(args.old, args.new, threshold=parse_threshold(args.threshold), stat=args.stat,
+        cmp = compare_runs(args.old, args.new, threshold=growth, stat=args.stat,
                            accuracy_floor=args.accuracy_floor)
     except DecompError as exc:
         print(f"decomp bench compare: error: {exc}", file=sys.stderr)
         return 2
     print(render(cmp))
-    if args.json:
-        atomic.write_json(args.json, cmp.to_dict())
+    if args.out:
+        atomic.write_json(args.out, cmp.to_dict())
     return 1 if cmp.regressions else 0
 
 
