@@ -22,11 +22,11 @@ RENAMED = (
      "--products is a count everywhere else (generate, size)"),
     ("run", "--dates N", "--days N", "--dates takes N or FIRST:LAST, as in size"),
     ("run", "--warm-start DIR", "--warm-start-from DIR", "the name solve uses"),
-    ("bench compare", "--max-growth 10% | 1.1x", "--threshold X",
-     "a bare number was a growth fraction (10 = +1000%)"),
+    ("bench compare", "--max-growth 10%", "--threshold X",
+     "10% or 1.1x; a bare number was a growth fraction (10 = +1000%)"),
     ("bench compare", "--out FILE.json", "--json FILE", "--json prints JSON elsewhere; --out writes"),
-    ("baseline check", "--max-time-growth 2x | 100%", "--time-ratio X",
-     "a bare number was the ratio (2 = 2x); the two commands now read growth the same way"),
+    ("baseline check", "--max-time-growth 2x", "--time-ratio X",
+     "2x or 100%; a bare number was the ratio (2 = 2x); the two commands now read growth the same way"),
 )
 
 
