@@ -28,8 +28,14 @@ from .history import DEFAULT_DEMAND, VERSION_COLUMNS
 LOG_FLOOR = 1e-16
 #: Families in this order first (the ladder's own, then the integrator's families); others after, by name.
 FAMILY_ORDER = (DEFAULT_DEMAND, "lowcv", "gamma", "poisson", "negbin", "mix")
+#: Kinds of run in the order the page shows them, with what their cases are called there.
+KIND_ORDER = ("bench", "baseline-check")
+KIND_TITLES = {"bench": "benchmark cases (decomp bench)", "baseline-check": "baseline cases (decomp baseline check)"}
 _ACCURACY_LABELS = {"gap": "certified gap", "bid_price_error": "bid-price error",
                     "objective_error": "objective error", "max_violation_rel": "capacity violation"}
+#: A baseline check measures bid prices and objective against the recorded answer, not a reference solve.
+_CHECK_LABELS = {**_ACCURACY_LABELS, "bid_price_error": "bid-price change vs baseline",
+                 "objective_error": "objective change vs baseline"}
 _VERSION_LABELS = {"decomp": "decomp", "git_commit": "commit", "python": "Python", "numpy": "numpy",
                    "scipy": "scipy", "pyomo": "Pyomo", "highs": "HiGHS", "ipopt": "Ipopt"}
 
@@ -81,9 +87,11 @@ def build(runs, points, threshold: float = 0.10, stat: str = "min", accuracy_flo
             prev = p
         series.append(Series(case, kind, demand, tuple(out)))
     order = {f: i for i, f in enumerate(FAMILY_ORDER)}
-    families = {}
-    for s in sorted(series, key=lambda s: (order.get(s.demand, len(order)), s.demand, s.kind, s.case)):
-        families.setdefault(s.demand, []).append(s)
+    kinds = {k: i for i, k in enumerate(KIND_ORDER)}
+    families = {}               # demand -> kind -> series: a bench run's and a check's figures are not alike
+    for s in sorted(series, key=lambda s: (order.get(s.demand, len(order)), s.demand,
+                                           kinds.get(s.kind, len(kinds)), s.case)):
+        families.setdefault(s.demand, {}).setdefault(s.kind, []).append(s)
     regressions = [{"run_id": p.run_id, "against": p.against, "case": s.case, "kind": s.kind, "demand": s.demand,
                     "anchor": s.anchor, "flags": p.flags}
                    for s in series for p in s.points if p.flags]
@@ -176,6 +184,7 @@ def case_chart(series: Series, runs, changes, stat: str) -> str:
     top.legend(fontsize=6.5, loc="lower left", frameon=False, ncol=3)
     _mark_changes(top, changes)
     drawn = False
+    labels = _CHECK_LABELS if series.kind == "baseline-check" else _ACCURACY_LABELS
     for f, color in zip(("gap", "bid_price_error", "objective_error", "max_violation_rel"),
                         ("#2b8a3e", "#c05a00", "#6741a8", "#7b7b7b")):
         vals = [(p.x, p.row.get(f)) for p in series.points if isinstance(p.row.get(f), (int, float))
@@ -184,7 +193,7 @@ def case_chart(series: Series, runs, changes, stat: str) -> str:
             continue
         drawn = True
         bottom.plot([x for x, _ in vals], [max(v, LOG_FLOOR) for _, v in vals], marker="s", ms=2.8, lw=1.0,
-                    color=color, label=_ACCURACY_LABELS[f])
+                    color=color, label=labels[f])
         flagged = [(p.x, max(p.row.get(f), LOG_FLOOR)) for p in series.points
                    if p.flags and any(f in fl for fl in p.flags) and isinstance(p.row.get(f), (int, float))]
         if flagged:
@@ -207,9 +216,9 @@ def case_chart(series: Series, runs, changes, stat: str) -> str:
     return _svg(fig, series.anchor)
 
 
-def family_chart(demand: str, series: list, runs, changes, stat: str) -> str:
-    """A family at a glance: each case's time relative to its first run (median bold), and the
-    family's largest certified gap and bid-price error in each run."""
+def family_chart(demand: str, kind: str, series: list, runs, changes, stat: str) -> str:
+    """A family's cases of one kind at a glance: each case's time relative to its first run (median
+    bold), and their largest certified gap and bid-price error in each run."""
     import numpy as np
 
     plt = _matplotlib()
@@ -242,15 +251,16 @@ def family_chart(demand: str, series: list, runs, changes, stat: str) -> str:
     if seen.size:                  # at least 0.8 to 1.2: a 1 % wobble should look like one
         top.set_ylim(min(0.8, float(seen.min()) * 0.95), max(1.2, float(seen.max()) * 1.05))
     top.set_ylabel("time / first run", fontsize=8)
-    top.legend(fontsize=6.5, loc="upper left", frameon=False)
+    top.legend(fontsize=6.5, loc="lower left", frameon=False)
     _mark_changes(top, changes)
     drawn = False
     for f, color in (("gap", "#2b8a3e"), ("bid_price_error", "#c05a00")):
         ok = ~np.isnan(worst[f])
         if ok.any():
             drawn = True
+            labels = _CHECK_LABELS if kind == "baseline-check" else _ACCURACY_LABELS
             bottom.plot(np.flatnonzero(ok), worst[f][ok], marker="s", ms=2.8, color=color,
-                        label=f"largest {_ACCURACY_LABELS[f]}")
+                        label=f"largest {labels[f]}")
     if drawn:
         bottom.set_yscale("log")
         bottom.legend(fontsize=6.5, loc="upper left", frameon=False, ncol=2)
@@ -263,7 +273,7 @@ def family_chart(demand: str, series: list, runs, changes, stat: str) -> str:
             ax.axvline(i - 0.5, color="#7a5c00", ls="--", lw=0.8)
     _axis(bottom, runs, changes)
     fig.subplots_adjust(left=0.09, right=0.99, top=0.97, bottom=0.18)
-    return _svg(fig, "family-chart-" + re.sub(r"[^A-Za-z0-9_-]+", "_", demand))
+    return _svg(fig, "family-chart-" + re.sub(r"[^A-Za-z0-9_-]+", "_", f"{demand}-{kind}"))
 
 
 # -- the page -------------------------------------------------------------------------------------
@@ -278,6 +288,7 @@ _TEMPLATE = r"""<!DOCTYPE html>
 body { font: 14px/1.45 system-ui, sans-serif; margin: 1.2em auto; max-width: 1180px; color: #1b1b1b; padding: 0 1em; }
 h1 { font-size: 1.5em; margin-bottom: .2em; } h2 { margin-top: 1.6em; border-bottom: 1px solid #ccc; }
 h3 { font-size: 1.02em; margin: .2em 0; font-family: ui-monospace, monospace; }
+h3.kind { font-family: inherit; font-size: 1.1em; margin-top: 1em; color: #333; }
 table { border-collapse: collapse; font-size: 12px; margin: .5em 0; }
 th, td { border: 1px solid #ddd; padding: 2px 6px; text-align: left; vertical-align: top; }
 th { background: #f3f3f3; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
@@ -303,7 +314,7 @@ than {{ "%g"|format(threshold * 100) }}%, an optimal finish became another, or a
 Dashed lines on the axes mark runs whose versions differ from the run before, with what changed.
 Accuracy axes are logarithmic: values below {{ "%g"|format(log_floor) }}, 0 included, are drawn at {{ "%g"|format(log_floor) }}.</p>
 <nav>
-{% for demand, series in families.items() %}<a href="#family-{{ demand }}">{{ demand }} ({{ series|length }})</a>{% endfor %}
+{% for demand, by_kind in families.items() %}<a href="#family-{{ demand }}">{{ demand }} ({{ by_kind.values()|map("length")|sum }})</a>{% endfor %}
 <a href="#runs">runs</a> <a href="#regressions">regressions ({{ regressions|length }})</a>
 <label><input type="checkbox" id="only-regressions"> only cases with a regression</label>
 <span class="muted" id="shown-count"></span>
@@ -335,10 +346,13 @@ Accuracy axes are logarithmic: values below {{ "%g"|format(log_floor) }}, 0 incl
 {% endfor %}
 </table>
 
-{% for demand, series in families.items() %}
+{% for demand, by_kind in families.items() %}
+{% set n_cases = by_kind.values()|map("length")|sum %}
 <section class="family" id="family-{{ demand }}" data-family="{{ demand }}">
-<h2>Demand family: {{ demand }} <span class="muted">({{ series|length }} case(s), <span class="shown">{{ series|length }}</span> shown)</span></h2>
-<figure>{{ family_svg[demand] }}</figure>
+<h2>Demand family: {{ demand }} <span class="muted">({{ n_cases }} case(s), <span class="shown">{{ n_cases }}</span> shown)</span></h2>
+{% for kind, series in by_kind.items() %}
+<h3 class="kind">{{ kind_titles.get(kind, kind) }}: {{ series|length }}</h3>
+<figure>{{ family_svg[(demand, kind)] }}</figure>
 {% for s in series %}
 <article class="case{% if s.n_regressions %} regressed{% endif %}" id="{{ s.anchor }}" data-case="{{ s.case }}"
  data-family="{{ demand }}" data-regressions="{{ s.n_regressions }}">
@@ -353,6 +367,7 @@ termination {{ last.get("termination") or "-" }}</div>
 {% endfor %}
 {{ case_svg[s.anchor] }}
 </article>
+{% endfor %}
 {% endfor %}
 </section>
 {% endfor %}
@@ -392,8 +407,9 @@ def render(store_path, runs, points, *, threshold: float = 0.10, stat: str = "mi
     data = build(runs, points, threshold, stat, accuracy_floor)
     changes = data["changes"]
     case_svg = {s.anchor: Markup(case_chart(s, runs, changes, stat))
-                for series in data["families"].values() for s in series}
-    family_svg = {d: Markup(family_chart(d, series, runs, changes, stat)) for d, series in data["families"].items()}
+                for by_kind in data["families"].values() for series in by_kind.values() for s in series}
+    family_svg = {(d, k): Markup(family_chart(d, k, series, runs, changes, stat))
+                  for d, by_kind in data["families"].items() for k, series in by_kind.items()}
     env = jinja2.Environment(autoescape=True, undefined=jinja2.StrictUndefined)
     pos = {r.run_id: i for i, r in enumerate(runs)}
 
@@ -404,7 +420,7 @@ def render(store_path, runs, points, *, threshold: float = 0.10, stat: str = "mi
     return env.from_string(_TEMPLATE).render(
         store=str(store_path), written=written, env_columns=VERSION_COLUMNS, env_labels=_VERSION_LABELS,
         changed=changed, short=_short, case_svg=case_svg, family_svg=family_svg,
-        load=lambda v: "-" if v is None else f"{v:.2f}", log_floor=LOG_FLOOR,
+        load=lambda v: "-" if v is None else f"{v:.2f}", log_floor=LOG_FLOOR, kind_titles=KIND_TITLES,
         num=lambda v: "-" if not isinstance(v, (int, float)) or not math.isfinite(v) else f"{v:.2e}",
         **data)
 
