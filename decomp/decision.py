@@ -40,6 +40,9 @@ class Decision:
                 "displacement": self.displacement, "margin": self.margin,
                 "legs": [{"leg": leg, "bid_price": bp} for leg, bp in zip(self.legs, self.bid_prices)]}
 
+    def __str__(self) -> str:
+        return self.text()
+
     def text(self) -> str:
         width = max(3, *(len(str(leg)) for leg in self.legs))
         lines = [f"{self.verdict.upper()}: fare {self.fare:,.2f} "

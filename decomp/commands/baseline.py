@@ -6,7 +6,10 @@
 
 ``check`` exits 1 when any case regressed (status, objective, bid prices,
 certificate, allocation or time beyond its threshold), 2 when the baseline
-folder is missing, truncated or edited, 0 otherwise.
+folder is missing, truncated or edited, 0 otherwise. Each check adds its cases
+with the environment to the history store (``--history FILE``; default
+$DECOMP_HISTORY, else bench/results/history.sqlite; ``--no-history`` skips it),
+which ``decomp bench history`` lists, compares and draws.
 """
 
 from __future__ import annotations
@@ -14,6 +17,10 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import time
+
+from ._vocabulary import old_name
+from .bench import add_history_options
 
 
 def register(sub):
@@ -52,11 +59,14 @@ def register(sub):
     g.add_argument("--kkt-floor", type=float, default=1e-6, help="KKT residual (default 1e-6)")
     g.add_argument("--certificate-factor", type=float, default=10.0,
                    help="a certificate measure may grow to this multiple of its recorded value (default 10)")
-    g.add_argument("--time-ratio", default="2x",
-                   help="allowed wall-time ratio new/old: 2x, 2 or a growth of 100%%; the forms of bench "
-                        "compare --threshold, except that a bare number is the ratio (default: %(default)s)")
+    g.add_argument("--max-time-growth", default="2x",
+                   help="allowed wall-time growth new/old: a ratio such as 2x or a growth such as 100%%, as "
+                        "bench compare --max-growth (default: %(default)s)")
+    old_name(g, "--time-ratio", new="--max-time-growth", dest="time_ratio", metavar="X",
+             note="; a bare number is the ratio there (2 = 2x)")
     g.add_argument("--time-floor", type=float, default=0.5,
                    help="seconds below which times count as this value in the ratio (default 0.5)")
+    add_history_options(c, "the check")
     c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
                    help="change a solver option of every case, e.g. tol=1e-3 (to see that the check "
                         "catches a change; value parsed as JSON; repeatable; default: none)")
@@ -125,13 +135,14 @@ def _parse_override(items) -> dict:
 def run_check(args) -> int:
     from .. import baseline
 
-    from ..benchsuite.compare import parse_ratio
+    from ..benchsuite.compare import parse_growth, parse_ratio
 
     try:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
-    time_ratio = parse_ratio(args.time_ratio)          # a ConfigError: exit 2, naming the value
+    old_ratio = getattr(args, "time_ratio", None)      # a ConfigError: exit 2, naming the value
+    time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
     th = baseline.Thresholds(
         objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
         allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
@@ -144,13 +155,36 @@ def run_check(args) -> int:
               f"bid max {m.get('bid_max_abs_change')!s:<22} time ratio {m.get('time_ratio', float('nan')):.2f}",
               flush=True)
 
+    from ..benchsuite import history
+
+    load_start, t0 = history.load_average(), time.perf_counter()
     report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
                             repeat=args.repeat, warmup=not args.no_warmup,
                             confirm_runs=args.confirm_runs, only=args.cases,
                             progress=progress)
+    wall = time.perf_counter() - t0
     print()
     print(report.to_markdown())
     if args.out:
         jpath, mpath = baseline.write_report(report, args.out)
         print(f"wrote {jpath} and {mpath}")
+    if not args.no_history:
+        _add_to_history(args, report, load_start, wall)
     return 1 if report.regression else 0
+
+
+def _add_to_history(args, report, load_start, wall) -> None:
+    """Add the check to the store; a store that cannot be written is said, the check's verdict stands."""
+    import sqlite3
+
+    from ..benchsuite import history
+    from ..errors import DecompError
+
+    command = f"decomp baseline check {args.baseline}" + "".join(f" --case {c}" for c in args.cases or ())
+    try:
+        with history.open_store(args.history) as store:
+            run_id = store.add_check(report, command=command, selection=args.cases, load_start=load_start,
+                                     load_end=history.load_average(), wall_seconds=wall)
+            print(f"added the check as run #{run_id} to the history {store.path}")
+    except (DecompError, OSError, sqlite3.Error) as exc:
+        print(f"decomp baseline check: warning: the check was not added to the history: {exc}", file=sys.stderr)

@@ -34,6 +34,8 @@ from __future__ import annotations
 import re
 import sys
 
+from . import _progress
+
 
 def _floats(text: str, what: str) -> list:
     from ..simulation.errors import SimulationConfigError
@@ -81,7 +83,7 @@ def register(sub):
     c.add_argument("--workers", type=int, default=None,
                    help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
     p.add_argument("--out", required=True, help="output folder")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
+    p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.set_defaults(func=run)
 
 
@@ -129,9 +131,10 @@ def run(args) -> int:
     cfg.check(instance)
 
     bar = {}
+    show_bar = _progress.wanted(args)
 
     def on_progress(done, planned):
-        if args.no_progress:
+        if not show_bar:
             return
         from tqdm import tqdm
 

@@ -458,7 +458,7 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
         reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
     summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
                                      workers=n_workers or workers, window=window, interrupted=reason,
-                                     stopped=stopped)
+                                     stopped=stopped, earlier=summary_mod.read_summary(out))
     failed = summary_mod.write_summary(out, summ)
     if failed:
         summ["summary_error"] = f"not written to {out}: " + "; ".join(
