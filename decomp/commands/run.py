@@ -34,6 +34,9 @@ from ._vocabulary import old_name
 def register(sub):
     p = sub.add_parser("run", help="solve a batch of departure dates on Dask (resumable)", description=__doc__)
     p.add_argument("batch", help="folder of instances, an instance folder, or gen:PRODUCTS[:SEED]")
+    from .generate import DEMAND_HELP
+
+    p.add_argument("--demand", metavar="MIX", help="of a gen:PRODUCTS[:SEED] batch: " + DEMAND_HELP)
     p.add_argument("--out", required=True, help="output folder (finished tasks in it are skipped)")
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
     p.add_argument("--method", default=None,
@@ -96,7 +99,7 @@ def run(args) -> int:
     dates = run_dates(args)
     method = args.method or DEFAULT_METHOD[args.model]
     variation = DateVariation(seed=args.variation_seed, sigma=args.variation_sigma, seasonal=args.seasonal)
-    batch = build_batch(args.batch, dates, variation)
+    batch = build_batch(args.batch, dates, variation, demand=args.demand)
     options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
                             threads=1)
     cfg = RunConfig(model=args.model, method=method, options=options, out=args.out,
