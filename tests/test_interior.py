@@ -46,7 +46,7 @@ def _interior_alone(inst, tol=1e-9):
     its = 0
     for _ in range(4):
         m = master.build(net, lo, hi)
-        word, n, pi = interior.solve_master(net, system, m, pi, tol, 400, None, time.perf_counter(), bounds, [], 0)
+        word, n, pi, _ = interior.solve_master(net, system, m, pi, tol, 400, None, time.perf_counter(), bounds, [], 0)
         its += n
         if word != "master_solved":
             break

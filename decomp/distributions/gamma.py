@@ -84,13 +84,11 @@ class GammaDemand:
                 break
             yi, ki = y[idx], k[idx]
             use_p = yi < ki
-            p = np.maximum(special.gammainc(ki, yi), 1e-320)
-            q = np.maximum(special.gammaincc(ki, yi), 1e-320)
+            tail = np.maximum(_smaller_tail(ki, yi, use_p), 1e-320)
             # Newton on G(y) = log Q(k, y) - log(ratio) or -(log P(k, y) - log(1 - ratio)), the
             # smaller of P and Q: both decrease in y, with G' = -g / Q or -g / P
-            tail = np.where(use_p, p, q)
-            resid = np.where(use_p, np.log(np.maximum(complement[idx], 1e-320)) - np.log(p),
-                             np.log(q) - np.log(np.maximum(ratio[idx], 1e-320)))
+            resid = np.where(use_p, np.log(np.maximum(complement[idx], 1e-320)) - np.log(tail),
+                             np.log(tail) - np.log(np.maximum(ratio[idx], 1e-320)))
             lo[idx] = np.where(resid > 0, yi, lo[idx])
             hi[idx] = np.where(resid > 0, hi[idx], yi)
             dens = np.exp(special.xlogy(ki - 1.0, yi) - yi - self._lgk[idx])
@@ -136,9 +134,9 @@ class GammaDemand:
         x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
         y = x / th
         low = y < k
-        p = np.where(low, special.gammainc(k, np.where(low, y, 0.0)), 0.0)
-        q = np.where(low, 1.0 - p, special.gammaincc(k, np.where(low, 0.0, y)))
-        p = np.where(low, p, 1.0 - q)
+        small = _smaller_tail(k, y, low)              # P where y < k, Q beyond
+        p = np.where(low, small, 1.0 - small)
+        q = np.where(low, 1.0 - small, small)
         with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
             g = np.where(y > 0, np.exp(special.xlogy(k - 1.0, y) - y - lgk), 0.0)
         return m * p + x * (q - g)
@@ -161,6 +159,15 @@ class GammaDemand:
     def closing(self):
         """a at and above which x = 0: f Q(k, 0) = f."""
         return self.fare.copy()
+
+
+def _smaller_tail(k, y, low):
+    """P(k, y) where ``low``, Q(k, y) elsewhere: one incomplete gamma function per entry."""
+    k, y, low = np.broadcast_arrays(k, y, low)
+    out = np.empty(y.shape)
+    out[low] = special.gammainc(k[low], y[low])
+    out[~low] = special.gammaincc(k[~low], y[~low])
+    return out
 
 
 class _Sub:

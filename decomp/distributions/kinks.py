@@ -62,6 +62,14 @@ class KinkTable:
         self.pp = self.ptr[:-1] + np.arange(len(count))
         self.cum_w = self._prefix(self.width)
         self.cum_rw = self._prefix(self.slope * self.width)
+        # every owner's kinks of one width (seats of discrete demand; a single kink): counting
+        # the kinks an allocation fills is then a division
+        self.unit = np.where(count > 0, self.width[np.minimum(self.ptr[:-1], max(len(self.width) - 1, 0))]
+                             if len(self.width) else 1.0, 1.0)
+        self.uniform = bool(np.all(self.width == np.repeat(self.unit, count)))
+        #: the last counts found per purpose (a guess the next search checks first: between
+        #: iterations most products keep their position among their kinks)
+        self._last = {}
 
     def _prefix(self, values):
         n_own = len(self.count)
@@ -93,28 +101,46 @@ class KinkTable:
         return np.repeat(np.arange(self.n_owners), self.count)
 
     # -- counting --------------------------------------------------------------------------
-    def above(self, level, lo=None, hi=None):
-        """Per owner: how many of its slopes are > ``level`` (per owner), by bisection within
-        [lo, hi] (default [0, count])."""
+    def above(self, level, lo=None, hi=None, purpose=None):
+        """Per owner: how many of its slopes are > ``level`` (per owner), within [lo, hi]
+        (default [0, count]). With ``purpose``, the last answer for it is checked first
+        (two slopes per owner) and only the owners whose count moved are searched."""
         lo = np.zeros(self.n_owners, dtype=np.int64) if lo is None else lo.copy()
         hi = self.count.copy() if hi is None else hi.copy()
         if not len(lo):
             return lo
         base = self.ptr[:-1]
         last = max(len(self.slope) - 1, 0)
-        # branch-free bisection over all owners at once: ceil(log2(K + 1)) rounds
-        for _ in range(int(np.max(hi - lo)).bit_length()):
-            mid = (lo + hi) >> 1
-            k = np.minimum(base + mid, last)
-            up = (self.slope[k] > level) & (mid < hi)
-            np.copyto(lo, mid + 1, where=up)
-            np.copyto(hi, mid, where=~up & (mid < hi))
+        guess = self._last.get(purpose)
+        if guess is not None:
+            g = np.clip(guess, lo, hi)
+            left = (g <= lo) | (self.slope[np.clip(base + g - 1, 0, last)] > level)
+            right = (g >= hi) | (self.slope[np.minimum(base + g, last)] <= level)
+            np.copyto(hi, np.maximum(g - 1, lo), where=~left)
+            np.copyto(lo, np.minimum(g + 1, hi), where=~right & left)
+            np.copyto(lo, g, where=left & right)
+            np.copyto(hi, g, where=left & right)
+            idx = np.flatnonzero(lo < hi)
+        else:
+            idx = np.arange(len(lo))
+        if len(idx):
+            lo_i, hi_i, base_i, level_i = lo[idx], hi[idx], base[idx], level[idx]
+            # branch-free bisection over the owners left: ceil(log2(K + 1)) rounds
+            for _ in range(int(np.max(hi_i - lo_i)).bit_length()):
+                mid = (lo_i + hi_i) >> 1
+                k = np.minimum(base_i + mid, last)
+                up = (self.slope[k] > level_i) & (mid < hi_i)
+                np.copyto(lo_i, mid + 1, where=up)
+                np.copyto(hi_i, mid, where=~up & (mid < hi_i))
+            lo[idx] = lo_i
+        if purpose is not None:
+            self._last[purpose] = lo
         return lo
 
     # -- the terms -------------------------------------------------------------------------
     def exact(self, a) -> KinkResponse:
         """The exact terms at bid-price sums ``a`` (per owner)."""
-        n = self.above(a)
+        n = self.above(a, purpose="exact")
         at = self.pp + n
         x = self.cum_w[at]
         value = self.cum_rw[at] - a * x
@@ -123,8 +149,8 @@ class KinkTable:
     def smoothed(self, a, theta) -> KinkResponse:
         """The log-smoothed terms at ``a`` (> 0) with level ``theta`` (> 0)."""
         spread = np.exp(WINDOW * theta)
-        lo = self.above(a * spread)                  # kinks before lo: full
-        hi = self.above(a / spread, lo=lo)           # kinks from hi on: empty
+        lo = self.above(a * spread, purpose="full")             # kinks before lo: full
+        hi = self.above(a / spread, lo=lo, purpose="empty")     # kinks from hi on: empty
         at = self.pp + lo
         x = self.cum_w[at].copy()
         value = self.cum_rw[at] - a * x
@@ -161,6 +187,10 @@ class KinkTable:
         fills (cum_w <= x)."""
         count = self.count if rows is None else self.count[rows]
         pp = self.pp if rows is None else self.pp[rows]
+        if self.uniform:
+            unit = self.unit if rows is None else self.unit[rows]
+            n = np.floor(np.maximum(x, 0.0) / unit * (1.0 + 1e-15))
+            return np.minimum(n, count).astype(np.int64)
         lo = np.zeros(len(count), dtype=np.int64)
         hi = count.copy()
         idx = np.flatnonzero(lo < hi)

@@ -167,38 +167,41 @@ class _Iterate:
 
 def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration):
     """The interior-point method on ``master`` from bid prices ``pi0``; every certified
-    iterate is offered to ``bounds``. Returns (termination word, iterations, pi)."""
+    iterate is offered to ``bounds``. Returns (termination word, iterations, pi, final
+    iterate)."""
     from .loop import record
 
     fmax = float(net.fare.max(initial=1.0))
     if not master.size:
         _certify(net, master, None, pi0, bounds)
-        return ("optimal" if bounds.gap <= tol else "master_solved"), 0, pi0
+        return ("optimal" if bounds.gap <= tol else "master_solved"), 0, pi0, None
     cur = _Iterate(net, master, pi0, fmax, MU_START)
     pairs = 2 * len(cur.v) + net.n
+    certified = np.inf
     for it in range(1, limit + 1):
         comp = cur.complementarity()
-        if it == 1 or comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds):
+        if it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= 0.1 * certified):
             _certify(net, master, cur, cur.lam * fmax, bounds)
+            certified = comp
         history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
         if bounds.gap <= tol:
-            return "optimal", it, cur.lam * fmax
+            return "optimal", it, cur.lam * fmax, cur
         # the master is solved (its own duality gap far below tol, its residuals met): back
         # to pricing
         if (comp * fmax <= 2 * MU_FLOOR * tol * _size(bounds) and cur.residual <= RESIDUAL
                 and cur.infeasibility <= RESIDUAL):
             _certify(net, master, cur, cur.lam * fmax, bounds, final=True, system=system)
-            return ("optimal" if bounds.gap <= tol else "master_solved"), it, cur.lam * fmax
+            return ("optimal" if bounds.gap <= tol else "master_solved"), it, cur.lam * fmax, cur
         if deadline is not None and time.perf_counter() > deadline:
-            return "time_limit", it, cur.lam * fmax
+            return "time_limit", it, cur.lam * fmax, cur
         mu = comp / pairs
         # the barrier level need not fall below what tol asks of the complementarity: below
         # that the slacks would sink to the rounding of the loads and block the steps
         mu_min = MU_FLOOR * tol * _size(bounds) / (pairs * fmax)
         if not _step(net, system, cur, mu, mu_min):
             _certify(net, master, cur, cur.lam * fmax, bounds, final=True, system=system)
-            return ("optimal" if bounds.gap <= tol else "numerical_error"), it, cur.lam * fmax
-    return "iteration_limit", limit, cur.lam * fmax
+            return ("optimal" if bounds.gap <= tol else "numerical_error"), it, cur.lam * fmax, cur
+    return "iteration_limit", limit, cur.lam * fmax, cur
 
 
 def _step(net, system, cur, mu, mu_min) -> bool:

@@ -249,8 +249,8 @@ def master_phase(state, pi):
     for _ in range(MASTER_ROUNDS):
         m = master.build(net, lo, hi)
         state.master_rounds += 1
-        word, its, pi = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
-                                              state.t0, state.bounds, state.history, state.iterations)
+        word, its, pi, _ = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
+                                                 state.t0, state.bounds, state.history, state.iterations)
         state.iterations += its
         if word in ("optimal", "time_limit", "iteration_limit", "numerical_error"):
             return word
