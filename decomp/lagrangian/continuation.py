@@ -16,8 +16,11 @@ from __future__ import annotations
 START = 0.3
 DROP = 0.3
 END = 3e-3
-#: A level is minimized when the Newton decrement is below this fraction of the excess.
+#: A level is minimized when the Newton decrement is below this fraction of the excess;
 STAGE = 0.1
+#: or it is left after STAGE_ITERATIONS Newton iterations (where the smoothed terms are
+#: nearly kinked themselves, the decrement may cycle at a level).
+STAGE_ITERATIONS = 15
 
 
 class Continuation:
@@ -25,6 +28,14 @@ class Continuation:
 
     def __init__(self, has_kinks, start=None):
         self.theta = float(START if start is None else start) if has_kinks else 0.0
+        self.iterations = 0
+
+    def count(self):
+        """One more Newton iteration at this level."""
+        self.iterations += 1
+
+    def stage_too_long(self) -> bool:
+        return self.iterations >= STAGE_ITERATIONS
 
     def stage_done(self, decrement, excess) -> bool:
         return decrement <= STAGE * excess
@@ -35,4 +46,5 @@ class Continuation:
         if new < END:
             return None
         self.theta = new
+        self.iterations = 0
         return new

@@ -47,10 +47,12 @@ BID_TOL = 1e-6
 #: about C times the step's square (C measured up to 160 on the ladder's warm starts: a
 #: step of at most 3e-5 leaves an error of at most about 1.5e-7).
 FINAL_STEP = 3e-5
-#: Newton without kinks has stalled when its decrement (an estimate of q(pi) - q*) has not
-#: fallen by a factor STALL_FACTOR in STALL_WINDOW iterations (quadratic convergence does
-#: far better): nearly kinked smooth terms (low-CV or gamma demand near closing).
-STALL_WINDOW, STALL_FACTOR = 8, 10.0
+#: Newton without kinks has stalled when neither its decrement (an estimate of q(pi) - q*)
+#: nor the certified gap has fallen by a factor STALL_FACTOR in STALL_WINDOW iterations
+#: (quadratic convergence does far better): nearly kinked smooth terms (low-CV or gamma
+#: demand near closing), where the decrement may also cycle. At most NEWTON_ALONE
+#: iterations in any case.
+STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 50
 #: Rounds of master and pricing at most.
 MASTER_ROUNDS = 8
 #: The master phase's iteration limit (or the caller's, if larger).
@@ -164,7 +166,7 @@ def newton_phase(state, pi0, theta_start=None):
     chords = not net.products.has_kinks     # the curvature corrections of newton (smooth terms only)
     previous = None
     step_len = 0.0
-    decrements = []
+    decrements, gaps = [], []
     while True:
         dirn = newton.direction(net, system, pt, lam, eps_bar, state.floor, previous, chords)
         near = dirn.decrement <= 10.0 * state.tol * max(1.0, abs(pt.exact))
@@ -180,7 +182,10 @@ def newton_phase(state, pi0, theta_start=None):
         if state.out_of_time():
             return "time_limit", pt.pi
         previous = None
-        if cont.theta > 0 and cont.stage_done(dirn.decrement, pt.value - pt.exact):
+        if cont.theta > 0 and len(decrements) >= NEWTON_ALONE:
+            return "identified", pt.pi
+        if cont.theta > 0 and (cont.stage_done(dirn.decrement, pt.value - pt.exact)
+                               or cont.stage_too_long()):
             if cont.lower() is None:
                 return "identified", pt.pi
             lam = newton.LAM_START
@@ -188,7 +193,9 @@ def newton_phase(state, pi0, theta_start=None):
             bounds.offer_dual(pt)
             continue
         decrements.append(dirn.decrement)
-        if cont.theta == 0 and _stalled(decrements):
+        gaps.append(bounds.gap)
+        cont.count()
+        if cont.theta == 0 and (_stalled(decrements) and _stalled(gaps) or len(gaps) >= NEWTON_ALONE):
             return "stalled", bounds.pi
         taken = newton.step(net, system, pt, lam, eps_bar, state.floor, dirn)
         if taken is None:
@@ -206,11 +213,13 @@ def newton_phase(state, pi0, theta_start=None):
         bounds.offer_dual(pt)
 
 
-def _stalled(decrements) -> bool:
-    """The decrement has not fallen by STALL_FACTOR in the last STALL_WINDOW iterations."""
-    if len(decrements) <= STALL_WINDOW:
+def _stalled(values) -> bool:
+    """``values`` (decrements or gaps) have not fallen by STALL_FACTOR in the last
+    STALL_WINDOW iterations (a gap still infinite, before any recovery, has not either)."""
+    if len(values) <= STALL_WINDOW:
         return False
-    return decrements[-1] > decrements[-STALL_WINDOW - 1] / STALL_FACTOR
+    then, now = values[-STALL_WINDOW - 1], values[-1]
+    return not now <= then / STALL_FACTOR
 
 
 def _may_stop(net, pt, dirn, bounds, settle, fare_max) -> bool:
