@@ -123,6 +123,7 @@ class _Iterate:
         self.t = mu / self.up
         self.residual = np.inf
         self.infeasibility = np.inf
+        self.short_steps = 0
 
     def per_group(self, values):
         return np.bincount(self.var.group, weights=values, minlength=self.net.G)
@@ -237,9 +238,13 @@ def _step(net, system, cur, mu, mu_min) -> bool:
         if ap <= 0.0:
             return False
     log.debug("ipm mu %.3g sigma %.3g steps %.3g %.3g", mu, sigma, ap, ad)
+    cur.short_steps = cur.short_steps + 1 if ap < 1e-10 else 0
+    if cur.short_steps >= 3:
+        return False                        # blocked at the boundary: stop and certify
     cur.v = v + ap * dv
     cur.up = up - ap * dv
-    cur.s = s + ap * ds
+    # a slack at the rounding of its leg's load is as good as none: keep it there
+    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
     cur.z = z + ad * dz
     cur.t = t + ad * dt
     cur.lam = lam + ad * dl

@@ -83,6 +83,8 @@ def build(net, lo, hi) -> Master:
     kink = np.arange(int(size.sum())) - np.repeat(np.cumsum(size) - size, size) + np.repeat(k.ptr[:-1] + lo, size)
     products = net.products
     smooth = products.i_smooth
+    # a smooth part with no room beyond its jump (the jump reaches the bound) is no variable
+    smooth = smooth[net.upper[smooth] - products.jump[smooth] > 1e-9 * np.maximum(net.upper[smooth], 1.0)]
     jump = products.jump[smooth]
     if np.any(jump > 0):
         # a jump fixed empty closes the product (its smooth part lies beyond the jump)
