@@ -107,9 +107,9 @@ def gamma_fractile(ratio, mean, std):
     y = np.zeros(len(r))
     if np.any(inside):
         i = np.flatnonzero(inside)
-        from .gamma import _Sub
+        from .gamma import _RATIO_MIN, _Sub
 
-        y[i] = _Sub(g, i).quantile(np.maximum(r[i], 1e-300), 1.0 - r[i])
+        y[i] = _Sub(g, i).quantile(np.maximum(r[i], _RATIO_MIN), 1.0 - r[i])
     x = g.theta * y
     dens = g.density(x)
     with np.errstate(divide="ignore"):

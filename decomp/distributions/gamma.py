@@ -10,10 +10,9 @@ per product (P where y < k, Q beyond, so that neither is a difference near 1).
 S'(x) = Q(k, y), -S''(x) = g(y) / theta.
 
 The fractile solves Q(k, y) = a / f. scipy's inverse (gammainccinv) costs about ten
-evaluations of gammaincc, so it is found here by Newton's method on Q from the
-Wilson-Hilferty approximation (y ~ k (1 - 1/(9k) + z / (3 sqrt(k)))^3, z the normal
-upper quantile), safeguarded by bisection on a bracket, with the residual written as
-(1 - a/f) - P where P is the smaller one: 3 to 5 evaluations to full precision.
+evaluations of gammaincc, so it is found here by Halley's method on log Q (or log P, the
+smaller one) from the Wilson-Hilferty approximation, safeguarded by bisection on a
+bracket: two evaluations to full precision for most products.
 """
 
 from __future__ import annotations
@@ -23,7 +22,12 @@ from scipy import special
 
 #: The fractile's relative accuracy in y.
 _YTOL = 4e-16
+#: A Halley step below this share of y ends the search (its error is about the step cubed).
+_ACCEPT = 1e-7
 _MAX_STEPS = 60
+#: Fractiles further out than this upper tail are taken at it (x is then about 460 stds
+#: out: a seat count with no material sales left).
+_RATIO_MIN = 1e-200
 
 
 class GammaDemand:
@@ -67,15 +71,9 @@ class GammaDemand:
     def quantile(self, ratio, complement):
         """y with Q(k, y) = ratio (complement = 1 - ratio, passed to avoid cancellation)."""
         k = self.k
-        z = -special.ndtri(np.clip(ratio, 1e-300, 1.0))
-        c = 1.0 / (9.0 * k)
-        base = np.maximum(1.0 - c + z * np.sqrt(c), 1e-3)
-        y = k * base ** 3
-        # below shape 1 the Wilson-Hilferty start is poor; there P(k, y) ~ y^k / Gamma(k + 1)
-        small = k < 1.0
-        if np.any(small):
-            ys = np.exp((np.log(np.maximum(complement[small], 1e-320)) + special.gammaln(k[small] + 1.0)) / k[small])
-            y[small] = np.where(complement[small] < 0.5, ys, y[small])
+        y = self._start(ratio, complement)
+        log_ratio = np.log(np.maximum(ratio, 1e-320))
+        log_complement = np.log(np.maximum(complement, 1e-320))
         lo = np.zeros(len(y))
         hi = np.full(len(y), np.inf)
         idx = np.arange(len(y))
@@ -84,43 +82,70 @@ class GammaDemand:
                 break
             yi, ki = y[idx], k[idx]
             use_p = yi < ki
-            tail = np.maximum(_smaller_tail(ki, yi, use_p), 1e-320)
-            # Newton on G(y) = log Q(k, y) - log(ratio) or -(log P(k, y) - log(1 - ratio)), the
-            # smaller of P and Q: both decrease in y, with G' = -g / Q or -g / P
-            resid = np.where(use_p, np.log(np.maximum(complement[idx], 1e-320)) - np.log(tail),
-                             np.log(tail) - np.log(np.maximum(ratio[idx], 1e-320)))
-            lo[idx] = np.where(resid > 0, yi, lo[idx])
-            hi[idx] = np.where(resid > 0, hi[idx], yi)
-            dens = np.exp(special.xlogy(ki - 1.0, yi) - yi - self._lgk[idx])
             with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-                new = yi + resid * tail / dens
-            done = (np.abs(new - yi) <= _YTOL * np.maximum(yi, 1e-300)) | (resid == 0)
+                tail = _smaller_tail(ki, yi, use_p)
+                # a tail below 1e-300 (an overshoot far out in Q) has lost its digits: y is
+                # too large, and is halved towards its bracket
+                lost = ~use_p & (tail < 1e-300)
+                log_tail = np.log(np.maximum(tail, 1e-320))
+                # h(y) = log Q(k, y) - log(ratio), or log(1 - ratio) - log P(k, y): the smaller
+                # of P and Q, both decreasing in y, h' = -g / tail
+                resid = np.where(use_p, log_complement[idx] - log_tail, log_tail - log_ratio[idx])
+                resid[lost] = -1.0
+                lo[idx] = np.where(resid > 0, yi, lo[idx])
+                hi[idx] = np.where(resid > 0, hi[idx], yi)
+                ratio_g = np.exp((ki - 1.0) * np.log(yi) - yi - self._lgk[idx] - log_tail)
+                newton = resid / ratio_g
+                # Halley: h'' / h' = (k - 1) / y - 1 + g / Q (Q branch) or - g / P (P branch)
+                bend = (ki - 1.0) / yi - 1.0 + np.where(use_p, -ratio_g, ratio_g)
+                step = newton / (1.0 + 0.5 * newton * bend)
+            step = np.where(np.isfinite(step) & (np.abs(step) < np.abs(2.0 * newton)), step, newton)
+            new = yi + step
+            # Halley's error is cubic in the step: after a step below _ACCEPT y the fractile
+            # is exact to double precision, and no evaluation is spent to confirm it
+            done = ~lost & ((np.abs(step) <= _ACCEPT * yi) | (resid == 0))
             grow = np.where(np.isfinite(hi[idx]), hi[idx], 4.0 * np.maximum(yi, 1e-300))
-            bad = ~done & (~np.isfinite(new) | (new <= lo[idx]) | (new >= grow))
+            bad = lost | ~done & (~np.isfinite(new) | (new <= lo[idx]) | (new >= grow))
             fallback = np.where(np.isfinite(hi[idx]), 0.5 * (lo[idx] + hi[idx]), grow)
             new = np.where(bad, fallback, new)
-            y[idx] = np.where(done & ~np.isfinite(new), yi, new)
-            idx = idx[~done]
+            y[idx] = np.where(np.isfinite(new) & (new > 0), new, yi)
+            open_ = np.isinf(hi[idx]) | (hi[idx] - lo[idx] > _YTOL * hi[idx])
+            idx = idx[~done & open_]
+        return y
+
+    def _start(self, ratio, complement):
+        """Wilson and Hilferty's approximation, y ~ k (1 - 1/(9k) + z / (3 sqrt(k)))^3 with z
+        the normal upper quantile; below shape 1, P(k, y) ~ y^k / Gamma(k + 1) for small P."""
+        k = self.k
+        z = -special.ndtri(np.clip(ratio, 1e-300, 1.0))
+        c = 1.0 / (9.0 * k)
+        y = k * np.maximum(1.0 - c + z * np.sqrt(c), 1e-3) ** 3
+        small = k < 1.0
+        if np.any(small):
+            ys = np.exp((np.log(np.maximum(complement[small], 1e-320)) + special.gammaln(k[small] + 1.0)) / k[small])
+            y[small] = np.where(complement[small] < 0.5, ys, y[small])
         return y
 
     def respond(self, a):
-        """(x, w, value): the fractile, -dx/da and f S(x) - a x at bid-price sums ``a``."""
+        """(x, w, value): the fractile, -dx/da and f S(x) - a x at bid-price sums ``a``.
+
+        At the fractile Q = a/f and P = 1 - a/f, so f S(x) - a x = m (f - a) - f x g(y):
+        the value needs no further incomplete gamma function."""
         f = self.fare
-        ratio = np.clip(a / f, 1e-300, 1.0)
+        ratio = np.clip(a / f, _RATIO_MIN, 1.0)
         inside = ratio < 1.0
         y = np.zeros(self.n)
         if np.any(inside):
             i = np.flatnonzero(inside)
             complement = (f[i] - a[i]) / f[i]
-            sub = _Sub(self, i)
-            y[i] = sub.quantile(ratio[i], complement)
+            y[i] = _Sub(self, i).quantile(ratio[i], complement)
         x = self.theta * y
-        g = self._g(y)
+        g = np.where(inside, self._g(y), 0.0)
         with np.errstate(divide="ignore", over="ignore"):
             w = np.where(inside & (g > 0), self.theta / (f * g), 0.0)
         w = np.minimum(w, 1e300)
-        value = float(np.sum(f * self.sales(x) - a * x))
-        return x, w, value
+        gain = np.where(inside, self.mean * (f - a) - f * x * g, 0.0)
+        return x, w, float(np.sum(gain))
 
     # -- sales --------------------------------------------------------------------------------
     def _params(self, idx):
@@ -140,6 +165,26 @@ class GammaDemand:
         with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
             g = np.where(y > 0, np.exp(special.xlogy(k - 1.0, y) - y - lgk), 0.0)
         return m * p + x * (q - g)
+
+    def terms(self, x):
+        """(S(x), S'(x), -S''(x)) of every product: one incomplete gamma function each."""
+        x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
+        y = x / self.theta
+        low = y < self.k
+        small = _smaller_tail(self.k, y, low)
+        p = np.where(low, small, 1.0 - small)
+        q = np.where(low, 1.0 - small, small)
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+            g = np.where(y > 0, np.exp(special.xlogy(self.k - 1.0, y) - y - self._lgk), 0.0)
+        return self.mean * p + x * (q - g), q, self.density(x)
+
+    def subset(self, idx):
+        """The products ``idx`` alone (parameters sliced, nothing computed again)."""
+        out = object.__new__(GammaDemand)
+        for name in ("fare", "mean", "std", "k", "theta", "_lgk", "jump"):
+            setattr(out, name, getattr(self, name)[idx])
+        out.n = len(out.fare)
+        return out
 
     def slope(self, x, idx=None):
         """S'(x) = Q(k, x / theta)."""
@@ -178,3 +223,4 @@ class _Sub:
         self._lgk = parent._lgk[idx]
 
     quantile = GammaDemand.quantile
+    _start = GammaDemand._start

@@ -92,6 +92,14 @@ class NormalDemand:
         m, s = (self.mean, self.std) if idx is None else (self.mean[idx], self.std[idx])
         return _normal.pdf((np.asarray(x, dtype=np.float64) - m) / s) / s
 
+    def terms(self, x):
+        """(S(x), S'(x), -S''(x)) of every product."""
+        return self.sales(x), self.slope(x), self.density(x)
+
+    def subset(self, idx):
+        """The products ``idx`` alone."""
+        return NormalDemand(self.fare[idx], self.mean[idx], self.std[idx])
+
     def revenue(self, x):
         """sum_j f_j S_j(x_j), as f s (G(-m/s) - G(z))."""
         z = (np.asarray(x, dtype=np.float64) - self.mean) / self.std

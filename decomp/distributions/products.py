@@ -243,35 +243,12 @@ class Products:
                 out.append((fam, np.flatnonzero(hit), loc[hit]))
         return out
 
-    def smooth_terms(self, products, x):
-        """(f S(x), f S'(x), -f S''(x)) of the smooth products ``products`` at their whole
-        allocations ``x`` (jump included)."""
-        x = np.asarray(x, dtype=np.float64)
-        value, slope, curv = np.zeros(len(x)), np.zeros(len(x)), np.zeros(len(x))
-        for fam, pos, loc in self._by_family(products):
-            f = fam.fare[loc]
-            value[pos] = f * fam.sales(x[pos], loc)
-            slope[pos] = f * fam.slope(x[pos], loc)
-            curv[pos] = f * fam.density(x[pos], loc)
-        return value, slope, curv
-
-    def smooth_slopes(self, products, x):
-        """(f S'(x), -f S''(x)) of the smooth products ``products`` at their whole allocations."""
-        x = np.asarray(x, dtype=np.float64)
-        slope, curv = np.zeros(len(x)), np.zeros(len(x))
-        for fam, pos, loc in self._by_family(products):
-            f = fam.fare[loc]
-            slope[pos] = f * fam.slope(x[pos], loc)
-            curv[pos] = f * fam.density(x[pos], loc)
-        return slope, curv
-
-    def smooth_sales(self, products, x):
-        """f S(x) of the smooth products ``products`` (only the sales, for line searches)."""
-        x = np.asarray(x, dtype=np.float64)
-        value = np.zeros(len(x))
-        for fam, pos, loc in self._by_family(products):
-            value[pos] = fam.fare[loc] * fam.sales(x[pos], loc)
-        return value
+    def smooth_part(self, products):
+        """The smooth products ``products`` as a :class:`SmoothPart` (their revenue, slope
+        and curvature at allocations, evaluated again and again by the interior-point
+        method)."""
+        return SmoothPart([(fam.subset(loc), pos) for fam, pos, loc in self._by_family(products)],
+                          len(products))
 
     def marginal_value(self, products, x):
         """f S'(x+) of the products ``products`` at their allocations ``x``: the value of the
@@ -303,3 +280,24 @@ class Products:
         return self._row[np.asarray(products, dtype=np.int64)]
 
 
+
+
+class SmoothPart:
+    """A fixed list of smooth (normal or gamma) products, each family's parameters
+    gathered once: f S(x), f S'(x) and -f S''(x) at their whole allocations x (jump
+    included)."""
+
+    def __init__(self, parts, n):
+        self.parts = parts        # [(family object over the part's products, their positions)]
+        self.n = n
+
+    def terms(self, x):
+        """(f S(x), f S'(x), -f S''(x)), from one tail probability per product."""
+        x = np.asarray(x, dtype=np.float64)
+        value, slope, curv = np.zeros(self.n), np.zeros(self.n), np.zeros(self.n)
+        for fam, pos in self.parts:
+            sales, sl, dens = fam.terms(x[pos])
+            value[pos] = fam.fare * sales
+            slope[pos] = fam.fare * sl
+            curv[pos] = fam.fare * dens
+        return value, slope, curv

@@ -8,10 +8,22 @@ at level mu,
 
     min  -F(v, y) - mu sum (log v + log(u - v)) - mu sum (log y + log(w - y)) - mu sum log s,
 
-is solved along the central path by Mehrotra's predictor-corrector (Mehrotra 1992):
-an affine-scaling predictor gives sigma = (mu_aff / mu)^3, and the corrector aims at
-sigma mu with the predictor's second-order terms, improved by Gondzio's centrality
-correctors (Gondzio 1996). Eliminating the variables leaves one system of leg size,
+is solved along the central path in two modes (the adaptive barrier strategy with a
+monotone safeguard of Nocedal, Waechter and Waltz 2009):
+
+- free mode, Mehrotra's predictor-corrector (Mehrotra 1992): an affine-scaling predictor
+  gives sigma = (mu_aff / mu)^3, and the corrector aims at sigma mu with the predictor's
+  second-order terms, improved by Gondzio's centrality correctors (Gondzio 1996). A
+  master of smooth parts only takes one step length for primal and dual and stays in
+  the wide neighbourhood of the central path (long-step path following); with kinks,
+  primal and dual lengths are separate, as in linear programming;
+- monotone mode, entered when a free step is short (the iterate has lost the central
+  path: nearly kinked revenue, low-CV or gamma demand near its corner): Newton on the
+  barrier problem at a fixed level (Fiacco and McCormick) until that problem is solved,
+  then back to free mode. Damped Newton on the strictly convex barrier function
+  converges from any interior point, which the free mode alone does not promise.
+
+Eliminating the variables leaves one system of leg size,
 with the dual Hessian's pattern (:class:`.hessian.LegSystem`),
 
     (A D A^T + S / lambda) d_lambda = A D rho + targets / lambda - s,
@@ -48,10 +60,21 @@ TO_BOUNDARY = 0.995
 #: (+0.1) the current one, the products kept within [BETA_LOW, BETA_HIGH] times the target,
 #: kept only if the step grows by GROWTH of the trial step.
 CORRECTORS, STRETCH, BETA_LOW, BETA_HIGH, GROWTH = 2, 2.0, 0.1, 10.0, 0.1
+#: Steps keep every complementarity product above NEIGHBOURHOOD times their average,
+#: shrinking both by NEIGHBOURHOOD_SHRINK at most NEIGHBOURHOOD_TRIES times.
+NEIGHBOURHOOD, NEIGHBOURHOOD_SHRINK, NEIGHBOURHOOD_TRIES = 1e-3, 0.8, 30
 #: Armijo's sufficient-decrease fraction and the backtracking factor (all-primal masters).
 ARMIJO, BACKTRACK = 1e-4, 0.5
 #: The start is scaled so that no leg is fuller than this (all-primal masters).
 FILL = 0.9
+#: A free (predictor-corrector) step shorter than POOR_STEP hands over to the monotone
+#: mode; that mode's barrier problem counts as solved when its optimality error is
+#: within KAPPA_EPS times the level (Ipopt's kappa_eps; Nocedal, Waechter and Waltz 2009
+#: safeguard the free mode the same way).
+POOR_STEP, KAPPA_EPS = 0.1, 10.0
+#: A solved monotone level is followed by one at most KAPPA_MU times it, or its power
+#: THETA_MU (Ipopt's kappa_mu and theta_mu).
+KAPPA_MU, THETA_MU = 0.2, 1.5
 #: The certificate (an exact dual evaluation over the whole problem and a feasible
 #: allocation's revenue) is computed at the first iteration and then at each once the
 #: complementarity is within CERTIFY_WITHIN tol of the objective.
@@ -92,22 +115,24 @@ class _Iterate:
         self.smooth = master.smooth
         lam = np.maximum(pi / fmax, 1e-12)
         a = self.prices(lam)
-        # each variable centred at (lambda, mu): g(v) - a + mu/v - mu/(u - v) = 0, by bisection
-        lo, hi = np.zeros(len(var.ub)), var.ub.copy()
-        v = 0.5 * var.ub
-        for _ in range(60):
-            g, _ = self.slopes(v)
-            F = g - a + mu / v - mu / (var.ub - v)
-            lo = np.where(F > 0, v, lo)
-            hi = np.where(F > 0, hi, v)
-            v = 0.5 * (lo + hi)
         n = var.n_smooth
+        self.part = net.products.smooth_part(self.smooth) if n else None
+        self._cache = None
+        v = np.empty(len(var.ub))
+        # kinks: centred at (lambda, mu), slope - a + mu/v - mu/(u - v) = 0
+        v[n:] = _centre(lambda _, k=var.slope: k, a[n:], var.ub[n:], mu)
         if n:
             # smooth parts start at their own responses to the bid prices (the fractile beyond
             # the offset): where the curvature is steep the barrier's centre is far from there
-            # in the part's own scale, and the method would crawl back
+            # in the part's own scale, and the method would crawl back; closed ones (no
+            # response beyond the offset) are centred like the kinks
             x = net.products.subset(self.smooth).respond(a[:n] * fmax).x - var.offset
-            v[:n] = np.where(x > 0, x, v[:n])
+            v[:n] = x
+            closed = np.flatnonzero(~(x > 0))
+            if len(closed):
+                part = net.products.smooth_part(self.smooth[closed])
+                off = var.offset[closed]
+                v[closed] = _centre(lambda w: part.terms(off + w)[1] / fmax, a[closed], var.ub[closed], mu)
         v = np.clip(v, 1e-9 * var.ub, (1.0 - 1e-9) * var.ub)
         # primal feasible: scaled into the capacities
         load = net.A_g @ self.per_group(v)
@@ -123,7 +148,7 @@ class _Iterate:
         self.t = mu / self.up
         self.residual = np.inf
         self.infeasibility = np.inf
-        self.short_steps = 0
+        self.last_steps = (1.0, 1.0)
 
     def per_group(self, values):
         return np.bincount(self.var.group, weights=values, minlength=self.net.G)
@@ -131,6 +156,14 @@ class _Iterate:
     def prices(self, lam):
         """a per variable: the sum of its product's leg multipliers."""
         return (self.net.AT_g @ lam)[self.var.group]
+
+    def _terms(self, v):
+        """(f S, f S', -f S'') of the smooth parts at ``v`` (fare_max units), kept for the
+        last point asked: the line search's accepted trial is the next iterate."""
+        x = self.var.offset + v[:self.var.n_smooth]
+        if self._cache is None or not np.array_equal(self._cache[0], x):
+            self._cache = (x, *(t / self.fmax for t in self.part.terms(x)))
+        return self._cache[1:]
 
     def slopes(self, v):
         """(g, h): the revenue's slope and -curvature per variable (fare_max units)."""
@@ -140,9 +173,7 @@ class _Iterate:
         h = np.zeros(len(v))
         g[n:] = var.slope
         if n:
-            sl, cv = self.net.products.smooth_slopes(self.smooth, var.offset + v[:n])
-            g[:n] = sl / self.fmax
-            h[:n] = cv / self.fmax
+            _, g[:n], h[:n] = self._terms(v)
         return g, h
 
     def revenue(self, v):
@@ -151,7 +182,7 @@ class _Iterate:
         n = var.n_smooth
         out = float(var.slope @ v[n:])
         if n:
-            out += float(self.net.products.smooth_sales(self.smooth, var.offset + v[:n]).sum()) / self.fmax
+            out += float(self._terms(v)[0].sum())
         return out
 
     def primal_residual(self):
@@ -179,6 +210,7 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     cur = _Iterate(net, master, pi0, fmax, MU_START)
     pairs = 2 * len(cur.v) + net.n
     certified = np.inf
+    level, next_level = None, np.inf
     for it in range(1, limit + 1):
         comp = cur.complementarity()
         if it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= 0.1 * certified):
@@ -199,10 +231,58 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         # the barrier level need not fall below what tol asks of the complementarity: below
         # that the slacks would sink to the rounding of the loads and block the steps
         mu_min = MU_FLOOR * tol * _size(bounds) / (pairs * fmax)
-        if not _step(net, system, cur, mu, mu_min):
+        if level is None:
+            # free mode: Mehrotra's predictor-corrector; a poor step (or none) hands over to
+            # the monotone mode at the current level, or at the next one if lower
+            if not _step(net, system, cur, mu, mu_min) or min(cur.last_steps) < POOR_STEP:
+                level = max(min(mu, next_level), mu_min)
+            continue
+        # monotone mode: Newton on the barrier problem at a fixed level until it is solved
+        # (its optimality error within KAPPA_EPS of the level); then back to free mode, the
+        # next monotone level lower by KAPPA_MU (or to the power THETA_MU), so that the
+        # levels fall however the modes alternate
+        taken, error = _barrier_step(net, system, cur, level)
+        if not taken:
             _certify(net, master, cur, cur.lam * fmax, bounds, final=True, system=system)
             return ("optimal" if bounds.gap <= tol else "numerical_error"), it, cur.lam * fmax, cur
+        if error <= KAPPA_EPS * level:
+            next_level = min(KAPPA_MU * level, level ** THETA_MU)
+            level = None
     return "iteration_limit", limit, cur.lam * fmax, cur
+
+
+def _barrier_step(net, system, cur, mu):
+    """One primal-dual Newton step on the barrier problem at the fixed level mu
+    (Fiacco-McCormick); (taken, the barrier problem's optimality error before it)."""
+    var = cur.var
+    g, h = cur.slopes(cur.v)
+    rd = g - cur.prices(cur.lam) + cur.z - cur.t
+    rp = cur.primal_residual()
+    cur.residual = float(np.abs(rd).max(initial=0.0))
+    cur.infeasibility = float((np.abs(rp) / np.maximum(cur.capacity, 1.0)).max(initial=0.0))
+    v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
+    err = max(cur.residual, cur.infeasibility, float(np.abs(v * z - mu).max(initial=0.0)),
+              float(np.abs(up * t - mu).max(initial=0.0)), float(np.abs(s * lam - mu).max(initial=0.0)))
+    solve = _Solver(net, system, cur, h, rp)
+    if solve.failed:
+        return False, err
+    direction = solve(rd, mu - v * z, mu - up * t, mu - s * lam)
+    dv, ds, dl, dz, dt = direction
+    frac = max(TO_BOUNDARY, 1.0 - mu)
+    ap, ad = _steps(cur, direction)
+    ap, ad = frac * ap, frac * ad
+    if var.n_smooth:
+        ap = _armijo(cur, g, dv, ds, ap, mu)
+        if ap <= 0.0:
+            return False, err
+    log.debug("barrier mu %.3g err %.3g steps %.3g %.3g", mu, err, ap, ad)
+    cur.v = v + ap * dv
+    cur.up = up - ap * dv
+    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
+    cur.z = z + ad * dz
+    cur.t = t + ad * dt
+    cur.lam = lam + ad * dl
+    return True, err
 
 
 def _step(net, system, cur, mu, mu_min) -> bool:
@@ -233,14 +313,19 @@ def _step(net, system, cur, mu, mu_min) -> bool:
     frac = max(TO_BOUNDARY, 1.0 - mu)
     ap, ad = _steps(cur, direction)
     ap, ad = frac * ap, frac * ad
+    if var.n_smooth == len(var.ub):
+        # a master of smooth parts only is a nonlinear program: one step length for primal
+        # and dual (with two, a part opening from 0 multiplies its v by far more than its
+        # multiplier falls) and the wide neighbourhood of long-step path-following methods;
+        # with kinks, separate lengths as in linear programming
+        ap = ad = min(ap, ad)
+        ap, ad = _neighbourhood(cur, direction, ap, ad)
     if var.n_smooth:
         ap = _armijo(cur, g, dv, ds, ap, target)
         if ap <= 0.0:
             return False
     log.debug("ipm mu %.3g sigma %.3g steps %.3g %.3g", mu, sigma, ap, ad)
-    cur.short_steps = cur.short_steps + 1 if ap < 1e-10 else 0
-    if cur.short_steps >= 3:
-        return False                        # blocked at the boundary: stop and certify
+    cur.last_steps = (ap, ad)
     cur.v = v + ap * dv
     cur.up = up - ap * dv
     # a slack at the rounding of its leg's load is as good as none: keep it there
@@ -249,6 +334,19 @@ def _step(net, system, cur, mu, mu_min) -> bool:
     cur.t = t + ad * dt
     cur.lam = lam + ad * dl
     return True
+
+
+def _centre(slope, a, ub, mu, rounds=60):
+    """v in (0, ub) with slope(v) - a + mu/v - mu/(ub - v) = 0, by bisection (the left
+    side decreases in v: slope is a concave revenue's)."""
+    lo, hi = np.zeros(len(ub)), ub.copy()
+    v = 0.5 * ub
+    for _ in range(rounds):
+        F = slope(v) - a + mu / v - mu / (ub - v)
+        lo = np.where(F > 0, v, lo)
+        hi = np.where(F > 0, hi, v)
+        v = 0.5 * (lo + hi)
+    return v
 
 
 def _steps(cur, direction):
@@ -319,6 +417,23 @@ def _centrality(cur, solve, direction, target):
             break
         direction, ap, ad = new, ap_new, ad_new
     return direction
+
+
+def _neighbourhood(cur, direction, ap, ad):
+    """Shorten both steps until every complementarity product is at least NEIGHBOURHOOD
+    times their average (the wide neighbourhood of the central path of long-step
+    path-following methods): a product far below the others blocks later steps."""
+    dv, ds, dl, dz, dt = direction
+    for _ in range(NEIGHBOURHOOD_TRIES):
+        products = ((cur.v + ap * dv) * (cur.z + ad * dz), (cur.up - ap * dv) * (cur.t + ad * dt),
+                    (cur.s + ap * ds) * (cur.lam + ad * dl))
+        total = sum(float(p.sum()) for p in products)
+        pairs = sum(len(p) for p in products)
+        low = min(float(p.min(initial=np.inf)) for p in products)
+        if low >= NEIGHBOURHOOD * total / pairs:
+            break
+        ap, ad = NEIGHBOURHOOD_SHRINK * ap, NEIGHBOURHOOD_SHRINK * ad
+    return ap, ad
 
 
 def _longest(value, change):

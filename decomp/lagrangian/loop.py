@@ -53,6 +53,11 @@ FINAL_STEP = 3e-5
 #: demand near closing), where the decrement may also cycle. At most NEWTON_ALONE
 #: iterations in any case.
 STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 50
+#: It has also stalled when, in SHORT_WINDOW iterations, SHORT_COUNT arc searches ended
+#: at a step of at most SHORT_STEP: near a minimizer with a Lipschitz Hessian the full
+#: step is accepted (the local theory of projected Newton), so repeated halving means
+#: the quadratic model fails at this scale (an allocation's steep fall to 0 near closing).
+SHORT_WINDOW, SHORT_COUNT, SHORT_STEP = 3, 2, 1.0 / 16.0
 #: Rounds of master and pricing at most.
 MASTER_ROUNDS = 8
 #: The master phase's iteration limit (or the caller's, if larger).
@@ -166,7 +171,7 @@ def newton_phase(state, pi0, theta_start=None):
     chords = not net.products.has_kinks     # the curvature corrections of newton (smooth terms only)
     previous = None
     step_len = 0.0
-    decrements, gaps = [], []
+    decrements, gaps, steps = [], [], []
     while True:
         dirn = newton.direction(net, system, pt, lam, eps_bar, state.floor, previous, chords)
         near = dirn.decrement <= 10.0 * state.tol * max(1.0, abs(pt.exact))
@@ -195,7 +200,8 @@ def newton_phase(state, pi0, theta_start=None):
         decrements.append(dirn.decrement)
         gaps.append(bounds.gap)
         cont.count()
-        if cont.theta == 0 and (_stalled(decrements) and _stalled(gaps) or len(gaps) >= NEWTON_ALONE):
+        if cont.theta == 0 and (_stalled(decrements) and _stalled(gaps) or _halving(steps)
+                                or len(gaps) >= NEWTON_ALONE):
             return "stalled", bounds.pi
         taken = newton.step(net, system, pt, lam, eps_bar, state.floor, dirn)
         if taken is None:
@@ -210,6 +216,7 @@ def newton_phase(state, pi0, theta_start=None):
             return ("optimal" if bounds.gap <= state.tol else "no_decrease"), bounds.pi
         previous = pt if chords else None
         pt, _, step_len, lam = taken
+        steps.append(step_len)
         bounds.offer_dual(pt)
 
 
@@ -220,6 +227,11 @@ def _stalled(values) -> bool:
         return False
     then, now = values[-STALL_WINDOW - 1], values[-1]
     return not now <= then / STALL_FACTOR
+
+
+def _halving(steps) -> bool:
+    """SHORT_COUNT of the last SHORT_WINDOW arc searches ended at a step <= SHORT_STEP."""
+    return sum(t <= SHORT_STEP for t in steps[-SHORT_WINDOW:]) >= SHORT_COUNT
 
 
 def _may_stop(net, pt, dirn, bounds, settle, fare_max) -> bool:
