@@ -230,18 +230,26 @@ def _discrete_argmax(f, m, s, nb, a, start):
         hi[up] = hi[up] + step[up]
         step[up] *= 2.0
         up = up[~(_discrete_sf(hi[up], m[up], s[up], nb[up]) <= ratio[up])]
-    down = np.flatnonzero(low_enough & (hi > 0))
-    lo[down] = np.maximum(hi[down] - 1.0, -1.0)
+    # from above: steps that double too (an allocation of 1e12 seats on an unlimited leg
+    # starts this search there), never below 0, the smallest answer
+    down = np.flatnonzero(low_enough & (hi > 0) & (ratio > 0))
+    step = np.ones(len(a))
     while len(down):
-        ok = _discrete_sf(lo[down], m[down], s[down], nb[down]) <= ratio[down]
-        hi[down[ok]] = lo[down[ok]]
-        lo[down[ok]] = np.maximum(lo[down[ok]] - 2.0 * np.maximum(hi[down[ok]] - lo[down[ok]], 1.0), -1.0)
+        trial = np.maximum(hi[down] - step[down], 0.0)
+        ok = _discrete_sf(trial, m[down], s[down], nb[down]) <= ratio[down]
+        lo[down] = np.where(ok, lo[down], trial)
+        hi[down] = np.where(ok, trial, hi[down])
+        step[down] *= 2.0
         down = down[ok & (hi[down] > 0)]
     while True:
         idx = np.flatnonzero(hi - lo > 1)
         if not len(idx):
             break
         mid = np.floor(0.5 * (lo[idx] + hi[idx]))
+        # beyond 2**53 whole numbers are not all floats: a midpoint equal to an end ends there
+        stuck = (mid <= lo[idx]) | (mid >= hi[idx])
+        lo[idx[stuck]] = hi[idx[stuck]]
+        idx, mid = idx[~stuck], mid[~stuck]
         ok = _discrete_sf(mid, m[idx], s[idx], nb[idx]) <= ratio[idx]
         hi[idx] = np.where(ok, mid, hi[idx])
         lo[idx] = np.where(ok, lo[idx], mid)

@@ -12,6 +12,7 @@ from decomp import threads as _threads
 from decomp.generator import generate
 from decomp import lagrangian as m_lagr
 from decomp.lagrangian.alternatives import lbfgsb_termination
+from decomp import demand_mix
 from decomp.result import IterationRecord
 
 pytestmark = pytest.mark.solver
@@ -160,6 +161,30 @@ def test_newton_iteration_and_time_limits(rungs):
     r = solve(inst, "pnlp", "lagrangian", SolverOptions(time_limit=1e-6))
     assert r.termination is Termination.TIME_LIMIT
     assert r.solution_status is SolutionStatus.FEASIBLE
+
+
+@pytest.mark.parametrize("mix", [None, "gamma", "lowcv", "poisson", "negbin", "mix"])
+def test_unlimited_legs_written_as_capacity_1e12(rungs, mix):
+    # The README writes an unlimited leg as capacity 1e12. Every fifth leg of p100 so: the
+    # method must still certify (it ended numerical_error), and its message must state the
+    # gap the result carries (it said 7.6e-4 beside a gap field of 3.2e-12).
+    inst = rungs["p100"]
+    cap = inst.capacity.copy()
+    cap[::5] = 1e12
+    inst = inst.with_forecast(capacity=cap)
+    if mix is not None:
+        inst = demand_mix.apply(inst, demand_mix.NAMED[mix], seed=1)
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL and r.solution_status is SolutionStatus.OPTIMAL, r.message
+    assert r.message.endswith(f"certified gap {r.gap:.3g}"), r.message
+    # weak duality (a mathematical fact): the certificate's dual bound is above its primal
+    assert r.certificate.dual_value >= r.certificate.primal_value - 1e-9 * abs(r.objective)
+    assert np.all(r.bid_price_array[::5] == 0.0)       # a leg that cannot fill has no value
+    if mix is None:
+        # Reference: Ipopt (cyipopt) on the same arrays, normal demand
+        ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-10))
+        assert ref.termination is Termination.OPTIMAL
+        assert r.objective == pytest.approx(ref.objective, rel=1e-8)
 
 
 def test_dense_and_schur_factorizations_agree():

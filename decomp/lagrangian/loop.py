@@ -288,7 +288,7 @@ def _outcome(state, word) -> Outcome:
     term, meaning = STATUS[word] if word in STATUS else (Termination.NUMERICAL_ERROR, word)
     if term is not Termination.OPTIMAL and bounds.gap <= state.tol:
         term, word, meaning = Termination.OPTIMAL, "optimal", STATUS["optimal"][1]
-    msg = f"{meaning} after {state.iterations} iterations, certified gap {bounds.gap:.3g}"
+    msg = f"{meaning} after {state.iterations} iterations"
     if state.master_rounds:
         msg += (f" (projected Newton {state.newton_iterations}, then {state.master_rounds} round(s) of the "
                 f"restricted problem by the interior-point method)")
