@@ -128,6 +128,8 @@ class Products:
         for idx, fam in ((self.i_norm, self.normal), (self.i_gam, self.gamma)):
             if not len(idx):
                 continue
+            if len(idx) == self.n:
+                idx = slice(None)           # one family: views, not copies of every array
             if fam is self.normal and normal_part is not None:
                 xs, ws, v = normal_part
             else:

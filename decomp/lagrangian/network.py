@@ -227,10 +227,9 @@ class Network:
         the kinks are smoothed (``value`` is the smoothed dual, ``exact`` stays q(pi))."""
         self.evaluations += 1
         a_g = self.AT_g @ pi
-        normal_part = None
-        if self._chunks is not None:
-            normal_part = self._normal_threads(a_g)
-        r = self.products.respond(self.to_products(a_g), smoothing, normal_part)
+        a = self.to_products(a_g)
+        normal_part = None if self._chunks is None else self._normal_threads(a)
+        r = self.products.respond(a, smoothing, normal_part)
         x_g, w_g = self.to_groups(r.x), self.to_groups(r.w)
         load = self.A_g @ x_g
         cp = float(self.cap @ pi)
@@ -256,10 +255,10 @@ class Network:
         self._chunks = [(int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
         self._pool = _threads.pool(threads)
 
-    def _normal_threads(self, a_g):
-        """The normal products' (x, w, value), their slices on the thread pool."""
+    def _normal_threads(self, a):
+        """The normal products' (x, w, value) at bid-price sums ``a``, their slices on the
+        thread pool."""
         P = self.n_products
-        a = self.to_products(a_g)
         out = (np.empty(P), np.empty(P), np.empty(P))
         normal = self.products.normal
 
