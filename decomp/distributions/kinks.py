@@ -27,6 +27,7 @@ sums, so a smoothed evaluation costs a binary search plus the few kinks near a.
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 from scipy import special
@@ -58,18 +59,39 @@ class KinkTable:
         np.cumsum(count, out=self.ptr[1:])
         self.slope = np.asarray(slope, dtype=np.float64)
         self.width = np.asarray(width, dtype=np.float64)
-        # prefix sums with K + 1 entries per owner: entry pp[o] + n = sum over its first n kinks
-        self.pp = self.ptr[:-1] + np.arange(len(count))
-        self.cum_w = self._prefix(self.width)
-        self.cum_rw = self._prefix(self.slope * self.width)
-        # every owner's kinks of one width (seats of discrete demand; a single kink): counting
-        # the kinks an allocation fills is then a division
-        self.unit = np.where(count > 0, self.width[np.minimum(self.ptr[:-1], max(len(self.width) - 1, 0))]
-                             if len(self.width) else 1.0, 1.0)
-        self.uniform = bool(np.all(self.width == np.repeat(self.unit, count)))
         #: the last counts found per purpose (a guess the next search checks first: between
         #: iterations most products keep their position among their kinks)
         self._last = {}
+
+    # The prefix sums and widths below are computed on first use: a family's own table is
+    # only concatenated into the products' table, and building them twice was half the
+    # table's build time (negative binomial at 100,000 products).
+    @functools.cached_property
+    def pp(self):
+        """Where each owner's prefix sums start: they have K + 1 entries per owner, entry
+        pp[o] + n the sum over its first n kinks."""
+        return self.ptr[:-1] + np.arange(len(self.count))
+
+    @functools.cached_property
+    def cum_w(self):
+        return self._prefix(self.width)
+
+    @functools.cached_property
+    def cum_rw(self):
+        return self._prefix(self.slope * self.width)
+
+    @functools.cached_property
+    def unit(self):
+        """Each owner's first width: when all its kinks share it (seats of discrete demand; a
+        single kink), counting the kinks an allocation fills is a division."""
+        if not len(self.width):
+            return np.ones(len(self.count))
+        first = self.width[np.minimum(self.ptr[:-1], len(self.width) - 1)]
+        return np.where(self.count > 0, first, 1.0)
+
+    @functools.cached_property
+    def uniform(self):
+        return bool(np.all(self.width == np.repeat(self.unit, self.count)))
 
     def _prefix(self, values):
         n_own = len(self.count)
