@@ -94,13 +94,24 @@ class KinkTable:
         return bool(np.all(self.width == np.repeat(self.unit, self.count)))
 
     def _prefix(self, values):
+        """Per owner, the K + 1 prefix sums of its kinks' ``values`` (0 first), in one
+        cumulative sum: each owner's leading entry holds minus the previous owner's total,
+        so the running sum starts again near 0 there. (Summing across all owners and then
+        subtracting each owner's base, as before, lost digits to the base: about 1e-6 of a
+        fare per entry in a table of 40 million kinks. The residual at each start here is
+        the rounding of one owner's total.)"""
         n_own = len(self.count)
         out = np.zeros(len(values) + n_own)
-        if len(values):
-            pos = np.arange(len(values)) + np.repeat(np.arange(n_own), self.count) + 1
-            out[pos] = values
-            np.cumsum(out, out=out)
-            out -= np.repeat(out[self.pp], self.count + 1)
+        if not len(values):
+            return out
+        head = np.zeros(len(out), dtype=bool)
+        head[self.pp] = True
+        out[~head] = values
+        totals = np.zeros(n_own)
+        some = self.count > 0
+        totals[some] = np.add.reduceat(values, self.ptr[:-1][some])
+        out[self.pp[1:]] = -totals[:-1]
+        np.cumsum(out, out=out)
         return out
 
     @classmethod
