@@ -16,6 +16,7 @@ import pathlib
 import sys
 
 from ..errors import DecompError
+from ._options import count, number
 
 
 def register(sub):
@@ -30,7 +31,7 @@ def register(sub):
     p.add_argument("--list", action="store_true", help="print the case ids of the suite (with -k: the selected "
                                                        "ones) and exit without running them")
     p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
-    p.add_argument("--revenue-paths", type=int, default=0, metavar="N",
+    p.add_argument("--revenue-paths", type=count, default=0, metavar="N",
                    help="after timing, price each case's bid prices on N booking sample paths against the "
                         "reference's (same paths); adds a revenue-loss column (default 0: off)")
     p.set_defaults(func=run)
@@ -47,7 +48,7 @@ def register(sub):
                         "(the form of baseline check --time-ratio) (default: %(default)s)")
     c.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare (default min)")
-    c.add_argument("--accuracy-floor", type=float, default=1e-9,
+    c.add_argument("--accuracy-floor", type=number(0.0), default=1e-9,
                    help="errors and gaps below this are round-off, never a regression (default 1e-9)")
     c.add_argument("--json", default=None, metavar="FILE",
                    help="also write the comparison as JSON (default: not written)")
@@ -66,7 +67,9 @@ def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True, rev
         print(f"decomp bench: error: --revenue-paths must be 0 (off) or positive, got {revenue_paths}",
               file=sys.stderr)
         return 2
-    out = pathlib.Path(out or f"bench/results/{suite}")
+    from ..paths import output_folder
+
+    out = output_folder(out or f"bench/results/{suite}", "--out")   # before the suite runs: exit 2, path named
     command = (f"decomp bench --suite {suite} --out {out}" + (f" -k {k!r}" if k else "")
                + (f" --revenue-paths {revenue_paths}" if revenue_paths else ""))
     res = _run(suite, out, k=k, progress=progress, command=command, revenue_paths=revenue_paths)
@@ -107,8 +110,17 @@ def run_compare(args) -> int:
     from .. import atomic
     from ..benchsuite.compare import compare_runs, parse_threshold, render
 
+    from ..errors import ConfigError
+    from ..paths import output_file
+
+    if args.json is not None:
+        output_file(args.json, "--json")           # before the comparison: exit 2, the path named
     try:
-        cmp = compare_runs(args.old, args.new, threshold=parse_threshold(args.threshold), stat=args.stat,
+        threshold = parse_threshold(args.threshold)
+    except ConfigError as exc:
+        raise ConfigError(f"--threshold {args.threshold!r}: {exc}") from None
+    try:
+        cmp = compare_runs(args.old, args.new, threshold=threshold, stat=args.stat,
                            accuracy_floor=args.accuracy_floor)
     except DecompError as exc:
         print(f"decomp bench compare: error: {exc}", file=sys.stderr)
@@ -124,6 +136,10 @@ def run_report(args) -> int:
     from ..benchsuite import plots, report
     from ..benchsuite.results import load_run
 
+    from ..paths import output_folder
+
+    if args.out is not None:
+        output_folder(args.out, "--out")           # before the plots: exit 2, the path named
     try:
         run_ = load_run(args.run)
     except DecompError as exc:

@@ -16,6 +16,8 @@ more (from --fit-min-products, 1,000 by default); fewer is an error (exit 2).
 
 from __future__ import annotations
 
+from ._options import count, duration, number, positive, positive_number
+
 
 def register(sub):
     p = sub.add_parser("size", help="project a production run's wall time against the window", description=__doc__)
@@ -24,31 +26,31 @@ def register(sub):
     p.add_argument("--dates", type=_dates, default=365, metavar="N|FIRST:LAST",
                    help="departure dates: a count, or FIRST:LAST inclusive ISO dates as for decomp run "
                         "(default: %(default)s)")
-    p.add_argument("--products", type=int, metavar="P", help="products per network (no default: give it or --instances)")
-    p.add_argument("--networks", type=int, default=1, metavar="N", help="networks per date (default: %(default)s)")
+    p.add_argument("--products", type=positive, metavar="P", help="products per network (no default: give it or --instances)")
+    p.add_argument("--networks", type=positive, default=1, metavar="N", help="networks per date (default: %(default)s)")
     p.add_argument("--instances", metavar="DIR",
                    help="folder of instance folders (sizes read from it), each solved once per date "
                         "(default: --products)")
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
     p.add_argument("--method", default="lagrangian", help="default: %(default)s")
     p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
-    p.add_argument("--tol", type=float, default=1e-9, help="tolerance of the run (default: %(default)g)")
-    p.add_argument("--fit-min-products", type=int, default=1000, metavar="N",
+    p.add_argument("--tol", type=positive_number, default=1e-9, help="tolerance of the run (default: %(default)g)")
+    p.add_argument("--fit-min-products", type=count, default=1000, metavar="N",
                    help="fit only benchmark cases of at least N products: small ones carry fixed costs that "
                         "bend the curve (default: %(default)s; 0 fits every case)")
-    p.add_argument("--workers", type=int, default=None, metavar="W",
+    p.add_argument("--workers", type=positive, default=None, metavar="W",
                    help="workers of the production run (default: one per core of this machine, as decomp run)")
-    p.add_argument("--window", required=True, help="optimization window, e.g. 2h, 90m, 180s")
-    p.add_argument("--overhead", type=float, metavar="S",
+    p.add_argument("--window", type=duration, required=True, help="optimization window, e.g. 2h, 90m, 180s")
+    p.add_argument("--overhead", type=number(0.0), metavar="S",
                    help="seconds per task beyond the solve (default: from --run-summary, else 0)")
-    p.add_argument("--startup", type=float, metavar="S",
+    p.add_argument("--startup", type=number(0.0), metavar="S",
                    help="seconds to start the cluster (default: from --run-summary, else 0)")
     p.add_argument("--run-summary", metavar="FILE",
                    help="a decomp run summary.json to take the overhead from (default: none)")
     p.add_argument("--calibrate", action="store_true",
                    help="scale the benchmark fit by the solve times measured in --run-summary (a pilot run "
                         "of the same method and tolerance on the production machine; default: off)")
-    p.add_argument("--revenue-loss", type=float, metavar="X",
+    p.add_argument("--revenue-loss", type=number(0.0, above=True), metavar="X",
                    help="also answer the loosest benchmarked tolerance whose relative revenue loss is within X "
                         "(e.g. 0.001), upper end of its 95%% interval included, at the largest priced rung, from "
                         "a 'decomp bench --revenue-paths N' run (default: not asked)")
@@ -92,9 +94,11 @@ def run(args) -> int:
 
     from .. import atomic
     from ..production import sizing
-    from ..production.durations import parse_duration
 
-    window = parse_duration(args.window)
+    from ..paths import output_folder, refusing
+
+    output_folder(args.out, "--out")               # before anything is fitted: exit 2, the path named
+    window = args.window
     overhead, startup, source = 0.0, 0.0, "none given (0 s)"
     if args.run_summary:
         overhead, startup = sizing.read_run_overhead(args.run_summary)
@@ -121,7 +125,8 @@ def run(args) -> int:
     r, f = s["result"], s["result"]["fit"]
     out = pathlib.Path(args.out)
     atomic.write_json(out / "sizing.json", s)
-    sizing.plot(s, out / "sizing.png")
+    with refusing(out / "sizing.png"):
+        sizing.plot(s, out / "sizing.png")
     if args.json:
         print(json.dumps(s, indent=2))
         return 0 if r["fits"] else 1

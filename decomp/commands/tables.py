@@ -19,6 +19,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ._options import positive
+
 
 def register(sub):
     p = sub.add_parser("tables", help="bid-price tables by leg, period and seats left (dynamic programs by leg)",
@@ -30,12 +32,13 @@ def register(sub):
                      help="solve this static model here (default: %(default)s)")
     p.add_argument("--method", default=None, metavar="NAME", help="method of --model (default: highs for dlp, "
                                                                    "ipopt for pnlp)")
-    p.add_argument("--periods", type=int, default=200, help="booking periods (default: %(default)s)")
+    p.add_argument("--periods", type=positive, default=200, help="booking periods (default: %(default)s)")
     p.add_argument("--by", choices=("decomposition", "relaxation"), default="decomposition",
                    help="decomposition by leg from the static bid prices, or the Lagrangian relaxation "
                         "(default: %(default)s)")
-    p.add_argument("--threads", type=int, default=None, help="threads over legs (default: the CPUs available)")
-    p.add_argument("--out", required=True, metavar="TABLES.parquet", help="output file (written atomically)")
+    p.add_argument("--threads", type=positive, default=None, help="threads over legs (default: the CPUs available)")
+    p.add_argument("--out", required=True, metavar="TABLES.parquet",
+                   help="output file, Parquet (written atomically; required)")
     p.set_defaults(func=run)
 
 
@@ -76,12 +79,16 @@ def run(args) -> int:
     from ..dynamic.tables import write_parquet
     from .solve import _load
 
-    if args.periods < 1:
-        print(f"decomp tables: error: --periods must be a positive integer, got {args.periods}", file=sys.stderr)
-        return 2
-    if args.threads is not None and args.threads < 1:
-        print(f"decomp tables: error: --threads must be >= 1, got {args.threads}", file=sys.stderr)
-        return 2
+    from ..paths import output_file
+    from ._options import check_method
+
+    output_file(args.out, "--out")                 # before any work: exit 2, the path named
+    if args.static is None:
+        check_method(args.method or {"dlp": "highs", "pnlp": "ipopt"}[args.model], args.model)
+    elif args.method is not None:
+        from ..errors import ConfigError
+
+        raise ConfigError("--method chooses the solve of --model; with --static nothing is solved here: leave it out")
     instance = _load(args.instance)
     pi, source, ok = _static_bid_prices(args, instance)
     t0 = time.perf_counter()
