@@ -16,6 +16,17 @@ def root() -> pathlib.Path:
     return ROOT
 
 
+@pytest.fixture(scope="module")
+def p100_dir(tmp_path_factory) -> pathlib.Path:
+    """The ladder rung p100 written as an instance folder (once per module)."""
+    from decomp import ladder
+    from decomp.io import write_instance
+
+    path = tmp_path_factory.mktemp("inst") / "p100"
+    write_instance(ladder.load_rung("p100"), path)
+    return path
+
+
 def pytest_addoption(parser):
     parser.addoption("--run-slow", action="store_true", default=False,
                      help="also run the tests marked slow (long sweeps; left out of the default run)")

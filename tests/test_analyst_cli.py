@@ -17,10 +17,8 @@ ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 
 @pytest.fixture(scope="module")
-def inst_dir(tmp_path_factory):
-    path = tmp_path_factory.mktemp("inst") / "p100"
-    write_instance(ladder.load_rung("p100"), path)
-    return path
+def inst_dir(p100_dir):
+    return p100_dir
 
 
 @pytest.fixture(scope="module")
