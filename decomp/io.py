@@ -53,7 +53,7 @@ import pyarrow.csv as pcsv
 import pyarrow.parquet as pq
 
 from . import jsonfile, paths
-from .errors import InstanceError, OutputPathError
+from .errors import InstanceError, OutputPathError, printable
 from .instance import Instance
 from .validation import (LEG_COLUMNS, MAX_CAPACITY, MAX_DEMAND, MAX_FARE, MAX_LEGS_PER_ITINERARY,  # noqa: F401
                          PRODUCT_COLUMNS, UnusedLegWarning, Where, as_arrow, check_instance, check_names,
@@ -258,7 +258,7 @@ def read_instance(path) -> Instance:
     meta_path, meta = _read_meta(folder)
     legs_path, legs, legs_typed = _read_table(folder, "legs", LEG_COLUMNS)
     prod_path, prods, prods_typed = _read_table(folder, "products", PRODUCT_COLUMNS)
-    meta.setdefault("name", folder.resolve().name)
+    meta.setdefault("name", printable(folder.resolve().name))   # a folder's name is not the file's to police
     fields = fields_from_tables(legs, prods, meta=meta, where=Where(legs_path, prod_path, meta_path),
                                 typed=(legs_typed, prods_typed))
     return Instance(**fields)

@@ -151,12 +151,16 @@ def is_refused(exc: BaseException) -> bool:
 
 
 @contextlib.contextmanager
-def refusing(path):
+def refusing(path, *, outermost: bool = False):
     """Within the block, an OSError the machine refused with becomes
-    :class:`~decomp.errors.EnvironmentRefusedError` naming ``path`` (the path the user gave)."""
+    :class:`~decomp.errors.EnvironmentRefusedError` naming ``path`` (the path the user gave).
+    ``outermost``: one raised deeper (naming a file inside a temporary folder being built) is
+    named by ``path`` too."""
     try:
         yield
-    except EnvironmentRefusedError:
+    except EnvironmentRefusedError as exc:
+        if outermost and exc.path != str(path):
+            raise EnvironmentRefusedError(path, exc.cause) from exc
         raise
     except OSError as exc:
         if is_refused(exc):

@@ -494,16 +494,26 @@ def _full_disk(monkeypatch):
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
     monkeypatch.setattr(pathlib.Path, "write_text", full)
     monkeypatch.setattr(pathlib.Path, "write_bytes", full)
+    monkeypatch.setattr(pq, "write_table", full)
 
 
-def test_a_full_disk_is_named_by_the_path_that_failed(tmp_path, monkeypatch, capsys):
+@pytest.mark.solver
+def test_a_full_disk_is_named_by_the_path_that_failed(tmp_path, monkeypatch, capsys, dlp_result, p100):
+    # item 16: generate, baseline record, baseline check, simulate and tables said "cannot write : ..."
     inst = _tiny(tmp_path)
+    base = tmp_path / "base"
+    assert main(["baseline", "record", "--suite", "micro", "--out", str(base)]) == 0
     _full_disk(monkeypatch)
     for argv, path in ((["generate", "--products", "20", "--out", tmp_path / "g"], tmp_path / "g"),
                        (["simulate", inst, "--policies", "fcfs", "--paths", "2", "--workers", "0", "--no-progress",
-                         "--out", tmp_path / "s"], tmp_path / "s")):
+                         "--out", tmp_path / "s"], tmp_path / "s"),
+                       (["tables", p100, "--static", dlp_result, "--periods", "3", "--out", tmp_path / "t.parquet"],
+                        tmp_path / "t.parquet"),
+                       (["baseline", "record", "--suite", "micro", "--out", tmp_path / "b2"], tmp_path / "b2"),
+                       (["baseline", "check", base, "--out", tmp_path / "chk"], tmp_path / "chk")):
         rc, _, err = _run(argv, capsys)
-        assert rc == 1 and "No space left on device" in err and str(path) in err and "Traceback" not in err
+        assert rc == 1 and "No space left on device" in err and str(path) in err and "Traceback" not in err, err
+        assert "cannot write :" not in err
 
 
 def test_a_full_disk_names_the_file_it_refused_not_the_one_written(tmp_path, monkeypatch, capsys):

@@ -139,27 +139,8 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
         out.parent.mkdir(parents=True, exist_ok=True)
         tmp = pathlib.Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".tmp", dir=out.parent))
     try:
-        records = []
-        written: dict = {}
-        warm: set = set()
-        for case in cases:
-            name = _safe_name(case.instance_name)
-            if name not in written:
-                built = case.build_instance()
-                written[name] = (_write_instance(built, tmp / "instances" / name), built)
-            inst = written[name][0]
-            fp = instance_fingerprint(inst)
-            result, wall, cpu = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
-                                             warm if warmup else None)
-            data = _result_record(case, result, wall, fp, case.options, f"instances/{name}", cpu)
-            cdir = tmp / "cases" / case.id
-            atomic.write_json(cdir / "result.json", data)
-            atomic.write_text(cdir / BID_PRICES, _bid_prices_csv(result.leg_ids, result.bid_price_array))
-            rec = case_view(data)
-            records.append(rec)
-            if progress is not None:
-                progress(case.id, rec)
-        with refusing(out):
+        with refusing(out, outermost=True):        # a refused write names --out, not the folder being built
+            records = _record_cases(tmp, cases, solve_fn, clock, repeat, warmup, progress)
             atomic.write_json(tmp / ENVIRONMENT, env)
             atomic.write_text(tmp / SUMMARY, _summary_csv(records))
             _write_manifest(tmp, suite, [r["case"] for r in records])
@@ -176,6 +157,31 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return RecordSummary(out, suite, tuple(records), env)
+
+
+def _record_cases(tmp, cases, solve_fn, clock, repeat, warmup, progress) -> list:
+    """Solve and write every case into the folder ``tmp``; returns the case records."""
+    records = []
+    written: dict = {}
+    warm: set = set()
+    for case in cases:
+        name = _safe_name(case.instance_name)
+        if name not in written:
+            built = case.build_instance()
+            written[name] = (_write_instance(built, tmp / "instances" / name), built)
+        inst = written[name][0]
+        fp = instance_fingerprint(inst)
+        result, wall, cpu = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
+                                         warm if warmup else None)
+        data = _result_record(case, result, wall, fp, case.options, f"instances/{name}", cpu)
+        cdir = tmp / "cases" / case.id
+        atomic.write_json(cdir / "result.json", data)
+        atomic.write_text(cdir / BID_PRICES, _bid_prices_csv(result.leg_ids, result.bid_price_array))
+        rec = case_view(data)
+        records.append(rec)
+        if progress is not None:
+            progress(case.id, rec)
+    return records
 
 
 def check_out(out, overwrite: bool) -> pathlib.Path:
