@@ -92,7 +92,7 @@ CASES = [
     *_values(RUN, "--method", ["nosuch"]),
     (_with(RUN, "--model", "dlp", "--method", "ipopt"), "--method"),
     *_values(RUN, "--window", ["5 parsecs", "0"]),
-    *_values(RUN, "--scheduler", [""]),
+    *_values(RUN, "--scheduler", ["", "tls://127.0.0.1:1"]),
     (["run", "/no/such", "--out", "{out}/run", "--no-progress"], "/no/such"),
     (["run", "gen:abc", "--out", "{out}/run", "--no-progress"], "gen:abc"),
     # simulate
@@ -110,6 +110,7 @@ CASES = [
     *_values(SIM, "--fallback", ["nosuch"]),
     *_values(SIM, "--target-halfwidth", ["0", "-1"]),
     *_values(SIM, "--out", ["", "{file}", "/dev/null"]),
+    (_with(SIM, "--scheduler", "tls://127.0.0.1:1", drop=("--workers",)), "--scheduler"),
     # tables
     *_values(TABLES, "--periods", ["0", "-1"]),
     *_values(TABLES, "--threads", ["0"]),

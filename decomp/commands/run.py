@@ -192,3 +192,11 @@ def _check_scheduler(address: str) -> None:
     if not address.startswith("tls://"):
         print(f"decomp: warning: --scheduler {address}: not a tls:// address; whoever can reach it can run "
               f"code on its workers. Use TLS with credentials (README, Reliability)", file=sys.stderr)
+        return
+    from distributed.security import Security
+
+    sec = Security()                               # what Dask's configuration gives the client
+    if not (sec.tls_ca_file and sec.tls_client_cert and sec.tls_client_key):
+        raise ConfigError(f"--scheduler {address}: a TLS scheduler needs the client's credentials in Dask's "
+                          f"configuration (distributed.comm.tls.ca-file, .client.cert, .client.key; e.g. "
+                          f"DASK_DISTRIBUTED__COMM__TLS__CA_FILE); see the README, Reliability")
