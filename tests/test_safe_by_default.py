@@ -609,44 +609,63 @@ def _folder(tmp_path, legs, prods):
 
 
 # ---------------------------------------------------------------------------- item 19: signals
-def _run_batch_process(out, days=4):
+def _signal_self_within(monkeypatch, module, name, sig):
+    """Send ``sig`` to this process at the start of ``module.name`` (after the last task is written:
+    while the summary is written, or as the collection of finished tasks returns)."""
+    real = getattr(module, name)
+
+    def wrapped(*a, **k):
+        if name == "_collect":
+            out = real(*a, **k)
+            os.kill(os.getpid(), sig)          # every task is finished: the signal lands as _collect returns
+            return out
+        os.kill(os.getpid(), sig)
+        return real(*a, **k)
+    monkeypatch.setattr(module, name, wrapped)
+
+
+@pytest.mark.solver
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+@pytest.mark.parametrize("when", ["while the summary is written", "as the last result is collected"])
+def test_a_signal_after_the_last_task_still_writes_the_summary(tmp_path, monkeypatch, capsys, sig, when):
+    from decomp.production import runner, summary
+
+    if when == "while the summary is written":
+        _signal_self_within(monkeypatch, summary, "write_summary", sig)
+    else:
+        _signal_self_within(monkeypatch, runner, "_collect", sig)
+    out = tmp_path / "out"
+    rc, _, err = _run(["run", _tiny(tmp_path), "--days", "2", "--start", "2027-04-01", "--workers", "1",
+                       "--out", out, "--no-progress"], capsys)
+    s = json.loads((out / "summary.json").read_text())
+    assert s["totals"]["ok"] == 2 and s["interrupted"] is None, err
+    assert s["signal_after_last_task"] == sig.name and rc == 0, err
+    assert "arrived after the last task" in err
+
+
+def _run_batch_process(out, days):
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [os.environ.get("PYTHONPATH"), str(ROOT)]))}
-    return subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:300:2", "--days", str(days),
+    return subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:1000:2", "--days", str(days),
                              "--start", "2027-04-01", "--workers", "2", "--out", str(out), "--no-progress"],
                             env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             start_new_session=True)
 
 
 @pytest.mark.solver
-@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
-def test_a_signal_after_the_last_task_still_writes_the_summary(tmp_path, sig):
-    out = tmp_path / "out"
-    proc = _run_batch_process(out)
-    deadline = time.monotonic() + 180
-    while len(list(out.glob("tasks/*/result.json"))) < 4 and time.monotonic() < deadline and proc.poll() is None:
-        time.sleep(0.01)
-    if proc.poll() is not None:
-        pytest.fail(f"the run ended before the signal could be sent: {proc.communicate()}")
-    os.killpg(proc.pid, sig)                          # the whole group, as a terminal or a scheduler does
-    _, err = proc.communicate(timeout=180)
-    s = json.loads((out / "summary.json").read_text())
-    assert s["totals"]["ok"] == 4 and s["interrupted"] is None, err
-    assert s["signal_after_last_task"] == sig.name and proc.returncode == 0, err
-    assert "Traceback" not in err
-
-
-@pytest.mark.solver
 def test_ctrl_c_to_the_process_group_prints_no_worker_tracebacks(tmp_path):
     out = tmp_path / "out"
-    proc = _run_batch_process(out, days=8)
+    proc = _run_batch_process(out, days=20)
     deadline = time.monotonic() + 180
-    while not list(out.glob("tasks/*/result.json")) and time.monotonic() < deadline:
+    while not list(out.glob("tasks/*/result.json")) and time.monotonic() < deadline and proc.poll() is None:
         time.sleep(0.05)
-    os.killpg(proc.pid, signal.SIGINT)
+    os.killpg(proc.pid, signal.SIGINT)                # the whole group, as a terminal's Ctrl-C does
     _, err = proc.communicate(timeout=180)
-    assert proc.returncode == 1 and "interrupted" in err
     assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
-    assert json.loads((out / "summary.json").read_text())["interrupted"] == "KeyboardInterrupt"
+    s = json.loads((out / "summary.json").read_text())
+    if proc.returncode == 1:                          # the usual case: cut short, finished tasks kept
+        assert s["interrupted"] == "KeyboardInterrupt" and "interrupted" in err
+    else:                                             # on a slow machine the signal may come after the end
+        assert proc.returncode == 0 and s["signal_after_last_task"] == "SIGINT"
 
 
 # ---------------------------------------------------------------------------- item 20: separators

@@ -501,6 +501,9 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
                                          workers=n_workers or workers, window=window, interrupted=reason,
                                          stopped=stopped, signal_after_last_task=after_last)
         failed = summary_mod.write_summary(out, summ)
+        if late and interrupted is None and summ["signal_after_last_task"] is None:   # one came while writing
+            summ["signal_after_last_task"] = late.first
+            failed = summary_mod.write_summary(out, summ)
         if failed:
             summ["summary_error"] = f"not written to {out}: " + "; ".join(
                 f"{name} ({exc.strerror or exc} [Errno {exc.errno}])" for name, exc in failed)
