@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import dataclasses
 import enum
-import json
 import math
 from types import MappingProxyType
 from typing import Any, Mapping

@@ -11,7 +11,6 @@ import pytest
 import decomp
 from decomp import ladder
 from decomp.cli import main
-from decomp.io import write_instance
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
