@@ -389,11 +389,15 @@ def test_json_integers_of_5000_digits_are_refused_naming_the_file(tmp_path, caps
     res = tmp_path / "r.json"
     res.write_text('{"model": "dlp", "method": "highs", "termination": "optimal", "solution_status": "optimal", '
                    '"bid_prices": {"L1": ' + HUGE_INT + "}}")
-    for argv in (["decide", res, "--legs", "L1", "--fare", "5"],
-                 ["solve", _tiny(tmp_path, "u"), "--model", "pnlp", "--method", "lagrangian", "--warm-start", res,
-                  "--out", tmp_path / "o.json"]):
+    bench = tmp_path / "benchmark.json"
+    bench.write_text('{"machine_info": {"x": ' + HUGE_INT + '}, "benchmarks": []}')
+    for argv, name in ((["decide", res, "--legs", "L1", "--fare", "5"], "r.json"),
+                       (["solve", _tiny(tmp_path, "u"), "--model", "pnlp", "--method", "lagrangian", "--warm-start",
+                         res, "--out", tmp_path / "o.json"], "r.json"),
+                       (["bench", "compare", bench, bench], "benchmark.json"),
+                       (["bench", "report", bench, "--out", tmp_path / "rep"], "benchmark.json")):
         rc, _, err = _run(argv, capsys)
-        assert rc == 2 and "r.json" in err and "digits" in err
+        assert rc == 2 and name in err and "digits" in err and "Traceback" not in err
 
 
 def test_json_integers_of_5000_digits_in_a_baseline_are_refused(tmp_path, capsys):

@@ -106,6 +106,17 @@ def run(args) -> int:
                      revenue_paths=args.revenue_paths)
 
 
+def _json_readable(*paths) -> None:
+    """Each run's benchmark.json parses (an InstanceError naming it otherwise). ``benchsuite.results``
+    reads it with ``json.loads``, which a 5,000-digit integer or deep nesting turns into a traceback;
+    :mod:`decomp.jsonfile` says which file instead. (Reads the file twice; benchmark files are small.)"""
+    from .. import jsonfile
+    from ..benchsuite.results import resolve_path
+
+    for path in paths:
+        jsonfile.read(resolve_path(path))
+
+
 def run_compare(args) -> int:
     from .. import atomic
     from ..benchsuite.compare import compare_runs, parse_threshold, render
@@ -120,6 +131,7 @@ def run_compare(args) -> int:
     except ConfigError as exc:
         raise ConfigError(f"--threshold {args.threshold!r}: {exc}") from None
     try:
+        _json_readable(args.old, args.new)
         cmp = compare_runs(args.old, args.new, threshold=threshold, stat=args.stat,
                            accuracy_floor=args.accuracy_floor)
     except DecompError as exc:
@@ -141,6 +153,7 @@ def run_report(args) -> int:
     if args.out is not None:
         output_folder(args.out, "--out")           # before the plots: exit 2, the path named
     try:
+        _json_readable(args.run)
         run_ = load_run(args.run)
     except DecompError as exc:
         print(f"decomp bench report: error: {exc}", file=sys.stderr)
