@@ -29,12 +29,12 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("-v", "--verbose", action="store_true", help="log progress to stderr")
     parser.add_argument("--version", action="version", version=f"decomp {_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    _accept_common_options(sub)
     for info in sorted(pkgutil.iter_modules(commands.__path__), key=lambda m: m.name):
         if info.name.startswith("_"):
             continue
         module = importlib.import_module(f"{commands.__name__}.{info.name}")
         module.register(sub)
+    _accept_common_options(parser)
     return parser
 
 
@@ -44,30 +44,34 @@ def _version() -> str:
     return __version__
 
 
-def _accept_common_options(sub) -> None:
-    """Let every subcommand take -v after its name too (``decomp solve ... -v``)."""
-    common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
-                        help="log progress to stderr")
-    add_parser = sub.add_parser
+def _accept_common_options(parser: argparse.ArgumentParser) -> None:
+    """Let every subcommand, nested ones included, take -v after its name too
+    (``decomp solve ... -v``, ``decomp baseline record ... -v``)."""
+    for action in parser._actions:
+        if not isinstance(action, argparse._SubParsersAction):
+            continue
+        for sp in action.choices.values():
+            if "-v" not in sp._option_string_actions:
+                sp.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
+                                help="log progress to stderr")
+            _accept_common_options(sp)
 
-    def add_with_common(*args, **kw):
-        kw["parents"] = [*kw.get("parents", ()), common]
-        return add_parser(*args, **kw)
 
-    sub.add_parser = add_with_common
+def _format_warning(where: dict):
+    """Warnings as one line on stderr (not the source line Python shows by default);
+    ``where["command"]`` names the subcommand once the command line is parsed. Only the format
+    is replaced, so warnings still go where Python sends them (and tests can record them)."""
+    def fmt(message, category, filename, lineno, line=None):
+        command = where.get("command")
+        return f"decomp{' ' + command if command else ''}: warning: {message}\n"
 
-
-def _show_warning(command):
-    """Warnings as one line on stderr, once (not the source line Python shows by default)."""
-    def show(message, category, filename, lineno, file=None, line=None):
-        print(f"decomp {command}: warning: {message}", file=sys.stderr)
-
-    return show
+    return fmt
 
 
 def main(argv=None) -> int:
     parser = build_parser()
+    where = {"command": None}
+    warnings.formatwarning = _format_warning(where)      # old option names warn while parsing
     try:
         args = parser.parse_args(argv)
     except SystemExit as exc:      # argparse refused an option (2, message printed) or printed --help (0)
@@ -75,9 +79,9 @@ def main(argv=None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_BAD_INPUT
+    where["command"] = args.command
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(levelname)s %(name)s: %(message)s")
-    warnings.showwarning = _show_warning(args.command)
     try:
         return int(args.func(args) or 0)
     except (InstanceError, UnknownMethodError, ConfigError, OutputPathError) as exc:

@@ -57,6 +57,9 @@ class Decision:
                 "source_status": self.source_status, "source_optimal": self.source_ok, "warning": self.warning,
                 "legs": [{"leg": leg, "bid_price": bp} for leg, bp in zip(self.legs, self.bid_prices)]}
 
+    def __str__(self) -> str:
+        return self.text()
+
     def text(self) -> str:
         width = max(3, *(len(str(leg)) for leg in self.legs))
         lines = [f"{self.verdict.upper()}: fare {self.fare:,.2f} "

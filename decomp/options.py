@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import numbers
 from types import MappingProxyType
 from typing import Any, Mapping
 
@@ -43,15 +44,27 @@ class SolverOptions:
     solver_options: Mapping[str, Any] = dataclasses.field(default_factory=dict)
 
     def __post_init__(self):
-        if not (isinstance(self.tol, (int, float)) and math.isfinite(self.tol) and 0 < self.tol < 1):
+        # Types first: a value of the wrong type (time_limit="10" from a config file) is a ConfigError
+        # naming the option, never a TypeError from a comparison further down.
+        _number("tol", self.tol)
+        _number("time_limit", self.time_limit, optional=True)
+        for name in ("iteration_limit", "threads"):
+            _whole(name, getattr(self, name), optional=True)
+        _whole("segments", self.segments)
+        if not isinstance(self.verbose, bool):
+            raise ConfigError(f"verbose must be True or False, got {self.verbose!r} ({type(self.verbose).__name__})")
+        if not isinstance(self.solver_options, Mapping):
+            raise ConfigError(f"solver_options must be a dict of solver option names to values, got "
+                              f"{self.solver_options!r} ({type(self.solver_options).__name__})")
+        if not (math.isfinite(self.tol) and 0 < self.tol < 1):
             raise ConfigError(f"tol must be a number in (0, 1), got {self.tol!r}")
         if self.time_limit is not None and not (self.time_limit > 0):
             raise ConfigError(f"time_limit must be positive seconds or None, got {self.time_limit!r}")
-        if self.iteration_limit is not None and (int(self.iteration_limit) != self.iteration_limit or self.iteration_limit < 1):
+        if self.iteration_limit is not None and self.iteration_limit < 1:
             raise ConfigError(f"iteration_limit must be a positive integer or None, got {self.iteration_limit!r}")
-        if self.threads is not None and (int(self.threads) != self.threads or self.threads < 1):
+        if self.threads is not None and self.threads < 1:
             raise ConfigError(f"threads must be a positive integer or None, got {self.threads!r}")
-        if int(self.segments) != self.segments or self.segments < 1:
+        if self.segments < 1:
             raise ConfigError(f"segments must be a positive integer, got {self.segments!r}")
         if self.dual_method not in ("newton", "lbfgsb", "subgradient"):
             raise ConfigError(f"dual_method must be 'newton', 'lbfgsb' or 'subgradient', got {self.dual_method!r}")
@@ -65,6 +78,22 @@ class SolverOptions:
         d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         d["solver_options"] = dict(self.solver_options)
         return d
+
+
+def _number(name: str, value, optional: bool = False) -> None:
+    """A real number (not a bool, not text), or None when ``optional``; ConfigError otherwise."""
+    if value is None and optional:
+        return
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise ConfigError(f"{name} must be a number{' or None' if optional else ''}, got {value!r} "
+                          f"({type(value).__name__})")
+
+
+def _whole(name: str, value, optional: bool = False) -> None:
+    """A whole number (3 or 3.0), or None when ``optional``; ConfigError otherwise."""
+    _number(name, value, optional)
+    if value is not None and not (math.isfinite(value) and int(value) == value):
+        raise ConfigError(f"{name} must be a whole number{' or None' if optional else ''}, got {value!r}")
 
 
 def as_options(options=None, **changes) -> SolverOptions:

@@ -2,7 +2,7 @@
 decomp replaces are recognised by the marker it wrote, and a write the machine refuses becomes
 one error naming the path the user gave.
 
-* :func:`output_file` -- a file to write (``--out RESULT.json``, ``--legs T.csv``, ``--json F``);
+* :func:`output_file` -- a file to write (``--out RESULT.json``, ``--leg-table T.csv``, ``--history F``);
 * :func:`output_folder` -- a folder to write into (``run``, ``simulate``, ``size``, ``bench``,
   ``baseline check``) or to replace (``generate``, ``baseline record --force``);
 * :func:`write_marker` / :func:`marker_kind` -- the ``.decomp`` file decomp puts into every

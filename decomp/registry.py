@@ -13,6 +13,10 @@ from .errors import SolverUnavailableError, UnknownMethodError
 
 MODELS = ("dlp", "pnlp", "pwl")
 
+#: The method a model is solved with when none is named, in the library and in every command
+#: (the fastest that certifies its answer on the instance ladder; see the README's benchmark).
+DEFAULT_METHOD = {"pnlp": "lagrangian", "dlp": "highs", "pwl": "highs"}
+
 _METHODS: dict = {}
 
 # The module whose import registers each built-in method (imported on first use:
@@ -72,18 +76,22 @@ def get_method(name: str, model: str):
     return cls
 
 
-def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=None, warm_start=None,
+def solve(instance, model: str = "pnlp", method: str | None = None, options=None, warm_start=None,
           **option_values):
     """Solve ``instance`` with the named model and method; see :class:`SolveResult`.
+
+    ``method``: None solves with the model's default method (:data:`DEFAULT_METHOD`).
 
     ``instance``: an :class:`~decomp.instance.Instance`, or the path of an
     instance folder (read and checked by :func:`decomp.read_instance`).
     ``options``: a :class:`~decomp.options.SolverOptions`, a dict of its fields,
     or None; keyword arguments (``tol=1e-6``, ``time_limit=60``, ...) override
     them. An unknown option name is a :class:`~decomp.errors.ConfigError` listing
-    the valid ones. ``warm_start``: bid prices to start from, as a dict by leg id
-    or an array aligned with ``instance.leg_ids`` (used by methods that can;
-    others ignore it).
+    the valid ones. ``warm_start``: bid prices to start from: an earlier
+    :class:`~decomp.result.SolveResult`, the path of anything decomp writes bid
+    prices to (a result file, a run task, a baseline case, a leg,bid_price
+    table), a dict by leg id or an array aligned with ``instance.leg_ids``
+    (used by methods that can; others ignore it).
     """
     import os
 
@@ -100,8 +108,41 @@ def solve(instance, model: str = "pnlp", method: str = "lagrangian", options=Non
         raise ConfigError(f"solve needs an Instance or the path of an instance folder, got "
                           f"{type(instance).__name__}")
     options = as_options(options, **option_values)
+    warm_start = warm_start_prices(warm_start)
+    if method is None:
+        if model not in DEFAULT_METHOD:
+            raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")
+        method = DEFAULT_METHOD[model]
     cls = get_method(method, model)
     ok, reason = cls.available()
     if not ok:
         raise SolverUnavailableError(f"method {method!r} is not available: {reason}")
     return cls().solve(instance, model, options, warm_start=warm_start)
+
+
+def warm_start_prices(warm_start):
+    """Bid prices to start from, as a dict by leg id or an array, from what a caller may hand over.
+
+    A :class:`~decomp.result.SolveResult` gives its bid prices by leg id; a path is read with
+    :func:`decomp.result.read_bid_prices` (a missing or bad file is an InstanceError naming it);
+    a dict or an array is returned as it is.
+    """
+    import os
+
+    import numpy as np
+
+    from .errors import ConfigError
+    from .result import SolveResult, read_bid_prices
+
+    if warm_start is None or isinstance(warm_start, (dict, np.ndarray, list, tuple)):
+        return warm_start
+    if isinstance(warm_start, SolveResult):
+        if warm_start.bid_price_array is None:
+            raise ConfigError(f"warm_start: the result ({warm_start.termination.value}) holds no bid prices")
+        return warm_start.bid_prices
+    if isinstance(warm_start, (str, os.PathLike)):
+        return read_bid_prices(warm_start)
+    if hasattr(warm_start, "keys"):
+        return dict(warm_start)
+    raise ConfigError(f"warm_start must be a SolveResult, the path of a result or bid-price file, a dict by "
+                      f"leg id or an array of bid prices, got {type(warm_start).__name__}")

@@ -207,7 +207,8 @@ class SolveResult:
         """The result as a plain dict in the one output schema (see :data:`SCHEMA_DOC`).
 
         ``include_allocation`` adds ``allocation`` by product id (it can be
-        large); ``context`` (instance name, versions, task key, ...) is kept as is.
+        large; :meth:`save` always includes it, since the leg and product tables
+        need it); ``context`` (instance name, versions, task key, ...) is kept as is.
         """
         def num(v):
             if v is None:
@@ -247,6 +248,27 @@ class SolveResult:
             out["history"] = [dataclasses.asdict(h) for h in self.history]
         out["context"] = dict(context or {})
         return out
+
+    def save(self, path, context: Mapping[str, Any] | None = None) -> "pathlib.Path":
+        """Write the result to ``path`` (JSON in the one output schema, atomically) and return the path.
+
+        Everything the tables and decisions need comes back with :meth:`load` or
+        :func:`decomp.read_result`: bid prices, the allocation (which
+        :meth:`to_json_dict` leaves out unless asked), certificate and history.
+        ``context`` (free form, e.g. where the instance came from) is kept under ``context``.
+        """
+        import pathlib
+
+        from .atomic import write_json
+
+        path = pathlib.Path(path)
+        write_json(path, self.to_json_dict(include_allocation=True, context=context))
+        return path
+
+    @classmethod
+    def load(cls, path) -> "SolveResult":
+        """A result saved by :meth:`save` (or any result file decomp writes); see :meth:`from_json`."""
+        return cls.from_json(path)
 
     @classmethod
     def from_json(cls, source) -> "SolveResult":

@@ -17,7 +17,7 @@ Product table (:data:`PRODUCT_COLUMNS`), one row per product:
     closed leg is ``closed`` whatever its margin: there is no seat to sell, and
     a zero-capacity leg's bid price is not unique, see README, "Closed legs").
 
-The same column names are used by ``decomp solve --legs / --products`` and the
+The same column names are used by ``decomp solve --leg-table / --product-table`` and the
 library (:func:`leg_table`, :func:`product_table`); bid-price files use
 ``leg, bid_price``.
 """
@@ -25,6 +25,7 @@ library (:func:`leg_table`, :func:`product_table`); bid-price files use
 from __future__ import annotations
 
 import pathlib
+import warnings
 
 import numpy as np
 
@@ -49,6 +50,16 @@ def _check_pair(instance, result):
                             f"{instance.n_products} products: not the same network", column="allocation")
 
 
+def _allocation(instance, result) -> np.ndarray:
+    """The result's allocation, or NaN per product with a warning when the result holds none."""
+    if result.allocation is not None:
+        return np.asarray(result.allocation, dtype=np.float64)
+    warnings.warn("the result holds no allocation (a solve that returned none, or a result file written "
+                  "without it, as to_json_dict() and decomp solve write it): allocated seats, load factors "
+                  "and allocations are NaN; result.save(path) keeps the allocation", UserWarning, stacklevel=3)
+    return np.full(instance.n_products, np.nan)
+
+
 def _bid_prices(instance, result) -> np.ndarray:
     if result.bid_price_array is None or len(result.bid_price_array) == 0:
         return np.full(instance.n_legs, np.nan)
@@ -70,9 +81,9 @@ def leg_table(instance, result):
 
     _check_pair(instance, result)
     bp = _bid_prices(instance, result)
+    x = _allocation(instance, result)
     cap = np.asarray(instance.capacity, dtype=np.float64)
-    allocated = (instance.leg_load(result.allocation) if result.allocation is not None
-                 else np.full(instance.n_legs, np.nan))
+    allocated = instance.leg_load(x) if result.allocation is not None else np.full(instance.n_legs, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
         lf = np.where(cap > 0, allocated / np.where(cap > 0, cap, 1.0), np.nan)
     return pd.DataFrame({
@@ -94,7 +105,7 @@ def product_table(instance, result):
     tokens = pc.take(pa.array(instance.leg_ids.astype(str), pa.string()), pa.array(instance.leg_index))
     lists = pa.ListArray.from_arrays(pa.array(instance.leg_ptr), tokens)
     legs = pc.binary_join(lists, " ").to_numpy(zero_copy_only=False)
-    x = result.allocation if result.allocation is not None else np.full(instance.n_products, np.nan)
+    x = _allocation(instance, result)
     # open when the fare is at least the displacement (ties open; round-off of 1e-9 of the fare allowed)
     decision = np.where(margin >= -1e-9 * np.maximum(1.0, instance.fare), "open", "closed").astype(object)
     decision[np.isnan(margin)] = "unknown"

@@ -27,6 +27,13 @@ def p100_dir(tmp_path_factory) -> pathlib.Path:
     return path
 
 
+@pytest.fixture(autouse=True)
+def _history_store_in_tmp(tmp_path_factory, monkeypatch):
+    """Runs of decomp bench and baseline check add themselves to the history store: in the tests,
+    a temporary one (never bench/results/history.sqlite of the project or of the current folder)."""
+    monkeypatch.setenv("DECOMP_HISTORY", str(tmp_path_factory.mktemp("history") / "history.sqlite"))
+
+
 def pytest_addoption(parser):
     parser.addoption("--run-slow", action="store_true", default=False,
                      help="also run the tests marked slow (long sweeps; left out of the default run)")

@@ -232,10 +232,11 @@ def test_older_layouts_are_read(dlp, tmp_path):
     assert old.termination.value == "optimal" and old.bid_prices == dlp.bid_prices
 
 
-def test_the_readme_from_python_example_runs():
+def test_the_readme_from_python_example_runs(tmp_path, monkeypatch):
     import pathlib
     import re
 
+    monkeypatch.chdir(tmp_path)                  # the example saves result.json where it runs
     readme = (pathlib.Path(__file__).resolve().parents[1] / "README.md").read_text()
     section = readme.split("## From Python", 1)[1]
     code = re.search(r"```python\n(.*?)```", section, re.S).group(1)
@@ -245,6 +246,8 @@ def test_the_readme_from_python_example_runs():
     assert result.ok and network.n_products == 3
     decision = result.decide("NV101 NV201", fare=300)
     assert decision.displacement == pytest.approx(result.displacement(["NV101"]) + result.displacement("NV201"))
+    assert scope["again"].bid_prices == result.bid_prices and scope["warm"].ok
+    assert scope["warm"].options.get("start") == "warm"
 
 
 # Issue 13's input checks live in io.instance_from_tables, so a DataFrame meets each of them as a

@@ -24,7 +24,7 @@ def inst_dir(p100_dir):
 def solved(inst_dir, tmp_path_factory):
     d = tmp_path_factory.mktemp("solved")
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(d / "r.json"),
-                 "--legs", str(d / "legs.csv"), "--products", str(d / "products.parquet")]) == 0
+                 "--leg-table", str(d / "legs.csv"), "--product-table", str(d / "products.parquet")]) == 0
     return d
 
 
@@ -199,10 +199,10 @@ def test_simulate_takes_a_list_starting_with_a_negative_number():
     assert args.forecast_bias == "-0.2,0,0.2"
 
 
-def test_bench_list_shows_case_ids(capsys):
+def test_bench_list_shows_case_names(capsys):
     assert main(["bench", "--suite", "micro", "--list", "-k", "dlp"]) == 0
     ids = capsys.readouterr().out.split()
-    assert ids and all("dlp" in i for i in ids) and any(i.startswith("test_solve[tiny-dlp-highs") for i in ids)
+    assert ids and all("dlp" in i for i in ids) and "tiny-dlp-highs" in ids
     assert main(["bench", "--suite", "micro", "--list", "-k", "no_such_case"]) == 2
 
 

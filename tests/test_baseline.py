@@ -301,12 +301,12 @@ def test_edited_manifest_and_missing_folder(recorded, tmp_path):
         bl.load(tmp_path / "nowhere")
 
 
-def test_cli_time_ratio_takes_the_threshold_forms(recorded, capsys):
+def test_cli_time_growth_takes_the_forms_of_bench_compare(recorded, capsys):
     from decomp.cli import build_parser, main
 
-    assert build_parser().parse_args(["baseline", "check", str(recorded)]).time_ratio == "2x"
+    assert build_parser().parse_args(["baseline", "check", str(recorded)]).max_time_growth == "2x"
     for bad in ("fast", "0.5x", "0.5"):          # refused before anything is solved: exit 2, the value named
-        assert main(["baseline", "check", str(recorded), "--time-ratio", bad]) == 2
+        assert main(["baseline", "check", str(recorded), "--max-time-growth", bad]) == 2
         assert bad in capsys.readouterr().err
 
 
@@ -488,3 +488,28 @@ def test_cli_record_then_check_exit_codes(tmp_path, monkeypatch, capsys):
     assert "micro1-pnlp-ipopt | regression" in text and "tol 1e-09 -> 0.001" in text
     assert main(["baseline", "check", str(out), "--override", "nonsense"]) == 2
     capsys.readouterr()
+
+
+@pytest.mark.solver
+def test_every_check_is_added_to_the_history(tmp_path, monkeypatch, capsys):
+    _need("dlp", "highs")
+    from decomp.benchsuite import history
+    from decomp.cli import main
+
+    monkeypatch.setitem(bl.SUITES, "one", ("micro1 by HiGHS", lambda: [bl.Case(MICRO1, "dlp", "highs")]))
+    out, store = tmp_path / "base", tmp_path / "history.sqlite"
+    assert main(["baseline", "record", "--suite", "one", "--out", str(out)]) == 0
+    assert main(["baseline", "check", str(out), "--history", str(store)]) == 0
+    assert main(["baseline", "check", str(out), "--history", str(store), "--override", "tol=1e-3"]) == 0
+    assert main(["baseline", "check", str(out), "--history", str(store), "--no-history"]) == 0
+    assert "added the check as run #2" in capsys.readouterr().out
+    with history.open_store(store, create=False) as s:
+        runs = s.runs()
+        cases = s.cases(runs[-1].run_id)
+    assert [r.kind for r in runs] == ["baseline-check"] * 2 and runs[0].suite == "one"
+    env = bl.environment()
+    assert runs[0].env["highs"] == env["highs_library"] and runs[0].env["numpy"] == env["numpy"]
+    assert runs[0].env["host"] and runs[0].env["load_start"] is not None and runs[0].n_failed == 0
+    (case,) = cases.values()
+    assert case.row.case == "micro1-dlp-highs" and case.row.get("termination") == "optimal"
+    assert case.row.get("verdict") == "pass" and case.row.min > 0 and case.demand == "normal"

@@ -97,7 +97,7 @@ def test_time_ratio_parsing_shares_the_threshold_forms():
     from decomp.benchsuite.compare import parse_ratio
     from decomp.errors import ConfigError
 
-    # the same growth read both ways: --threshold 100% allows what --time-ratio 2x / 100% / 2 allows
+    # the old names read the same growth: --threshold 100% allows what --time-ratio 2x / 100% / 2 allows
     assert parse_ratio("2x") == parse_ratio("100%") == parse_ratio("2") == pytest.approx(1 + parse_threshold("100%"))
     assert parse_ratio("1.1X") == pytest.approx(1.1) and parse_ratio("2.5") == 2.5
     for bad in ("0.9x", "0.5", "-10%", "slow"):
@@ -178,9 +178,9 @@ def test_compare_flags_2x_slowdown(micro_run, tmp_path):
     flagged = [c.case for c in cmp.regressions]
     assert flagged == [victim["extra_info"]["case"]]
     assert "slower" in cmp.regressions[0].flags[0]
-    assert cli.main(["bench", "compare", str(out), str(new), "--threshold", "10%"]) == 1
+    assert cli.main(["bench", "compare", str(out), str(new), "--max-growth", "10%"]) == 1
     # a 2x slow-down passes a 150 % threshold
-    assert cli.main(["bench", "compare", str(out), str(new), "--threshold", "150%"]) == 0
+    assert cli.main(["bench", "compare", str(out), str(new), "--max-growth", "150%"]) == 0
 
 
 @pytest.mark.solver

@@ -34,7 +34,7 @@ def test_parse_duration():
     assert parse_duration("2h") == 7200
     assert parse_duration("1h30m") == 5400
     assert parse_duration("90s") == 90
-    assert parse_duration("180") == 180
+    assert parse_duration("180s") == 180
     assert parse_duration(2.5) == 2.5
     for bad in ("", "2x", "h", "-5", "0"):
         with pytest.raises(ConfigError):
@@ -188,6 +188,21 @@ def test_rerun_skips_finished(clean, cluster):
 
 
 @pytest.mark.solver
+def test_rerun_of_a_finished_pilot_keeps_its_measurements(clean, cluster):
+    from decomp.production import sizing
+
+    out, b, first = clean
+    pairs = sizing.read_run_solves(out / "summary.json")
+    overhead = sizing.read_run_overhead(out / "summary.json")
+    s = run_batch(b, _config(out), client=cluster[1])          # every task finished: nothing solved
+    assert s["totals"]["run"] == 0 and s["totals"]["skipped"] == len(b)
+    # decomp size --calibrate reads the same pilot from the rewritten summary
+    assert sizing.read_run_solves(out / "summary.json") == pairs and len(pairs) == len(b)
+    assert sizing.read_run_overhead(out / "summary.json") == overhead
+    assert s["measurements"]["tasks_run"] == len(b) and "kept from the run written" in (out / "summary.md").read_text()
+
+
+@pytest.mark.solver
 def test_worker_killed_mid_run(clean, cluster, tmp_path):
     _, b, _ = clean
     cl, client = cluster
@@ -306,9 +321,9 @@ def test_embedded_cluster_and_warm_start(clean, tmp_path):
 
 
 def test_run_takes_warm_start_like_solve():
-    # one option name across solve and run (the older --warm-start-from still works)
+    # one option name across solve and run (the older --warm-start-from still works, with a warning:
+    # tests/test_vocabulary.py)
     from decomp.cli import build_parser
 
-    for flag in ("--warm-start", "--warm-start-from"):
-        args = build_parser().parse_args(["run", "gen:100", "--days", "1", "--out", "o", flag, "prev"])
-        assert args.warm_start_from == "prev"
+    args = build_parser().parse_args(["run", "gen:100", "--dates", "1", "--out", "o", "--warm-start", "prev"])
+    assert args.warm_start_from == "prev"

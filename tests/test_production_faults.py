@@ -214,7 +214,7 @@ def test_second_run_is_refused_naming_the_holder(tmp_path, capsys):
     with OutputLock(out):
         with pytest.raises(RunLockedError, match=f"pid {os.getpid()}"):
             runner.run_batch(_batch(1), _cfg(out))
-        rc = main(["run", BATCH, "--days", "1", "--start", "2027-04-01", "--out", str(out), "--no-progress"])
+        rc = main(["run", BATCH, "--dates", "1", "--start", "2027-04-01", "--out", str(out), "--no-progress"])
         assert rc == 1
         assert f"pid {os.getpid()}" in capsys.readouterr().err
     assert not (out / "run.json").exists() and not (out / "tasks").exists()    # nothing was written
@@ -283,7 +283,7 @@ def test_read_only_folder_is_reported_as_such(tmp_path, monkeypatch, capsys):
         raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(path))
 
     monkeypatch.setattr(atomic, "write_json", read_only)
-    rc = main(["run", BATCH, "--days", "1", "--start", "2027-04-01", "--out", str(tmp_path / "o"),
+    rc = main(["run", BATCH, "--dates", "1", "--start", "2027-04-01", "--out", str(tmp_path / "o"),
                "--no-progress"])
     err = capsys.readouterr().err
     assert rc == 1 and "Read-only file system" in err and "cannot write to the output folder" in err
@@ -333,7 +333,7 @@ def test_solve_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch,
 def test_sigterm_writes_an_interrupted_summary(tmp_path):
     out = tmp_path / "out"
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
-    proc = subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:3000:2", "--days", "8",
+    proc = subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:3000:2", "--dates", "8",
                              "--start", "2027-04-01", "--workers", "1", "--out", str(out), "--no-progress"],
                             env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     deadline = time.monotonic() + 120

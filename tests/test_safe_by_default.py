@@ -395,7 +395,8 @@ def test_json_integers_of_5000_digits_are_refused_naming_the_file(tmp_path, caps
                        (["solve", _tiny(tmp_path, "u"), "--model", "pnlp", "--method", "lagrangian", "--warm-start",
                          res, "--out", tmp_path / "o.json"], "r.json"),
                        (["bench", "compare", bench, bench], "benchmark.json"),
-                       (["bench", "report", bench, "--out", tmp_path / "rep"], "benchmark.json")):
+                       (["bench", "report", bench, "--out", tmp_path / "rep"], "benchmark.json"),
+                       (["bench", "history", "--add", bench, "--store", tmp_path / "h.sqlite"], "benchmark.json")):
         rc, _, err = _run(argv, capsys)
         assert rc == 2 and name in err and "digits" in err and "Traceback" not in err
 
@@ -444,9 +445,9 @@ def test_a_subnormal_std_is_refused_before_the_solve(tmp_path, capsys):
     assert rc == 2 and "row 1, column 'std'" in err and "subnormal" in err
 
 
-_WANTS_FILE = ("tables", "bench compare --json")
+_WANTS_FILE = ("tables", "bench compare --out")
 _BAD_OUT = [(command, make)
-            for command in ("simulate", "tables", "size", "bench", "bench report", "bench compare --json",
+            for command in ("simulate", "tables", "size", "bench", "bench report", "bench compare --out",
                             "baseline record", "baseline check")
             for make in ("folder" if command in _WANTS_FILE else "file", "device", "under-file")]
 
@@ -464,12 +465,11 @@ def test_a_bad_out_is_refused_before_the_work(command, make, tmp_path, capsys, m
             "size": ["size", "--bench", micro_bench, "--products", "100000", "--window", "1h", "--out", target],
             "bench": ["bench", "--suite", "micro", "-k", "no_such_case", "--out", target],
             "bench report": ["bench", "report", micro_bench, "--out", target],
-            "bench compare --json": ["bench", "compare", micro_bench, micro_bench, "--json", target],
+            "bench compare --out": ["bench", "compare", micro_bench, micro_bench, "--out", target],
             "baseline record": ["baseline", "record", "--suite", "micro", "--out", target],
             "baseline check": ["baseline", "check", inst, "--out", target]}[command]
     rc, _, err = _run(argv, capsys)
-    option = "--json" if command == "bench compare --json" else "--out"
-    assert rc == 2 and f"{option} '{target}'" in err and "Traceback" not in err, err     # the option and its path
+    assert rc == 2 and f"--out '{target}'" in err and "Traceback" not in err, err     # the option and its path
     assert blocker.read_text() == "x"
 
 
@@ -530,7 +530,7 @@ def test_a_full_disk_names_the_file_it_refused_not_the_one_written(tmp_path, mon
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
     monkeypatch.setattr(pcsv, "write_csv", full)
     rc, _, err = _run(["solve", inst, "--model", "dlp", "--method", "highs", "--out", tmp_path / "ok.json",
-                       "--products", tmp_path / "p.csv"], capsys)
+                       "--product-table", tmp_path / "p.csv"], capsys)
     assert rc == 1 and f"cannot write {tmp_path / 'p.csv'}" in err and (tmp_path / "ok.json").is_file()
 
 
@@ -656,7 +656,7 @@ def test_a_signal_after_the_last_task_still_writes_the_summary(tmp_path, monkeyp
     else:
         _signal_self_within(monkeypatch, runner, "_collect", sig)
     out = tmp_path / "out"
-    rc, _, err = _run(["run", _tiny(tmp_path), "--days", "2", "--start", "2027-04-01", "--workers", "1",
+    rc, _, err = _run(["run", _tiny(tmp_path), "--dates", "2", "--start", "2027-04-01", "--workers", "1",
                        "--out", out, "--no-progress"], capsys)
     s = json.loads((out / "summary.json").read_text())
     assert s["totals"]["ok"] == 2 and s["interrupted"] is None, err
@@ -666,7 +666,7 @@ def test_a_signal_after_the_last_task_still_writes_the_summary(tmp_path, monkeyp
 
 def _run_batch_process(out, days):
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [os.environ.get("PYTHONPATH"), str(ROOT)]))}
-    return subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:1000:2", "--days", str(days),
+    return subprocess.Popen([sys.executable, "-m", "decomp.cli", "run", "gen:1000:2", "--dates", str(days),
                              "--start", "2027-04-01", "--workers", "2", "--out", str(out), "--no-progress"],
                             env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             start_new_session=True, preexec_fn=_as_from_a_terminal)

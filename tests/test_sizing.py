@@ -291,3 +291,40 @@ def test_fits_need_three_sizes_and_start_at_1000_products(tmp_path, capsys):
                  "--out", str(tmp_path / "sz")]) == 0
     data = json.loads(capsys.readouterr().out)
     assert data["tasks"] == 10 and data["result"]["fit"]["n_points"] == 3
+
+
+# -- a calibration says how far it reaches, and refuses a pilot too small to tell ---------------
+
+def _pilot(tmp_path, n, seconds, name="pilot.json"):
+    path = tmp_path / name
+    path.write_text(json.dumps({"totals": {"overhead_per_task_seconds": 0.1, "cluster_start_seconds": 0.0},
+                                "tasks": [{"task_status": "ok", "skipped": False, "n_products": n,
+                                           "seconds_solve": s} for s in seconds]}))
+    return path
+
+
+def test_calibration_reach_and_a_pilot_too_small(exact, tmp_path, capsys):
+    from decomp.cli import main
+
+    cases = sizing.load_bench(exact)
+    kw = dict(model="pnlp", method="lagrangian", tol=1e-9, task_products=sizing.task_sizes(365, 100_000),
+              workers=2, window=60.0, overhead=0.1)
+    # 100 products, below the fit's smallest case (1,000): its ratio to the fit says little, refused
+    with pytest.raises(ConfigError, match="pilot is too small.*100 products.*1,000"):
+        sizing.size_run(cases, calibration=[(100.0, 0.0062)], **kw)
+    small = _pilot(tmp_path, 100, [0.0062])
+    argv = ["size", "--bench", str(exact), "--products", "100000", "--workers", "2", "--window", "1m",
+            "--run-summary", str(small), "--calibrate", "--out", str(tmp_path / "sz")]
+    assert main(argv) == 2 and "pilot is too small" in capsys.readouterr().err
+    # a pilot at 1,000 products taking 2x the fit (by hand: 2e-6 * 1000 = 2 ms): factor 2, carried 100x
+    s = sizing.size_run(cases, calibration=[(1000.0, 0.004)], **kw)
+    cal = s["calibration"]
+    assert cal["factor"] == pytest.approx(2.0) and cal["reach"] == pytest.approx(100.0)
+    assert "100x beyond the pilot" in cal["warning"]
+    argv[argv.index(str(small))] = str(_pilot(tmp_path, 1000, [0.004], "p1k.json"))
+    assert main(argv) == 1                            # 183 rounds of 0.5 s do not fit a minute
+    out, err = capsys.readouterr()
+    assert "applied at 100,000 products, 100x the pilot's largest task" in out and "100x beyond" in err
+    # at the production size itself there is nothing to warn about
+    s = sizing.size_run(cases, calibration=[(100_000.0, 0.4)], **kw)
+    assert s["calibration"]["reach"] == 1.0 and s["calibration"]["warning"] is None

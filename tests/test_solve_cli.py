@@ -24,7 +24,7 @@ def inst_dir(tmp_path_factory):
 def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
     out, alloc = tmp_path / "r.json", tmp_path / "a.csv"
     code = main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
-                 "--allocation", str(alloc)])
+                 "--product-table", str(alloc)])
     assert code == 0
     data = json.loads(out.read_text())
     for key in ("schema", "schema_version", "termination", "solution_status", "ok", "model", "method",
@@ -64,7 +64,7 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
 def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
     first = tmp_path / "r1.json"
     assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(first),
-                 "--allocation", str(tmp_path / "a.parquet")]) == 0
+                 "--product-table", str(tmp_path / "a.parquet")]) == 0
     assert pq.read_table(tmp_path / "a.parquet").num_rows == 100
     second = tmp_path / "r2.json"
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(first),
@@ -87,7 +87,7 @@ def test_bad_input_exits_two(inst_dir, tmp_path, capsys):
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "highs", "--out", str(out)]) == 2
     assert "methods for 'pnlp'" in capsys.readouterr().err
     assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
-                 "--allocation", str(tmp_path / "a.txt")]) == 2
+                 "--product-table", str(tmp_path / "a.txt")]) == 2
     assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
                  "--tol", "5"]) == 2
     bad = tmp_path / "bad.json"

@@ -37,25 +37,28 @@ def inputs(tmp_path_factory):
 @pytest.fixture(scope="module")
 def bench_run(tmp_path_factory):
     """``decomp bench`` on one micro case, run from an empty working folder: it too writes only into
-    its --out (checked here); its benchmark.json feeds bench compare and bench report."""
+    its --out and the history store its --history names (checked here); its benchmark.json feeds bench
+    compare and bench report."""
     import os
 
     work = tmp_path_factory.mktemp("benchwork")
     cwd = os.getcwd()
     os.chdir(work)
     try:
-        rc = main(["bench", "--suite", "micro", "-k", "tiny-dlp-highs", "--no-progress", "--out", str(work / "dest")])
+        rc = main(["bench", "--suite", "micro", "-k", "tiny-dlp-highs", "--no-progress", "--out", str(work / "dest"),
+                   "--history", str(work / "dest" / "history.sqlite")])
     finally:
         os.chdir(cwd)
     assert rc == 0
     assert [p.name for p in work.iterdir()] == ["dest"]
     assert (work / "dest" / "benchmark.json").is_file() and (work / "dest" / "report.md").is_file()
+    assert (work / "dest" / "history.sqlite").is_file()
     return work / "dest" / "benchmark.json"
 
 
 COMMANDS = {
     "solve": (["solve", "{inst}", "--model", "dlp", "--method", "highs", "--out", "{dest}/r.json",
-               "--legs", "{dest}/legs.csv", "--products", "{dest}/products.parquet"],
+               "--leg-table", "{dest}/legs.csv", "--product-table", "{dest}/products.parquet"],
               ["r.json", "legs.csv", "products.parquet"]),
     "generate": (["generate", "--products", "20", "--out", "{dest}/g"], ["g/legs.csv", "g/products.csv", "g/meta.json"]),
     "tables": (["tables", "{inst}", "--static", "{res}", "--periods", "5", "--out", "{dest}/t.parquet"],
@@ -66,7 +69,7 @@ COMMANDS = {
             ["run/summary.json", "run/summary.md", "run/run.json"]),
     "size": (["size", "--bench", "{bench}", "--products", "100000", "--window", "1h", "--out", "{dest}/sz"],
              ["sz/sizing.json", "sz/sizing.png"]),
-    "bench compare": (["bench", "compare", "{run}", "{run}", "--json", "{dest}/cmp.json"], ["cmp.json"]),
+    "bench compare": (["bench", "compare", "{run}", "{run}", "--out", "{dest}/cmp.json"], ["cmp.json"]),
     "bench report": (["bench", "report", "{run}", "--out", "{dest}/rep"], ["rep/report.md"]),
     "baseline": (["baseline", "record", "--suite", "micro", "--out", "{dest}/base"], ["base/manifest.json"]),
 }
@@ -90,5 +93,7 @@ def test_a_command_writes_only_where_it_was_pointed(name, inputs, bench_run, tmp
         assert (dest / rel).is_file(), rel
     assert not [p for p in dest.rglob("*.tmp")]                           # no temporary left behind
     if name == "baseline":                   # and baseline check into its own --out, from the working folder
-        assert main(["baseline", "check", str(dest / "base"), "--out", str(dest / "check")]) == 0
+        assert main(["baseline", "check", str(dest / "base"), "--out", str(dest / "check"),
+                     "--history", str(dest / "history.sqlite")]) == 0
         assert [p.name for p in work.iterdir()] == ["dest"] and (dest / "check" / "check.json").is_file()
+        assert (dest / "history.sqlite").is_file()

@@ -243,7 +243,8 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     was_ok = rec["termination"] == "optimal" and rec["solution_status"] == "optimal"
     if new_st != old_st:
         if was_ok:
-            rep.add("regression", "status", f"status {old_st} -> {new_st} ({result.message or result.raw_status})")
+            rep.add("regression", "status", f"status {old_st} -> {new_st}"
+                                            + (f" ({result.message})" if result.message else ""))
         else:
             rep.add("note", "status", f"status {old_st} -> {new_st}")
 

@@ -57,6 +57,27 @@ class Comparison:
                 "cases": [dataclasses.asdict(c) for c in self.cases]}
 
 
+def parse_growth(text) -> float:
+    """Allowed growth new/old as a fraction, written with its unit: '10%' -> 0.1, '1.1x' -> 0.1.
+
+    The form ``bench compare --max-growth`` and ``baseline check --max-time-growth`` share. A
+    bare number is refused: 10 read as a fraction is +1000%, read as a ratio 10x, and both
+    commands once read it one way each.
+    """
+    from ..errors import ConfigError
+
+    s = str(text).strip()
+    if not (s.endswith("%") or s.lower().endswith("x")):
+        try:
+            float(s)
+        except ValueError:
+            pass
+        else:
+            raise ConfigError(f"allowed growth {text!r} has no unit: write a growth such as {s}% or a ratio "
+                              f"such as {s}x (new / old)")
+    return parse_threshold(s)
+
+
 def parse_threshold(text) -> float:
     """Allowed growth: '10%' or '0.1' -> 0.1; a ratio new/old '1.1x' -> 0.1 (as ``baseline check
     --time-ratio 1.1``)."""
@@ -105,14 +126,36 @@ def _worse(old, new, threshold, floor) -> bool:
     return new > floor and new > old * (1 + threshold) and new - old > floor
 
 
-def compare_runs(old_path, new_path, threshold: float = 0.10, stat: str = "min",
-                 accuracy_floor: float = 1e-9) -> Comparison:
+def case_flags(ro, rn, threshold: float, stat: str = "min", accuracy_floor: float = 1e-9) -> list:
+    """Why case ``rn`` (new) regressed against ``ro`` (old), by the rules of the module docstring.
+
+    ``ro`` and ``rn`` are :class:`~.results.Row` objects (a benchmark file's, or the history
+    store's); an empty list means no regression.
+    """
+    t0, t1 = ro.time(stat), rn.time(stat)
+    ratio = t1 / t0 if t0 > 0 else None
+    flags = []
+    if ratio is not None and ratio > 1 + threshold:
+        flags.append(f"slower: x{ratio:.2f} ({stat} {t0:.4g} s -> {t1:.4g} s)")
+    for f in ACCURACY_FIELDS:
+        a, b = ro.get(f), rn.get(f)
+        if _worse(a, b, threshold, accuracy_floor):
+            flags.append(f"less accurate: {f} {a if a is None else f'{a:.3g}'} -> "
+                         f"{b if b is None else f'{b:.3g}'}")
+    if ro.get("termination") == "optimal" and rn.get("termination") not in (None, "optimal"):
+        flags.append(f"termination optimal -> {rn.get('termination')}")
+    if not ro.get("accuracy_failures") and rn.get("accuracy_failures"):
+        flags.append("accuracy checks now fail: " + "; ".join(rn.get("accuracy_failures")))
+    return flags
+
+
+def compare_cases(o: dict, n: dict, threshold: float = 0.10, stat: str = "min",
+                  accuracy_floor: float = 1e-9) -> tuple:
+    """(case comparisons, cases only in the new run) for rows by case name, old ``o`` and new ``n``."""
     if stat not in ("min", "median", "mean"):
         from ..errors import ConfigError
 
         raise ConfigError(f"stat must be min, median or mean, got {stat!r}")
-    old, new = load_run(old_path), load_run(new_path)
-    o, n = old.by_case(), new.by_case()
     cases = []
     for case, ro in o.items():
         rn = n.get(case)
@@ -120,24 +163,17 @@ def compare_runs(old_path, new_path, threshold: float = 0.10, stat: str = "min",
             cases.append(CaseComparison(case, ro.time(stat), None, None, {}, ("missing in new run",)))
             continue
         t0, t1 = ro.time(stat), rn.time(stat)
-        ratio = t1 / t0 if t0 > 0 else None
-        flags = []
-        if ratio is not None and ratio > 1 + threshold:
-            flags.append(f"slower: x{ratio:.2f} ({stat} {t0:.4g} s -> {t1:.4g} s)")
-        acc = {}
-        for f in ACCURACY_FIELDS:
-            a, b = ro.get(f), rn.get(f)
-            acc[f] = (a, b)
-            if _worse(a, b, threshold, accuracy_floor):
-                flags.append(f"less accurate: {f} {a if a is None else f'{a:.3g}'} -> "
-                             f"{b if b is None else f'{b:.3g}'}")
-        if ro.get("termination") == "optimal" and rn.get("termination") not in (None, "optimal"):
-            flags.append(f"termination optimal -> {rn.get('termination')}")
-        if not ro.get("accuracy_failures") and rn.get("accuracy_failures"):
-            flags.append("accuracy checks now fail: " + "; ".join(rn.get("accuracy_failures")))
-        cases.append(CaseComparison(case, t0, t1, ratio, acc, tuple(flags)))
-    only_new = tuple(sorted(set(n) - set(o)))
-    return Comparison(str(old.path), str(new.path), threshold, stat, tuple(cases), only_new)
+        acc = {f: (ro.get(f), rn.get(f)) for f in ACCURACY_FIELDS}
+        cases.append(CaseComparison(case, t0, t1, t1 / t0 if t0 > 0 else None, acc,
+                                    tuple(case_flags(ro, rn, threshold, stat, accuracy_floor))))
+    return tuple(cases), tuple(sorted(set(n) - set(o)))
+
+
+def compare_runs(old_path, new_path, threshold: float = 0.10, stat: str = "min",
+                 accuracy_floor: float = 1e-9) -> Comparison:
+    old, new = load_run(old_path), load_run(new_path)
+    cases, only_new = compare_cases(old.by_case(), new.by_case(), threshold, stat, accuracy_floor)
+    return Comparison(str(old.path), str(new.path), threshold, stat, cases, only_new)
 
 
 def render(cmp: Comparison) -> str:

@@ -47,10 +47,19 @@ class RunOutcome:
     n_failed: int
 
 
-def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0) -> list:
+def _quiet_env(**extra) -> dict:
+    """The environment of a pytest subprocess that writes nothing beside its outputs: no bytecode
+    (conftest.py and the case module would get a __pycache__ in bench/)."""
+    return dict(os.environ, PYTHONDONTWRITEBYTECODE="1", **extra)
+
+
+def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0, storage=None) -> list:
+    # pytest-benchmark makes its storage folder (./.benchmarks) at start-up unless it exists: point it
+    # at a folder that does (the run's temporary folder), so nothing appears in the project folder
     cmd = [python, "-m", "pytest", str(bench_dir()), "--suite", suite,
            "-p", "decomp.benchsuite.progress", "-p", "no:cacheprovider",
            f"--benchmark-json={json_path}", "--benchmark-sort=name",
+           f"--benchmark-storage=file://{storage or json_path.parent}",
            "-o", "addopts=", "-rfE", "-q", "--rootdir", str(bench_dir().parent)]
     if k:
         cmd += ["-k", k]
@@ -60,17 +69,24 @@ def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0) 
 
 
 def list_cases(suite: str, k: str | None = None, python: str | None = None) -> list:
-    """The case ids of ``suite`` (selected by ``k``), as pytest collects them; nothing is run."""
+    """The case names of ``suite`` (selected by ``k``, a pytest -k expression), as pytest collects
+    them; nothing is run and nothing is written (no cache, no bytecode, no benchmark storage)."""
     cmd = [python or sys.executable, "-m", "pytest", str(bench_dir()), "--suite", suite, "--collect-only", "-q",
-           "-p", "no:cacheprovider", "-o", "addopts=", "--rootdir", str(bench_dir().parent)]
+           "-p", "no:cacheprovider", f"--benchmark-storage=file://{bench_dir()}",   # exists: nothing made
+           "-o", "addopts=", "--rootdir", str(bench_dir().parent)]
     if k:
         cmd += ["-k", k]
-    proc = subprocess.run(cmd, capture_output=True, text=True, cwd=str(bench_dir().parent))
+    proc = subprocess.run(cmd, capture_output=True, text=True, cwd=str(bench_dir().parent), env=_quiet_env())
     ids = [line.split("::", 1)[1] for line in proc.stdout.splitlines() if "::" in line]
     if proc.returncode not in (0, 5):      # 5: nothing collected
         raise RuntimeError(f"pytest could not collect the suite (exit code {proc.returncode}): "
                            f"{(proc.stdout + proc.stderr)[-2000:]}")
-    return ids
+    return [case_name(i) for i in ids]
+
+
+def case_name(test_id: str) -> str:
+    """The case name (``tiny-dlp-highs``) in a pytest test id (``test_solve[tiny-dlp-highs]``)."""
+    return test_id.split("[", 1)[1].rstrip("]") if "[" in test_id else test_id
 
 
 def _read_progress(path, pos):
@@ -113,7 +129,7 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
     with tempfile.TemporaryDirectory(prefix=".bench-run-", dir=out) as tmp:
         tmp = pathlib.Path(tmp)
         json_tmp, prog, log_tmp = tmp / BENCH_JSON, tmp / "progress.jsonl", tmp / LOG
-        env = dict(os.environ, **{PROGRESS_ENV: str(prog), "MPLBACKEND": "Agg"})
+        env = _quiet_env(**{PROGRESS_ENV: str(prog), "MPLBACKEND": "Agg"})
         cmd = _pytest_command(suite, json_tmp, k, extra_args, python, revenue_paths)
         log.info("running %s", " ".join(cmd))
         n_done = n_failed = 0
@@ -137,7 +153,7 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
                                 n_failed += 1
                                 failed.append(ev["nodeid"])
                             if bar is not None:
-                                bar.set_postfix_str(ev["nodeid"].split("[", 1)[-1].rstrip("]")[:40]
+                                bar.set_postfix_str(case_name(ev["nodeid"])[:40]
                                                     + (f" failed={n_failed}" if n_failed else ""))
                                 bar.update(1)
                     if finished:

@@ -66,14 +66,23 @@ def existing_folder(text: str, option: str) -> str:
 
 
 def duration(text: str) -> float:
-    """Seconds in a duration such as 2h, 90m, 1h30m or 45s (see decomp.production.durations)."""
+    """Seconds in a duration with its unit, such as 2h, 90m, 1h30m or 45s (a bare number is refused;
+    see decomp.production.durations)."""
     from ..errors import ConfigError
     from ..production.durations import parse_duration
 
     try:
-        return parse_duration(text)
+        return parse_duration(text, None)
     except ConfigError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def method_or_default(method: str | None, model: str) -> str:
+    """``--method`` as given, or the model's default (:data:`decomp.registry.DEFAULT_METHOD`) when it
+    is left out; an empty name is kept, for :func:`check_method` to refuse."""
+    from ..registry import DEFAULT_METHOD
+
+    return DEFAULT_METHOD[model] if method is None else method
 
 
 def check_method(method: str, model: str, option: str = "--method") -> None:
@@ -85,3 +94,16 @@ def check_method(method: str, model: str, option: str = "--method") -> None:
         get_method(method, model)
     except UnknownMethodError as exc:
         raise UnknownMethodError(f"{option} {method!r}: {exc}") from None
+
+
+def demand_mix(text: str) -> str:
+    """A demand model (:mod:`decomp.demand_mix`: a mix's text or a named mix), checked when the
+    command line is read; the text as given."""
+    from ..demand_mix import DemandMix
+    from ..errors import ConfigError
+
+    try:
+        DemandMix.parse(text)
+    except ConfigError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    return text

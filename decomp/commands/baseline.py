@@ -6,7 +6,10 @@
 
 ``check`` exits 1 when any case regressed (status, objective, bid prices,
 certificate, allocation or time beyond its threshold), 2 when the baseline
-folder is missing, truncated or edited, 0 otherwise.
+folder is missing, truncated or edited, 0 otherwise. Each check adds its cases
+with the environment to the history store (``--history FILE``; default
+$DECOMP_HISTORY, else bench/results/history.sqlite; ``--no-history`` skips it),
+which ``decomp bench history`` lists, compares and draws.
 """
 
 from __future__ import annotations
@@ -14,8 +17,11 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import time
 
 from ._options import count, number, positive
+from ._vocabulary import old_name
+from .bench import add_history_options
 
 
 def register(sub):
@@ -56,11 +62,14 @@ def register(sub):
     g.add_argument("--kkt-floor", type=number(0.0), default=1e-6, help="KKT residual (default 1e-6)")
     g.add_argument("--certificate-factor", type=number(0.0), default=10.0,
                    help="a certificate measure may grow to this multiple of its recorded value (default 10)")
-    g.add_argument("--time-ratio", default="2x",
-                   help="allowed ratio new/old of the solve's CPU time: 2x, 2 or a growth of 100%%; the forms of bench "
-                        "compare --threshold, except that a bare number is the ratio (default: %(default)s)")
+    g.add_argument("--max-time-growth", default="2x",
+                   help="allowed growth new/old of the solve's CPU time: a ratio such as 2x or a growth such as "
+                        "100%%, as bench compare --max-growth (default: %(default)s)")
+    old_name(g, "--time-ratio", new="--max-time-growth", dest="time_ratio", metavar="X",
+             note="; a bare number is the ratio there (2 = 2x)")
     g.add_argument("--time-floor", type=number(0.0), default=0.5,
                    help="seconds below which times count as this value in the ratio (default 0.5)")
+    add_history_options(c, "the check")
     c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
                    help="change a solver option of every case, e.g. tol=1e-3 (to see that the check "
                         "catches a change; value parsed as JSON; repeatable; default: none)")
@@ -139,7 +148,7 @@ def run_check(args) -> int:
     from ..baseline.check import load_text
     from ..errors import InstanceError
 
-    from ..benchsuite.compare import parse_ratio
+    from ..benchsuite.compare import parse_growth, parse_ratio
 
     from ..errors import ConfigError
     from ..paths import output_folder
@@ -148,14 +157,21 @@ def run_check(args) -> int:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
+    old_ratio = getattr(args, "time_ratio", None)
+    option, value = ("--time-ratio", old_ratio) if old_ratio is not None else ("--max-time-growth",
+                                                                              args.max_time_growth)
     try:
-        time_ratio = parse_ratio(args.time_ratio)
+        time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
         if time_ratio < 1:
             raise ConfigError(f"a ratio new/old of at least 1 is needed, got {time_ratio:g}")
     except ConfigError as exc:
-        raise ConfigError(f"--time-ratio {args.time_ratio!r}: {exc}") from None
+        raise ConfigError(f"{option} {value!r}: {exc}") from None
     if args.out is not None:
         output_folder(args.out, "--out")           # before any solve: exit 2, the folder named
+    if not args.no_history:
+        from .bench import check_history
+
+        check_history(args)                        # before any solve: exit 2, the store's path named
     th = baseline.Thresholds(
         objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
         allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
@@ -169,6 +185,9 @@ def run_check(args) -> int:
               f"bid max {m.get('bid_max_abs_change')!s:<22} time ratio {m.get('time_ratio', float('nan')):.2f}"
               + (f" ({load_text(load)})" if load else ""), flush=True)
 
+    from ..benchsuite import history
+
+    load_start, t0 = history.load_average(), time.perf_counter()
     try:
         report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
                                 repeat=args.repeat, warmup=not args.no_warmup,
@@ -178,12 +197,32 @@ def run_check(args) -> int:
         if isinstance(exc, InstanceError):
             raise
         raise ConfigError(f"{'--override' if 'option' in str(exc) else '--case'}: {exc}") from None
+    wall = time.perf_counter() - t0
     print()
     print(report.to_markdown())
     if args.out:
         jpath, mpath = baseline.write_report(report, args.out)
         print(f"wrote {jpath} and {mpath}")
+    if not args.no_history:
+        _add_to_history(args, report, load_start, wall)
     if not report.cases:
         print("decomp baseline check: no case was compared; this is not a pass", file=sys.stderr)
         return 1
     return 1 if report.regression else 0
+
+
+def _add_to_history(args, report, load_start, wall) -> None:
+    """Add the check to the store; a store that cannot be written is said, the check's verdict stands."""
+    import sqlite3
+
+    from ..benchsuite import history
+    from ..errors import DecompError
+
+    command = f"decomp baseline check {args.baseline}" + "".join(f" --case {c}" for c in args.cases or ())
+    try:
+        with history.open_store(args.history) as store:
+            run_id = store.add_check(report, command=command, selection=args.cases, load_start=load_start,
+                                     load_end=history.load_average(), wall_seconds=wall)
+            print(f"added the check as run #{run_id} to the history {store.path}")
+    except (DecompError, OSError, sqlite3.Error) as exc:
+        print(f"decomp baseline check: warning: the check was not added to the history: {exc}", file=sys.stderr)

@@ -54,5 +54,7 @@ def run(args) -> int:
     from . import bench as bench_cmd
 
     print(f"\nRunning the quick benchmark suite into {pathlib.Path(args.out).absolute()} ...")
-    rc = bench_cmd.run_suite(suite="quick", out=args.out)
+    from . import _progress
+
+    rc = bench_cmd.run_suite(suite="quick", out=args.out, progress=_progress.wanted())
     return rc or (1 if failed else 0)

@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import time
 
-from ._options import count, number, positive, whole
+from ._options import count, demand_mix, number, positive, whole
 
 
 def register(sub):
@@ -32,7 +32,16 @@ def register(sub):
                    help="range of the coefficient of variation std/mean (default: 0.25 0.6)")
     p.add_argument("--two-stop", action=argparse.BooleanOptionalAction, default=None,
                    help="sell spoke-hub-hub-spoke itineraries (default: when there are 2+ hubs)")
+    p.add_argument("--demand", type=demand_mix, metavar="MIX", help=DEMAND_HELP)
     p.set_defaults(func=run)
+
+
+#: Help of --demand (also used by decomp run).
+DEMAND_HELP = ("demand model: each product's family drawn with these shares, e.g. "
+               "'poisson 0.35, negbin 0.15 2-3, gamma 0.15, normal 0.25 0.02-0.3, known 0.1' (family, share, "
+               "optional range: CV for normal and gamma, variance/mean for negbin; normal and gamma keep --cv "
+               "without one, negbin 2.25; known is std 0), or a named mix: normal, gamma, lowcv, poisson, "
+               "negbin, mix (default: normal demand with --cv)")
 
 
 def run(args) -> int:
@@ -48,7 +57,7 @@ def run(args) -> int:
 
             raise ConfigError(f"{option} {pair[0]:g} {pair[1]:g}: LO must not exceed HI")
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
-                                               "demand_factor", "cv", "two_stop")
+                                               "demand_factor", "cv", "two_stop", "demand")
                  if getattr(args, k) is not None}
     t0 = time.perf_counter()
     inst = generate(args.products, seed=args.seed, **overrides)

@@ -2,12 +2,12 @@
 
 BATCH is a folder of instance folders (one task each), an instance folder, or
 ``gen:PRODUCTS[:SEED]`` (a generated network); with ``--dates FIRST:LAST`` or
-``--days N`` every base network is solved once per departure date, with a
+``--dates N`` (N dates from ``--start``; as in ``decomp size``) every base network is solved once per departure date, with a
 deterministic per-date demand variation. Each task's bid prices (Parquet) and
 result (JSON) land in OUT/tasks/<key>/, written atomically; rerunning with the
 same arguments skips finished tasks once their output is verified (checksum,
 one bid price per leg, same instance content); a task that ended non-optimal
-is solved again. ``--warm-start-from`` an earlier run's OUT starts each task
+is solved again. ``--warm-start`` an earlier run's OUT starts each task
 from the bid prices of the same key there.
 
 A task whose method ends non-optimal is solved again by ``--fallback`` (default
@@ -32,15 +32,22 @@ from __future__ import annotations
 
 import sys
 
-from ._options import count, duration, number, port, positive, positive_number
+from . import _progress
+from ._options import count, demand_mix, duration, number, port, positive, positive_number
+from ._vocabulary import old_name
 
 
 def register(sub):
     p = sub.add_parser("run", help="solve a batch of departure dates on Dask (resumable)", description=__doc__)
     p.add_argument("batch", help="folder of instances, an instance folder, or gen:PRODUCTS[:SEED]")
+    from .generate import DEMAND_HELP
+
+    p.add_argument("--demand", type=demand_mix, metavar="MIX",
+                   help="of a gen:PRODUCTS[:SEED] batch: " + DEMAND_HELP)
     p.add_argument("--out", required=True, help="output folder (finished tasks in it are skipped; required)")
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
-    p.add_argument("--method", default="lagrangian", help="default: %(default)s")
+    p.add_argument("--method", default=None,
+                   help="method of --model (default: lagrangian for pnlp, highs for dlp and pwl)")
     p.add_argument("--tol", type=positive_number, default=1e-9, help="optimality tolerance (default: %(default)g)")
     p.add_argument("--time-limit", type=positive_number, default=None, help="seconds per task solve (default: none)")
     p.add_argument("--iteration-limit", type=positive, default=None, metavar="N",
@@ -49,10 +56,11 @@ def register(sub):
                    help="method for tasks the primary leaves non-optimal: auto, none, a method "
                         "name, or lagrangian:DUAL (newton, lbfgsb, subgradient) (default: %(default)s)")
     g = p.add_argument_group("departure dates")
-    g.add_argument("--dates", help="FIRST:LAST, inclusive ISO dates, e.g. 2027-01-01:2027-12-31 "
-                                   "(default: --days from --start)")
-    g.add_argument("--days", type=positive, help="N dates from --start (default: one date, --start)")
-    g.add_argument("--start", help="first date for --days (default: today, UTC)")
+    g.add_argument("--dates", metavar="N|FIRST:LAST",
+                   help="N dates from --start, or FIRST:LAST inclusive ISO dates, e.g. 2027-01-01:2027-12-31 "
+                        "(default: one date, --start)")
+    old_name(g, "--days", new="--dates N", dest="days", type=positive, metavar="N")
+    g.add_argument("--start", help="first date of --dates N (default: today, UTC)")
     g.add_argument("--variation-seed", type=int, default=0,
                    help="seed of the per-date demand variation (default: %(default)s)")
     g.add_argument("--variation-sigma", type=number(0.0), default=0.10,
@@ -67,13 +75,14 @@ def register(sub):
     c.add_argument("--dashboard", type=port, metavar="PORT",
                    help="serve the Dask dashboard of the embedded cluster on 127.0.0.1:PORT (0: any free "
                         "port; default: no dashboard)")
-    p.add_argument("--warm-start", "--warm-start-from", dest="warm_start_from", metavar="DIR",
+    p.add_argument("--warm-start", dest="warm_start_from", metavar="DIR",
                    help="an earlier run's OUT folder: each task starts from the bid prices of the same key "
-                        "there, as solve --warm-start does from one result (--warm-start-from is the older "
-                        "name; default: cold starts)")
-    p.add_argument("--window", type=duration, help="optimization window, e.g. 2h, 90m (for the progress bar and summary; "
-                                    "default: none)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
+                        "there, as solve --warm-start does from one result (default: cold starts)")
+    old_name(p, "--warm-start-from", new="--warm-start", dest="warm_start_from", metavar="DIR")
+    p.add_argument("--window", type=duration,
+                   help="optimization window with its unit, e.g. 2h, 90m, 5400s (for the progress "
+                        "bar and summary; default: none)")
+    p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.set_defaults(func=run)
 
 
@@ -88,7 +97,7 @@ def run(args) -> int:
                  "distributed.http.proxy", "distributed.diskutils", "distributed.worker"):
         logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
     from ..options import SolverOptions
-    from ..production.batch import DateVariation, build_batch, date_range
+    from ..production.batch import DateVariation, build_batch
     from ..production.durations import format_duration
     from ..production.fallback import Fallback, parse as parse_fallback
     from ..production.lock import RunLockedError
@@ -96,11 +105,12 @@ def run(args) -> int:
     from ..production.signals import terminate_as_interrupt
 
     from ..paths import output_folder
-    from ._options import check_method, existing_folder
+    from ._options import check_method, existing_folder, method_or_default
 
     window = args.window
     output_folder(args.out, "--out")               # before anything starts: exit 2, the path named
-    check_method(args.method, args.model)
+    method = method_or_default(args.method, args.model)
+    check_method(method, args.model)
     fallback = parse_fallback(args.fallback)
     if isinstance(fallback, Fallback):
         check_method(fallback.method, args.model, "--fallback")
@@ -108,17 +118,18 @@ def run(args) -> int:
         _check_scheduler(args.scheduler)
     if args.warm_start_from is not None:
         existing_folder(args.warm_start_from, "--warm-start")
-    dates = date_range(args.dates, args.days, args.start)
+    dates = run_dates(args)
     variation = DateVariation(seed=args.variation_seed, sigma=args.variation_sigma, seasonal=args.seasonal)
-    batch = build_batch(args.batch, dates, variation)
+    batch = build_batch(args.batch, dates, variation, demand=args.demand)
     options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
                             threads=1)
-    cfg = RunConfig(model=args.model, method=args.method, options=options, out=args.out,
+    cfg = RunConfig(model=args.model, method=method, options=options, out=args.out,
                     warm_start_from=args.warm_start_from, fallback=args.fallback)
     bar = {}
+    show_bar = _progress.wanted(args)
 
     def on_event(kind, rec, prog):
-        if args.no_progress:
+        if not show_bar:
             if kind == "failed":
                 print(f"task {rec['key']} failed: {rec.get('error')}", file=sys.stderr)
             return
@@ -139,7 +150,7 @@ def run(args) -> int:
         b.set_postfix(post, refresh=False)
         b.update(1)
 
-    print(f"decomp run: {batch.description}; {args.model} by {args.method}, tol {args.tol:g}; out {cfg.out}")
+    print(f"decomp run: {batch.description}; {args.model} by {method}, tol {args.tol:g}; out {cfg.out}")
     try:
         with terminate_as_interrupt():
             s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
@@ -200,3 +211,23 @@ def _check_scheduler(address: str) -> None:
         raise ConfigError(f"--scheduler {address}: a TLS scheduler needs the client's credentials in Dask's "
                           f"configuration (distributed.comm.tls.ca-file, .client.cert, .client.key; e.g. "
                           f"DASK_DISTRIBUTED__COMM__TLS__CA_FILE); see the README, Reliability")
+
+
+def run_dates(args) -> list:
+    """The departure dates of ``--dates N|FIRST:LAST`` (N from ``--start``), or of the old ``--days N``."""
+    from ..errors import ConfigError
+    from ..production.batch import date_range
+
+    days = getattr(args, "days", None)
+    if args.dates is not None and days is not None:
+        raise ConfigError("give --dates only (--days is its old name), not both")
+    text = args.dates
+    if text is not None and ":" not in str(text):
+        try:
+            days, text = int(str(text).strip()), None
+        except ValueError:
+            raise ConfigError(f"--dates {args.dates!r}: expected N or FIRST:LAST ISO dates, e.g. 365 or "
+                              f"2027-01-01:2027-12-31") from None
+        if days < 1:
+            raise ConfigError(f"--dates must be at least 1, got {days}")
+    return date_range(text, days, args.start)

@@ -34,6 +34,7 @@ from __future__ import annotations
 import re
 import sys
 
+from . import _progress
 from ._options import count, number, positive, positive_number
 
 
@@ -90,7 +91,7 @@ def register(sub):
     c.add_argument("--workers", type=count, default=None,
                    help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
     p.add_argument("--out", required=True, help="output folder (required)")
-    p.add_argument("--no-progress", action="store_true", help="no progress bar (default: shown)")
+    p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.set_defaults(func=run)
 
 
@@ -147,9 +148,10 @@ def run(args) -> int:
         _check_scheduler(args.scheduler)
 
     bar = {}
+    show_bar = _progress.wanted(args)
 
     def on_progress(done, planned):
-        if args.no_progress:
+        if not show_bar:
             return
         from tqdm import tqdm
 

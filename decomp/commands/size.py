@@ -32,7 +32,8 @@ def register(sub):
                    help="folder of instance folders (sizes read from it), each solved once per date "
                         "(default: --products)")
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
-    p.add_argument("--method", default="lagrangian", help="default: %(default)s")
+    p.add_argument("--method", default=None,
+                   help="method of --model (default: lagrangian for pnlp, highs for dlp and pwl)")
     p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
     p.add_argument("--tol", type=positive_number, default=1e-9, help="tolerance of the run (default: %(default)g)")
     p.add_argument("--fit-min-products", type=count, default=1000, metavar="N",
@@ -40,7 +41,8 @@ def register(sub):
                         "bend the curve (default: %(default)s; 0 fits every case)")
     p.add_argument("--workers", type=positive, default=None, metavar="W",
                    help="workers of the production run (default: one per core of this machine, as decomp run)")
-    p.add_argument("--window", type=duration, required=True, help="optimization window, e.g. 2h, 90m, 180s")
+    p.add_argument("--window", type=duration, required=True,
+                   help="optimization window with its unit, e.g. 2h, 90m, 180s (a bare number is refused)")
     p.add_argument("--overhead", type=number(0.0), metavar="S",
                    help="seconds per task beyond the solve (default: from --run-summary, else 0)")
     p.add_argument("--startup", type=number(0.0), metavar="S",
@@ -89,6 +91,7 @@ def _m(s):
 
 def run(args) -> int:
     import json
+    import sys
     import os
     import pathlib
 
@@ -117,7 +120,10 @@ def run(args) -> int:
     workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
     cases = sizing.load_bench(args.bench)
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
-    s = sizing.size_run(cases, model=args.model, method=args.method, tol=args.tol, task_products=sizes,
+    from ._options import method_or_default
+
+    method = method_or_default(args.method, args.model)
+    s = sizing.size_run(cases, model=args.model, method=method, tol=args.tol, task_products=sizes,
                         workers=workers, window=window, overhead=overhead, startup=startup,
                         variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration,
                         revenue_loss=args.revenue_loss)
@@ -127,6 +133,8 @@ def run(args) -> int:
     atomic.write_json(out / "sizing.json", s)
     with refusing(out / "sizing.png"):
         sizing.plot(s, out / "sizing.png")
+    if s.get("calibration") and s["calibration"]["warning"]:
+        print(f"decomp size: warning: {s['calibration']['warning']}", file=sys.stderr)
     if args.json:
         print(json.dumps(s, indent=2))
         return 0 if r["fits"] else 1
@@ -139,9 +147,15 @@ def run(args) -> int:
     if r["cases_with_accuracy_failures"]:
         print(f"  note: {r['cases_with_accuracy_failures']} fitted case(s) converged but failed an accuracy "
               f"check in the benchmark (their times are kept)")
-    if s["calibration_factor"] is not None:
-        print(f"  calibrated: solve times measured in {args.run_summary} are {s['calibration_factor']:.2f}x "
-              f"the benchmark fit; the fit is scaled by that")
+    cal = s.get("calibration")
+    if cal is not None:
+        lo, hi = cal["pilot_products"]
+        sizes = f"{hi:,.0f}" if lo == hi else f"{lo:,.0f} to {hi:,.0f}"
+        print(f"  calibrated: solve times of {cal['pilot_tasks']} pilot task(s) of {sizes} products in "
+              f"{args.run_summary} are {cal['factor']:.2f}x the benchmark fit (median; {cal['ratio_range'][0]:.2f} to "
+              f"{cal['ratio_range'][1]:.2f}); the fit is scaled by that and applied at "
+              f"{cal['applied_at_products']:,.0f} products, {cal['reach']:.3g}x the pilot's largest task")
+
     print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {overhead:.3f} s ({source}); "
           f"start-up {startup:.1f} s")
     rows = [("tol", "wall", "95% interval", "fits", "margin", "fewest workers (central/high)")]

@@ -7,11 +7,13 @@ termination, solution status, model, method, objective, bound, certified gap,
 bid prices by leg id, iterations, seconds by phase, solver name and version,
 the certificate, and under ``context`` the instance and the versions of Python,
 numpy, scipy, Pyomo, highspy, cyipopt and the HiGHS and Ipopt libraries.
-``--out -`` writes the JSON to stdout and the summary to stderr.
-``--legs`` writes one row per leg (capacity, allocated seats, load factor, bid
-price, binding / slack / closed), ``--products`` one row per product (legs,
-fare, demand, allocation, displacement = sum of its legs' bid prices, margin,
-open / closed); CSV or Parquet by suffix.
+Without ``--out`` only the summary is printed; ``--out -`` writes the JSON to
+stdout and the summary to stderr. ``--model`` defaults to pnlp and ``--method``
+to the model's default (lagrangian for pnlp, highs for dlp and pwl).
+``--leg-table`` writes one row per leg (capacity, allocated seats, load factor,
+bid price, binding / slack / closed), ``--product-table`` one row per product
+(legs, fare, demand, allocation, displacement = sum of its legs' bid prices,
+margin, open / closed); CSV or Parquet by suffix (another suffix is refused).
 Exit code 0 when the answer is certified optimal, 1 when the solve stopped
 short of that (limit, numerical trouble, uncertified), 2 on bad input.
 """
@@ -28,6 +30,7 @@ import sys
 import numpy as np
 
 from ._options import positive, positive_number
+from ._vocabulary import old_name
 
 #: Methods that use --warm-start (the others would ignore it, so it is refused for them).
 WARM_START_METHODS = ("ipopt", "pyomo-ipopt", "lagrangian")
@@ -37,9 +40,10 @@ def register(sub):
     p = sub.add_parser("solve", help="solve an instance (dlp, pnlp or pwl) with a named method",
                        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("instance", metavar="INSTANCE", help="instance folder, or a ladder rung name")
-    p.add_argument("--model", required=True, choices=("dlp", "pnlp", "pwl"), help="the model")
-    p.add_argument("--method", required=True, metavar="NAME",
-                   help="highs, pyomo-highs (dlp, pwl); ipopt, pyomo-ipopt, lagrangian (pnlp)")
+    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="the model (default: %(default)s)")
+    p.add_argument("--method", default=None, metavar="NAME",
+                   help="highs, pyomo-highs (dlp, pwl); ipopt, pyomo-ipopt, lagrangian (pnlp) "
+                        f"(default: {_defaults_text()})")
     p.add_argument("--tol", type=positive_number, metavar="T", help="solver tolerance (default: 1e-9)")
     p.add_argument("--time-limit", type=positive_number, metavar="S",
                    help="wall-clock limit of the solve in seconds (default: none)")
@@ -51,13 +55,22 @@ def register(sub):
                    help="start from earlier bid prices: a result JSON of decomp solve, a decomp run task "
                         "(its folder or result.json), a baseline case, or a leg,bid_price table "
                         f"(methods {', '.join(WARM_START_METHODS)} only; default: none)")
-    p.add_argument("--legs", metavar="FILE", help="write the leg table (.csv or .parquet; default: not written)")
-    p.add_argument("--products", "--allocation", dest="products", metavar="FILE",
-                   help="write the product table (.csv or .parquet; --allocation is the old name; "
-                        "default: not written)")
-    p.add_argument("--out", required=True, metavar="RESULT.json",
-                   help="result file (written atomically), or - for stdout (the summary then goes to stderr)")
+    p.add_argument("--leg-table", metavar="FILE",
+                   help="write the leg table (.csv or .parquet; default: not written)")
+    p.add_argument("--product-table", metavar="FILE",
+                   help="write the product table (.csv or .parquet; default: not written)")
+    old_name(p, "--legs", new="--leg-table", dest="leg_table", metavar="FILE")
+    old_name(p, "--products", "--allocation", new="--product-table", dest="product_table", metavar="FILE")
+    p.add_argument("--out", default=None, metavar="RESULT.json",
+                   help="result file (written atomically), or - for stdout (the summary then goes to stderr) "
+                        "(default: not written, the summary only)")
     p.set_defaults(func=run)
+
+
+def _defaults_text() -> str:
+    from ..registry import DEFAULT_METHOD
+
+    return ", ".join(f"{m} for {model}" for model, m in DEFAULT_METHOD.items())
 
 
 def _load(spec):
@@ -89,8 +102,7 @@ def summary(result, instance) -> str:
     """The human summary of ``result`` on ``instance``: status, certificate, times, and the legs by state."""
     lines = [
         f"{instance.name}: {result.model} by {result.method} ({result.solver}, {result.solver_version})",
-        f"  status      {result.termination.value} (solver: {result.raw_status}); "
-        f"solution {result.solution_status.value}",
+        f"  status      {result.termination.value}; solution {result.solution_status.value}",
         f"  objective   {_num(result.objective, ',.6f')}    bound {_num(result.bound, ',.6f')}    "
         f"gap {_num(result.gap, '.2e')}",
     ]
@@ -138,6 +150,13 @@ def _leg_lines(instance, result) -> list:
     return lines
 
 
+def _method(args) -> str:
+    """The method named, or the model's default."""
+    from ._options import method_or_default
+
+    return method_or_default(args.method, args.model)
+
+
 def _options(args):
     """SolverOptions from the flags, refusing those that do not apply to the model or method."""
     from ..errors import ConfigError
@@ -145,11 +164,11 @@ def _options(args):
 
     from ._options import check_method
 
-    check_method(args.method, args.model)
+    check_method(_method(args), args.model)
     if args.segments is not None and args.model != "pwl":
         raise ConfigError(f"--segments applies to the pwl model only, not {args.model}")
-    if args.warm_start and args.method not in WARM_START_METHODS:
-        raise ConfigError(f"--warm-start is not used by method {args.method!r} (it is used by "
+    if args.warm_start and _method(args) not in WARM_START_METHODS:
+        raise ConfigError(f"--warm-start is not used by method {_method(args)!r} (it is used by "
                           f"{', '.join(WARM_START_METHODS)}); leave it out")
     kw = {k: getattr(args, k) for k in ("tol", "time_limit", "iteration_limit", "segments")
           if getattr(args, k) is not None}
@@ -163,14 +182,16 @@ def _check_outputs(args):
     from ..paths import output_file
     from ..tables import check_table_path
 
-    output_file(args.out, "--out", stdout=True)
-    for flag, path in (("--legs", args.legs), ("--products", args.products)):
+    if args.out is not None:                       # without --out only the summary is printed
+        output_file(args.out, "--out", stdout=True)
+    for flag, path in (("--leg-table", args.leg_table), ("--product-table", args.product_table)):
         if path is not None:
             check_table_path(path, flag)
             if path == args.out:
                 raise OutputPathError(f"{flag} and --out name the same file", path=path, option=flag)
-    if args.legs is not None and args.legs == args.products:
-        raise OutputPathError("--legs and --products name the same file", path=args.legs, option="--products")
+    if args.leg_table is not None and args.leg_table == args.product_table:
+        raise OutputPathError("--leg-table and --product-table name the same file", path=args.leg_table,
+                              option="--product-table")
 
 
 def run(args) -> int:
@@ -193,7 +214,7 @@ def run(args) -> int:
         warm, _ = bounded_warm_start(instance, warm)
     try:
         with _progress_to_terminal():
-            result = _solve(instance, model=args.model, method=args.method, options=options, warm_start=warm)
+            result = _solve(instance, model=args.model, method=_method(args), options=options, warm_start=warm)
     except SolverUnavailableError as exc:
         print(f"decomp solve: error: {exc}", file=sys.stderr)
         return 1
@@ -205,13 +226,13 @@ def run(args) -> int:
         if args.out == "-":
             sys.stdout.write(json.dumps(out, indent=2) + "\n")
             sys.stdout.flush()
-        else:
+        elif args.out is not None:
             write_json(args.out, out)
             written.append(args.out)
-        if args.legs:
-            written.append(str(write_table(leg_table(instance, result), args.legs)))
-        if args.products and result.allocation is not None:
-            written.append(str(write_table(product_table(instance, result), args.products)))
+        if args.leg_table:
+            written.append(str(write_table(leg_table(instance, result), args.leg_table)))
+        if args.product_table and result.allocation is not None:
+            written.append(str(write_table(product_table(instance, result), args.product_table)))
     except EnvironmentRefusedError as exc:   # a full disk, a read-only folder: the file it refused, and
         print(f"decomp solve: error: {exc}" + (f" (written: {', '.join(written)})" if written else ""),
               file=sys.stderr)               # what was written before it (atomic: nothing half-written)
@@ -219,8 +240,8 @@ def run(args) -> int:
     print(summary(result, instance), file=human)
     if written:
         print(f"  wrote {', '.join(written)}", file=human)
-    if args.products and result.allocation is None:
-        print(f"decomp solve: {args.products} not written: the solve returned no allocation "
+    if args.product_table and result.allocation is None:
+        print(f"decomp solve: {args.product_table} not written: the solve returned no allocation "
               f"({result.termination.value})", file=sys.stderr)
     return 0 if result.ok else 1
 

@@ -4,12 +4,16 @@ The booking horizon is cut into PERIODS periods and each product's forecast
 spread over them with the simulation's arrival curves (low fares early, high
 fares late; see ``decomp.dynamic.demand``). The static bid prices come from a
 result file of ``decomp solve`` (``--static RESULT.json``) or from a solve run
-here (``--model``/``--method``; by default the PNLP by Ipopt). ``--by decomposition`` (default) solves one
+here (``--model``/``--method``; by default the PNLP by its default method,
+lagrangian). ``--by decomposition`` (default) solves one
 dynamic program per leg with the other legs' bid prices taken off each fare;
 ``--by relaxation`` minimizes the Lagrangian bound of the network program
 (needs at most one request per period in the network, so as many periods as
-requests). Writes a Parquet file with one row per leg, period and seats
-remaining: ``leg, period, seats_remaining, bid_price``.
+requests; too few periods are refused with the fewest that work). Writes one
+row per leg, period and seats remaining: ``leg, period, seats_remaining,
+bid_price``, as Parquet or CSV by the suffix of ``--out`` (another suffix is
+refused before any work). ``-v`` logs each step, and the relaxation's
+progress every 10 iterations.
 Exit codes: 0 written, 1 the static solve or the search did not finish
 cleanly (the tables are still written, with the status), 2 bad input.
 """
@@ -17,9 +21,12 @@ cleanly (the tables are still written, with the status), 2 bad input.
 from __future__ import annotations
 
 import argparse
+import logging
 import sys
 
 from ._options import positive
+
+log = logging.getLogger(__name__)
 
 
 def register(sub):
@@ -31,14 +38,14 @@ def register(sub):
     src.add_argument("--model", choices=("dlp", "pnlp"), default="pnlp",
                      help="solve this static model here (default: %(default)s)")
     p.add_argument("--method", default=None, metavar="NAME", help="method of --model (default: highs for dlp, "
-                                                                   "ipopt for pnlp)")
+                                                                   "lagrangian for pnlp)")
     p.add_argument("--periods", type=positive, default=200, help="booking periods (default: %(default)s)")
     p.add_argument("--by", choices=("decomposition", "relaxation"), default="decomposition",
                    help="decomposition by leg from the static bid prices, or the Lagrangian relaxation "
                         "(default: %(default)s)")
     p.add_argument("--threads", type=positive, default=None, help="threads over legs (default: the CPUs available)")
     p.add_argument("--out", required=True, metavar="TABLES.parquet",
-                   help="output file, Parquet (written atomically; required)")
+                   help="output file, .parquet or .csv (written atomically; required)")
     p.set_defaults(func=run)
 
 
@@ -59,8 +66,10 @@ def _static_bid_prices(args, instance):
             raise InstanceError("bid prices must be finite and >= 0", file=args.static, column="bid_prices")
         return pi, f"{args.static}", True
     from .. import solve
+    from ._options import method_or_default
 
-    method = args.method or {"dlp": "highs", "pnlp": "ipopt"}[args.model]
+    method = method_or_default(args.method, args.model)
+    log.info("solving the static %s by %s on %s", args.model, method, instance.name)
     res = solve(instance, model=args.model, method=method)
     if res.bid_price_array is None:
         raise RuntimeError(f"{args.model}:{method} returned no bid prices ({res.termination.value}: {res.message})")
@@ -74,26 +83,38 @@ def run(args) -> int:
     import time
 
     from ..dynamic.decomposition import decompose
-    from ..dynamic.demand import DemandError, from_arrival_curves
+    from ..dynamic.demand import DemandError, fewest_periods, from_arrival_curves
     from ..dynamic.relaxation import CONVERGED, STATIONARY, relax
-    from ..dynamic.tables import write_parquet
+    from ..dynamic.tables import write
+    from ..tables import check_table_path
     from .solve import _load
 
-    from ..paths import output_file
-    from ._options import check_method
+    from ._options import check_method, method_or_default
 
-    output_file(args.out, "--out")                 # before any work: exit 2, the path named
+    check_table_path(args.out, "--out")     # .parquet or .csv, a writable path: refused before any work, named
     if args.static is None:
-        check_method(args.method or {"dlp": "highs", "pnlp": "ipopt"}[args.model], args.model)
+        check_method(method_or_default(args.method, args.model), args.model)
     elif args.method is not None:
         from ..errors import ConfigError
 
         raise ConfigError("--method chooses the solve of --model; with --static nothing is solved here: leave it out")
     instance = _load(args.instance)
-    pi, source, ok = _static_bid_prices(args, instance)
     t0 = time.perf_counter()
     demand = from_arrival_curves(instance, args.periods)
+    t_demand = time.perf_counter() - t0
+    log.info("spread %s's forecast over %d periods (%.2f s)", instance.name, args.periods, t_demand)
+    if args.by == "relaxation" and not demand.at_most_one_request():
+        # refused before the static solve, with the number of periods that would do
+        log.info("too many requests per period for the relaxation; searching the fewest periods that do")
+        try:
+            demand.require_at_most_one_request("--by relaxation", fewest_periods(instance, args.periods))
+        except DemandError as exc:
+            print(f"decomp tables: error: {exc}", file=sys.stderr)
+            return 2
+    t0 = time.perf_counter()
+    pi, source, ok = _static_bid_prices(args, instance)
     t1 = time.perf_counter()
+    log.info("computing the tables by %s", args.by)
     try:
         if args.by == "decomposition":
             tables = decompose(instance, demand, pi, threads=args.threads, source=source)
@@ -106,7 +127,7 @@ def run(args) -> int:
         print(f"decomp tables: error: {exc}", file=sys.stderr)
         return 2
     t2 = time.perf_counter()
-    write_parquet(tables, args.out)
+    write(tables, args.out)
     t3 = time.perf_counter()
     cap = tables.capacity
     print(f"{instance.name}: {instance.n_legs} legs, {instance.n_products} products, {args.periods} periods, "
@@ -116,7 +137,8 @@ def run(args) -> int:
     if tables.bound is not None:
         print(f"  bound on the optimal expected revenue {tables.bound:,.2f} "
               f"(at the static bid prices {tables.info.get('start_bound', float('nan')):,.2f})")
-    print(f"  time: demand {t1 - t0:.2f} s, tables {t2 - t1:.2f} s, write {t3 - t2:.2f} s")
+    print(f"  time: demand {t_demand:.2f} s, static bid prices {t1 - t0:.2f} s, tables {t2 - t1:.2f} s, "
+          f"write {t3 - t2:.2f} s")
     print(f"  wrote {args.out} ({int((cap * demand.periods).sum()):,} rows)")
     return 0 if ok else 1
 

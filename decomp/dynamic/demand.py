@@ -29,6 +29,7 @@ of their period, ``(t + 1/2) / T`` of the horizon.
 from __future__ import annotations
 
 import dataclasses
+import math
 
 import numpy as np
 from scipy import stats
@@ -82,14 +83,24 @@ class PeriodDemand:
         """True when every period has at most one request in the whole network."""
         return bool(self.prob.sum(axis=1).max() <= 1.0 + ONE_REQUEST_SLACK)
 
-    def require_at_most_one_request(self, what: str) -> None:
+    def require_at_most_one_request(self, what: str, fewest: int | None = None) -> None:
+        """DemandError unless every period expects at most one request in the network. The message
+        says how many periods are needed: ``fewest`` when the caller found it (:func:`fewest_periods`),
+        else at least one per expected request and about periods x the busiest period's requests."""
         total = self.prob.sum(axis=1)
         t = int(np.argmax(total))
         if total[t] > 1.0 + ONE_REQUEST_SLACK:
+            if fewest is not None:
+                need = f"with these arrival curves {fewest:,} periods are the fewest that do; use --periods {fewest}"
+            else:
+                low = max(self.periods + 1, math.ceil(self.prob.sum() - ONE_REQUEST_SLACK))
+                about = max(low, math.ceil(self.periods * total[t]))
+                need = (f"it needs at least {low:,} periods (one per expected request), about {about:,} "
+                        f"with these arrival curves")
             raise DemandError(
-                f"{what} needs at most one request per period in the whole network; period {t} expects "
-                f"{total[t]:.3g} requests (the network expects {self.prob.sum():,.0f} requests in all; "
-                "cut the horizon into more periods)")
+                f"{what} needs at most one request per period in the whole network; period {t} of "
+                f"{self.periods:,} expects {total[t]:.6g} requests (the network expects {self.prob.sum():,.0f} "
+                f"requests in all): {need}")
 
     def sample_paths(self, instance, paths, seed: int):
         """Requests of the given sample paths (at most one per period), as the simulation's RequestPaths.
@@ -148,6 +159,37 @@ def from_arrival_curves(instance, periods: int, mean=None, curve=None) -> Period
     if err.size and err.max() > 1e-9 * max(1.0, float(np.max(mean))):
         raise DemandError(f"per-period demand does not add up to the forecast (largest error {err.max():.3g})")
     return d
+
+
+def fewest_periods(instance, periods: int, mean=None, curve=None, max_cells: float = 2e8) -> int | None:
+    """The fewest periods in which :func:`from_arrival_curves` expects at most one request per period
+    in the whole network, searched up from ``periods`` (which has more); None when the search would
+    spread more than ``max_cells`` (periods x products) values at a time.
+
+    Bisection between a count known to fail and one known to pass, each checked by spreading the
+    demand anew, so the answer passes and one period fewer was seen to fail.
+    """
+    n_products = max(1, instance.n_products)
+
+    def passes(n: int) -> bool:
+        return from_arrival_curves(instance, n, mean=mean, curve=curve).at_most_one_request()
+
+    mean_ = np.maximum(np.asarray(instance.mean if mean is None else mean, dtype=np.float64), 0.0)
+    lo = max(int(periods), math.ceil(float(mean_.sum()) - ONE_REQUEST_SLACK) - 1)   # fails (or is below the bound)
+    d = from_arrival_curves(instance, int(periods), mean=mean, curve=curve)
+    hi = max(lo + 1, math.ceil(int(periods) * float(d.prob.sum(axis=1).max())))
+    while True:
+        if hi * n_products > max_cells:
+            return None
+        if passes(hi):
+            break
+        lo, hi = hi, math.ceil(hi * 1.25) + 1
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if mid * n_products > max_cells:
+            return None
+        lo, hi = (lo, mid) if passes(mid) else (mid, hi)
+    return hi
 
 
 def steps_per_period(leg_prob: np.ndarray) -> np.ndarray:

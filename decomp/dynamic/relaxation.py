@@ -41,6 +41,7 @@ must have at most one request per period (the published problems do).
 from __future__ import annotations
 
 import dataclasses
+import logging
 import time
 
 import numpy as np
@@ -48,6 +49,11 @@ import scipy.sparse as sp
 
 from .demand import PeriodDemand
 from .tables import BidPriceTables
+
+log = logging.getLogger(__name__)
+
+#: A progress line on the logger every this many iterations (counted, so the lines do not depend on the clock).
+PROGRESS_EVERY = 10
 
 #: Why the search stopped.
 CONVERGED = "converged"             # target gap below tol x bound
@@ -242,8 +248,12 @@ def relax(instance, demand: PeriodDemand, bid_prices, *, tol: float = 1e-5, iter
         if time_limit is not None and time.perf_counter() - t0 > time_limit:
             termination = TIME_LIMIT
             break
+        if it % PROGRESS_EVERY == 0:
+            log.info("relaxation: iteration %d of at most %d, bound %.6g (start %.6g), target gap %.3g, %.1f s",
+                     it, iteration_limit, best, v0, gap, time.perf_counter() - t0)
         lam = net.project(lam - step * d)
     seconds = time.perf_counter() - t0
+    log.info("relaxation: %s after %d iterations, bound %.6g, %.1f s", termination, it, best, seconds)
     tables = net.tables(instance, best_bid, method="lagrangian relaxation", value=best, bound=best,
                         info={"start_bound": v0, "termination": termination, "iterations": it,
                               "seconds": seconds, "periods": T, "demand": demand.source})

@@ -94,13 +94,40 @@ class BidPriceTables:
 
 
 def write_parquet(tables: BidPriceTables, path) -> pathlib.Path:
-    """Write the tables as Parquet (atomically); returns the path."""
-    import pyarrow as pa
+    """Write the tables as Parquet (atomically), with the metadata :func:`read_parquet` needs; returns the path."""
     import pyarrow.parquet as pq
 
     from ..atomic import atomic_path
 
     path = pathlib.Path(path)
+    with atomic_path(path) as tmp:
+        pq.write_table(_arrow_table(tables), tmp)
+    return path
+
+
+def write(tables: BidPriceTables, path) -> pathlib.Path:
+    """Write the tables in the format of the path's suffix, atomically: ``.parquet`` (with the metadata
+    :func:`read_parquet` needs) or ``.csv`` (the four columns only); another suffix is an InstanceError."""
+    import pyarrow as pa
+    import pyarrow.csv as pcsv
+
+    from ..atomic import atomic_path
+    from ..tables import check_table_path
+
+    path = check_table_path(path)
+    if path.suffix.lower() == ".parquet":
+        return write_parquet(tables, path)
+    table = _arrow_table(tables)
+    table = table.set_column(0, "leg", table.column("leg").cast(pa.string()))
+    with atomic_path(path) as tmp:
+        pcsv.write_csv(table, tmp)
+    return path
+
+
+def _arrow_table(tables: BidPriceTables):
+    """One row per leg, period and seats remaining (:data:`COLUMNS`), the tables' facts as schema metadata."""
+    import pyarrow as pa
+
     T = tables.periods
     cap = tables.capacity
     rows_per_leg = T * cap
@@ -120,10 +147,7 @@ def write_parquet(tables: BidPriceTables, path) -> pathlib.Path:
     })
     meta = {"method": tables.method, "periods": T, "value": tables.value, "bound": tables.bound,
             "legs": leg_names.tolist(), "capacity": cap.tolist(), "info": _plain(dict(tables.info))}
-    table = table.replace_schema_metadata({METADATA_KEY: json.dumps(meta).encode()})
-    with atomic_path(path) as tmp:
-        pq.write_table(table, tmp)
-    return path
+    return table.replace_schema_metadata({METADATA_KEY: json.dumps(meta).encode()})
 
 
 def _plain(obj):

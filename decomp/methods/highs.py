@@ -116,12 +116,18 @@ def lp_arrays(instance, model: str, segments: int):
     return cost, upper, A[:, cols], cols
 
 
+def status_words(status) -> str:
+    """A HiGHS status in words for messages ('kError' -> 'error'); the code itself stays in raw_status."""
+    name = getattr(status, "name", str(status))
+    return (name[1:] if name[:1] == "k" and name[1:2].isupper() else name).lower()
+
+
 def _set(h, name, value):
     import highspy
 
     status = h.setOptionValue(name, value)
     if status != highspy.HighsStatus.kOk:
-        raise ConfigError(f"HiGHS rejected option {name}={value!r} ({status.name})")
+        raise ConfigError(f"HiGHS rejected option {name}={value!r} (HiGHS status: {status_words(status)})")
 
 
 def options_record(options) -> dict:
@@ -196,7 +202,8 @@ class HighsArrays:
         apply_options(h, options)
         status = h.passModel(lp)
         if status == highspy.HighsStatus.kError:
-            raise ConfigError(f"HiGHS rejected the {model} LP of {instance.name} ({status.name})")
+            raise ConfigError(f"HiGHS rejected the {model} LP of {instance.name} (HiGHS status: "
+                              f"{status_words(status)})")
         t1 = time.perf_counter()
         if options.threads is not None:
             # HiGHS keeps one thread scheduler per process; a run asking for a

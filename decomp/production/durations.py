@@ -1,4 +1,9 @@
-"""Durations on the command line: ``2h``, ``90m``, ``1h30m``, ``45s``, ``3600``."""
+"""Durations on the command line: ``2h``, ``90m``, ``1h30m``, ``45s``.
+
+A duration written as text carries its unit: ``--window 2`` could be two hours
+as easily as two seconds, so a bare number is refused (a number passed from
+Python is seconds).
+"""
 
 from __future__ import annotations
 
@@ -8,26 +13,32 @@ import re
 from ..errors import ConfigError
 
 _PART = re.compile(r"(\d+(?:\.\d*)?|\.\d+)\s*([hms]?)")
-_UNIT = {"h": 3600.0, "m": 60.0, "s": 1.0, "": 1.0}
+_UNIT = {"h": 3600.0, "m": 60.0, "s": 1.0}
 
 
-def parse_duration(text) -> float:
-    """Seconds in ``text``: a number (seconds) or parts such as ``2h``, ``1h30m``, ``90s``."""
-    if isinstance(text, (int, float)):
+def parse_duration(text, what: str | None = "a duration") -> float:
+    """Seconds in ``text``: parts with units such as ``2h``, ``1h30m``, ``90s``, or a number (seconds)
+    passed from Python. Text without a unit is refused (``what`` names the option in the message;
+    None leaves it out, for argparse, which names the option itself)."""
+    lead = f"{what}: " if what else ""
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
         value = float(text)
     else:
         s = str(text).strip().lower().replace(" ", "")
         pos, value, parts = 0, 0.0, 0
         while pos < len(s):
             m = _PART.match(s, pos)
-            if m is None or (m.group(2) == "" and m.end() != len(s)):
-                raise ConfigError(f"not a duration: {text!r} (use e.g. 2h, 90m, 1h30m, 45s or seconds)")
+            if m is None:
+                raise ConfigError(f"{lead}not a duration: {text!r} (use e.g. 2h, 90m, 1h30m or 45s)")
+            if m.group(2) == "":
+                raise ConfigError(f"{lead}{text!r} has no unit; write it with one, e.g. {m.group(1)}h, "
+                                  f"{m.group(1)}m or {m.group(1)}s")
             value += float(m.group(1)) * _UNIT[m.group(2)]
             pos, parts = m.end(), parts + 1
         if parts == 0:
-            raise ConfigError(f"not a duration: {text!r} (use e.g. 2h, 90m, 1h30m, 45s or seconds)")
+            raise ConfigError(f"{lead}not a duration: {text!r} (use e.g. 2h, 90m, 1h30m or 45s)")
     if not (math.isfinite(value) and value > 0):
-        raise ConfigError(f"a duration must be positive, got {text!r}")
+        raise ConfigError(f"{what + ' ' if what else ''}must be positive, got {text!r}")
     return value
 
 

@@ -499,7 +499,8 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
             after_last = after_last or late.first
         summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
                                          workers=n_workers or workers, window=window, interrupted=reason,
-                                         stopped=stopped, signal_after_last_task=after_last)
+                                         stopped=stopped, signal_after_last_task=after_last,
+                                         earlier=summary_mod.read_summary(out))
         failed = summary_mod.write_summary(out, summ)
         if late and interrupted is None and summ["signal_after_last_task"] is None:   # one came while writing
             summ["signal_after_last_task"] = late.first

@@ -275,12 +275,13 @@ def task_sizes(dates: int, products: int | None = None, networks: int = 1, insta
 
 
 def read_run_overhead(path) -> tuple:
-    """(overhead per task, cluster start) in seconds from a ``decomp run`` summary.json."""
+    """(overhead per task, cluster start) in seconds from a ``decomp run`` summary.json: its
+    ``measurements`` (kept across a rerun that solved nothing), or the ``totals`` of older summaries."""
     try:
         data = json.loads(pathlib.Path(path).read_text())
-        t = data["totals"]
+        t = data.get("measurements") or data["totals"]
         ov, st = t.get("overhead_per_task_seconds"), t.get("cluster_start_seconds", 0.0)
-    except (OSError, ValueError, KeyError, TypeError) as exc:
+    except (OSError, ValueError, KeyError, TypeError, AttributeError) as exc:
         raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="totals") from exc
     if ov is None:
         raise InstanceError("the summary has no measured overhead (no task ran in it)", file=path,
@@ -289,13 +290,17 @@ def read_run_overhead(path) -> tuple:
 
 
 def read_run_solves(path) -> list:
-    """(products, solve seconds) of every task a ``decomp run`` summary.json ran (not skipped) to ok."""
+    """(products, solve seconds) of every task of a ``decomp run`` summary.json that ended ok.
+
+    A task skipped as finished keeps the solve time recorded when it ran (in an earlier
+    invocation on the same output folder, with the same arguments), so a pilot run again counts.
+    """
     try:
         tasks = json.loads(pathlib.Path(path).read_text())["tasks"]
     except (OSError, ValueError, KeyError, TypeError) as exc:
         raise InstanceError(f"not a decomp run summary ({exc})", file=path, column="tasks") from exc
     out = [(float(t["n_products"]), float(t["seconds_solve"])) for t in tasks
-           if t.get("task_status", t.get("status")) == "ok" and not t.get("skipped")   # "status": earlier runs
+           if t.get("task_status", t.get("status")) == "ok"                          # "status": earlier runs
            and isinstance(t.get("n_products"), (int, float)) and isinstance(t.get("seconds_solve"), (int, float))]
     if not out:
         raise InstanceError("the summary has no task that ran to ok in it", file=path, column="tasks")
@@ -356,6 +361,40 @@ def loosest_within_loss(groups: dict, max_loss: float, baseline_tol: float) -> d
             "seconds_saved_measured": saved}
 
 
+#: A calibration applied at more than this multiple of the pilot's largest task is flagged: what a
+#: pilot measures (the machine's contention on top of the benchmark) is known at the pilot's size.
+CALIBRATION_REACH_WARN = 10.0
+
+
+def calibrate(fit: TimeModel, pairs, task_products) -> dict:
+    """The factor pilot / benchmark fit, and how far it is carried.
+
+    ``pairs``: (products, solve seconds) of the pilot's tasks. The factor is the median of
+    measured / predicted over them. A pilot whose tasks are all smaller than the smallest
+    benchmark case of the fit is refused (ConfigError): the fit is an extrapolation there, and
+    small solves are mostly fixed costs, so the ratio says little about the production size.
+    ``reach`` is the production's largest task over the pilot's largest; above
+    :data:`CALIBRATION_REACH_WARN` the answer carries a warning.
+    """
+    n_c, s_c = np.array(pairs, dtype=np.float64).T
+    pilot_max, task_max = float(n_c.max()), float(np.max(task_products))
+    if pilot_max < fit.n_min / 1.0000001:
+        raise ConfigError(
+            f"the pilot is too small to calibrate with: its largest task has {pilot_max:,.0f} products, below "
+            f"the smallest benchmark case of the fit ({fit.n_min:,.0f}); at that size solves are mostly fixed "
+            f"costs, so its ratio to the fit says little about {task_max:,.0f}-product tasks. Run the pilot at "
+            f"{fit.n_min:,.0f} products or more (best: the production size), or size without --calibrate")
+    ratios = s_c / fit.predict(n_c)
+    reach = task_max / pilot_max
+    warning = None
+    if reach > CALIBRATION_REACH_WARN:
+        warning = (f"the calibration is measured on pilot tasks of up to {pilot_max:,.0f} products and applied at "
+                   f"{task_max:,.0f}, {reach:,.0f}x beyond the pilot; run the pilot nearer the production size")
+    return {"factor": float(np.median(ratios)), "pilot_tasks": int(len(n_c)),
+            "pilot_products": [float(n_c.min()), pilot_max], "ratio_range": [float(ratios.min()), float(ratios.max())],
+            "applied_at_products": task_max, "reach": reach, "warning": warning}
+
+
 def size_run(cases, *, model, method, tol, task_products, workers, window, overhead=0.0, startup=0.0,
              variant=None, fit_min_products: int | None = None, calibration=None,
              revenue_loss: float | None = None) -> dict:
@@ -389,11 +428,11 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
             f"more rungs, or lower --fit-min-products")
     task_products = np.asarray(task_products, dtype=np.float64)
 
-    factor = None
+    factor = cal = None
     if calibration:
         ref = TimeModel.fit([c.n_products for c in groups[match[0]]], [c.seconds for c in groups[match[0]]])
-        n_c, s_c = np.array(calibration, dtype=np.float64).T
-        factor = float(np.median(s_c / ref.predict(n_c)))
+        cal = calibrate(ref, calibration, task_products)
+        factor = cal["factor"]
 
     def one(t):
         cs = groups[t]
@@ -439,6 +478,7 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
             "tasks": int(task_products.size), "products_min": float(task_products.min()),
             "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
             "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
+            "calibration": cal,
             "result": main, "looser": others, "looser_too_few_sizes": too_few, "curve": curve}
 
 
@@ -463,8 +503,9 @@ def plot(sizing: dict, path) -> None:
     ax.set_xlabel("workers")
     ax.set_ylabel("wall time (minutes)")
     ax.set_yscale("log")
-    factor = sizing.get("calibration_factor")
-    calibrated = (f"calibrated: benchmark fit x {factor:.2f} from a pilot run" if factor is not None
+    cal = sizing.get("calibration")
+    calibrated = (f"calibrated: benchmark fit x {cal['factor']:.2f} from pilot tasks of up to "
+                  f"{cal['pilot_products'][1]:,.0f} products ({cal['reach']:.3g}x beyond them)" if cal
                   else "NOT calibrated: benchmark machine times (use --calibrate with a pilot run)")
     ax.set_title(f"{sizing['tasks']} tasks of {sizing['products_max']:,.0f} products: {sizing['model']}\n"
                  f"{calibrated}", fontsize=10)

@@ -3,6 +3,12 @@
 ``summary.json`` is the machine-readable record (``decomp size --run-summary``
 reads the per-task overhead from it); ``summary.md`` is the same for people.
 Both are written atomically.
+
+``measurements`` holds what sizing needs (overhead per task, cluster start,
+tasks measured) and where it was measured: this run, or, when a rerun found
+every task finished and solved none, the earlier summary it replaces (so a
+finished pilot run again keeps its measurements). Skipped tasks keep the solve
+times recorded when they ran.
 """
 
 from __future__ import annotations
@@ -31,13 +37,16 @@ def short(text, limit: int = ERROR_CHARS):
 
 
 def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_seconds: float = 0.0,
-                  workers=None, window=None, interrupted=None, stopped=None, signal_after_last_task=None) -> dict:
+                  workers=None, window=None, interrupted=None, stopped=None, signal_after_last_task=None,
+                  earlier: dict | None = None) -> dict:
     """The summary dict. ``records`` maps task key to its record (missing: not run).
 
     ``interrupted``: why the run was cut short by the operator (KeyboardInterrupt, SIGTERM);
     ``stopped``: why it stopped by itself (the output folder cannot be written);
     ``signal_after_last_task``: a SIGINT or SIGTERM that arrived once every task had finished
-    (nothing was cut short; the run is complete)."""
+    (nothing was cut short; the run is complete);
+    ``earlier``: the summary this one replaces (:func:`read_summary`), whose measurements are kept
+    when this run solved nothing."""
     tasks = []
     for spec in batch.tasks:
         rec = records.get(spec.key)
@@ -83,14 +92,37 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
         totals["window_seconds"] = window
         totals["fits_window"] = wall_seconds <= window
         totals["margin_seconds"] = window - wall_seconds
+    written = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+    measurements = {"measured_in": written, "tasks_run": len(ran), "workers": workers,
+                    "overhead_per_task_seconds": totals["overhead_per_task_seconds"],
+                    "cluster_start_seconds": cluster_seconds}
+    if not ran and _same_run(earlier, cfg) and (earlier.get("measurements") or {}).get("tasks_run"):
+        measurements = dict(earlier["measurements"])
     return {
-        "written": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "written": written, "measurements": measurements,
         "batch": batch.description, "model": cfg.model, "method": cfg.method,
         "tol": cfg.options.tol, "out": cfg.out, "warm_start_from": cfg.warm_start_from,
         "fallback": getattr(cfg, "fallback", None),
         "interrupted": interrupted, "stopped": short(stopped), "signal_after_last_task": signal_after_last_task,
         "totals": totals, "tasks": tasks,
     }
+
+
+def _same_run(earlier, cfg) -> bool:
+    """``earlier`` is a summary of this output folder's model, method and tolerance."""
+    return (isinstance(earlier, dict) and earlier.get("model") == cfg.model and earlier.get("method") == cfg.method
+            and earlier.get("tol") == cfg.options.tol and isinstance(earlier.get("measurements"), dict))
+
+
+def read_summary(out) -> dict | None:
+    """The summary.json in ``out``, or None when there is none or it cannot be read."""
+    import json
+
+    try:
+        data = json.loads((pathlib.Path(out) / "summary.json").read_text())
+    except (OSError, ValueError, RecursionError):
+        return None
+    return data if isinstance(data, dict) else None
 
 
 def _cell(v, fmt="{}"):
@@ -118,6 +150,11 @@ def to_markdown(s: dict) -> str:
     if t.get("overhead_per_task_seconds") is not None:
         lines.append(f"- overhead per task beyond the solve: {t['overhead_per_task_seconds']:.3f} s; "
                      f"throughput {t['throughput_tasks_per_minute']:.1f} tasks/min")
+    m = s.get("measurements") or {}
+    if not t.get("run") and m.get("tasks_run"):
+        lines.append(f"- nothing solved in this run; the measurements for sizing (overhead per task "
+                     f"{m['overhead_per_task_seconds']:.3f} s, {m['tasks_run']} tasks) are kept from the run "
+                     f"written {m['measured_in']}")
     lines.append(f"- fallback: {s.get('fallback') or 'none'}; used by {t.get('fallback_used', 0)} task(s); "
                  f"{t.get('redone', 0)} task(s) with earlier output solved again (why: `redone` in summary.json)")
     if s.get("interrupted"):

@@ -59,12 +59,12 @@ from scipy import special
 
 from ..errors import UnknownMethodError
 from ..production.fallback import AUTO, solve_with_fallback
+from ..registry import DEFAULT_METHOD
 from .errors import SimulationConfigError
 
 log = logging.getLogger(__name__)
 
 MODELS = ("dlp", "pnlp", "pwl")
-DEFAULT_METHOD = {"dlp": "highs", "pnlp": "lagrangian", "pwl": "highs"}
 #: Relative tolerance of the tie between a fare and its bid-price sum.
 TIE_RTOL = 1e-6
 

@@ -72,7 +72,8 @@ def rows(summary: dict) -> list:
             solves = f"{p['solves']}" + _non_optimal_note(p.get("reoptimizations") or {
                 "non_optimal": p["failed_solves"], "rescued_by_fallback": 0, "priced_non_optimal": 0})
             out.append({
-                "R": f"{sc['reoptimize_every']:g}", "forecast": sc["forecast_error_label"], "policy": p["policy"],
+                "re-opt every (days)": f"{sc['reoptimize_every']:g}", "forecast": sc["forecast_error_label"],
+                "policy": p["policy"],
                 "revenue": _pm(p["revenue"]), "load factor %": _pm(p["load_factor"], 100, 1),
                 "share of bound %": _pm(p["share_of_bound"], 100, 2),
                 **({} if p.get("share_of_network_bound") is None else
