@@ -7,29 +7,32 @@ chosen from the number of products (see decomp.generator).
 from __future__ import annotations
 
 import argparse
-import sys
 import time
+
+from ._options import count, demand_mix, number, positive, whole
 
 
 def register(sub):
     p = sub.add_parser("generate", help="write a synthetic hub-and-spoke instance",
                        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--products", type=int, required=True, metavar="N", help="number of products (10 to 1,000,000)")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default: %(default)s)")
-    p.add_argument("--out", required=True, metavar="DIR", help="instance folder to write (replaced atomically)")
+    p.add_argument("--products", type=whole(10, 1_000_000), required=True, metavar="N", help="number of products (10 to 1,000,000)")
+    p.add_argument("--seed", type=count, default=0, metavar="S", help="random seed (default: %(default)s)")
+    p.add_argument("--out", required=True, metavar="DIR",
+                   help="instance folder to write (required); an existing one is replaced atomically only when "
+                        "decomp wrote it (its .decomp marker)")
     p.add_argument("--format", choices=("csv", "parquet"), default="csv", help="table format (default: %(default)s)")
-    p.add_argument("--hubs", type=int, help="number of hubs (default: chosen from --products)")
-    p.add_argument("--spokes", type=int, help="number of spoke stations (default: chosen from --products)")
-    p.add_argument("--banks", type=int, help="departure banks a day (legs per spoke and direction; default: chosen from --products)")
-    p.add_argument("--fare-classes", type=int, help="fare classes per itinerary (default: chosen from --products)")
-    p.add_argument("--fare-ratio", type=float, help="fare ladder step: fare of a class over the one above, in (0, 1) (default: decomp.generator's)")
-    p.add_argument("--demand-factor", type=float, nargs=2, metavar=("LO", "HI"),
+    p.add_argument("--hubs", type=positive, help="number of hubs (default: chosen from --products)")
+    p.add_argument("--spokes", type=whole(2), help="number of spoke stations (default: chosen from --products)")
+    p.add_argument("--banks", type=positive, help="departure banks a day (legs per spoke and direction; default: chosen from --products)")
+    p.add_argument("--fare-classes", type=positive, help="fare classes per itinerary (default: chosen from --products)")
+    p.add_argument("--fare-ratio", type=number(0.0, above=True, maximum=1.0, below=True), help="fare ladder step: fare of a class over the one above, in (0, 1) (default: decomp.generator's)")
+    p.add_argument("--demand-factor", type=number(0.0, above=True), nargs=2, metavar=("LO", "HI"),
                    help="range of the per-leg mean demand over capacity (default: 0.8 1.4)")
-    p.add_argument("--cv", type=float, nargs=2, metavar=("LO", "HI"),
+    p.add_argument("--cv", type=number(0.0), nargs=2, metavar=("LO", "HI"),
                    help="range of the coefficient of variation std/mean (default: 0.25 0.6)")
     p.add_argument("--two-stop", action=argparse.BooleanOptionalAction, default=None,
                    help="sell spoke-hub-hub-spoke itineraries (default: when there are 2+ hubs)")
-    p.add_argument("--demand", metavar="MIX", help=DEMAND_HELP)
+    p.add_argument("--demand", type=demand_mix, metavar="MIX", help=DEMAND_HELP)
     p.set_defaults(func=run)
 
 
@@ -43,26 +46,23 @@ DEMAND_HELP = ("demand model: each product's family drawn with these shares, e.g
 
 def run(args) -> int:
     from ..generator import generate
-    from ..io import write_instance
-    from ..production.outputs import is_output_error
+    from ..io import check_instance_folder, write_instance
 
+    # the folder first: a folder of someone's own files (no decomp marker), a file, a device is
+    # refused (exit 2) before anything is generated
+    check_instance_folder(args.out, "--out")
+    for option, pair in (("--demand-factor", args.demand_factor), ("--cv", args.cv)):
+        if pair is not None and pair[0] > pair[1]:
+            from ..errors import ConfigError
+
+            raise ConfigError(f"{option} {pair[0]:g} {pair[1]:g}: LO must not exceed HI")
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
                                                "demand_factor", "cv", "two_stop", "demand")
                  if getattr(args, k) is not None}
     t0 = time.perf_counter()
     inst = generate(args.products, seed=args.seed, **overrides)
     t1 = time.perf_counter()
-    try:
-        out = write_instance(inst, args.out, format=args.format)
-    except OSError as exc:
-        # A full disk or a read-only folder is the machine's trouble, not bad input: decomp.cli says
-        # so with the errno and exits 1. write_instance's own refusals carry a message, the system's
-        # (a file where a folder should be) an errno: bad input, exit 2. Either way nothing was written.
-        if is_output_error(exc):
-            raise
-        why = str(exc) if exc.errno is None else f"cannot write {exc.filename or args.out}: {exc.strerror}"
-        print(f"decomp generate: error: {why}", file=sys.stderr)
-        return 2
+    out = write_instance(inst, args.out, format=args.format, option="--out")   # full disk: exit 1, path named
     t2 = time.perf_counter()
     p = inst.meta["params"]
     print(f"wrote {out} ({args.format}): {inst.n_legs} legs, {inst.n_products} products; "
