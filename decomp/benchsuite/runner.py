@@ -49,8 +49,10 @@ class RunOutcome:
 
 def _quiet_env(**extra) -> dict:
     """The environment of a pytest subprocess that writes nothing beside its outputs: no bytecode
-    (conftest.py and the case module would get a __pycache__ in bench/)."""
-    return dict(os.environ, PYTHONDONTWRITEBYTECODE="1", **extra)
+    (conftest.py and the case module would get a __pycache__ in bench/). Variables of a pytest-xdist
+    worker that started decomp are left out: pytest-benchmark turns itself off when it sees them."""
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PYTEST_XDIST_")}
+    return dict(env, PYTHONDONTWRITEBYTECODE="1", **extra)
 
 
 def _pytest_command(suite, json_path, k, extra, python, revenue_paths: int = 0, storage=None) -> list:
