@@ -1,10 +1,18 @@
 # Two entry points do all set-up: `make demo` (the main job on the default
 # instance ladder) and `make test` (the test suite). Both are idempotent and
 # a second run skips what is already in place.
+#
+# Tests: `make test` is the default run (everything but the tests marked slow),
+# `make test-slow` the tests marked slow only, `make test-all` both; CI
+# (.ci/run) runs `make test` and then `make test-slow`. Each spreads the tests
+# over TEST_WORKERS processes (pytest-xdist; `logical`: one per CPU) with one
+# BLAS thread each, so the workers do not compete for the cores.
 PY ?= python3
 BIN := .venv/bin
+TEST_WORKERS ?= logical
+PYTEST := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python -m pytest -q -n $(TEST_WORKERS)
 
-.PHONY: demo test setup bench-full clean-venv
+.PHONY: demo test test-slow test-all setup bench-full clean-venv
 
 setup:
 	@PY=$(PY) bash scripts/setup.sh
@@ -13,7 +21,13 @@ demo: setup
 	$(BIN)/decomp demo
 
 test: setup
-	$(BIN)/python -m pytest -q tests
+	$(PYTEST) tests
+
+test-slow: setup
+	$(PYTEST) --run-slow -m slow tests
+
+test-all: setup
+	$(PYTEST) --run-slow tests
 
 bench-full: setup
 	$(BIN)/decomp bench --suite full --out bench/results/full

@@ -1,5 +1,5 @@
 """Solve generated networks whose shape options are drawn at random, at 5,000 to 60,000
-products: the sizes the test family (tests/family.py, up to 3,000) does not reach.
+products: the sizes the test family (tests/support/family.py, up to 3,000) does not reach.
 
 Each draw sets the generator's demand factor, CV range, fare ladder step, class growth,
 seats per leg, and sometimes the number of hubs and fare classes; a fifth of the draws

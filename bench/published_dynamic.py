@@ -24,8 +24,8 @@ import time
 ROOT = pathlib.Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
-from published_dynamic import run                 # noqa: E402  tests/published_dynamic.py
-from test_hubspoke_published import PUBLISHED    # noqa: E402
+from support.hubspoke import PUBLISHED           # noqa: E402  tests/support/hubspoke.py
+from support.published_dynamic import run        # noqa: E402  tests/support/published_dynamic.py
 
 EXTERNAL = ROOT.parent / "shared" / "external" / "hub-spoke-2009"
 

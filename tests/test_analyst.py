@@ -1,15 +1,13 @@
 """The library from a notebook: DataFrames in, leg and product tables out, decisions, one result schema.
 
-The worked example (``LEGS``, ``PRODUCTS``) is small enough to solve by hand;
-its DLP is checked against HiGHS and against the hand solution below.
+The worked example (``LEGS``, ``PRODUCTS`` of tests/support/networks.py) is small enough to
+solve by hand; its DLP is checked against HiGHS and against the hand solution written there.
 """
 
 import json
 import math
-import warnings
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pytest
 
@@ -18,22 +16,9 @@ from decomp import Instance, InstanceError, SolveResult
 from decomp.errors import ConfigError
 from decomp.io import read_instance, write_instance
 
-# Two legs through a hub, a zero-capacity leg and a leg with room to spare.
-LEGS = pd.DataFrame({"leg": ["A1", "A2", "A3", "A4"], "origin": ["AAA", "HUB", "HUB", "HUB"],
-                     "destination": ["HUB", "BBB", "CCC", "DDD"], "capacity": [100.0, 80.0, 0.0, 1000.0]})
-PRODUCTS = pd.DataFrame({"product": ["p1", "p2", "p3", "p4", "p5"],
-                         "legs": ["A1 A2", "A1", "A2", "A3", "A4"],
-                         "fare": [300.0, 150.0, 180.0, 100.0, 90.0], "mean": [60.0, 70.0, 50.0, 10.0, 20.0],
-                         "std": [20.0, 25.0, 15.0, 3.0, 5.0]})
-# Hand solution of the DLP (max f x, A x <= c, 0 <= x <= mean): p2 and p3 (330 for a seat on each
-# leg) beat p1 (300 for the same two seats), so x2 = 70, x3 = 50 at their demand and p1 takes the
-# 30 seats left on both legs: A1 100 of 100, A2 80 of 80; p4 gets no seat (A3 has none) and p5
-# its demand of 20 on A4: revenue 300*30 + 150*70 + 180*50 + 90*20 = 30,300.
-# x1 strictly between its bounds makes its reduced cost zero: pi_A1 + pi_A2 = 300 (LP duality);
-# A4 carries 20 of 1000 seats, so pi_A4 = 0 (complementary slackness).
-HAND_REVENUE = 30_300.0
-HAND_ALLOCATION = {"p1": 30.0, "p2": 70.0, "p3": 50.0, "p4": 0.0, "p5": 20.0}
+from support.paths import ROOT
 
+from support.networks import HAND_ALLOCATION, HAND_REVENUE, LEGS, PRODUCTS
 
 @pytest.fixture(scope="module")
 def example():
@@ -103,6 +88,7 @@ def test_from_lists_is_checked():
         Instance.from_frames({"leg": ["A1"]}, PRODUCTS)
 
 
+@pytest.mark.solver
 def test_solve_takes_a_path_and_dict_or_keyword_options(tmp_path, example):
     write_instance(example, tmp_path / "hand")
     by_path = decomp.solve(str(tmp_path / "hand"), model="dlp", method="highs", options={"tol": 1e-8})
@@ -119,6 +105,7 @@ def test_solve_takes_a_path_and_dict_or_keyword_options(tmp_path, example):
         decomp.solve(tmp_path / "missing", model="dlp", method="highs")
 
 
+@pytest.mark.solver
 def test_short_reprs_and_version():
     from importlib import metadata
 
@@ -233,11 +220,10 @@ def test_older_layouts_are_read(dlp, tmp_path):
 
 
 def test_the_readme_from_python_example_runs(tmp_path, monkeypatch):
-    import pathlib
     import re
 
     monkeypatch.chdir(tmp_path)                  # the example saves result.json where it runs
-    readme = (pathlib.Path(__file__).resolve().parents[1] / "README.md").read_text()
+    readme = (ROOT / "README.md").read_text()
     section = readme.split("## From Python", 1)[1]
     code = re.search(r"```python\n(.*?)```", section, re.S).group(1)
     scope = {}

@@ -12,7 +12,8 @@ import decomp
 from decomp import ladder
 from decomp.cli import main
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+from support.paths import ROOT
+
 
 
 @pytest.fixture(scope="module")
@@ -29,7 +30,7 @@ def solved(inst_dir, tmp_path_factory):
 
 
 def _decomp(*args, cwd=None):
-    env = dict(os.environ, PYTHONPATH=ROOT)
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
     return subprocess.run([sys.executable, "-m", "decomp.cli", *map(str, args)], capture_output=True, text=True,
                           env=env, cwd=cwd, timeout=300)
 
@@ -134,6 +135,7 @@ def test_validate_and_inspect_json(inst_dir, tmp_path, capsys):
     assert sum(i["legs_per_product"].values()) == 100
 
 
+@pytest.mark.integration
 def test_version_verbose_after_subcommand_and_warnings_once(inst_dir, tmp_path):
     r = _decomp("--version")
     assert r.returncode == 0 and r.stdout.strip() == f"decomp {decomp.__version__}"
@@ -184,6 +186,7 @@ def test_every_option_has_help_with_its_default():
     assert all(p.format_help() for p in pages(build_parser()))
 
 
+@pytest.mark.integration
 def test_generate_into_an_unwritable_place_is_an_error_not_a_traceback(tmp_path):
     blocker = tmp_path / "file"
     blocker.write_text("x")
@@ -199,6 +202,7 @@ def test_simulate_takes_a_list_starting_with_a_negative_number():
     assert args.forecast_bias == "-0.2,0,0.2"
 
 
+@pytest.mark.integration
 def test_bench_list_shows_case_names(capsys):
     assert main(["bench", "--suite", "micro", "--list", "-k", "dlp"]) == 0
     ids = capsys.readouterr().out.split()
@@ -206,6 +210,7 @@ def test_bench_list_shows_case_names(capsys):
     assert main(["bench", "--suite", "micro", "--list", "-k", "no_such_case"]) == 2
 
 
+@pytest.mark.solver
 def test_ipopt_bid_prices_are_never_negative():
     import numpy as np
 
@@ -223,6 +228,7 @@ def test_ipopt_bid_prices_are_never_negative():
             assert r.termination.value == "iteration_limit" and (r.bid_price_array >= 0).all()
 
 
+@pytest.mark.solver
 def test_ipopt_reports_progress(monkeypatch, caplog):
     import logging
 

@@ -1,7 +1,7 @@
 """A sweep of bad instance folders through ``decomp validate``: every one must end with exit 2 and a
 message naming the file (and the row and column where there is one), in printable text, never a
 traceback and never "valid". The inputs are variations of the hand-written tables of
-tests/test_validation.py: the hand-picked cases of issue 13 (``CASES``, ``SPECIAL``) and the
+tests/support/tables.py: the hand-picked cases of issue 13 (``CASES``, ``SPECIAL``) and the
 families of issue 24 (``GENERATED``: every number column against every kind of bad number, in CSV
 and in Parquet; every id and station column against every refused character; itineraries; the
 files themselves; meta.json), made programmatically from the same small base.
@@ -17,15 +17,13 @@ import json
 import math
 import os
 import pathlib
-import sys
 import tempfile
 
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
-from test_validation import LEGS, PRODUCTS, with_field  # noqa: E402
+from support.tables import LEGS, PRODUCTS, with_field
 
 
 def _write(d: pathlib.Path, legs=LEGS, products=PRODUCTS, meta=None, raw_products=None, raw_legs=None):

@@ -16,8 +16,7 @@ import tempfile
 
 import pytest
 
-sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
-from tiny import write_benchmark, write_tiny  # noqa: E402
+from support.tiny import write_benchmark, write_tiny
 
 #: (command line with placeholders, the word the message must hold). Placeholders: {inst} a valid
 #: instance folder, {res} a result of it, {bench} a benchmark.json, {base} a baseline folder, {file}
@@ -264,6 +263,7 @@ def test_the_sweep_has_at_least_120_combinations():
     assert len({tuple(c[0]) for c in CASES}) == len(CASES) >= 120
 
 
+@pytest.mark.solver
 @pytest.mark.parametrize("case", CASES, ids=[_id(c) for c in CASES])
 def test_bad_option_is_refused_clearly(case, fixtures, tmp_path):
     work = tmp_path / "work"

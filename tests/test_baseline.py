@@ -17,9 +17,11 @@ import numpy as np
 import pytest
 
 from decomp import baseline as bl
-from decomp.instance import Instance
 from decomp.options import SolverOptions
-from decomp.result import SolutionStatus, Termination
+from decomp.result import Termination
+
+from support.fakes import FakeClock, canned_solver, dlp_dual
+from support.networks import series
 
 
 def _available(model, method):
@@ -44,21 +46,6 @@ def _pnlp_methods():
 
 MICRO1 = bl.InstanceSpec("micro1", "micro", {"seed": 1, "n_products": 12})
 MICRO2 = bl.InstanceSpec("micro2", "micro", {"seed": 2, "n_products": 24})
-
-
-class FakeClock:
-    """A timer whose every solve lasts ``duration`` seconds (two calls per solve)."""
-
-    def __init__(self, duration):
-        self.duration = duration
-        self.t = 100.0
-        self.calls = 0
-
-    def __call__(self):
-        self.calls += 1
-        if self.calls % 2 == 0:
-            self.t += self.duration
-        return self.t
 
 
 def _perturb(solve_fn, legs_delta):
@@ -96,24 +83,18 @@ def test_round_significant_and_digest():
     assert d1["sum"] == pytest.approx(float(x.sum())) and d1["max"] == 1234567.0 and d1["min"] == 0.0
 
 
-def _dlp_dual(inst, pi):
-    """LP dual objective of the DLP, written out here independently of decomp.certify:
-    min c.pi + mean.s s.t. A^T pi + s >= f, pi, s >= 0 (LP duality), best s = (f - A^T pi)^+."""
-    pi = np.asarray(pi, dtype=np.float64)
-    return float(inst.capacity @ pi + inst.mean @ np.maximum(inst.fare - inst.A.T @ pi, 0.0))
-
-
 def test_dlp_dual_objective_on_series_network():
     # Two legs in series, one product (fare 100, mean 20, capacities 10): by LP duality the
     # DLP optimum is 100 * 10 = 1000 and the optimal duals are exactly pi1 + pi2 = 100, pi >= 0
     # (dual objective 10 pi1 + 10 pi2 + 20 (100 - pi1 - pi2)^+); worked out by hand.
-    inst = _series()
+    inst = series()
     for pi, want in (([100, 0], 1000.0), ([0, 100], 1000.0), ([37.5, 62.5], 1000.0), ([60, 60], 1200.0),
                      ([20, 30], 10 * 50 + 20 * 50)):
-        assert _dlp_dual(inst, pi) == pytest.approx(want)
+        assert dlp_dual(inst, pi) == pytest.approx(want)
         assert bl.lp_dual_objective(inst, "dlp", pi) == pytest.approx(want)
 
 
+@pytest.mark.solver
 def test_environment_lists_versions():
     env = bl.environment()
     for key in ("python", "numpy", "scipy", "pyomo", "highspy", "cyipopt", "highs_library", "ipopt_library",
@@ -129,37 +110,11 @@ def test_environment_lists_versions():
     assert ("new_key", None, 1) in changes
 
 
-def _series() -> Instance:
-    return Instance.from_lists(
-        [("QAAQHX", "QAA", "QHX", 10.0), ("QHXQAB", "QHX", "QAB", 10.0)],
-        [("QAAQHXQAB-Y", ["QAAQHX", "QHXQAB"], 100.0, 20.0, 5.0)],
-        meta={"name": "series"})
-
-
 # ---------------------------------------------------------------------------- fake-solver tests
-def _canned_solver(bid_prices, objective=1000.0, termination=Termination.OPTIMAL):
-    """A stand-in solve function for the series network (no solver library needed)."""
-    from decomp.result import Certificate, SolveResult
-
-    def fake(instance, model, method, options):
-        pi = np.array(bid_prices, dtype=np.float64)
-        cert = Certificate(max_violation=0.0, max_violation_rel=0.0, kkt_residual=0.0,
-                           dual_value=_dlp_dual(instance, pi), primal_value=objective,
-                           gap=0.0, min_bid_price=float(pi.min()))
-        return SolveResult(model=model, method=method, termination=termination,
-                           solution_status=SolutionStatus.OPTIMAL if termination is Termination.OPTIMAL
-                           else SolutionStatus.FEASIBLE, objective=objective, bound=objective, gap=0.0,
-                           leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
-                           allocation=np.array([10.0]), iterations=1, seconds={"solve": 0.0},
-                           solver="canned", solver_version=None, raw_status=None, message=None,
-                           certificate=cert, options={})
-    return fake
-
-
 def test_record_writes_plain_files_and_manifest(tmp_path):
     out = tmp_path / "base"
-    summary = bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")],
-                        solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.1))
+    summary = bl.record(out, cases=[bl.Case(series(), "dlp", "highs")],
+                        solve_fn=canned_solver([100, 0]), clock=FakeClock(0.1))
     assert summary.path == out
     manifest = json.loads((out / "manifest.json").read_text())
     paths = {f["path"] for f in manifest["files"]}
@@ -186,49 +141,49 @@ def test_record_failure_leaves_nothing(tmp_path):
         raise RuntimeError("solver crashed")
 
     with pytest.raises(RuntimeError):
-        bl.record(tmp_path / "base", cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=boom)
+        bl.record(tmp_path / "base", cases=[bl.Case(series(), "dlp", "highs")], solve_fn=boom)
     assert list(tmp_path.iterdir()) == []
     (tmp_path / "base").mkdir()
     from decomp.errors import OutputPathError
 
     with pytest.raises(OutputPathError, match="already exists"):
-        bl.record(tmp_path / "base", cases=[bl.Case(_series(), "dlp", "highs")],
-                  solve_fn=_canned_solver([100, 0]))
+        bl.record(tmp_path / "base", cases=[bl.Case(series(), "dlp", "highs")],
+                  solve_fn=canned_solver([100, 0]))
 
 
-def test_alternative_optimal_duals_with_canned_solver(tmp_path):
+def test_alternative_optimal_duals_withcanned_solver(tmp_path):
     # Series network: (100, 0) and (0, 100) are both optimal duals (see the formula test above),
     # (60, 60) is dual feasible but its dual objective is 1200 > 1000: not optimal.
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
-    rep = bl.check(out, solve_fn=_canned_solver([0, 100]))
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]))
+    rep = bl.check(out, solve_fn=canned_solver([0, 100]))
     (case,) = rep.cases
     assert case.verdict == bl.ALTERNATIVE_DUALS and not rep.regression
     assert case.metrics["bid_moved_legs"] == ["QAAQHX", "QHXQAB"]
     assert "QAAQHX" in rep.to_markdown() and "alternative" in rep.to_markdown()
-    rep = bl.check(out, solve_fn=_canned_solver([60, 60]))
+    rep = bl.check(out, solve_fn=canned_solver([60, 60]))
     assert rep.cases[0].verdict == bl.REGRESSION
     assert any("not optimal duals" in f["message"] for f in rep.cases[0].findings)
-    rep = bl.check(out, solve_fn=_canned_solver([-10, 110]))
+    rep = bl.check(out, solve_fn=canned_solver([-10, 110]))
     assert rep.cases[0].verdict == bl.REGRESSION
     assert any("negative" in f["message"] for f in rep.cases[0].findings)
 
 
 def test_status_change_is_a_regression(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
-    rep = bl.check(out, solve_fn=_canned_solver([100, 0], termination=Termination.ITERATION_LIMIT))
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]))
+    rep = bl.check(out, solve_fn=canned_solver([100, 0], termination=Termination.ITERATION_LIMIT))
     assert rep.regression
     assert any(f["kind"] == "status" and "iteration_limit" in f["message"] for f in rep.cases[0].findings)
 
 
 def test_timing_regression_with_fake_clock(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]),
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]),
               clock=FakeClock(1.0))
-    ok = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(1.9))
+    ok = bl.check(out, solve_fn=canned_solver([100, 0]), clock=FakeClock(1.9))
     assert not ok.regression and ok.cases[0].metrics["time_ratio"] == pytest.approx(1.9)
-    slow = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0))
+    slow = bl.check(out, solve_fn=canned_solver([100, 0]), clock=FakeClock(3.0))
     assert slow.regression and slow.cases[0].metrics["time_ratio"] == pytest.approx(3.0)
     assert [f["kind"] for f in slow.cases[0].findings] == ["time"]
     assert slow.cases[0].metrics["time_runs"] == 3          # the slow time was confirmed by 2 more runs
@@ -242,22 +197,22 @@ def test_timing_regression_with_fake_clock(tmp_path):
                 self.t += next(durations)
             return self.t
 
-    noisy = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=NoisyClock(None), warmup=False)
+    noisy = bl.check(out, solve_fn=canned_solver([100, 0]), clock=NoisyClock(None), warmup=False)
     assert not noisy.regression and noisy.cases[0].metrics["time_new"] == pytest.approx(1.0)
-    lenient = bl.check(out, solve_fn=_canned_solver([100, 0]), clock=FakeClock(3.0),
+    lenient = bl.check(out, solve_fn=canned_solver([100, 0]), clock=FakeClock(3.0),
                        thresholds=bl.Thresholds(time_ratio=4.0))
     assert not lenient.regression
     # Below the time floor (0.5 s) a 10x ratio of millisecond solves is timer noise, not a regression.
-    bl.record(tmp_path / "fast", cases=[bl.Case(_series(), "dlp", "highs")],
-              solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.01))
-    assert not bl.check(tmp_path / "fast", solve_fn=_canned_solver([100, 0]), clock=FakeClock(0.1)).regression
+    bl.record(tmp_path / "fast", cases=[bl.Case(series(), "dlp", "highs")],
+              solve_fn=canned_solver([100, 0]), clock=FakeClock(0.01))
+    assert not bl.check(tmp_path / "fast", solve_fn=canned_solver([100, 0]), clock=FakeClock(0.1)).regression
 
 
 # ---------------------------------------------------------------------------- tampered baselines
 @pytest.fixture
 def recorded(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]))
     return out
 
 
@@ -324,7 +279,7 @@ def test_unknown_override_is_rejected(recorded):
     from decomp.errors import ConfigError
 
     with pytest.raises(ConfigError, match="unknown options"):
-        bl.check(recorded, options_override={"tolerance": 1e-3}, solve_fn=_canned_solver([100, 0]))
+        bl.check(recorded, options_override={"tolerance": 1e-3}, solve_fn=canned_solver([100, 0]))
     with pytest.raises(ConfigError):
         bl.Thresholds(time_ratio=0.5)
 
@@ -409,14 +364,14 @@ def test_lp_alternative_duals_from_highs(tmp_path, model):
     _need(model, "highs")
     from decomp import registry
 
-    inst = _series()
+    inst = series()
     res = registry.solve(inst, model=model, method="highs")
     total = float(np.sum(res.bid_price_array))
     if model == "dlp":
         # HiGHS against the hand solution: optimum 1000, bid prices on the optimal face pi1 + pi2 = 100.
         assert res.objective == pytest.approx(1000.0, rel=1e-12)
         assert total == pytest.approx(100.0, rel=1e-9)
-        assert _dlp_dual(inst, res.bid_price_array) == pytest.approx(1000.0, rel=1e-12)
+        assert dlp_dual(inst, res.bid_price_array) == pytest.approx(1000.0, rel=1e-12)
     assert total > 1.0
     out = tmp_path / "base"
     bl.record(out, cases=[bl.Case(inst, model, "highs")])
@@ -441,19 +396,19 @@ def test_dlp_dual_objective_matches_highs_on_micro():
     for seed in (1, 2):
         inst = bl.micro_instance(seed, 24)
         res = registry.solve(inst, model="dlp", method="highs")
-        assert _dlp_dual(inst, res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
+        assert dlp_dual(inst, res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
         assert bl.lp_dual_objective(inst, "dlp", res.bid_price_array) == pytest.approx(res.objective, rel=1e-9)
 
 
 def test_warmup_solves_each_pair_once_untimed(tmp_path):
     calls = []
-    canned = _canned_solver([100, 0])
+    canned = canned_solver([100, 0])
 
     def counting(instance, **kw):
         calls.append(kw["method"])
         return canned(instance, **kw)
 
-    cases = [bl.Case(_series(), "dlp", "highs", label="a"), bl.Case(_series(), "dlp", "highs", label="b")]
+    cases = [bl.Case(series(), "dlp", "highs", label="a"), bl.Case(series(), "dlp", "highs", label="b")]
     bl.record(tmp_path / "w", cases=cases, solve_fn=counting)
     assert len(calls) == 3                      # one untimed warm-up, then one timed solve per case
     calls.clear()
@@ -467,7 +422,7 @@ def test_environment_change_is_reported(recorded, monkeypatch):
 
     check_module = importlib.import_module("decomp.baseline.check")   # the module, not the function
     monkeypatch.setattr(check_module, "environment", lambda: {**real, "highs_library": "99.0.0"})
-    rep = bl.check(recorded, solve_fn=_canned_solver([100, 0]))
+    rep = bl.check(recorded, solve_fn=canned_solver([100, 0]))
     assert ("highs_library", real["highs_library"], "99.0.0") in rep.environment_changes
     assert not rep.regression                     # a version change alone is not a regression
     assert "| highs_library | " + str(real["highs_library"]) + " | 99.0.0 |" in rep.to_markdown()

@@ -31,14 +31,15 @@ from decomp import baseline as bl
 from decomp.errors import ConfigError, InstanceError
 from decomp.options import SolverOptions
 
-from test_baseline import _canned_solver, _series
+from support.fakes import canned_solver
+from support.networks import series
 
 CASE = "cases/series-dlp-highs"
 
 
 def _record(folder: pathlib.Path) -> pathlib.Path:
     out = folder / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=_canned_solver([100, 0]))
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]))
     return out
 
 
@@ -89,7 +90,7 @@ def test_recorded_ipopt_option_naming_a_file_is_refused(tmp_path, option):
 
     out = tmp_path / "base"
     # a PNLP case solved by Ipopt itself, then its recorded options edited to name a file outside
-    bl.record(out, cases=[bl.Case(_series(), "pnlp", "ipopt")])
+    bl.record(out, cases=[bl.Case(series(), "pnlp", "ipopt")])
     victim = tmp_path / "victim.txt"
     victim.write_text("precious\n")
     p = out / "cases/series-pnlp-ipopt/result.json"
@@ -108,7 +109,7 @@ def test_recorded_ipopt_option_naming_a_file_is_refused(tmp_path, option):
 @pytest.mark.solver
 def test_recorded_highs_log_file_is_refused(tmp_path):
     out = tmp_path / "base"
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")])
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")])
     p = out / "cases/series-dlp-highs/result.json"
     rec = json.loads(p.read_text())
     rec["context"]["solver_options"]["solver_options"] = {"log_file": str(tmp_path / "new.log")}
@@ -128,11 +129,11 @@ def test_recorded_highs_log_file_is_refused(tmp_path):
 def test_override_and_record_apply_the_same_allow_list(base, tmp_path):
     with pytest.raises(ConfigError, match="output_file"):
         bl.check(base, options_override={"solver_options": {"output_file": str(tmp_path / "x")}},
-                 solve_fn=_canned_solver([100, 0]))
+                 solve_fn=canned_solver([100, 0]))
     with pytest.raises(ConfigError, match="log_file"):
-        bl.record(tmp_path / "other", cases=[bl.Case(_series(), "dlp", "highs",
+        bl.record(tmp_path / "other", cases=[bl.Case(series(), "dlp", "highs",
                                                      SolverOptions(solver_options={"log_file": "x"}))],
-                  solve_fn=_canned_solver([100, 0]))
+                  solve_fn=canned_solver([100, 0]))
     assert not (tmp_path / "other").exists() and not (tmp_path / "x").exists()
 
 
@@ -195,7 +196,7 @@ def test_format_1_baseline_is_still_checked(base):
     _as_format_1(base)
     loaded = bl.load(base)
     assert loaded.cases[0]["options"]["tol"] == SolverOptions().tol
-    assert bl.check(base, solve_fn=_canned_solver([100, 0])).cases[0].verdict == bl.PASS
+    assert bl.check(base, solve_fn=canned_solver([100, 0])).cases[0].verdict == bl.PASS
     # and its hostile paths are refused the same way
     _edit_result(base, lambda rec: rec.__setitem__("bid_prices_file", "../../../bid_prices.csv"))
     with pytest.raises(bl.BaselineError, match="bid_prices_file"):
@@ -214,7 +215,7 @@ def test_format_2_case_without_context_or_schema_is_refused(base):
 def test_schema_options_are_not_replayed(base, tmp_path):
     # the schema's own "options" (what the method reported) are data: only context.solver_options replay
     _edit_result(base, lambda rec: rec.__setitem__("options", {"solver_options": {"log_file": str(tmp_path / "x")}}))
-    assert bl.check(base, solve_fn=_canned_solver([100, 0])).cases[0].verdict == bl.PASS
+    assert bl.check(base, solve_fn=canned_solver([100, 0])).cases[0].verdict == bl.PASS
     assert not (tmp_path / "x").exists()
 
 
@@ -225,7 +226,7 @@ def test_non_finite_recorded_bid_price_is_refused(base, value):
     p.write_text(p.read_text().replace("100.0", value))
     _rehash(base)
     with pytest.raises(bl.BaselineError, match="NaN or infinite") as exc:
-        bl.check(base, solve_fn=_canned_solver([100, 0]))
+        bl.check(base, solve_fn=canned_solver([100, 0]))
     assert exc.value.row == 1 and exc.value.column == "bid_price"
 
 
@@ -242,9 +243,9 @@ def test_non_finite_bid_price_of_a_non_optimal_case_never_passes(tmp_path):
     out = tmp_path / "base"
     from decomp.result import Termination
 
-    bl.record(out, cases=[bl.Case(_series(), "dlp", "highs")],
-              solve_fn=_canned_solver([float("nan"), 0], termination=Termination.ITERATION_LIMIT))
-    rep = bl.check(out, solve_fn=_canned_solver([100, 0]))
+    bl.record(out, cases=[bl.Case(series(), "dlp", "highs")],
+              solve_fn=canned_solver([float("nan"), 0], termination=Termination.ITERATION_LIMIT))
+    rep = bl.check(out, solve_fn=canned_solver([100, 0]))
     assert rep.cases[0].metrics["bid_moved_legs"] == ["QAAQHX"]
 
 
@@ -255,7 +256,7 @@ def test_every_case_removed_is_refused(base):
     (base / "manifest.json").write_text(json.dumps(m))
     _rehash(base)
     with pytest.raises(bl.BaselineError, match="records no case"):
-        bl.check(base, solve_fn=_canned_solver([100, 0]))
+        bl.check(base, solve_fn=canned_solver([100, 0]))
 
 
 @pytest.mark.parametrize("key", ["path", "sha256", "bytes"])
@@ -321,7 +322,7 @@ def test_random_damage_never_passes_and_writes_nothing(seed, n):
         done = [_damage(out, rnd) for _ in range(n)]
         before = _tree(root)
         with pytest.raises(InstanceError):           # BaselineError or an instance error naming a file
-            bl.check(out, solve_fn=_canned_solver([100, 0]))
+            bl.check(out, solve_fn=canned_solver([100, 0]))
         assert _tree(root) == before, done
 
 
@@ -378,7 +379,7 @@ def test_random_tampering_is_refused_or_regresses_and_writes_nothing_outside(dat
         _rehash(out)
         before = {k: v for k, v in _tree(root).items() if not k.startswith("base")}
         try:
-            rep = bl.check(out, solve_fn=_canned_solver([100, 0]))
+            rep = bl.check(out, solve_fn=canned_solver([100, 0]))
         except (InstanceError, ConfigError):
             refused = True
         else:

@@ -127,6 +127,7 @@ def micro_run(tmp_path_factory):
     return res, out
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_micro_run_writes_json_report_and_plots(micro_run):
     res, out = micro_run
@@ -157,6 +158,7 @@ def _write(path, data):
     return path
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_compare_identical_run_passes(micro_run, tmp_path):
     _, out = micro_run
@@ -165,6 +167,7 @@ def test_compare_identical_run_passes(micro_run, tmp_path):
     assert not cmp.regressions and all(c.ratio == pytest.approx(1.0) for c in cmp.cases)
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_compare_flags_2x_slowdown(micro_run, tmp_path):
     _, out = micro_run
@@ -183,6 +186,7 @@ def test_compare_flags_2x_slowdown(micro_run, tmp_path):
     assert cli.main(["bench", "compare", str(out), str(new), "--max-growth", "150%"]) == 0
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_compare_flags_bid_price_error(micro_run, tmp_path):
     _, out = micro_run
@@ -221,6 +225,7 @@ def test_missing_and_corrupt_files_give_clear_errors(tmp_path, capsys):
     assert "nowhere" in capsys.readouterr().err
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_micro_run_prices_bid_prices_on_common_paths(micro_run):
     """--revenue-paths: every solve case carries its revenue and its loss against the reference."""

@@ -40,6 +40,7 @@ def test_negative_bid_prices_are_projected_and_reported(two_leg):
     assert c.dual_value == pytest.approx(1580.0)
 
 
+@pytest.mark.solver
 def test_lp_dual_matches_scipy_linprog_on_the_pwl(two_leg):
     # Reference: scipy.optimize.linprog (method "highs") on the explicit PWL LP and its
     # dual min c.pi + sum w u  s.t. u_jk + a_j(pi) >= f_j s_jk, pi, u >= 0.
@@ -70,6 +71,7 @@ def test_lp_dual_matches_scipy_linprog_on_the_pwl(two_leg):
         assert c.dual_value >= -primal.fun * (1 - 1e-12)
 
 
+@pytest.mark.solver
 def test_pnlp_certificate_at_the_optimum_and_away_from_it():
     inst = ladder.load_rung("p100")
     r = solve(inst, "pnlp", "ipopt")

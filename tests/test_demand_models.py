@@ -2,7 +2,7 @@
 Lagrangian method on them at mid size.
 
 References outside the project's solver code: the independent certificate of
-tests/family.py (scipy.stats alone; weak duality, a mathematical fact) and the law of large
+tests/support/family.py (scipy.stats alone; weak duality, a mathematical fact) and the law of large
 numbers for the families' shares (a binomial count within 5 standard deviations).
 """
 
@@ -13,12 +13,13 @@ import json
 import numpy as np
 import pytest
 
-import family
 from decomp import SolverOptions, Termination, solve
 from decomp.cli import main
 from decomp.demand_mix import NAMED, DemandMix, Part, apply
 from decomp.errors import ConfigError
 from decomp.generator import generate
+
+from support import family
 
 
 def test_the_text_form_reads_back_to_the_same_mix():
@@ -102,7 +103,6 @@ def test_generate_refuses_a_malformed_mix(tmp_path, capsys):
     assert not (tmp_path / "x").exists()
 
 
-@pytest.mark.solver
 @pytest.mark.parametrize("name", ["mix"])
 def test_a_mid_size_mixed_network_is_optimal_by_the_independent_certificate(name):
     # 5,000 products, every family of the production-like mix; the answer checked by the
@@ -116,7 +116,6 @@ def test_a_mid_size_mixed_network_is_optimal_by_the_independent_certificate(name
 
 
 @pytest.mark.slow
-@pytest.mark.solver
 @pytest.mark.parametrize("name", ["gamma", "lowcv", "poisson", "negbin", "mix"])
 @pytest.mark.parametrize("products", [10000, 100000])
 def test_large_networks_of_every_demand_model(name, products):

@@ -9,18 +9,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from decomp import Instance, SolutionStatus, SolverOptions, Termination, ladder, normal, solve
+from decomp import Instance, SolutionStatus, SolverOptions, Termination, normal, solve
 from decomp.methods import highs as m_highs
 from decomp.methods import ipopt as m_ipopt
 from decomp.methods import pyomo_highs as m_pyomo_highs
 from decomp.methods import pyomo_ipopt as m_pyomo_ipopt
 
 pytestmark = pytest.mark.solver
-
-
-@pytest.fixture(scope="module")
-def rungs():
-    return {name: ladder.load_rung(name) for name in ("p100", "p1k", "p10k")}
 
 
 # -- mathematical facts ------------------------------------------------------

@@ -7,7 +7,7 @@ Sources named beside each check:
 * Monotonicity of the single-leg program (Talluri and van Ryzin 2004, section
   2.5.2, from memory): the value of a seat falls as seats remaining grow and as
   the horizon runs out.
-* The whole network's dynamic program by brute force (tests/network_dp.py): the
+* The whole network's dynamic program by brute force (tests/support/network_dp.py): the
   Lagrangian bound is at least its value and at most the DLP value (Topaloglu
   2009: both are results of that paper; the relaxation argument for the first is in
   decomp/dynamic/relaxation.py), and on a
@@ -24,12 +24,12 @@ import pytest
 from scipy import stats
 
 from decomp import Instance, solve
-from decomp.dynamic import (BidPriceTables, DemandError, PeriodDemand, decompose, from_arrival_curves,
+from decomp.dynamic import (DemandError, PeriodDemand, decompose, from_arrival_curves,
                             read_parquet, relax, solve_leg, write_parquet)
 from decomp.dynamic.relaxation import _Network
 from decomp.errors import InstanceError
 
-from network_dp import optimal_values, policy_value   # tests/network_dp.py
+from support.network_dp import check_monotone, optimal_values, policy_value
 
 
 def _naive_leg(capacity, prob, revenue):
@@ -88,21 +88,13 @@ def _random_instance(rng, legs=3, products=8, periods=40):
     return inst, PeriodDemand(p)
 
 
-def _check_monotone(tables: BidPriceTables):
-    for i in range(tables.n_legs):
-        b = tables.leg(i)[:, 1:]
-        assert np.all(np.diff(b, axis=1) <= 1e-9 * (1 + np.abs(b[:, 1:])))    # falls as seats grow
-        assert np.all(np.diff(b, axis=0) <= 1e-9 * (1 + np.abs(b[1:])))      # falls as the horizon runs out
-        assert np.all(b >= -1e-12)
-
-
 @pytest.mark.solver
 def test_tables_are_monotone():
     rng = np.random.default_rng(5)
     inst, demand = _random_instance(rng)
     r = solve(inst, "dlp", "highs")
-    _check_monotone(decompose(inst, demand, r.bid_price_array))
-    _check_monotone(relax(inst, demand, r.bid_price_array, iteration_limit=30).tables)
+    check_monotone(decompose(inst, demand, r.bid_price_array))
+    check_monotone(relax(inst, demand, r.bid_price_array, iteration_limit=30).tables)
 
 
 def _two_legs(connecting_demand: float, periods=14, seed=1):

@@ -16,8 +16,6 @@ from decomp.cli import main
 from decomp.dynamic import read_parquet
 from decomp.io import write_instance
 
-pytestmark = pytest.mark.solver
-
 
 @pytest.fixture(scope="module")
 def inst_dir(tmp_path_factory):
@@ -26,6 +24,7 @@ def inst_dir(tmp_path_factory):
     return path
 
 
+@pytest.mark.solver
 def test_tables_from_a_static_result(inst_dir, tmp_path, capsys):
     res, out = tmp_path / "dlp.json", tmp_path / "tables.parquet"
     assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(res)]) == 0
@@ -58,6 +57,7 @@ def test_tables_bad_input(inst_dir, tmp_path, capsys):
     assert not (tmp_path / "t.parquet").exists()
 
 
+@pytest.mark.solver
 def test_simulate_with_table_policy(inst_dir, tmp_path, capsys):
     out = tmp_path / "sim"
     code = main(["simulate", str(inst_dir), "--policies", "dlp:highs,dynamic:dlp:highs", "--paths", "40",
@@ -86,6 +86,7 @@ def test_simulate_rejects_bad_table_policy(inst_dir, tmp_path, capsys):
                  "--workers", "0", "--no-progress", "--out", str(tmp_path / "s")]) == 2
 
 
+@pytest.mark.solver
 def test_simulate_relaxed_policy_needs_one_request_per_period(inst_dir, tmp_path, capsys):
     assert main(["simulate", str(inst_dir), "--policies", "relaxed:dlp", "--periods", "50", "--paths", "5",
                  "--workers", "0", "--no-progress", "--out", str(tmp_path / "s")]) == 2

@@ -13,15 +13,13 @@ The default run checks one problem; the sweep over all 24 is marked slow
 """
 
 import math
-import pathlib
 
 import pytest
 
-from published_dynamic import run                       # tests/published_dynamic.py
-from test_dynamic import _check_monotone                # tests/test_dynamic.py
-from test_hubspoke_published import PUBLISHED          # tests/test_hubspoke_published.py
-
-EXTERNAL = pathlib.Path(__file__).resolve().parents[1].parent / "shared" / "external" / "hub-spoke-2009"
+from support.hubspoke import PUBLISHED
+from support.network_dp import check_monotone
+from support.paths import EXTERNAL
+from support.published_dynamic import run
 
 pytestmark = [pytest.mark.solver, pytest.mark.external]
 
@@ -59,8 +57,8 @@ def _check(name, paths):
         assert d["reference"] == "bid dlp:highs"
         assert math.isfinite(d["halfwidth"]) and d["halfwidth"] < d["unpaired_halfwidth"]
     # Bid prices fall as seats remaining grow and as the horizon runs out (single-leg fact).
-    _check_monotone(out["tables"])
-    _check_monotone(rel.tables)
+    check_monotone(out["tables"])
+    check_monotone(rel.tables)
     return out
 
 

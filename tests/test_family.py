@@ -1,6 +1,6 @@
 """The Lagrangian method on a randomized family of networks it was not tuned on.
 
-The instances come from tests/family.py (topologies, demand families, CVs, capacity
+The instances come from tests/support/family.py (topologies, demand families, CVs, capacity
 regimes, fares and closed legs that `decomp generate` never makes). References are
 outside the method's code: Ipopt (cyipopt, bound_relax_factor = 0) for normal demand,
 and for every instance an independent certificate computed from scipy.stats alone
@@ -14,9 +14,10 @@ What is asserted, on every instance:
   certificate, and for normal demand its objective is within 1e-7 of Ipopt's (where
   Ipopt stops short, on some near-deterministic demand, Ipopt's feasible allocation
   must not earn more than ours).
-Draws have 5 to 3,000 products. `pytest --run-slow -m family_strict tests/test_family.py`
-runs the next 300 draws the same way. Every fifteenth draw is also solved warm after a
-forecast change (means moved by up to 20%), from the unmoved draw's bid prices.
+Draws have 5 to 3,000 products. Every fifteenth draw is also solved warm after a forecast
+change (means moved by up to 20%), from the unmoved draw's bid prices. The default run solves
+every tenth draw (and every other warm start); the rest, and the next 300 draws
+(`family_strict`), are marked slow: `make test-slow` runs them.
 """
 
 from __future__ import annotations
@@ -24,10 +25,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-import family
 from decomp import SolverOptions, Termination, solve
 
-pytestmark = pytest.mark.solver
+from support import family
+from support.sweeps import thinned
 
 SEEDS = range(300)
 #: The larger sweep behind the marker: the next 300 draws.
@@ -54,7 +55,8 @@ def _checked(seed, max_products):
     return inst, desc, r, gap
 
 
-@pytest.mark.parametrize("seed", SEEDS)
+@pytest.mark.solver
+@pytest.mark.parametrize("seed", thinned(SEEDS, every=10))
 def test_family_instance(seed):
     inst, desc, r, gap = _checked(seed, max_products=3000)
     assert r.termination is Termination.OPTIMAL, (desc, r.message)
@@ -79,7 +81,7 @@ def test_family_instance_strict(seed):
     assert gap <= 1e-8, desc
 
 
-@pytest.mark.parametrize("seed", range(0, 300, 15))
+@pytest.mark.parametrize("seed", thinned(range(0, 300, 15), every=2))
 def test_family_warm_start_after_a_forecast_change(seed):
     # A nightly re-optimization starts from the last night's bid prices: every mean moved by
     # a factor U[0.8, 1.2], solved from the unmoved draw's bid prices. The warm answer must

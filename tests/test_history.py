@@ -8,7 +8,6 @@ errors (machinery tests); one test runs the real micro suite through ``decomp be
 
 import json
 import os
-import pathlib
 import re
 import shutil
 import sqlite3
@@ -18,12 +17,12 @@ import sys
 import pytest
 
 from decomp.benchsuite import history
-from decomp.benchsuite import html as hhtml
 from decomp.benchsuite.compare import compare_runs
 from decomp.benchsuite.results import load_run
 from decomp.cli import main
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
+from support.paths import ROOT
+
 
 VERSIONS = {"python": "3.11.7", "numpy": "2.4.6", "scipy": "1.17.1", "pyomo": "6.10.1", "highspy": "1.16.0",
             "cyipopt-wheels": "1.7.0.dev0"}
@@ -183,6 +182,7 @@ def _chromium(*args, user_data):
     return subprocess.run(cmd, capture_output=True, text=True, timeout=120)
 
 
+@pytest.mark.integration
 def test_the_page_in_a_browser_shows_families_cases_and_the_regression(three_runs, tmp_path):
     page = _page(three_runs, tmp_path)
     r = _chromium("--dump-dom", page.as_uri(), user_data=tmp_path / "profile1")
@@ -212,6 +212,7 @@ def test_the_page_in_a_browser_shows_families_cases_and_the_regression(three_run
 
 # -- item 12: every decomp bench run and every baseline check adds itself ---------------------------
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_decomp_bench_adds_its_run_with_the_environment(tmp_path):
     store = tmp_path / "h.sqlite"

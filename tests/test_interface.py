@@ -1,7 +1,7 @@
 """One interface to learn, from Python: results that save and reload, warm starts from a result or
 a file, decisions that print, options refused with a clear error.
 
-The network is the hand-solved example of ``tests/test_analyst.py`` (its DLP revenue 30,300 is
+The network is the hand-solved example of ``tests/support/networks.py`` (its DLP revenue 30,300 is
 worked out by hand there); the checks here are about the interface around the solve.
 """
 
@@ -14,7 +14,7 @@ import pytest
 import decomp
 from decomp.errors import ConfigError
 
-from test_analyst import HAND_REVENUE, LEGS, PRODUCTS
+from support.networks import HAND_REVENUE, LEGS, PRODUCTS
 
 
 @pytest.fixture(scope="module")
@@ -57,7 +57,6 @@ def test_a_result_without_its_allocation_warns_in_the_tables(example, dlp, tmp_p
 
 # -- item 2: warm starts from a result, a result file or a bid-price table -----------------------
 
-@pytest.mark.solver
 def test_warm_start_from_a_result_or_a_file(tmp_path):
     inst = decomp.read_instance("instances/p1k")
     cold = decomp.solve(inst, model="pnlp", method="lagrangian")

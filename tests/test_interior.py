@@ -1,7 +1,7 @@
 """The restricted problem and its interior-point method (decomp.lagrangian.master,
 decomp.lagrangian.interior), on their own and in the loop.
 
-References outside the method's code: the independent certificate of tests/family.py
+References outside the method's code: the independent certificate of tests/support/family.py
 (scipy.stats alone; weak duality, a mathematical fact), Ipopt (cyipopt,
 bound_relax_factor = 0) for normal demand, and HiGHS (scipy.optimize.linprog) for the
 linear program that a piecewise-linear network is.
@@ -15,7 +15,6 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-import family
 from decomp import SolverOptions, Termination, solve
 from decomp.generator import generate
 from decomp.lagrangian import interior, master
@@ -24,10 +23,12 @@ from decomp.lagrangian.loop import Bounds
 from decomp.lagrangian.network import Network
 from decomp.lagrangian.prices import fare_start, price_closed_legs
 
-pytestmark = pytest.mark.solver
+from support import family
+from support.sweeps import thinned
 
-#: every fourth draw of the family (5 to 3,000 products)
-SEEDS = list(range(0, 300, 4))
+#: every fourth draw of the family (5 to 3,000 products); the default run solves every fifth of
+#: them, `make test-slow` the rest
+SEEDS = thinned(range(0, 300, 4), every=5)
 
 
 def _relative(dual, primal):
@@ -55,6 +56,7 @@ def _interior_alone(inst, tol=1e-9):
     return word, its, net.full_allocation(bounds.x), full
 
 
+@pytest.mark.solver
 @pytest.mark.parametrize("seed", SEEDS)
 def test_interior_point_alone_on_family_draws(seed):
     inst, desc = family.draw(seed, max_products=3000)
@@ -79,6 +81,8 @@ def _low_cv_network():
                     class_growth=1.2865351175695026, seats=95.09505796799849, hubs=1)
 
 
+@pytest.mark.solver
+@pytest.mark.slow      # 5,968 products and an Ipopt reference at tol 1e-10
 def test_a_low_cv_network_is_solved_through_the_restricted_problem():
     inst = _low_cv_network()
     r = solve(inst, "pnlp", "lagrangian")
@@ -100,6 +104,7 @@ def _poisson_network(products=600, seed=5):
     return inst.with_forecast(meta={**inst.meta, "distribution": "poisson"})
 
 
+@pytest.mark.solver
 def test_the_restricted_problem_with_pricing_solves_the_linear_program():
     # With whole seats a Poisson network is a linear program, one column per seat (slope
     # f P(D > k), width 1); reference: HiGHS through scipy.optimize.linprog on every seat

@@ -4,7 +4,6 @@ extra columns, meta.json, and atomic replacement."""
 from __future__ import annotations
 
 import json
-import pathlib
 
 import numpy as np
 import pytest

@@ -15,13 +15,6 @@ from decomp.lagrangian.alternatives import lbfgsb_termination
 from decomp import demand_mix
 from decomp.result import IterationRecord
 
-pytestmark = pytest.mark.solver
-
-
-@pytest.fixture(scope="module")
-def rungs():
-    return {name: ladder.load_rung(name) for name in ("p100", "p1k", "p10k")}
-
 
 @pytest.fixture(scope="module")
 def lagr(rungs):
@@ -37,6 +30,7 @@ def _close_bid_prices(ref, got, rel=1e-6):
 
 # -- agreement with Ipopt -------------------------------------------------------------
 
+@pytest.mark.solver
 @pytest.mark.parametrize("name", ["p100", "p1k", "p10k"])
 def test_agrees_with_ipopt_on_the_ladder(rungs, lagr, name):
     # Reference: Ipopt (interior point, via the 'ipopt' method) with bound_relax_factor = 0
@@ -80,6 +74,7 @@ def test_history_records_every_iteration(lagr):
     json.dumps(r.to_json_dict())
 
 
+@pytest.mark.solver
 def test_dlp_limit_as_std_goes_to_zero(rungs):
     # As std -> 0 the expected sales S(x) -> min(x, mean), so the PNLP optimum tends to
     # the DLP optimum (solved here by HiGHS), from below (Jensen, mathematical fact).
@@ -163,6 +158,7 @@ def test_newton_iteration_and_time_limits(rungs):
     assert r.solution_status is SolutionStatus.FEASIBLE
 
 
+@pytest.mark.solver
 @pytest.mark.parametrize("mix", [None, "gamma", "lowcv", "poisson", "negbin", "mix"])
 def test_unlimited_legs_written_as_capacity_1e12(rungs, mix):
     # The README writes an unlimited leg as capacity 1e12. Every fifth leg of p100 so: the
@@ -229,7 +225,6 @@ def test_solve_command_writes_a_result(tmp_path, rungs):
     assert json.loads(warm.read_text())["iterations"] <= 1
 
 
-@pytest.mark.solver
 def test_tiny_bid_price_leg_does_not_stall_the_gap():
     # Regression: a 100,000-product date instance whose slack leg has a bid
     # price near 1e-87; scaling every product of that leg (including ones whose
@@ -300,6 +295,7 @@ def _two_leg_instance(rng):
                     fare=[fares[0], fares[1]], mean=[m1, m2], std=[0.3 * m1, 0.4 * m2])
 
 
+@pytest.mark.solver
 def test_slack_leg_shared_with_a_tight_leg_gets_exactly_zero():
     # Regression (the smallest reproducer of the log-space failure): 20 random draws.
     # Reference: Ipopt (bound_relax_factor = 0) on the same PNLP. L1 is slack, so
@@ -404,7 +400,7 @@ def test_answer_does_not_depend_on_the_clock(monkeypatch):
     # the load: 2 of 4 identical runs of draw 357 ended at the iteration limit).
     import time
 
-    import family
+    from support import family
 
     real = time.perf_counter
     for seed in (194, 208, 357, 475):
@@ -451,6 +447,7 @@ def test_room_left_goes_to_the_dearest_seat_first():
         assert net.revenue(filled) >= net.revenue(y) - 1e-9 * abs(net.revenue(y))
 
 
+@pytest.mark.slow      # 5,010 products of negative-binomial demand, solved to tol 1e-9
 def test_discrete_demand_at_scale_is_certified():
     # Negative-binomial demand on 5,010 products: with whole seats the PNLP is a linear
     # program, whose split of a leg's last seats the dual leaves open; the restricted
@@ -458,7 +455,7 @@ def test_discrete_demand_at_scale_is_certified():
     # certificate (scipy.stats only; weak duality, a mathematical fact).
     import dataclasses
 
-    import family
+    from support import family
 
     inst = generate(5010, seed=4, demand_factor=(0.3691967057659209, 0.48735104588241573),
                     cv=(0.13299706742235012, 0.30313758632135546), fare_ratio=0.8604010223537917,

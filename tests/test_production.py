@@ -9,7 +9,6 @@ from __future__ import annotations
 import datetime as dt
 import json
 import os
-import pathlib
 import signal
 
 import numpy as np
@@ -136,6 +135,7 @@ def clean(cluster, tmp_path_factory):
     return out, b, s
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_clean_run(clean):
     out, b, s = clean
@@ -158,6 +158,7 @@ def test_clean_run(clean):
         assert -1e-12 <= rec["gap"] <= 1e-9          # rounding can make a closed gap slightly negative
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_dlp_batch_against_linprog(cluster, tmp_path):
     b = build_batch("gen:3000:2", date_range(days=2, start="2027-07-01"))
@@ -177,6 +178,7 @@ def test_dlp_batch_against_linprog(cluster, tmp_path):
         assert rec["objective"] == pytest.approx(-lp.fun, rel=1e-8)
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_rerun_skips_finished(clean, cluster):
     out, b, _ = clean
@@ -187,6 +189,7 @@ def test_rerun_skips_finished(clean, cluster):
     assert read_finished(out, b.tasks[0], other.fingerprint(b.tasks[0])) is None
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_rerun_of_a_finished_pilot_keeps_its_measurements(clean, cluster):
     from decomp.production import sizing
@@ -202,6 +205,7 @@ def test_rerun_of_a_finished_pilot_keeps_its_measurements(clean, cluster):
     assert s["measurements"]["tasks_run"] == len(b) and "kept from the run written" in (out / "summary.md").read_text()
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_worker_killed_mid_run(clean, cluster, tmp_path):
     _, b, _ = clean
@@ -231,6 +235,7 @@ class _Stop(Exception):
     pass
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_interrupted_then_resumed(clean, cluster, tmp_path):
     _, b, _ = clean
@@ -262,6 +267,7 @@ def test_interrupted_then_resumed(clean, cluster, tmp_path):
     assert _outputs(out, b) == _outputs(clean[0], b)
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_corrupt_instance_fails_alone(cluster, tmp_path):
     from decomp.cli import main
@@ -303,6 +309,7 @@ def test_corrupt_instance_fails_alone(cluster, tmp_path):
     assert "| net1 | failed |" in (out / "summary.md").read_text()
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_embedded_cluster_and_warm_start(clean, tmp_path):
     out0, b, _ = clean

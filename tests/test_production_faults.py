@@ -30,7 +30,8 @@ from decomp.production.batch import build_batch, date_range
 from decomp.production.lock import OutputLock, RunLockedError
 from decomp.production.outputs import BID_FILE, RESULT_FILE, read_bid_prices, read_finished, task_dir
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
+from support.paths import ROOT
+
 BATCH = "gen:300:1"
 
 
@@ -91,7 +92,6 @@ def _damage_all_ways(out, keys):
     return done
 
 
-@pytest.mark.solver
 def test_resume_redoes_damaged_finished_output(client, clean, tmp_path):
     import shutil
 
@@ -110,7 +110,6 @@ def test_resume_redoes_damaged_finished_output(client, clean, tmp_path):
     assert _answers(out, b) == ref          # byte-for-byte the answers of the undamaged run
 
 
-@pytest.mark.solver
 def test_resume_redoes_unreadable_result_json(client, clean, tmp_path):
     import shutil
 
@@ -161,7 +160,6 @@ def _to_layout_before_the_schema(d, status="ok"):
     (d / RESULT_FILE).write_text(json.dumps(old))
 
 
-@pytest.mark.solver
 def test_resume_reads_a_run_written_before_the_schema(client, clean, tmp_path):
     import shutil
 
@@ -181,7 +179,6 @@ def test_resume_reads_a_run_written_before_the_schema(client, clean, tmp_path):
 
 
 # ---------------------------------------------------------------------------- item 5: content fingerprint
-@pytest.mark.solver
 def test_fare_edit_in_place_is_solved_again(client, tmp_path):
     from decomp.generator import generate
     from decomp.io import read_instance, write_instance
@@ -220,6 +217,7 @@ def test_second_run_is_refused_naming_the_holder(tmp_path, capsys):
     assert not (out / "run.json").exists() and not (out / "tasks").exists()    # nothing was written
 
 
+@pytest.mark.integration
 def test_lock_of_a_killed_holder_is_free(tmp_path):
     out = tmp_path / "out"
     out.mkdir()
@@ -236,7 +234,6 @@ def test_lock_of_a_killed_holder_is_free(tmp_path):
 
 
 # ---------------------------------------------------------------------------- item 7: full or read-only folder
-@pytest.mark.solver
 def test_disk_full_mid_run_stops_once_and_keeps_finished_tasks(client, tmp_path, monkeypatch):
     real = runner.write_bid_prices
     calls = []
@@ -290,7 +287,6 @@ def test_read_only_folder_is_reported_as_such(tmp_path, monkeypatch, capsys):
     assert "cluster" not in err                 # not blamed on Dask
 
 
-@pytest.mark.solver
 def test_summary_that_cannot_be_written_is_returned(client, tmp_path, monkeypatch):
     from decomp import atomic
 
@@ -309,6 +305,7 @@ def test_summary_that_cannot_be_written_is_returned(client, tmp_path, monkeypatc
     assert not (out / "summary.md").exists()
 
 
+@pytest.mark.solver
 def test_solve_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch, capsys):
     from decomp import atomic
     from decomp.cli import main
@@ -329,7 +326,7 @@ def test_solve_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch,
 
 
 # ---------------------------------------------------------------------------- item 8: SIGTERM
-@pytest.mark.solver
+@pytest.mark.integration
 def test_sigterm_writes_an_interrupted_summary(tmp_path):
     out = tmp_path / "out"
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
@@ -361,6 +358,7 @@ def _listening(procs) -> set:
     return out
 
 
+@pytest.mark.integration
 @pytest.mark.parametrize("dashboard", [None, 0])
 def test_embedded_cluster_listens_on_loopback_only(dashboard):
     import psutil
@@ -435,7 +433,6 @@ def test_fallback_choice():
 
 
 # ---------------------------------------------------------------------------- item 15: warm starts of 1e308
-@pytest.mark.solver
 def test_warm_start_of_1e308_is_clamped(client, clean, tmp_path):
     import shutil
 

@@ -115,6 +115,7 @@ def test_fare_class_column_orders_classes_by_mean_fare():
 
 
 # ------------------------------------------------------------------ single leg, two fare classes
+@pytest.mark.solver
 def test_fixed_protection_matches_analytic_expected_revenue(two_class_run):
     levels, res = two_class_run
     for p, y in enumerate(levels):
@@ -123,6 +124,7 @@ def test_fixed_protection_matches_analytic_expected_revenue(two_class_run):
         assert ci["low"] <= exact <= ci["high"], (y, exact, ci)
 
 
+@pytest.mark.solver
 def test_littlewood_level_is_no_worse_than_its_neighbours(two_class_run):
     levels, res = two_class_run
     y = levels[1]
@@ -181,6 +183,7 @@ def test_hindsight_bounds_every_policy_on_every_path_and_crn_narrows_the_interva
 
 
 # ------------------------------------------------------------------ reproducibility
+@pytest.mark.solver
 def test_same_seed_same_numbers_whatever_the_batching():
     inst = two_class_leg()
     base = dict(policies=[NestedPolicy([4]), NestedPolicy(None)], paths=60, horizon=20.0,
@@ -193,6 +196,7 @@ def test_same_seed_same_numbers_whatever_the_batching():
     assert not np.array_equal(a.revenue, c.revenue)
 
 
+@pytest.mark.solver
 def test_sequential_paths_reach_target_halfwidth():
     inst = two_class_leg()
     cfg = SimulationConfig(policies=[NestedPolicy([5])], paths=5000, horizon=20.0, reoptimize_every=(20.0,),
@@ -202,6 +206,8 @@ def test_sequential_paths_reach_target_halfwidth():
     assert len(res.rounds) >= 2 and res.n_paths < 5000
 
 
+@pytest.mark.integration
+@pytest.mark.solver
 def test_revenue_for_bid_prices():
     inst = two_class_leg()
     free, ci = revenue_for_bid_prices(inst, {"K100": 0.0}, paths=200, seed=1)

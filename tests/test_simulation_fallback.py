@@ -28,8 +28,6 @@ from decomp.simulation import report
 from decomp.simulation.booking import remaining_forecast, remaining_share
 from decomp.simulation.policies import BidPricePolicy, ControlContext, FCFSPolicy
 
-pytestmark = pytest.mark.solver
-
 
 class OneIteration(BidPricePolicy):
     """The PNLP by the Lagrangian dual, stopped after one iteration: forced to end non-optimal."""
@@ -52,6 +50,7 @@ def p100():
     return load_rung("p100")
 
 
+@pytest.mark.solver
 def test_a_non_optimal_solve_prices_with_the_fallbacks_bid_prices(p100):
     cs, sub = _time0(p100, OneIteration("pnlp", "lagrangian"))
     primary = solve(sub, model="pnlp", method="lagrangian", options=SolverOptions(threads=1, iteration_limit=1))
@@ -88,6 +87,7 @@ def _run(inst, fallback):
     return simulate(inst, cfg)
 
 
+@pytest.mark.solver
 def test_simulation_counts_every_reoptimization_and_says_so_loudly(p100):
     rescued, unrescued = _run(p100, "auto"), _run(p100, None)
     # time 0 once for all paths, then one re-optimization per path at day 30
@@ -109,6 +109,7 @@ def test_simulation_counts_every_reoptimization_and_says_so_loudly(p100):
     np.testing.assert_array_equal(rescued.revenue[0, 1], unrescued.revenue[0, 1])
 
 
+@pytest.mark.solver
 def test_cli_fallback_option(p100, tmp_path, capsys):
     import json
 

@@ -11,8 +11,6 @@ from decomp import ladder
 from decomp.cli import main
 from decomp.io import write_instance
 
-pytestmark = pytest.mark.solver
-
 
 @pytest.fixture(scope="module")
 def inst_dir(tmp_path_factory):
@@ -21,6 +19,7 @@ def inst_dir(tmp_path_factory):
     return path
 
 
+@pytest.mark.solver
 def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
     out, alloc = tmp_path / "r.json", tmp_path / "a.csv"
     code = main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
@@ -61,6 +60,7 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
     assert top in text
 
 
+@pytest.mark.solver
 def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
     first = tmp_path / "r1.json"
     assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(first),
@@ -72,6 +72,7 @@ def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
     assert json.loads(second.read_text())["termination"] == "optimal"
 
 
+@pytest.mark.solver
 def test_limits_exit_one_and_still_write(inst_dir, tmp_path):
     out = tmp_path / "r.json"
     assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "2",

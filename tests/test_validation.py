@@ -1,8 +1,8 @@
 """Validation of instance folders: every bad-input case of the issue gets an
 InstanceError naming the file, the 1-based data row, the column and the value.
 
-The expected rows and columns below are read off the hand-written tables in
-this file (row 1 is the first line after the header).
+The expected rows and columns below are read off the hand-written tables of
+tests/support/tables.py (row 1 is the first line after the header).
 """
 
 from __future__ import annotations
@@ -22,52 +22,7 @@ from decomp.errors import InstanceError
 from decomp.instance import Instance
 from decomp.io import UnusedLegWarning, check_instance, read_instance, write_instance
 
-LEGS = [
-    "leg,origin,destination,capacity",
-    "L1,KA1,HU2,100",
-    "L2,HU2,BO3,80",
-    "L3,BO3,HU2,50",
-]
-PRODUCTS = [
-    "product,legs,fare,mean,std",
-    "P1,L1,100,10,3",
-    "P2,L1 L2,150,5,2",
-    "P3,L2,90,8,2.5",
-    "P4,L3,60,4,1",
-]
-
-
-def make(tmp_path: pathlib.Path, legs=LEGS, products=PRODUCTS, name="inst") -> pathlib.Path:
-    d = tmp_path / name
-    d.mkdir()
-    if legs is not None:
-        (d / "legs.csv").write_text("\n".join(legs) + "\n")
-    if products is not None:
-        (d / "products.csv").write_text("\n".join(products) + "\n")
-    return d
-
-
-def with_field(lines, row, col, value):
-    """Copy of ``lines`` with data row ``row`` (1-based) field ``col`` set to ``value``."""
-    out = list(lines)
-    header = out[0].split(",")
-    fields = out[row].split(",")
-    fields[header.index(col)] = value
-    out[row] = ",".join(fields)
-    return out
-
-
-def expect(path, file, row=None, column=None, match=None):
-    with pytest.raises(InstanceError) as info:
-        read_instance(path)
-    err = info.value
-    assert err.file is not None and pathlib.Path(err.file).name == file, str(err)
-    assert err.row == row, str(err)
-    assert err.column == column, str(err)
-    if match:
-        assert match in err.reason, str(err)
-    return err
-
+from support.tables import LEGS, PRODUCTS, expect, make, with_field
 
 def test_the_base_instance_is_valid(tmp_path):
     inst = read_instance(make(tmp_path))

@@ -1,7 +1,7 @@
 """Bad input found by the fault-injection pass (issue 13, items 10-16): each gets a clear
 InstanceError naming file, row and column, or is accepted on purpose (documented in decomp.io).
 
-Tables are the hand-written ones of tests/test_validation.py; rows and columns expected below
+Tables are the hand-written ones of tests/support/tables.py; rows and columns expected below
 are read off them (row 1 is the first line after the header).
 """
 
@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 import os
-import pathlib
 
 import numpy as np
 import pyarrow as pa
@@ -19,7 +18,7 @@ import pytest
 from decomp.errors import InstanceError
 from decomp.io import read_instance, write_instance
 
-from test_validation import LEGS, PRODUCTS, expect, make, with_field
+from support.tables import LEGS, PRODUCTS, expect, make, with_field
 
 
 def _cli(args, capsys):
@@ -208,7 +207,6 @@ def test_unlimited_capacity_of_1e12_solves(tmp_path):
     assert res.objective == pytest.approx(-lp.fun, rel=1e-9) and res.bid_prices["L1"] == 0.0
 
 
-@pytest.mark.solver
 def test_solve_warm_start_of_1e308_is_clamped(tmp_path, capsys):
     d = make(tmp_path)
     warm = tmp_path / "warm.csv"                # a bid-price table, columns leg, bid_price

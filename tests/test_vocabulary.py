@@ -23,10 +23,11 @@ import decomp
 from decomp import ladder
 from decomp.cli import build_parser, main
 
+from support.paths import ROOT
+
 #: Old option names warn with decomp.commands._vocabulary.OldOptionName, a FutureWarning.
 OldOptionName = FutureWarning
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
 
 
 def _decomp(*args, cwd=None, env=None):
@@ -76,6 +77,7 @@ def test_the_readme_lists_the_renamed_options():
         assert row is not None and f"`{old}`" in row, (command, new, old)
 
 
+@pytest.mark.integration
 def test_solve_needs_only_the_instance(tmp_path):
     r = _decomp("solve", "p100", cwd=tmp_path)
     assert r.returncode == 0, r.stderr
@@ -159,6 +161,7 @@ def test_size_window_needs_a_unit(tmp_path, capsys):
 
 # -- item 6: a table's format follows its suffix; another suffix is refused before the work --------
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_tables_format_by_suffix_and_the_fast_default_method(tmp_path):
     from decomp.dynamic import read_parquet
@@ -195,6 +198,7 @@ def _tree(root) -> dict:
     return out
 
 
+@pytest.mark.integration
 def test_bench_list_writes_nothing_and_names_cases(tmp_path):
     project = tmp_path / "project"
     shutil.copytree(ROOT, project, ignore=shutil.ignore_patterns(".venv", ".git", "__pycache__", ".benchmarks",
@@ -216,6 +220,7 @@ def test_bench_list_writes_nothing_and_names_cases(tmp_path):
 
 # -- item 8: summaries in decomp's words --------------------------------------------------------
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_summaries_use_decomp_words_not_solver_codes(tmp_path):
     r = _decomp("solve", "p100", "--model", "dlp", "--method", "highs", "--out", tmp_path / "r.json")
@@ -245,6 +250,7 @@ def test_progress_bars_only_on_a_terminal():
     assert _progress.wanted(None, io.StringIO()) is False
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_redirected_simulation_has_no_bar_and_explains_its_columns(tmp_path):
     # stderr is a pipe here, as in a log file; no --no-progress given
@@ -268,6 +274,7 @@ def _small_network(path):
     return inst
 
 
+@pytest.mark.integration
 @pytest.mark.solver
 def test_relaxation_says_how_many_periods_and_logs_its_progress(tmp_path):
     from decomp.dynamic import from_arrival_curves

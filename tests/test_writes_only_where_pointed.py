@@ -9,16 +9,15 @@ temporary folder are not counted: they are removed by the libraries and are not 
 from __future__ import annotations
 
 import pathlib
-import sys
 
 import pytest
 
 from decomp.cli import main
 
-sys.path.insert(0, str(pathlib.Path(__file__).resolve().parent))
-from tiny import write_benchmark, write_tiny  # noqa: E402
+from support.tiny import write_benchmark, write_tiny
 
-pytestmark = pytest.mark.solver
+# HiGHS solves the inputs; `decomp bench` runs pytest in a subprocess and `decomp run` a Dask cluster.
+pytestmark = [pytest.mark.solver, pytest.mark.integration]
 
 
 def _tree(root: pathlib.Path) -> dict:

@@ -46,3 +46,13 @@ def _backward(instance, prob, take):
                     new[tuple(x)] += prob[t, j] * take(t, x, j, instance.fare[j] - (V[tuple(x)] - V[tuple(y)]))
         V = new
     return V
+
+
+def check_monotone(tables) -> None:
+    """Bid-price tables fall as seats remaining grow and as the horizon runs out, and stay >= 0
+    (monotonicity of the single-leg program; Talluri and van Ryzin 2004, 2.5.2, from memory)."""
+    for i in range(tables.n_legs):
+        b = tables.leg(i)[:, 1:]
+        assert np.all(np.diff(b, axis=1) <= 1e-9 * (1 + np.abs(b[:, 1:])))    # falls as seats grow
+        assert np.all(np.diff(b, axis=0) <= 1e-9 * (1 + np.abs(b[1:])))      # falls as the horizon runs out
+        assert np.all(b >= -1e-12)

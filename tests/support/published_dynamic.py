@@ -1,6 +1,6 @@
 """Test and benchmark helper: the dynamic policies on one published hub-and-spoke problem.
 
-Reads the problem with its per-period request probabilities (tests/hubspoke.py),
+Reads the problem with its per-period request probabilities (tests/support/hubspoke.py),
 solves the DLP (HiGHS), computes the decomposition's and the Lagrangian
 relaxation's tables, and simulates, on the same requests (drawn period by
 period from the published probabilities), the static DLP bid-price policy (one
@@ -16,7 +16,7 @@ from decomp import solve
 from decomp.dynamic import decompose, relax
 from decomp.simulation import SimulationConfig, parse_policies, simulate
 
-from hubspoke import read_periods
+from .hubspoke import read_periods
 
 POLICIES = "dlp:highs,dynamic:dlp:highs,relaxed:dlp:highs,dynamic:pnlp:ipopt,fcfs"
 
