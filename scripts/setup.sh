@@ -12,7 +12,7 @@ need_apt=()
 command -v cmake >/dev/null || need_apt+=(cmake)
 command -v g++ >/dev/null || need_apt+=(g++)
 command -v make >/dev/null || need_apt+=(make)
-# Headless Chromium renders the benchmark history page in its test (tests/test_history.py).
+# Headless Chromium renders the benchmark history page in its test (tests/benchsuite/test_history.py).
 command -v chromium >/dev/null || need_apt+=(chromium)
 if [ ${#need_apt[@]} -gt 0 ]; then
     echo "setup: installing Debian packages: ${need_apt[*]}"

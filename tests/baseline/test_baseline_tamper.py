@@ -10,7 +10,7 @@ Two kinds of change are tried on a recorded baseline:
   These must be refused too, and nothing may be written outside the folder.
 
 The recorded answers come from a canned solver for the two-leg series network whose
-optimal duals are worked out by hand in tests/test_baseline.py (LP duality); the option
+optimal duals are worked out by hand in tests/baseline/test_baseline.py (LP duality); the option
 tests run Ipopt itself, which is what would have written the file.
 """
 

@@ -7,7 +7,7 @@ and in Parquet; every id and station column against every refused character; iti
 files themselves; meta.json), made programmatically from the same small base.
 
 ``sweep()`` is also what the counts in the issue notes come from (run this file with
-``python tests/test_bad_input_sweep.py`` to print them: kinds, tracebacks, silently accepted).
+``PYTHONPATH=tests python tests/data/test_bad_input_sweep.py`` to print them: kinds, tracebacks, silently accepted).
 """
 
 from __future__ import annotations

@@ -259,7 +259,7 @@ def test_redirected_simulation_has_no_bar_and_explains_its_columns(tmp_path):
     assert r.returncode == 0, r.stderr
     assert "\r" not in r.stderr and "path/s" not in r.stderr
     # no bar line ("decomp simulate: 40%|..."); the one line of its own is the note that --workers 0
-    # runs the paths in this process (tests/test_safe_by_default.py)
+    # runs the paths in this process (tests/cli/test_refused_before_work.py)
     assert [line for line in r.stderr.splitlines()
             if "decomp simulate:" in line and "--workers 0: the paths run in this process" not in line] == []
     assert "re-opt every (days)" in r.stdout and "re-opt every (days)" in (tmp_path / "sim" / "simulation.md").read_text()

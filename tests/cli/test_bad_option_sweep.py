@@ -2,7 +2,7 @@
 and a message naming the option (or the file) at fault, never a traceback, never silently accepted,
 and before anything is written -- no output appears, in the folder named or in the working folder.
 
-``sweep()`` prints the counts for the issue notes (``python tests/test_bad_option_sweep.py``).
+``sweep()`` prints the counts for the issue notes (``PYTHONPATH=tests python tests/cli/test_bad_option_sweep.py``).
 """
 
 from __future__ import annotations

@@ -329,7 +329,7 @@ def test_embedded_cluster_and_warm_start(clean, tmp_path):
 
 def test_run_takes_warm_start_like_solve():
     # one option name across solve and run (the older --warm-start-from still works, with a warning:
-    # tests/test_vocabulary.py)
+    # tests/cli/test_vocabulary.py)
     from decomp.cli import build_parser
 
     args = build_parser().parse_args(["run", "gen:100", "--dates", "1", "--out", "o", "--warm-start", "prev"])
