@@ -30,7 +30,7 @@ def dlp(example):
     return decomp.solve(example, model="dlp", method="highs")
 
 
-# -- item 3: building from DataFrames, validated like files ----------------------------------
+# -- building from DataFrames, validated like files ----------------------------------
 
 def test_from_frames_reads_like_the_files(example, tmp_path):
     write_instance(example, tmp_path / "hand")
@@ -116,7 +116,7 @@ def test_short_reprs_and_version():
     assert decomp.__version__ == metadata.version("decomp")
 
 
-# -- items 1 and 2: tables and decisions on the worked example -------------------------------
+# -- tables and decisions on the worked example -------------------------------
 
 @pytest.mark.solver
 def test_tables_of_the_worked_example(example, dlp):
@@ -159,7 +159,7 @@ def test_decide_and_displacement(dlp):
         dlp.decide("A1", "cheap")
 
 
-# -- item 4: one schema, read back ------------------------------------------------------------
+# -- one schema, read back ------------------------------------------------------------
 
 @pytest.mark.solver
 def test_result_json_round_trip(example, dlp, tmp_path):

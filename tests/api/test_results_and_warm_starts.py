@@ -27,7 +27,7 @@ def dlp(example):
     return decomp.solve(example, model="dlp", method="highs")
 
 
-# -- item 1: save() keeps what the tables need; a result without its allocation says so ----------
+# -- save() keeps what the tables need; a result without its allocation says so ----------
 
 @pytest.mark.solver
 def test_save_and_reload_keep_the_tables(example, dlp, tmp_path):
@@ -55,7 +55,7 @@ def test_a_result_without_its_allocation_warns_in_the_tables(example, dlp, tmp_p
         decomp.product_table(example, bare)
 
 
-# -- item 2: warm starts from a result, a result file or a bid-price table -----------------------
+# -- warm starts from a result, a result file or a bid-price table -----------------------
 
 def test_warm_start_from_a_result_or_a_file(tmp_path):
     inst = decomp.read_instance("instances/p1k")
@@ -73,7 +73,7 @@ def test_warm_start_from_a_result_or_a_file(tmp_path):
         decomp.solve(inst, model="pnlp", method="lagrangian", warm_start=object())
 
 
-# -- item 3: a decision prints as its text ------------------------------------------------------
+# -- a decision prints as its text ------------------------------------------------------
 
 @pytest.mark.solver
 def test_a_decision_prints_as_text(dlp, capsys):
@@ -84,7 +84,7 @@ def test_a_decision_prints_as_text(dlp, capsys):
     assert "Decision(" in repr(d)          # repr stays the dataclass's
 
 
-# -- item 4: an option of the wrong type is a ConfigError naming it, never a bare TypeError ---------
+# -- an option of the wrong type is a ConfigError naming it, never a bare TypeError ---------
 
 @pytest.mark.parametrize("name, value", [("time_limit", "10"), ("tol", "1e-6"), ("iteration_limit", "5"),
                                          ("iteration_limit", 2.5), ("threads", "2"), ("segments", "16"),

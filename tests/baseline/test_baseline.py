@@ -151,7 +151,7 @@ def test_record_failure_leaves_nothing(tmp_path):
                   solve_fn=canned_solver([100, 0]))
 
 
-def test_alternative_optimal_duals_withcanned_solver(tmp_path):
+def test_alternative_optimal_duals_with_canned_solver(tmp_path):
     # Series network: (100, 0) and (0, 100) are both optimal duals (see the formula test above),
     # (60, 60) is dual feasible but its dual objective is 1200 > 1000: not optimal.
     out = tmp_path / "base"

@@ -82,7 +82,7 @@ def _tree(root: pathlib.Path) -> dict:
             for p in root.rglob("*") if p.is_file()}
 
 
-# ---------------------------------------------------------------------------- item 1: options and paths
+# ---------------------------------------------------------------------------- options and paths
 @pytest.mark.solver
 @pytest.mark.parametrize("option", ["output_file", "option_file_name"])
 def test_recorded_ipopt_option_naming_a_file_is_refused(tmp_path, option):
@@ -219,7 +219,7 @@ def test_schema_options_are_not_replayed(base, tmp_path):
     assert not (tmp_path / "x").exists()
 
 
-# ---------------------------------------------------------------------------- item 2: values that must not pass
+# ---------------------------------------------------------------------------- values that must not pass
 @pytest.mark.parametrize("value", ["nan", "inf", "-inf"])
 def test_non_finite_recorded_bid_price_is_refused(base, value):
     p = base / CASE / "bid_prices.csv"

@@ -75,7 +75,7 @@ def three_runs(tmp_path):
     return store, (a, b, c)
 
 
-# -- item 12: the store --------------------------------------------------------------------------
+# -- the store --------------------------------------------------------------------------
 
 def test_store_schema_is_the_documented_one(tmp_path):
     path = tmp_path / "h.sqlite"
@@ -152,7 +152,7 @@ def test_history_lists_and_compares_by_the_rules_of_bench_compare(three_runs, ca
     assert "no run 9" in capsys.readouterr().err
 
 
-# -- item 13: the page ---------------------------------------------------------------------------
+# -- the page ---------------------------------------------------------------------------
 
 def _page(three_runs, tmp_path):
     store, _ = three_runs
@@ -210,7 +210,7 @@ def test_the_page_in_a_browser_shows_families_cases_and_the_regression(three_run
     assert int.from_bytes(shot.read_bytes()[16:20], "big") == 1280       # IHDR width
 
 
-# -- item 12: every decomp bench run and every baseline check adds itself ---------------------------
+# -- every decomp bench run and every baseline check adds itself ---------------------------
 
 @pytest.mark.integration
 @pytest.mark.solver

@@ -45,7 +45,7 @@ def test_tables_from_a_static_result(inst_dir, tmp_path, capsys):
 
 
 def test_tables_bad_input(inst_dir, tmp_path, capsys):
-    res = tmp_path / "r.csv"                 # a leg table (issue 13's leg,bid_price) for a leg not in the network
+    res = tmp_path / "r.csv"                 # a leg table (columns leg, bid_price) for a leg not in the network
     res.write_text("leg,bid_price\nnope,1.0\n")
     assert main(["tables", str(inst_dir), "--static", str(res), "--out", str(tmp_path / "t.parquet")]) == 2
     assert "no bid price for 12 leg(s)" in capsys.readouterr().err

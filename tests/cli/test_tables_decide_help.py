@@ -1,4 +1,5 @@
-"""The command line of the analyst's items: solve tables and --out -, decide, --json, --version, -v."""
+"""The command line of the tables and decisions: solve with leg and product tables and --out -, decide, --json,
+--version, -v, help texts that name their defaults, bench list, Ipopt's progress."""
 
 import json
 import os

@@ -36,7 +36,7 @@ def _decomp(*args, cwd=None, env=None):
                           env=env, cwd=cwd, timeout=600)
 
 
-# -- item 5: one vocabulary; the old names still work for one release, with a warning -------------
+# -- one vocabulary; the old names still work for one release, with a warning -------------
 
 #: A command line for each old name of RENAMED, and the attribute it must set.
 OLD_NAME_USES = {
@@ -159,7 +159,7 @@ def test_size_window_needs_a_unit(tmp_path, capsys):
     assert parse_duration("2h") == 7200 and parse_duration(2.0) == 2.0      # a number from Python is seconds
 
 
-# -- item 6: a table's format follows its suffix; another suffix is refused before the work --------
+# -- a table's format follows its suffix; another suffix is refused before the work --------
 
 @pytest.mark.integration
 @pytest.mark.solver
@@ -186,7 +186,7 @@ def test_tables_format_by_suffix_and_the_fast_default_method(tmp_path):
     np.testing.assert_allclose(csv.column("bid_price").to_numpy(), got, rtol=1e-12)
 
 
-# -- item 7: listing the benchmark cases writes nothing, anywhere, and shows case names ------------
+# -- listing the benchmark cases writes nothing, anywhere, and shows case names ------------
 
 def _tree(root) -> dict:
     out = {}
@@ -218,7 +218,7 @@ def test_bench_list_writes_nothing_and_names_cases(tmp_path):
     assert "tiny-dlp-highs" in names and all("dlp" in n and "[" not in n for n in names)
 
 
-# -- item 8: summaries in decomp's words --------------------------------------------------------
+# -- summaries in decomp's words --------------------------------------------------------
 
 @pytest.mark.integration
 @pytest.mark.solver
@@ -234,7 +234,7 @@ def test_summaries_use_decomp_words_not_solver_codes(tmp_path):
     assert status_words(highspy.HighsModelStatus.kTimeLimit) == "timelimit"
 
 
-# -- item 9: a progress bar only on a terminal; long work logs progress with -v ----------------------
+# -- a progress bar only on a terminal; long work logs progress with -v ----------------------
 
 def test_progress_bars_only_on_a_terminal():
     import io

@@ -1,4 +1,4 @@
-"""Every command that writes, writes only where it was pointed (issue 24, item 11).
+"""Every command that writes, writes only where it was pointed.
 
 Each command runs in an empty working folder with its inputs elsewhere and its outputs pointed into
 ``dest``; afterwards the working folder holds nothing but ``dest``, the inputs' folder is as it was,

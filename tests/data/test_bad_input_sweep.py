@@ -1,8 +1,8 @@
 """A sweep of bad instance folders through ``decomp validate``: every one must end with exit 2 and a
 message naming the file (and the row and column where there is one), in printable text, never a
 traceback and never "valid". The inputs are variations of the hand-written tables of
-tests/support/tables.py: the hand-picked cases of issue 13 (``CASES``, ``SPECIAL``) and the
-families of issue 24 (``GENERATED``: every number column against every kind of bad number, in CSV
+tests/support/tables.py: the hand-picked cases (``CASES``, ``SPECIAL``) and the
+generated families (``GENERATED``: every number column against every kind of bad number, in CSV
 and in Parquet; every id and station column against every refused character; itineraries; the
 files themselves; meta.json), made programmatically from the same small base.
 
@@ -152,7 +152,7 @@ SPECIAL = ["products.csv a symlink loop", "products.csv a folder", "products.csv
            "Parquet and CSV both"]
 
 
-# ---------------------------------------------------------------------------- issue 24: generated families
+# ---------------------------------------------------------------------------- generated families
 HUGE_INT = "1" * 5000           # more digits than CPython converts (4,300)
 
 #: Number columns: (file, column, the row the bad value goes to).

@@ -131,7 +131,7 @@ def test_refuses_a_folder_with_other_files(tmp_path):
 
 
 def test_refuses_a_folder_of_the_users_own_tables(tmp_path):
-    # issue 24, item 9: a folder holding someone's own legs.csv / products.csv (no marker) is not
+    # a folder holding someone's own legs.csv / products.csv (no marker) is not
     # replaced, by the Python API or by `decomp generate --out`
     from decomp.cli import main
 

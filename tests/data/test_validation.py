@@ -250,7 +250,7 @@ def test_parquet_nan_and_negative(tmp_path):
 
 
 def test_parquet_text_in_a_number_column(tmp_path):
-    # a Parquet file stores types: text in a number column is refused, not parsed (issue 24, item 5),
+    # a Parquet file stores types: text in a number column is refused, not parsed,
     # even where every text reads as a number
     for capacity in (["100", "many"], ["100", "80"]):
         expect(_parquet(tmp_path / capacity[1], dict(LEGS_D, capacity=capacity), PRODS_D), "legs.parquet",

@@ -1,4 +1,4 @@
-"""Bad input found by the fault-injection pass (issue 13, items 10-16): each gets a clear
+"""Bad input at the edges (a fault-injection pass found each case): each gets a clear
 InstanceError naming file, row and column, or is accepted on purpose (documented in decomp.io).
 
 Tables are the hand-written ones of tests/support/tables.py; rows and columns expected below
@@ -29,7 +29,7 @@ def _cli(args, capsys):
     return rc, cap.out, cap.err
 
 
-# ---------------------------------------------------------------------------- item 10: accepted, now rejected
+# ---------------------------------------------------------------------------- accepted, now rejected
 def test_itinerary_flying_a_leg_twice(tmp_path):
     # L2 HU2->BO3, L3 BO3->HU2, L2 again: the legs connect, but one sale would take two seats on L2
     prods = PRODUCTS + ["P5,L2 L3 L2,100,5,1"]
@@ -79,7 +79,7 @@ def test_nul_character_in_an_id(tmp_path, where):
         expect(make(tmp_path, legs=legs), "legs.csv", row=2, column="origin", match="control")
 
 
-# ---------------------------------------------------------------------------- item 11: tracebacks
+# ---------------------------------------------------------------------------- tracebacks
 def test_header_field_longer_than_the_csv_limit(tmp_path, capsys):
     prods = [PRODUCTS[0] + "," + "x" * 140_000] + [p + ",1" for p in PRODUCTS[1:]]
     d = make(tmp_path, products=prods)
@@ -96,7 +96,7 @@ def test_meta_nested_1500_deep(tmp_path, capsys):
     assert rc == 2 and "RecursionError" not in err
 
 
-# ---------------------------------------------------------------------------- item 12: echo capped
+# ---------------------------------------------------------------------------- echo capped
 def test_ten_megabyte_bad_value_is_not_echoed(tmp_path, capsys):
     huge = "x" * 10_000_000
     d = make(tmp_path, products=with_field(PRODUCTS, 2, "fare", huge))
@@ -123,7 +123,7 @@ def test_ten_megabyte_bad_value_in_a_run_is_capped(tmp_path):
     assert len(json.dumps(s)) < 5000 and len(summary.to_markdown(s)) < 5000
 
 
-# ---------------------------------------------------------------------------- item 13: misleading reasons
+# ---------------------------------------------------------------------------- misleading reasons
 def test_symlink_loop_folder_and_fifo_are_named_for_what_they_are(tmp_path):
     d = make(tmp_path, products=None)
     (d / "products.csv").symlink_to(d / "products.csv")
@@ -148,7 +148,7 @@ def test_bad_byte_deep_in_the_file_gets_its_row(tmp_path):
     expect(d, "products.csv", row=43_210, column="fare", match="not valid UTF-8")
 
 
-# ---------------------------------------------------------------------------- item 14: too strict
+# ---------------------------------------------------------------------------- too strict
 @pytest.mark.parametrize("eol", ["\n", "\r\n"])
 def test_one_trailing_blank_line_is_accepted(tmp_path, eol):
     d = make(tmp_path)
@@ -180,7 +180,7 @@ def test_parquet_extra_columns_with_null_and_nested_values_are_kept(tmp_path):
     assert again.product_extra["bank"].tolist() == ["1", "", "3", "4"]
 
 
-# ---------------------------------------------------------------------------- item 15: extreme values
+# ---------------------------------------------------------------------------- extreme values
 @pytest.mark.parametrize("file,col,limit", [("legs.csv", "capacity", "1e+12"), ("products.csv", "fare", "1e+12"),
                                             ("products.csv", "mean", "1e+06"), ("products.csv", "std", "1e+06")])
 def test_values_of_1e308_are_refused_with_the_limit(tmp_path, file, col, limit):
@@ -217,7 +217,7 @@ def test_solve_warm_start_of_1e308_is_clamped(tmp_path, capsys):
     assert json.loads((tmp_path / "r.json").read_text())["termination"] == "optimal"
 
 
-# ---------------------------------------------------------------------------- item 16: zero-capacity legs
+# ---------------------------------------------------------------------------- zero-capacity legs
 @pytest.mark.solver
 @pytest.mark.parametrize("model,method", [("dlp", "highs"), ("pnlp", "ipopt")])
 def test_bid_price_of_a_closed_leg_is_not_unique(tmp_path, model, method):

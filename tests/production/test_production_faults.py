@@ -71,7 +71,7 @@ def clean(client, tmp_path_factory):
     return out, b, _answers(out, b)
 
 
-# ---------------------------------------------------------------------------- item 4: verified resume
+# ---------------------------------------------------------------------------- verified resume
 def _damage_all_ways(out, keys):
     """Five damaged finished tasks, each a different way; returns {key: what was done}."""
     done = {}
@@ -178,7 +178,7 @@ def test_resume_reads_a_run_written_before_the_schema(client, clean, tmp_path):
     assert pq.read_table(task_dir(out, b.tasks[0].key) / BID_FILE).column_names == ["leg_id", "bid_price"]
 
 
-# ---------------------------------------------------------------------------- item 5: content fingerprint
+# ---------------------------------------------------------------------------- content fingerprint
 def test_fare_edit_in_place_is_solved_again(client, tmp_path):
     from decomp.generator import generate
     from decomp.io import read_instance, write_instance
@@ -202,7 +202,7 @@ def test_fare_edit_in_place_is_solved_again(client, tmp_path):
     assert by["net1"]["objective"] == pytest.approx(2.0 * before, rel=1e-7)
 
 
-# ---------------------------------------------------------------------------- item 6: lock
+# ---------------------------------------------------------------------------- lock
 def test_second_run_is_refused_naming_the_holder(tmp_path, capsys):
     from decomp.cli import main
 
@@ -233,7 +233,7 @@ def test_lock_of_a_killed_holder_is_free(tmp_path):
         pass
 
 
-# ---------------------------------------------------------------------------- item 7: full or read-only folder
+# ---------------------------------------------------------------------------- full or read-only folder
 def test_disk_full_mid_run_stops_once_and_keeps_finished_tasks(client, tmp_path, monkeypatch):
     real = runner.write_bid_prices
     calls = []
@@ -325,7 +325,7 @@ def test_solve_on_a_full_disk_is_an_error_not_a_traceback(tmp_path, monkeypatch,
     assert not (tmp_path / "r.json").exists()
 
 
-# ---------------------------------------------------------------------------- item 8: SIGTERM
+# ---------------------------------------------------------------------------- SIGTERM
 @pytest.mark.integration
 def test_sigterm_writes_an_interrupted_summary(tmp_path):
     out = tmp_path / "out"
@@ -345,7 +345,7 @@ def test_sigterm_writes_an_interrupted_summary(tmp_path):
     assert "INTERRUPTED (SIGTERM)" in (out / "summary.md").read_text()
 
 
-# ---------------------------------------------------------------------------- item 9: dashboard
+# ---------------------------------------------------------------------------- dashboard
 def _listening(procs) -> set:
     out = set()
     for p in procs:
@@ -388,7 +388,7 @@ def test_embedded_cluster_listens_on_loopback_only(dashboard):
         cluster.close()
 
 
-# ---------------------------------------------------------------------------- issue 12 item 6: fallback
+# ---------------------------------------------------------------------------- fallback
 @pytest.mark.solver
 def test_non_optimal_task_falls_back_to_ipopt_and_says_so(client, tmp_path):
     from decomp import solve
@@ -432,7 +432,7 @@ def test_fallback_choice():
         fb.parse("lagrangian:bogus")
 
 
-# ---------------------------------------------------------------------------- item 15: warm starts of 1e308
+# ---------------------------------------------------------------------------- warm starts of 1e308
 def test_warm_start_of_1e308_is_clamped(client, clean, tmp_path):
     import shutil
 

@@ -1,4 +1,4 @@
-"""decomp simulate never prices with a non-optimal answer without saying so (issue 12, item 6).
+"""decomp simulate never prices with a non-optimal answer without saying so.
 
 A policy whose method ends non-optimal is solved again by the fallback of
 ``decomp run --fallback`` (decomp.production.fallback); the counts say how many

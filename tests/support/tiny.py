@@ -27,3 +27,13 @@ def write_benchmark(path: pathlib.Path) -> pathlib.Path:
                         "knobs": {"tol": 1e-9}, "n_products": n, "accuracy_failures": [], "termination": "optimal"},
          "stats": {"median": 2e-6 * n, "mean": 2e-6 * n, "min": 2e-6 * n}} for n in (1_000, 10_000, 100_000)]}))
     return path
+
+
+#: Two light products on the tiny network's legs (demand far below capacity).
+LIGHT_PRODUCTS_CSV = "product,legs,fare,mean,std\nP1,L1,100,10,3\nP2,L1 L2,150,5,2\n"
+
+
+def write_light(parent: pathlib.Path, name: str = "t", legs: str | None = None,
+                products: str | None = None) -> pathlib.Path:
+    """``parent / name``: the tiny network's legs with two light products (or the given tables)."""
+    return write_tiny(parent / name, legs, products or LIGHT_PRODUCTS_CSV)
