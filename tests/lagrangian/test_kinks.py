@@ -1,0 +1,94 @@
+"""The piecewise-linear parts of the subproblems, the kinks (decomp.distributions.kinks, the dual of
+decomp.lagrangian.network): exact terms, their smoothing in log(a), and the kinks of discrete
+demand. References named beside each check (scipy.stats, scipy.integrate, facts of linear
+programs and Jensen's inequality).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from decomp import lagrangian as m_lagr
+from decomp.generator import generate
+
+
+def _one_kink(fare, mean, upper):
+    """The kink table of one product of known demand (std = 0): one kink of slope fare."""
+    from decomp.distributions import Products
+
+    return Products(np.array([fare]), np.array([mean]), np.array([0.0]), upper=np.array([upper])).kinks
+
+
+def test_exact_kink_terms_are_the_piecewise_linear_maximum():
+    # h(a) = max_{0<=x<=w} (r - a) x over one kink (slope r = fare, width min(mean, u)):
+    # the allocation is w where a < r and 0 where a > r, the term (r - a)^+ w (a fact of
+    # this linear program).
+    k = _one_kink(fare=10.0, mean=4.0, upper=9.0)
+    for a in (3.0, 9.999, 10.5, 25.0):
+        r = k.exact(np.array([a]))
+        assert r.x[0] == (4.0 if a < 10.0 else 0.0)
+        assert r.value[0] == pytest.approx(max(10.0 - a, 0.0) * 4.0, rel=1e-15)
+    assert _one_kink(fare=10.0, mean=40.0, upper=9.0).width[0] == 9.0     # the bound u caps the mean
+
+
+def test_smoothed_kink_is_the_lognormal_partial_expectation():
+    # The smoothed term of a kink is E[(R - a)^+] with R = r exp(theta Z - theta^2/2), i.e.
+    # scipy.stats.lognorm(s=theta, scale=r exp(-theta^2/2)); reference: the integral of its
+    # sf() from a on (E[(R - a)^+] = int_a^inf P(R > t) dt for R >= 0, a mathematical fact),
+    # by adaptive quadrature (scipy.integrate.quad). Its derivative in a is -P(R > a) (the
+    # allocation, per unit of width), and Jensen's inequality puts it above (r - a)^+.
+    from scipy import integrate
+    from scipy import stats
+
+    k = _one_kink(fare=10.0, mean=4.0, upper=9.0)
+    for theta in (0.3, 0.03, 0.003):
+        R = stats.lognorm(s=theta, scale=10.0 * np.exp(-0.5 * theta * theta))
+        for a in (8.0, 9.9, 10.0, 10.2, 12.0):
+            got = k.smoothed(np.array([a]), theta)
+            ref = integrate.quad(R.sf, a, R.isf(1e-17), epsabs=1e-15, epsrel=1e-12, limit=400)[0]
+            assert got.value[0] == pytest.approx(4.0 * ref, rel=1e-7, abs=1e-11)
+            assert got.x[0] == pytest.approx(4.0 * R.sf(a), rel=1e-9, abs=1e-14)
+            assert got.value[0] >= 4.0 * max(10.0 - a, 0.0) - 1e-12
+
+
+def test_smoothed_dual_brackets_the_exact_dual():
+    # q <= q_theta (Jensen, kink by kink), and the excess q_theta - q reported by the
+    # evaluation is exactly their difference, on a Poisson network at random bid prices.
+    inst = generate(400, seed=9)
+    inst = inst.with_forecast(meta={**inst.meta, "distribution": "poisson"})
+    net = m_lagr.Network(inst)
+    rng = np.random.default_rng(3)
+    base = m_lagr.fare_start(net)
+    for theta in (3e-1, 3e-2, 3e-3):
+        pi = base * rng.uniform(0.3, 2.0, net.n)
+        pt = net.evaluate(pi, theta)
+        exact = net.evaluate(pi)
+        assert pt.exact == pytest.approx(exact.exact, rel=1e-13)
+        assert pt.value >= pt.exact - 1e-12 * abs(pt.exact)
+        assert pt.value - pt.exact <= 0.4 * theta * float(inst.fare.max()) * len(net.products.kinks)
+
+
+def test_poisson_kinks_are_every_seat_above_the_tail():
+    # Whole-seat kinks of Poisson demand: one per seat k below the product's bound u with
+    # P(D > k) > 1e-12 (and the first seat beyond, which the table's recurrence records
+    # before it stops), at slope f P(D > k). Reference: scipy.stats.poisson.sf. The table's
+    # slopes come from 1 - (the probabilities summed): accurate to about 1e-14 of the fare,
+    # absolute, which is what a slope times a seat needs. Large capacities make u about
+    # twice them, far beyond the demand's tail, where the table stops early.
+    from scipy import stats
+
+    inst = generate(300, seed=4)
+    inst = inst.with_forecast(capacity=inst.capacity * 50.0,
+                              meta={**inst.meta, "distribution": "poisson"})
+    net = m_lagr.Network(inst)
+    k = net.products.kinks
+    row = {int(o): i for i, o in enumerate(k.owner)}
+    for j in range(0, net.n_products, 37):
+        seats = np.arange(int(net.upper[j]))
+        sf = stats.poisson.sf(seats, net.products.mean[j])
+        i = row[j]
+        mine = k.slope[k.ptr[i]:k.ptr[i + 1]]
+        assert len(mine) == int(np.sum(sf > 1e-12)) + 1 or len(mine) == int(np.sum(sf > 1e-12))
+        want = net.products.fare[j] * sf[sf > 1e-12]
+        assert np.all(np.abs(mine[:len(want)] - want) <= 1e-13 * net.products.fare[j] + 1e-9 * want)
