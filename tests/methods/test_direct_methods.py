@@ -1,5 +1,5 @@
 """The direct methods (highs, ipopt on arrays; their Pyomo twins in test_models_pyomo):
-mathematical facts, hand-solved instances, status tables and limits."""
+mathematical facts, status tables and limits (the hand-solved networks: test_canned_networks)."""
 
 import logging
 import pathlib
@@ -57,42 +57,6 @@ def test_single_leg_fractile_condition():
     np.testing.assert_allclose(np.array(fares)[sold] * tail[sold], bp, rtol=1e-7)
     unsold = ~sold
     assert np.all(np.array(fares)[unsold] * stats.norm.sf(0, np.array(means)[unsold], np.array(stds)[unsold]) <= bp * (1 + 1e-7))
-
-
-def test_two_leg_dlp_solved_by_hand():
-    # By hand: legs A (10 seats), B (5). Products: p1 on A, fare 100, mean 8; p2 on A+B,
-    # fare 150, mean 6; p3 on B, fare 120, mean 4. With t = x2: x1 = min(8, 10-t),
-    # x3 = min(4, 5-t); revenue 1280+150t on [0,1], 1400+30t on [1,2], 1600-70t on [2,5]:
-    # optimum t = 2, x = (8, 2, 3), revenue 1460. x2, x3 strictly between bounds give
-    # pi_A + pi_B = 150 and pi_B = 120, so pi = (30, 120); LP dual objective
-    # 10*30 + 5*120 + 8*(100-30) = 1460.
-    inst = Instance.from_lists([("A", "AAA", "HUB", 10.0), ("B", "HUB", "BBB", 5.0)],
-                               [("p1", ["A"], 100.0, 8.0, 0.0), ("p2", ["A", "B"], 150.0, 6.0, 0.0),
-                                ("p3", ["B"], 120.0, 4.0, 0.0)])
-    for method in ("highs", "pyomo-highs"):
-        r = solve(inst, "dlp", method)
-        assert r.ok, method
-        assert r.objective == pytest.approx(1460.0, abs=1e-9)
-        np.testing.assert_allclose(r.allocation, [8.0, 2.0, 3.0], atol=1e-9)
-        assert r.bid_prices == pytest.approx({"A": 30.0, "B": 120.0}, abs=1e-9)
-        assert r.certificate.dual_value == pytest.approx(1460.0, abs=1e-9)
-
-
-def test_two_leg_pnlp_solved_by_hand():
-    # By hand: two separate legs, one product each, so each leg is a newsvendor with
-    # x = capacity (S is increasing) and bid price f P(D > c):
-    # leg A: c = 10, D ~ N(15, 5), f = 100 -> 100 P(Z > -1) = 100 Phi(1) = 84.134...
-    # leg B: c = 20, D ~ N(10, 4), f = 80  -> 80 P(Z > 2.5) = 80 * 0.00621 = 0.4969...
-    # (Phi(1) = 0.8413, P(Z > 2.5) = 0.0062 in printed normal tables; exact values from scipy.stats.norm).
-    inst = Instance.from_lists([("A", "AAA", "HUB", 10.0), ("B", "HUB", "BBB", 20.0)],
-                               [("pa", ["A"], 100.0, 15.0, 5.0), ("pb", ["B"], 80.0, 10.0, 4.0)])
-    for method in ("ipopt", "pyomo-ipopt"):
-        r = solve(inst, "pnlp", method)
-        assert r.ok, method
-        np.testing.assert_allclose(r.allocation, [10.0, 20.0], rtol=1e-8)
-        assert r.bid_prices["A"] == pytest.approx(100 * stats.norm.cdf(1.0), rel=1e-7)
-        assert r.bid_prices["A"] == pytest.approx(84.13, abs=0.01)
-        assert r.bid_prices["B"] == pytest.approx(80 * stats.norm.sf(2.5), rel=1e-6)
 
 
 def test_tightening_a_leg_does_not_lower_its_bid_price(rungs):
