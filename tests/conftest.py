@@ -23,9 +23,7 @@ import sys
 
 import pytest
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-#: Published hub-and-spoke test problems, kept outside the project (see tests that use it).
-EXTERNAL = ROOT.parent / "shared" / "external" / "hub-spoke-2009"
+from support.paths import ROOT
 
 
 # -- shared fixtures ----------------------------------------------------------------------------

@@ -9,7 +9,7 @@ revenue, so the simulated mean may exceed the bound only by sampling error: the
 lower end of its 95% interval must be at most the bound.
 
 The default run checks one problem; the sweep over all 24 is marked slow
-(``pytest --run-slow``).
+(``make test-slow``).
 """
 
 import math
