@@ -47,7 +47,7 @@ from .digests import SIG_DIGITS, ZERO_SEATS, allocation_digest, instance_fingerp
 from .environment import SOLVER_KEYS, environment, environment_changes, library_versions
 from .folder import (ENVIRONMENT, FORMAT, FORMAT_VERSION, MANIFEST, SUMMARY, Baseline, BaselineError, case_view,
                      load, read_bid_prices_csv)
-from .record import RecordSummary, options_dict, record
+from .record import RecordSummary, record
 from .replay import REPLAYABLE, check_replayable
 from .report import ALTERNATIVE_DUALS, PASS, REGRESSION, CaseReport, CheckReport, write_report
 
@@ -56,5 +56,5 @@ __all__ = ["SUITES", "Case", "InstanceSpec", "micro_instance", "suite_cases", "L
            "round_significant", "SOLVER_KEYS", "environment", "environment_changes", "library_versions",
            "ENVIRONMENT", "FORMAT", "FORMAT_VERSION", "MANIFEST", "SUMMARY", "Baseline", "BaselineError", "case_view",
            "load",
-           "read_bid_prices_csv", "RecordSummary", "options_dict", "record", "REPLAYABLE", "check_replayable",
+           "read_bid_prices_csv", "RecordSummary", "record", "REPLAYABLE", "check_replayable",
            "ALTERNATIVE_DUALS", "PASS", "REGRESSION", "CaseReport", "CheckReport", "write_report"]

@@ -28,7 +28,7 @@ from .environment import environment, environment_changes
 from .cases import _unavailable_pairs
 from .digests import SIG_DIGITS, _unnum, allocation_digest, instance_fingerprint
 from .folder import load, read_case_instance
-from .record import _default_solve, _timed_solve, options_dict
+from .record import _default_solve, _timed_solve
 from .replay import check_replayable
 from .report import ALTERNATIVE_DUALS, PASS, CaseReport, CheckReport, _fmt
 
@@ -229,8 +229,8 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                 f"instance files changed, so the answers cannot be compared")
         return
     options = _options_for(rec, override)
-    if options_dict(options) != rec["options"]:
-        changed = {k: (rec["options"].get(k), v) for k, v in options_dict(options).items()
+    if options.to_dict() != rec["options"]:
+        changed = {k: (rec["options"].get(k), v) for k, v in options.to_dict().items()
                    if rec["options"].get(k) != v}
         rep.add("note", "options", "solved with changed options: " +
                 ", ".join(f"{k} {o!r} -> {n!r}" for k, (o, n) in changed.items()))

@@ -53,11 +53,6 @@ def _default_solve():
     return registry.solve
 
 
-def options_dict(options: SolverOptions) -> dict:
-    """The options as a plain dict (:meth:`SolverOptions.to_dict`: solver_options copied to a dict)."""
-    return options.to_dict()
-
-
 def _result_record(case: Case, result, wall: float, fingerprint: str, options: SolverOptions,
                    instance_dir: str, cpu: float | None = None) -> dict:
     """A case's result.json: the result in the one output schema, the case's own facts under ``context``
@@ -71,7 +66,7 @@ def _result_record(case: Case, result, wall: float, fingerprint: str, options: S
         "cpu_seconds": None if cpu is None else float(cpu),
         "allocation_digest": allocation_digest(result.allocation),
         "bid_prices_file": BID_PRICES,
-        "solver_options": options_dict(options),
+        "solver_options": options.to_dict(),
     })
 
 
@@ -124,7 +119,7 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
     if dup:
         raise ConfigError(f"duplicate case ids {dup}; give the cases distinct labels")
     for case in cases:      # what the check replays: refuse now what it would refuse then
-        check_replayable(options_dict(case.options))
+        check_replayable(case.options.to_dict())
     check_out(out, overwrite)
     if int(repeat) < 1:
         raise ConfigError(f"repeat must be at least 1, got {repeat!r}")

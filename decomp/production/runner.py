@@ -90,26 +90,19 @@ class RunConfig:
             object.__setattr__(self, "warm_start_from", str(pathlib.Path(self.warm_start_from).resolve()))
 
     def to_dict(self) -> dict:
-        return {"model": self.model, "method": self.method, "options": options_dict(self.options),
+        return {"model": self.model, "method": self.method, "options": self.options.to_dict(),
                 "out": self.out, "warm_start_from": self.warm_start_from, "fallback": self.fallback}
 
     def __reduce__(self):
         # SolverOptions holds a mappingproxy, which does not pickle: ship its dict.
-        return (_make_config, (self.model, self.method, options_dict(self.options), self.out, self.warm_start_from,
+        return (_make_config, (self.model, self.method, self.options.to_dict(), self.out, self.warm_start_from,
                                self.fallback))
 
     def fingerprint(self, spec: TaskSpec) -> str:
-        ident = {"model": self.model, "method": self.method, "options": options_dict(self.options),
+        ident = {"model": self.model, "method": self.method, "options": self.options.to_dict(),
                  "task": spec.to_dict(), "warm_start_from": self.warm_start_from}
         text = json.dumps(ident, sort_keys=True, default=str)
         return hashlib.sha256(text.encode()).hexdigest()[:20]
-
-
-def options_dict(options) -> dict:
-    """SolverOptions as a plain dict (not via dataclasses.asdict, which cannot copy a mappingproxy)."""
-    d = {f.name: getattr(options, f.name) for f in dataclasses.fields(options)}
-    d["solver_options"] = dict(d.get("solver_options") or {})
-    return d
 
 
 def _make_config(model, method, options, out, warm_start_from, fallback=fallback_mod.AUTO) -> RunConfig:
