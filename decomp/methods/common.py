@@ -2,7 +2,8 @@
 
 One place for the rules that all methods share: the certificate is computed
 from the instance (:func:`decomp.certify.certify`), the solution status from
-the termination and the certificate, an answer without bid prices is never
+the termination and the certificate by one gap rule (:func:`decomp.certify.solution_status`:
+certified gap within ``SolverOptions.tol``), an answer without bid prices is never
 rated optimal (its bound would not be the solver's), and ``bound``/``gap`` are
 left None when there are no bid prices to evaluate the dual at.
 """
@@ -22,25 +23,28 @@ from ..result import SolutionStatus, SolveResult, Termination
 log = logging.getLogger(__name__)
 
 
-def certified_result(instance, model: str, method: str, options, *, termination, x, pi, marks,
+def certified_result(instance, model: str, method: str, options, *, termination, x, pi, seconds,
                      iterations, solver: str, solver_version, raw_status, message,
-                     extra_options=None) -> SolveResult:
+                     history=(), extra_options=None) -> SolveResult:
     """The :class:`SolveResult` of allocation ``x`` and bid prices ``pi`` (either may be None).
 
-    ``marks``: ``time.perf_counter()`` at the start, after the build and after
-    the solve; the certificate's time is measured here. ``extra_options``: a
-    mapping added to the recorded options (e.g. the Ipopt option values used).
+    ``seconds``: the method's phases before the certificate (``build``, ``solve``); the
+    certificate's own time is measured here. ``message``: the method's words, or a function of
+    the certificate (None without an allocation) returning them. ``extra_options``: a mapping
+    added to the recorded options (e.g. the Ipopt option values used).
     """
-    t0, t1, t2 = marks
+    t0 = time.perf_counter()
     cert = None
     if x is not None:
         cert = _certify.certify(instance, model, x, np.zeros(instance.n_legs) if pi is None else pi,
-                                segments=options.segments)
-    t3 = time.perf_counter()
-    status = _certify.solution_status(termination, cert, gap_tol=_certify.gap_tolerance(options.tol),
-                                      have_solution=x is not None)
+                                segments=options.segments, threads=options.threads)
+    seconds = {**seconds, "certify": time.perf_counter() - t0}
+    status = _certify.solution_status(termination, cert, options.tol, have_solution=x is not None)
     if pi is None and status is SolutionStatus.OPTIMAL:
         status = SolutionStatus.FEASIBLE          # no duals: the bound is not the solver's
+    elif Termination(termination) is Termination.OPTIMAL and cert is not None and status is not SolutionStatus.OPTIMAL:
+        log.warning("%s: the solver stopped as optimal, but its certificate shows gap %.3g and capacity "
+                    "violation %.3g: reported %s", method, cert.gap, cert.max_violation_rel, status.value)
     dual_known = cert is not None and pi is not None
     return SolveResult(
         model=model, method=method, termination=termination, solution_status=status,
@@ -48,10 +52,10 @@ def certified_result(instance, model: str, method: str, options, *, termination,
         bound=cert.dual_value if dual_known else None,
         gap=cert.gap if dual_known else None,
         leg_ids=instance.leg_ids, bid_price_array=pi, product_ids=instance.product_ids,
-        allocation=x, iterations=iterations,
-        seconds={"build": t1 - t0, "solve": t2 - t1, "certify": t3 - t2},
-        solver=solver, solver_version=solver_version, raw_status=raw_status, message=message,
-        certificate=cert, options={**options.to_dict(), **dict(extra_options or {})})
+        allocation=x, iterations=iterations, seconds=seconds,
+        solver=solver, solver_version=solver_version, raw_status=raw_status,
+        message=message(cert) if callable(message) else message, certificate=cert, history=history,
+        options={**options.to_dict(), **dict(extra_options or {})})
 
 
 def map_status(table, code, what: str):

@@ -130,11 +130,6 @@ def _set(h, name, value):
         raise ConfigError(f"HiGHS rejected option {name}={value!r} (HiGHS status: {status_words(status)})")
 
 
-def options_record(options) -> dict:
-    """The options as a plain dict for the result (kept for callers; same as ``options.to_dict()``)."""
-    return options.to_dict()
-
-
 def highs_version() -> str:
     import highspy
 
@@ -225,6 +220,7 @@ class HighsArrays:
         elif L == 0:
             pi = np.zeros(0)
         return certified_result(
-            instance, model, self.name, options, termination=term, x=x, pi=pi, marks=(t0, t1, t2),
+            instance, model, self.name, options, termination=term, x=x, pi=pi,
+            seconds={"build": t1 - t0, "solve": t2 - t1},
             iterations=iters, solver="highspy", solver_version=highs_version(),
             raw_status=ms.name, message=h.modelStatusToString(ms))

@@ -303,6 +303,6 @@ class IpoptArrays:
                 msg = f"{msg}; {note}"
         return certified_result(
             instance, model, self.name, options, termination=term, x=x if finite else None,
-            pi=pi if finite else None, marks=(t0, t1, t2), iterations=cb.iterations,
+            pi=pi if finite else None, seconds={"build": t1 - t0, "solve": t2 - t1}, iterations=cb.iterations,
             solver="cyipopt", solver_version=ipopt_version(), raw_status=f"{int(info['status'])} {name}",
             message=msg, extra_options={"ipopt": opts})

@@ -4,7 +4,8 @@ The algorithm lives in :mod:`decomp.lagrangian` (projected Newton on the
 bound-constrained dual, Bertsekas 1982; see its docstring). This module
 registers it as a method: it checks the options, runs the dual method,
 re-certifies the answer independently (:func:`decomp.certify.certify`) at the
-bid prices it reports, and builds the :class:`~decomp.result.SolveResult`.
+bid prices it reports, and builds the :class:`~decomp.result.SolveResult` through
+:func:`decomp.methods.common.certified_result`, with the gap rule of every method.
 
 Solver-specific options (``SolverOptions.solver_options``):
 ``linear_solver`` ("auto" default, "dense", "schur") and ``precision``
@@ -14,14 +15,13 @@ Solver-specific options (``SolverOptions.solver_options``):
 from __future__ import annotations
 
 import logging
-import time
 
-from .. import certify as _certify
 from .. import lagrangian as _lagrangian
 from ..errors import ConfigError
 from ..registry import register
-from ..result import SolveResult, Termination
+from ..result import SolveResult
 from .. import threads as _threads
+from .common import certified_result
 
 log = logging.getLogger(__name__)
 
@@ -64,32 +64,23 @@ class LagrangianMethod:
                 iteration_limit=options.iteration_limit, time_limit=options.time_limit,
                 threads=options.threads or _threads.available(), warm_start=warm_start,
                 linear_solver=so["linear_solver"], mixed=so["precision"] == "mixed")
-        t2 = time.perf_counter()
-        cert = _certify.certify(instance, "pnlp", sol.x, sol.pi, threads=options.threads)
-        t3 = time.perf_counter()
         out = sol.outcome
-        term = out.termination
-        sstatus = _certify.solution_status(term, cert, gap_tol=options.tol)
-        # the message states the result's own certificate, the gap field's number; the loop's
-        # bounds are named only where they disagree with it about tol
-        message = f"{out.message}; certified gap {cert.gap:.3g}"
-        if (out.gap <= options.tol) != (cert.gap <= options.tol):
-            message += f" (the loop's own bounds gave {out.gap:.3g})"
-        if term is Termination.OPTIMAL and sstatus.value != "optimal":
-            log.warning("lagrangian: loop gap %.3g but certificate gap %.3g / violation %.3g",
-                        out.gap, cert.gap, cert.max_violation_rel)
-        from .highs import options_record
 
-        return SolveResult(
-            model=model, method=self.name, termination=term, solution_status=sstatus,
-            objective=cert.primal_value, bound=cert.dual_value, gap=cert.gap,
-            leg_ids=instance.leg_ids, bid_price_array=sol.pi, product_ids=instance.product_ids,
-            allocation=sol.x, iterations=out.iterations,
-            seconds={"build": sol.seconds_build, "solve": sol.seconds_solve, "certify": t3 - t2},
+        def message(cert):
+            # the result's own certificate, the gap field's number; the loop's bounds are named only
+            # where they disagree with it about tol
+            text = f"{out.message}; certified gap {cert.gap:.3g}"
+            if (out.gap <= options.tol) != (cert.gap <= options.tol):
+                text += f" (the loop's own bounds gave {out.gap:.3g})"
+            return text
+
+        return certified_result(
+            instance, model, self.name, options, termination=out.termination, x=sol.x, pi=sol.pi,
+            seconds={"build": sol.seconds_build, "solve": sol.seconds_solve}, iterations=out.iterations,
             solver=f"decomp-lagrangian-{options.dual_method}", solver_version=_version(),
-            raw_status=out.raw_status, message=message, certificate=cert, history=out.history,
-            options={**options_record(options), "linear_solver": sol.linear_solver,
-                     "start": "warm" if warm_start is not None else "fare"})
+            raw_status=out.raw_status, message=message, history=out.history,
+            extra_options={"linear_solver": sol.linear_solver,
+                           "start": "warm" if warm_start is not None else "fare"})
 
 
 _CONTROLLER = None

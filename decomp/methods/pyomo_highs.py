@@ -104,6 +104,7 @@ class PyomoHighs:
         if x is not None and not np.all(np.isfinite(x)):
             x = None
         return certified_result(
-            instance, model, self.name, options, termination=term, x=x, pi=pi, marks=(t0, t1, t2),
+            instance, model, self.name, options, termination=term, x=x, pi=pi,
+            seconds={"build": t1 - t0, "solve": t2 - t1},
             iterations=iters, solver="pyomo appsi_highs", solver_version=highs_version(),
             raw_status=res.termination_condition.name, message=None)

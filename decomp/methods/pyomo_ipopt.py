@@ -154,6 +154,6 @@ class PyomoIpopt:
                 msg = f"{msg}; {note}" if msg else note
         return certified_result(
             instance, model, self.name, options, termination=term, x=x if finite else None,
-            pi=pi if finite else None, marks=(t0, t1, t2), iterations=counter["iterations"],
+            pi=pi if finite else None, seconds={"build": t1 - t0, "solve": t2 - t1}, iterations=counter["iterations"],
             solver="pyomo cyipopt", solver_version=ipopt_version(), raw_status=raw, message=msg,
             extra_options={"ipopt": opts})

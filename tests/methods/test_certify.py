@@ -6,7 +6,7 @@ import pytest
 from scipy import optimize, stats
 
 from decomp import Instance, SolutionStatus, SolverOptions, Termination, dual, ladder, solve
-from decomp.certify import certify, gap_tolerance, solution_status
+from decomp.certify import certify, solution_status
 from models import pwl
 
 
@@ -105,15 +105,15 @@ def test_solution_status_rules():
     inst = Instance.from_lists([("A", "AAA", "BBB", 10.0)], [("p", ["A"], 100.0, 12.0, 4.0)])
     good = certify(inst, "dlp", np.array([10.0]), np.array([100.0]))
     assert good.gap == 0.0
-    assert solution_status(Termination.OPTIMAL, good) is SolutionStatus.OPTIMAL
-    assert solution_status(Termination.ITERATION_LIMIT, good) is SolutionStatus.FEASIBLE
+    assert solution_status(Termination.OPTIMAL, good, 1e-9) is SolutionStatus.OPTIMAL
+    assert solution_status(Termination.ITERATION_LIMIT, good, 1e-9) is SolutionStatus.FEASIBLE
     loose = certify(inst, "dlp", np.array([10.0]), np.array([50.0]))
     assert loose.gap == pytest.approx(0.1)   # by hand: (10*50 + 12*(100-50) - 1000) / 1000
-    assert solution_status(Termination.OPTIMAL, loose) is SolutionStatus.FEASIBLE
+    assert solution_status(Termination.OPTIMAL, loose, 1e-9) is SolutionStatus.FEASIBLE
+    assert solution_status(Termination.OPTIMAL, loose, 0.1 + 1e-12) is SolutionStatus.OPTIMAL    # gap <= tol
     over = certify(inst, "dlp", np.array([11.0]), np.array([100.0]))
-    assert solution_status(Termination.OPTIMAL, over) is SolutionStatus.INFEASIBLE
-    assert solution_status(Termination.ERROR, None) is SolutionStatus.NO_SOLUTION
-    assert gap_tolerance(1e-9) == pytest.approx(1e-7) and gap_tolerance(1e-4) == pytest.approx(1e-3)
+    assert solution_status(Termination.OPTIMAL, over, 1e-9) is SolutionStatus.INFEASIBLE
+    assert solution_status(Termination.ERROR, None, 1e-9) is SolutionStatus.NO_SOLUTION
 
 
 def test_certify_is_vectorized_at_scale():
