@@ -10,7 +10,7 @@ Computed from the instance alone, independently of what the solver claims:
   the reduced cost of every segment, complementary with its bounds;
 * a dual bound at the returned bid prices, projected to pi >= 0 (any such
   point gives an upper bound on the optimum), and the relative gap
-  (dual - primal) / max(1, |primal|):
+  (dual - primal) / max(1, |primal|) (:func:`relative_gap`, the one scale of decomp's gaps):
 
   - PNLP: the Lagrangian dual q(pi) = sum_j max_x [f_j S_j(x) - a_j x] + c.pi, each
     product's maximum found here from scipy.special (the normal and gamma fractiles by
@@ -306,10 +306,17 @@ def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16,
     else:
         dv_lp, primal, kkt = _lp_certificate(instance, x, pi_plus, model, segments)
         dv = dv_lp if dual_value is None else float(dual_value)
-    gap = (dv - primal) / max(1.0, abs(primal))
+    gap = relative_gap(dv, primal)
     return Certificate(max_violation=viol, max_violation_rel=viol_rel, kkt_residual=kkt,
                        dual_value=float(dv), primal_value=float(primal), gap=float(gap),
                        min_bid_price=float(pi.min()) if pi.size else 0.0)
+
+
+def relative_gap(upper: float, reference: float) -> float:
+    """(upper - reference) / max(1, |reference|): a bound's (or a new value's) distance above a
+    reference value, relative to it; the floor 1 keeps it finite near a revenue of zero. The
+    certificate's gap is relative_gap(dual bound, primal revenue)."""
+    return (float(upper) - float(reference)) / max(1.0, abs(float(reference)))
 
 
 def solution_status(termination, certificate, tol: float, *, feas_tol: float = FEAS_TOL,

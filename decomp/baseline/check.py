@@ -21,6 +21,7 @@ from typing import Callable, Mapping, Sequence
 
 import numpy as np
 
+from ..certify import relative_gap
 from ..errors import ConfigError
 from ..instance import Instance
 from ..options import SolverOptions
@@ -93,7 +94,7 @@ def _rel(new, old) -> float | None:
     new, old = float(new), float(old)
     if not (math.isfinite(new) and math.isfinite(old)):
         return math.inf if new != old else 0.0
-    return abs(new - old) / max(1.0, abs(old))
+    return abs(relative_gap(new, old))
 
 
 def _legs_text(legs, limit=8) -> str:
@@ -388,10 +389,9 @@ def load_text(load: Mapping) -> str:
 def _alternative_duals(rep, inst, model, segments, pi_new, obj_old, th, moved_legs, detail) -> None:
     """An LP (DLP, PWL) with the same objective and moved bid prices: optimal duals again, or a regression."""
     m = rep.metrics
-    scale = max(1.0, abs(obj_old))
     min_pi = float(pi_new.min()) if len(pi_new) else 0.0
     dual_obj = lp_dual_objective(inst, model, np.maximum(pi_new, 0.0), segments)
-    dual_gap = (dual_obj - obj_old) / scale
+    dual_gap = relative_gap(dual_obj, obj_old)
     m.update(alt_dual_objective=dual_obj, alt_dual_rel_gap=dual_gap, alt_min_bid_price=min_pi)
     feasible = min_pi >= -th["bid_rtol"] * max(1.0, float(np.max(np.abs(pi_new))))
     optimal = abs(dual_gap) <= th["objective_rtol"]

@@ -30,6 +30,7 @@ import platform
 
 import numpy as np
 
+from ..certify import relative_gap
 from .cases import BID_PRICE_FLOOR
 
 _STATUS = "/proc/self/status"
@@ -240,7 +241,7 @@ def accuracy(instance, result, reference: Reference | None) -> dict:
         gap = result.certificate.gap
     obj_err = None
     if reference is not None and reference.objective is not None and result.objective is not None:
-        obj_err = abs(float(result.objective) - reference.objective) / max(1.0, abs(reference.objective))
+        obj_err = abs(relative_gap(result.objective, reference.objective))
     bp_err = None if reference is None else bid_price_error(result.bid_price_array, reference.bid_prices)
     cert = result.certificate
     return {

@@ -247,6 +247,12 @@ def subproblem_max(fam, m, s, f, a, u):
     return max(f * expected_sales(fam, m, s, x) - a * x for x in cands)
 
 
+def relative_gap(dual: float, primal: float) -> float:
+    """(dual - primal) / max(1, |primal|): the gap of the independent certificate, written here
+    apart from decomp.certify."""
+    return (dual - primal) / max(1.0, abs(primal))
+
+
 def independent_certificate(inst: Instance, x, pi):
     """(primal value, dual bound, max relative capacity violation) of a returned allocation
     and bid prices, from scipy.stats alone. The dual bound is the Lagrangian dual at pi with
