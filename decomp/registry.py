@@ -91,7 +91,8 @@ def solve(instance, model: str = "pnlp", method: str | None = None, options=None
     :class:`~decomp.result.SolveResult`, the path of anything decomp writes bid
     prices to (a result file, a run task, a baseline case, a leg,bid_price
     table), a dict by leg id or an array aligned with ``instance.leg_ids``
-    (used by methods that can; others ignore it).
+    (used by methods that can; others ignore it). Its values are brought into [0, the largest
+    fare on the leg] here, for every method (:func:`decomp.warmstart.bounded_warm_start`).
     """
     import os
 
@@ -109,6 +110,10 @@ def solve(instance, model: str = "pnlp", method: str | None = None, options=None
                           f"{type(instance).__name__}")
     options = as_options(options, **option_values)
     warm_start = warm_start_prices(warm_start)
+    if warm_start is not None:
+        from .warmstart import bounded_warm_start
+
+        warm_start, _ = bounded_warm_start(instance, warm_start)
     if method is None:
         if model not in DEFAULT_METHOD:
             raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")

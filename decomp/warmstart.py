@@ -8,7 +8,7 @@ pi_i to F_i leaves every subproblem's value unchanged and lowers c_i pi_i in the
 Lagrangian dual q(pi) = c.pi + sum_j max_x (f_j E min(x, D_j) - a_j x) (the DLP
 dual likewise). So each warm-start value is clamped to [0, F_i] (0 for a leg no
 product uses); NaN and infinite values are dropped (the method's own start is
-used for those legs).
+used for those legs). ``decomp.solve`` applies this to every warm start, for every method.
 """
 
 from __future__ import annotations

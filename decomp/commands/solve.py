@@ -208,10 +208,6 @@ def run(args) -> int:
     _check_outputs(args)
     warm = read_bid_prices(args.warm_start) if args.warm_start else None
     instance = _load(args.instance)
-    if warm is not None:        # values beyond [0, largest fare on the leg] (1e308, -5) cannot be optimal
-        from ..warmstart import bounded_warm_start
-
-        warm, _ = bounded_warm_start(instance, warm)
     try:
         with _progress_to_terminal():
             result = _solve(instance, model=args.model, method=_method(args), options=options, warm_start=warm)

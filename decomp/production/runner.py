@@ -23,7 +23,7 @@ method produced it.
 Warm starts: ``warm_start_from`` is an earlier run's ``out`` folder; a task
 starts from the bid prices of the same task key there when present (legs
 matched by id, legs missing there start at 0, values clamped to [0, largest fare
-on the leg] by :func:`decomp.warmstart.bounded_warm_start`), and cold otherwise.
+on the leg] by ``decomp.solve``, their count recorded), and cold otherwise.
 
 A task raising a :class:`~decomp.errors.DecompError` (bad instance, missing
 solver) fails at once: retrying cannot help. So does a task that cannot write
@@ -124,10 +124,11 @@ def _warm_start(cfg: RunConfig, key: str, inst):
     matched = int(np.count_nonzero(np.isfinite(values)))
     if matched == 0:
         return None, {"from": str(path), "legs_matched": 0, "reason": "no leg ids in common"}
-    values, changed = bounded_warm_start(inst, np.where(np.isfinite(values), values, 0.0))
+    values = np.where(np.isfinite(values), values, 0.0)
     info = {"from": str(path), "legs_matched": matched}
-    if changed:
-        info["clamped"] = changed       # values outside [0, largest fare on the leg]
+    _, clamped = bounded_warm_start(inst, values)   # counted for the record; decomp.solve applies it
+    if clamped:
+        info["clamped"] = clamped       # values outside [0, largest fare on the leg]
     return values, info
 
 
