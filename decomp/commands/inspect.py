@@ -7,34 +7,22 @@ fare and demand ranges. ``--json`` prints the same figures as one JSON object.
 
 from __future__ import annotations
 
-import argparse
+import math
 import warnings
 
 import numpy as np
+
+from ._options import positive
 
 
 def register(sub):
     p = sub.add_parser("inspect", help="summarize an instance: counts, legs per product, demand factors, fares",
                        description=__doc__)
     p.add_argument("instance", metavar="INSTANCE", help="instance folder")
-    p.add_argument("--top", type=_positive_int, default=10, metavar="K",
+    p.add_argument("--top", type=positive, default=10, metavar="K",
                    help="how many of the most loaded legs (default: %(default)s)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON (default: text)")
     p.set_defaults(func=run)
-
-
-def _positive_int(text: str) -> int:
-    try:
-        k = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if k < 1:
-        raise argparse.ArgumentTypeError(f"must be at least 1, got {k}")
-    return k
-
-
-def _q(x, qs=(0, 10, 50, 90, 100)):
-    return "  ".join(f"p{q}={v:,.3g}" for q, v in zip(qs, np.percentile(x, qs)))
 
 
 def run(args) -> int:
@@ -43,61 +31,69 @@ def run(args) -> int:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         inst = read_instance(args.instance)
+    f = facts(inst, args.top, [str(w.message) for w in caught])
     if args.json:
         import json
 
-        print(json.dumps(facts(inst, args.top, [str(w.message) for w in caught]), indent=2))
+        print(json.dumps(f, indent=2))
         return 0
-    for w in caught:
-        print(f"warning: {w.message}")
+    for text in f["warnings"]:
+        print(f"warning: {text}")
+    _print_counts(inst, f)
+    _print_legs(f)
+    _print_products(f)
+    return 0
 
-    L, P = inst.n_legs, inst.n_products
-    stations = np.unique(np.concatenate([inst.leg_origin, inst.leg_destination]).astype(str))
-    print(f"instance {inst.name}: {L} legs, {P} products, {len(stations)} stations, "
-          f"{len(inst.leg_index)} product-leg pairs")
-    for k in ("generator", "seed"):
-        if k in inst.meta:
-            print(f"  {k}: {inst.meta[k]}")
-    extras = list(inst.leg_extra) + list(inst.product_extra)
-    if extras:
-        print(f"  extra columns: legs {list(inst.leg_extra) or '-'}, products {list(inst.product_extra) or '-'}")
+
+def _q(quantiles: dict) -> str:
+    return "  ".join(f"{k}={v:,.3g}" for k, v in quantiles.items())
+
+
+def _print_counts(inst, f: dict) -> None:
+    print(f"instance {f['name']}: {f['n_legs']} legs, {f['n_products']} products, {f['n_stations']} stations, "
+          f"{f['n_product_legs']} product-leg pairs")
+    for k, v in f["meta"].items():
+        print(f"  {k}: {v}")
+    extras = f["extra_columns"]
+    if extras["legs"] or extras["products"]:
+        print(f"  extra columns: legs {extras['legs'] or '-'}, products {extras['products'] or '-'}")
     if inst.distribution is not None:
         names, counts = np.unique(inst.distribution.astype(str), return_counts=True)
         print("  distributions: " + ", ".join(f"{n} {c}" for n, c in zip(names, counts)))
-
     print("\nlegs per product:")
-    hist = np.bincount(inst.legs_per_product)
-    for k in np.flatnonzero(hist):
-        share = hist[k] / P
-        print(f"  {k:>3} legs: {hist[k]:>10,} products ({share:6.1%}) {'#' * int(round(40 * share))}")
+    for k, n in f["legs_per_product"].items():
+        share = n / f["n_products"]
+        print(f"  {int(k):>3} legs: {n:>10,} products ({share:6.1%}) {'#' * int(round(40 * share))}")
 
-    demand, users, cap, df, finite = _leg_loads(inst)
+
+def _print_legs(f: dict) -> None:
+    df = f["demand_factor"]
     print("\ndemand factor per leg (mean demand / capacity):")
-    if finite.any():
-        print(f"  {_q(df[finite])}  mean={df[finite].mean():.3f}")
-        print(f"  legs over capacity (factor > 1): {int((df[finite] > 1).sum())} of {L}")
-    if (~finite).any():
-        print(f"  {int((~finite).sum())} leg(s) with capacity 0")
-    print(f"  unused legs: {int((users == 0).sum())}")
-    print(f"  capacity: {_q(cap)}  total={cap.sum():,.0f}")
-
-    k = min(args.top, L)
-    order = np.lexsort((np.arange(L), -np.where(finite, df, np.finfo(float).max)))[:k]
-    print(f"\nmost loaded legs (top {k}):")
+    if df["mean"] is not None:
+        print(f"  {_q({k: v for k, v in df.items() if k.startswith('p')})}  mean={df['mean']:.3f}")
+        print(f"  legs over capacity (factor > 1): {df['over_capacity']} of {f['n_legs']}")
+    if df["zero_capacity"]:
+        print(f"  {df['zero_capacity']} leg(s) with capacity 0")
+    print(f"  unused legs: {f['unused_legs']}")
+    cap = f["capacity"]
+    print(f"  capacity: {_q({k: v for k, v in cap.items() if k != 'total'})}  total={cap['total']:,.0f}")
+    top = f["most_loaded_legs"]
+    print(f"\nmost loaded legs (top {len(top)}):")
     print(f"  {'leg':<24} {'from':>5} {'to':>5} {'capacity':>10} {'demand':>12} {'factor':>7} {'products':>9}")
-    for i in order:
-        print(f"  {str(inst.leg_ids[i]):<24} {str(inst.leg_origin[i]):>5} {str(inst.leg_destination[i]):>5} "
-              f"{cap[i]:>10,.0f} {demand[i]:>12,.1f} {df[i]:>7.3f} {users[i]:>9,}")
+    for leg in top:
+        factor = math.inf if leg["demand_factor"] is None else leg["demand_factor"]
+        print(f"  {leg['leg']:<24} {leg['origin']:>5} {leg['destination']:>5} {leg['capacity']:>10,.0f} "
+              f"{leg['demand']:>12,.1f} {factor:>7.3f} {leg['products']:>9,}")
 
+
+def _print_products(f: dict) -> None:
     print("\nfares and demand per product:")
-    print(f"  fare: {_q(inst.fare)}")
-    print(f"  mean demand: {_q(inst.mean)}  total={inst.mean.sum():,.1f}")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        cv = np.where(inst.mean > 0, inst.std / inst.mean, np.nan)
-    if np.isfinite(cv).any():
-        print(f"  std/mean: {_q(cv[np.isfinite(cv)])}")
-    print(f"  revenue at mean demand, all fares: {float(inst.fare @ inst.mean):,.0f}")
-    return 0
+    print(f"  fare: {_q(f['fare'])}")
+    mean = f["mean_demand"]
+    print(f"  mean demand: {_q({k: v for k, v in mean.items() if k != 'total'})}  total={mean['total']:,.1f}")
+    if f["std_over_mean"]:
+        print(f"  std/mean: {_q(f['std_over_mean'])}")
+    print(f"  revenue at mean demand, all fares: {f['revenue_at_mean_demand']:,.0f}")
 
 
 def _leg_loads(inst):
