@@ -7,18 +7,12 @@
     >>> decomp.leg_table(instance, result)      # pandas DataFrames joined to the network
 """
 
-from importlib import metadata as _metadata
-
 from .errors import DecompError, InstanceError, SolverUnavailableError, UnknownMethodError
 from .instance import Instance
 from .options import SolverOptions
 from .registry import get_method, method_names, pairs, solve
 from .result import SCHEMA_VERSION, Certificate, SolutionStatus, SolveResult, Termination
-
-try:
-    __version__ = _metadata.version("decomp")
-except _metadata.PackageNotFoundError:      # running from a checkout that is not installed
-    __version__ = "0+unknown"
+from .version import __version__
 
 __all__ = [
     "Certificate", "DecompError", "Instance", "InstanceError", "SolutionStatus", "SolveResult",

@@ -39,7 +39,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _version() -> str:
-    from . import __version__
+    from .version import __version__
 
     return __version__
 

@@ -125,7 +125,7 @@ def output_folder(path, option: str = "--out", *, replace: str | None = None, ne
 
 def write_marker(folder, kind: str) -> None:
     """Mark ``folder`` as written whole by decomp (``kind``: 'instance', 'baseline')."""
-    from . import __version__
+    from .version import __version__
 
     (pathlib.Path(folder) / MARKER).write_text(json.dumps({"written_by": "decomp", "kind": kind,
                                                            "version": __version__}) + "\n")

@@ -24,13 +24,15 @@ from typing import Mapping
 import numpy as np
 
 from .. import atomic
-from ..errors import InstanceError
+from ..errors import ConfigError, InstanceError
 from ..instance import Instance
+from ..options import SolverOptions
 from ..paths import MARKER
 from ..result import SCHEMA, SCHEMA_VERSION
 from ..tables import BID_PRICE_COLUMNS
 from ..atomic import file_sha256
 from .digests import _sha256_bytes
+from .replay import check_replayable
 
 FORMAT = "decomp-baseline"
 #: 2: each case's result.json is the one result schema (``decomp.result``), the case's own facts under
@@ -294,9 +296,25 @@ def case_view(data: Mapping) -> dict:
     return view
 
 
-def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FORMAT_VERSION) -> dict:
-    from .replay import check_recorded_options
+def check_recorded_options(options, file) -> dict:
+    """The recorded options of a case as a dict, after checking they build SolverOptions and may be
+    replayed; BaselineError naming ``file`` otherwise."""
+    if not isinstance(options, dict):
+        raise BaselineError("options must be an object", file=file, column="options")
+    known = {f.name for f in dataclasses.fields(SolverOptions)}
+    unknown = sorted(str(k)[:80] for k in set(options) - known)
+    if unknown:
+        raise BaselineError(f"recorded options {unknown} are unknown to this decomp's SolverOptions",
+                            file=file, column="options")
+    try:
+        check_replayable(options)
+        SolverOptions(**options)
+    except (ConfigError, TypeError, ValueError) as exc:
+        raise BaselineError(str(exc), file=file, column="options") from exc
+    return dict(options)
 
+
+def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FORMAT_VERSION) -> dict:
     rel = f"cases/{cid}/result.json"
     rpath = path / rel
     if rel not in listed:

@@ -8,18 +8,17 @@ can write, HiGHS' ``log_file`` creates one. So a recorded case is replayed only
 with the :class:`~decomp.options.SolverOptions` fields (each validated there)
 and with solver-specific options from the allow-list below, whose values are
 numbers, booleans or short keywords; none of them names a file. Anything else
-is refused with :class:`~.folder.BaselineError` (exit 2), naming the option.
+is refused, naming the option (``folder.check_recorded_options`` turns it into a
+:class:`~.folder.BaselineError` naming the file: exit 2).
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
 import re
 from typing import Mapping
 
 from ..errors import ConfigError
-from ..options import SolverOptions
 
 #: Solver-specific options that may be replayed: none of them reads or writes a file.
 REPLAYABLE = frozenset({
@@ -57,23 +56,3 @@ def check_replayable(options: Mapping) -> None:
         if not plain:
             raise ConfigError(f"solver option {k!r} has value {str(v)[:80]!r}: only numbers, booleans and "
                               f"short keywords are replayed from a baseline")
-
-
-def check_recorded_options(options, file) -> dict:
-    """The recorded options of a case as a dict, after checking they build SolverOptions and may be
-    replayed; BaselineError naming ``file`` otherwise."""
-    from .folder import BaselineError
-
-    if not isinstance(options, dict):
-        raise BaselineError("options must be an object", file=file, column="options")
-    known = {f.name for f in dataclasses.fields(SolverOptions)}
-    unknown = sorted(str(k)[:80] for k in set(options) - known)
-    if unknown:
-        raise BaselineError(f"recorded options {unknown} are unknown to this decomp's SolverOptions",
-                            file=file, column="options")
-    try:
-        check_replayable(options)
-        SolverOptions(**options)
-    except (ConfigError, TypeError, ValueError) as exc:
-        raise BaselineError(str(exc), file=file, column="options") from exc
-    return dict(options)

@@ -20,6 +20,7 @@ from .. import lagrangian as _lagrangian
 from ..errors import ConfigError
 from ..registry import register
 from ..result import SolveResult
+from ..version import __version__
 from .. import threads as _threads
 from .common import certified_result
 
@@ -77,7 +78,7 @@ class LagrangianMethod:
         return certified_result(
             instance, model, self.name, options, termination=out.termination, x=sol.x, pi=sol.pi,
             seconds={"build": sol.seconds_build, "solve": sol.seconds_solve}, iterations=out.iterations,
-            solver=f"decomp-lagrangian-{options.dual_method}", solver_version=_version(),
+            solver=f"decomp-lagrangian-{options.dual_method}", solver_version=__version__,
             raw_status=out.raw_status, message=message, history=out.history,
             extra_options={"linear_solver": sol.linear_solver,
                            "start": "warm" if warm_start is not None else "fare"})
@@ -102,12 +103,3 @@ def _blas_threads(n):
     if _CONTROLLER is None:
         _CONTROLLER = ThreadpoolController()
     return _CONTROLLER.limit(limits=int(n), user_api="blas")
-
-
-def _version():
-    try:
-        from importlib.metadata import version
-
-        return version("decomp")
-    except Exception:  # noqa: BLE001 - metadata missing in a source checkout
-        return None
