@@ -77,12 +77,12 @@ def _lp_certificate(instance, x, pi_plus, model, segments):
         width = np.maximum(instance.mean, 0.0)[:, None]
         d, p, k = _lp_terms(fare, a, x, width, np.ones_like(width))
         return dual + d, p, k
-    from models import pwl
+    from .segments import segments as segment_table
 
     for lo in range(0, P, _CHUNK):                               # chunks of products, not products
         hi = min(P, lo + _CHUNK)
         part = _slice(instance, lo, hi)
-        _, width, slope = pwl.segments(part, segments)
+        _, width, slope = segment_table(part, segments)
         d, p, k = _lp_terms(fare[lo:hi], a[lo:hi], x[lo:hi], width, slope)
         dual, primal, kkt = dual + d, primal + p, max(kkt, k)
     return dual, primal, kkt

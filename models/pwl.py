@@ -16,52 +16,17 @@ other segments have width 0). For products of another demand family the
 breakpoints are still placed at normal quantiles of their mean and std, and
 S_j is that family's expected sales (chords of a concave curve all the same).
 
-:func:`segments` is the numpy table that the array method
-(:mod:`decomp.methods.highs`) and the certificate use; :func:`build` is the
-Pyomo model on top of it.
+The segment table (breakpoints, widths, slopes) is :func:`decomp.segments.segments`, shared
+with the array method and the certificate; :func:`build` is the Pyomo model on top of it.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy import special
 
-from decomp import distributions
+from decomp.segments import segments
 
 from .common import add_capacity_and_revenue, paused_gc
-
-
-def segments(instance, K: int):
-    """Breakpoints (P x (K+1)), widths and slopes (P x K) of the PWL model."""
-    K = int(K)
-    if K < 1:
-        raise ValueError(f"segments must be >= 1, got {K}")
-    levels = np.arange(1, K + 1, dtype=np.float64) / (K + 1)
-    z = special.ndtri(levels)                                   # (K,)
-    mean = instance.mean[:, None]
-    std = instance.std[:, None]
-    b = np.empty((instance.n_products, K + 1))
-    b[:, 0] = 0.0
-    b[:, 1:] = np.maximum(0.0, mean + std * z[None, :])
-    det = instance.std <= 0
-    b[det, 1:] = np.maximum(instance.mean[det], 0.0)[:, None]
-    width = np.diff(b, axis=1)
-    S = np.empty_like(b)
-    for k in range(K + 1):                                     # a loop over segments, not products
-        S[:, k] = distributions.expected_sales(instance, b[:, k])
-    dS = np.diff(S, axis=1)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        slope = np.where(width > 0, dS / np.where(width > 0, width, 1.0), 0.0)
-    # zero-width segments (quantiles below zero, std = 0) get slope 0: they hold no seats
-    slope = np.clip(slope, 0.0, 1.0)
-    return b, width, slope
-
-
-def value(width, slope, x):
-    """The interpolant sum_k s_k clip(x - b_{k-1}, 0, w_k) at x (per product)."""
-    b0 = np.concatenate([np.zeros((width.shape[0], 1)), np.cumsum(width, axis=1)[:, :-1]], axis=1)
-    fill = np.clip(np.asarray(x, dtype=np.float64)[:, None] - b0, 0.0, width)
-    return np.sum(slope * fill, axis=1)
 
 
 def build(instance, K: int = 16):

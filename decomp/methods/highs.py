@@ -5,7 +5,7 @@ the instance's CSR incidence without Python loops over products:
 
 * DLP: max f.x  s.t.  A x <= c,  0 <= x <= mean;
 * PWL: max sum_jk f_j s_jk y_jk  s.t.  sum_j A_ij sum_k y_jk <= c_i,
-  0 <= y_jk <= w_jk (segments from :func:`models.pwl.segments`; zero-width
+  0 <= y_jk <= w_jk (segments from :func:`decomp.segments.segments`; zero-width
   segments are left out).
 
 Bid prices are the capacity rows' duals. HiGHS reports ``row_dual`` of a
@@ -106,9 +106,9 @@ def lp_arrays(instance, model: str, segments: int):
     if model == "dlp":
         cols = np.arange(instance.n_products, dtype=np.int64)
         return instance.fare.copy(), np.maximum(instance.mean, 0.0), A, cols
-    from models import pwl
+    from ..segments import segments as segment_table
 
-    _, width, slope = pwl.segments(instance, segments)
+    _, width, slope = segment_table(instance, segments)
     keep = width > 0
     cols = np.nonzero(keep)[0]                              # product of each kept segment
     cost = (instance.fare[:, None] * slope)[keep]

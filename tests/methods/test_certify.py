@@ -7,7 +7,7 @@ from scipy import optimize, stats
 
 from decomp import Instance, SolutionStatus, SolverOptions, Termination, dual, ladder, solve
 from decomp.certify import certify, solution_status
-from models import pwl
+from decomp.segments import segments
 
 
 @pytest.fixture
@@ -46,7 +46,7 @@ def test_lp_dual_matches_scipy_linprog_on_the_pwl(two_leg):
     # dual min c.pi + sum w u  s.t. u_jk + a_j(pi) >= f_j s_jk, pi, u >= 0.
     inst = ladder.load_rung("p100")
     K = 3
-    _, w, s = pwl.segments(inst, K)
+    _, w, s = segments(inst, K)
     P, L = inst.n_products, inst.n_legs
     A = inst.A.toarray()
     Ay = np.repeat(A, K, axis=1)                       # column (j, k) -> A[:, j]
