@@ -63,7 +63,7 @@ log = logging.getLogger(__name__)
 
 META_FILE = "meta.json"
 FORMATS = ("csv", "parquet")
-_INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE}
+INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE}
 
 
 # ---------------------------------------------------------------------------
@@ -397,7 +397,7 @@ def check_instance_folder(path, option: str = "--out", *, replace_unmarked: bool
 
     target = paths.output_folder(path, option, replace="instance", legacy=legacy)
     if target.is_dir():
-        foreign = sorted(p.name for p in target.iterdir() if p.name not in _INSTANCE_FILES | {paths.MARKER})
+        foreign = sorted(p.name for p in target.iterdir() if p.name not in INSTANCE_FILES | {paths.MARKER})
         if foreign:
             raise OutputPathError(f"holds other files ({', '.join(foreign[:3])}); write the instance to a new "
                                   f"or instance-only folder", path=target, option=option)

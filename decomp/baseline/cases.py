@@ -61,13 +61,13 @@ class Case:
     @property
     def id(self) -> str:
         base = f"{self.instance_name}-{self.model}-{self.method}"
-        return _safe_name(base if self.label is None else f"{base}-{self.label}")
+        return safe_name(base if self.label is None else f"{base}-{self.label}")
 
     def build_instance(self) -> Instance:
         return self.instance if isinstance(self.instance, Instance) else self.instance.build()
 
 
-def _safe_name(s: str) -> str:
+def safe_name(s: str) -> str:
     out = "".join(ch if (ch.isalnum() or ch in "-_.") else "_" for ch in s)
     if not out or out.startswith("."):
         out = "_" + out
@@ -164,7 +164,7 @@ def suite_cases(name: str) -> list:
     return SUITES[name][1]()
 
 
-def _unavailable_pairs(pairs) -> dict:
+def unavailable_pairs(pairs) -> dict:
     """{(model, method): reason} for the pairs whose method is unknown or unavailable here."""
     from .. import registry
 

@@ -26,12 +26,12 @@ from ..errors import ConfigError
 from ..instance import Instance
 from ..options import SolverOptions
 from .environment import environment, environment_changes
-from .cases import _unavailable_pairs
-from .digests import SIG_DIGITS, _unnum, allocation_digest, instance_fingerprint
+from .cases import unavailable_pairs
+from .digests import SIG_DIGITS, optional_float, allocation_digest, instance_fingerprint
 from .folder import load, read_case_instance
-from .record import _default_solve, _timed_solve
+from .record import default_solve, timed_solve
 from .replay import check_replayable
-from .report import ALTERNATIVE_DUALS, PASS, CaseReport, CheckReport, _fmt
+from .report import ALTERNATIVE_DUALS, PASS, CaseReport, CheckReport, format_value
 
 log = logging.getLogger(__name__)
 
@@ -141,7 +141,7 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
     base = load(path)
     thresholds = thresholds or Thresholds()
     solve_fn_given = solve_fn is not None
-    solve_fn = solve_fn or _default_solve()
+    solve_fn = solve_fn or default_solve()
     override = dict(options_override or {})
     known = {f.name for f in dataclasses.fields(SolverOptions)}
     bad = sorted(set(override) - known)
@@ -160,7 +160,7 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
         _options_for(rec, override)
     # Availability first (as record's suites do): a missing solver is reported by name, and the
     # libraries are imported before any timed solve, as they were when the baseline was recorded.
-    unavailable = {} if solve_fn_given else _unavailable_pairs({(r["model"], r["method"]) for r in todo})
+    unavailable = {} if solve_fn_given else unavailable_pairs({(r["model"], r["method"]) for r in todo})
     reports = []
     if wanted is None:
         reports.extend(_missing_cases(base, unavailable, progress, solve_fn_given))
@@ -235,7 +235,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                    if rec["options"].get(k) != v}
         rep.add("note", "options", "solved with changed options: " +
                 ", ".join(f"{k} {o!r} -> {n!r}" for k, (o, n) in changed.items()))
-    result, _, timed = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
+    result, _, timed = timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
 
     # status
     old_st = f"{rec['termination']}/{rec['solution_status']}"
@@ -250,7 +250,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
             rep.add("note", "status", f"status {old_st} -> {new_st}")
 
     # objective
-    obj_old, obj_new = _unnum(rec["objective"]), _unnum(result.objective)
+    obj_old, obj_new = optional_float(rec["objective"]), optional_float(result.objective)
     m["objective_old"], m["objective_new"] = obj_old, obj_new
     m["objective_rel_change"] = rel = _rel(obj_new, obj_old)
     objective_same = rel is not None and rel <= th["objective_rtol"]
@@ -299,7 +299,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     cert_new = result.certificate.to_dict() if result.certificate is not None else {}
     for name, floor in (("gap", th["gap_floor"]), ("max_violation_rel", th["violation_floor"]),
                         ("kkt_residual", th["kkt_floor"])):
-        o, n = _unnum(cert_old.get(name)), _unnum(cert_new.get(name))
+        o, n = optional_float(cert_old.get(name)), optional_float(cert_new.get(name))
         short = {"max_violation_rel": "violation", "kkt_residual": "kkt"}.get(name, name)
         m[f"{short}_old"], m[f"{short}_new"] = o, n
         if o is None and n is None:
@@ -309,7 +309,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
             continue
         o_abs = abs(o) if o is not None else 0.0
         if abs(n) > max(th["certificate_factor"] * o_abs, floor):
-            rep.add("regression", "certificate", f"certificate {name} {_fmt(o)} -> {n:.3g} "
+            rep.add("regression", "certificate", f"certificate {name} {format_value(o)} -> {n:.3g} "
                                                  f"(limit max({th['certificate_factor']:g} x old, {floor:.3g}))")
 
     # allocation
@@ -356,7 +356,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     if ratio > th["time_ratio"] and confirm_runs > 0:
         # A slow solve is timed again (best of all runs) before it counts: one slow run on a shared
         # machine is noise more often than not.
-        _, _, again = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, confirm_runs)
+        _, _, again = timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, confirm_runs)
         t_new, runs = min(t_new, again), runs + confirm_runs
         ratio = ratio_of(t_new)
     m.update(time_old=t_old, time_new=t_new, time_ratio=ratio, time_runs=runs, time_clock=clock_name)

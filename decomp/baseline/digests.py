@@ -13,7 +13,7 @@ SIG_DIGITS = 6          # significant digits of the allocation digest
 ZERO_SEATS = 1e-8       # allocation entries below this many seats count as 0 in the digest
 
 # --------------------------------------------------------------------------- digests and numbers
-def _sha256_bytes(b: bytes) -> str:
+def sha256_bytes(b: bytes) -> str:
     return hashlib.sha256(b).hexdigest()
 
 
@@ -80,7 +80,7 @@ def _num(v):
     return v if math.isfinite(v) else str(v)
 
 
-def _unnum(v):
+def optional_float(v):
     if v is None:
         return None
     return float(v)

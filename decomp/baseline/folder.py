@@ -31,7 +31,7 @@ from ..paths import MARKER
 from ..result import SCHEMA, SCHEMA_VERSION
 from ..tables import BID_PRICE_COLUMNS
 from ..atomic import file_sha256
-from .digests import _sha256_bytes
+from .digests import sha256_bytes
 from .replay import check_replayable
 
 FORMAT = "decomp-baseline"
@@ -46,7 +46,7 @@ SUMMARY = "summary.csv"
 BID_PRICES = "bid_prices.csv"
 MODELS = ("dlp", "pnlp", "pwl")
 
-#: One component of a path inside a baseline: what ``cases._safe_name`` makes (no '.', '..', '/').
+#: One component of a path inside a baseline: what ``cases.safe_name`` makes (no '.', '..', '/').
 _PART = re.compile(r"[A-Za-z0-9_-][A-Za-z0-9._-]{0,254}")
 _SHA256 = re.compile(r"[0-9a-f]{64}")
 
@@ -62,7 +62,7 @@ class BaselineError(InstanceError):
 
 
 # --------------------------------------------------------------------------- bid-price CSV
-def _bid_prices_csv(leg_ids, pi) -> str:
+def bid_prices_csv(leg_ids, pi) -> str:
     buf = _io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(list(BID_PRICE_COLUMNS))
@@ -116,10 +116,10 @@ def _short(v, limit: int = 200):
 def _manifest_self_hash(manifest: Mapping) -> str:
     """sha256 of the manifest without this field. Unkeyed: it detects damage, not malice."""
     body = {k: v for k, v in manifest.items() if k != "manifest_sha256"}
-    return _sha256_bytes(json.dumps(body, sort_keys=True, separators=(",", ":")).encode())
+    return sha256_bytes(json.dumps(body, sort_keys=True, separators=(",", ":")).encode())
 
 
-def _write_manifest(folder: pathlib.Path, suite, case_ids) -> None:
+def write_manifest(folder: pathlib.Path, suite, case_ids) -> None:
     files = []
     for p in sorted(folder.rglob("*")):
         if p.is_file() and p.name != MANIFEST and not p.name.startswith("."):

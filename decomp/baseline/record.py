@@ -19,16 +19,16 @@ from ..errors import ConfigError, OutputPathError, SolverUnavailableError
 from ..instance import Instance
 from ..options import SolverOptions
 from ..paths import output_folder, refusing, write_marker
-from .cases import Case, _safe_name, _unavailable_pairs, suite_cases
+from .cases import Case, safe_name, unavailable_pairs, suite_cases
 from .digests import allocation_digest, instance_fingerprint
 from .environment import environment
-from .folder import BID_PRICES, ENVIRONMENT, FORMAT, MANIFEST, SUMMARY, _bid_prices_csv, _write_manifest, case_view
+from .folder import BID_PRICES, ENVIRONMENT, FORMAT, MANIFEST, SUMMARY, bid_prices_csv, write_manifest, case_view
 from .replay import check_replayable
 
 log = logging.getLogger(__name__)
 
 # --------------------------------------------------------------------------- record
-def _timed_solve(solve_fn, clock, instance, case_model, case_method, options, repeat, warm=None):
+def timed_solve(solve_fn, clock, instance, case_model, case_method, options, repeat, warm=None):
     """(result, best wall seconds, best ``clock`` seconds) of ``repeat`` runs.
 
     ``clock`` is the timer time regressions are judged on: CPU time of this process
@@ -47,7 +47,7 @@ def _timed_solve(solve_fn, clock, instance, case_model, case_method, options, re
     return result, best_wall, best
 
 
-def _default_solve():
+def default_solve():
     from .. import registry
 
     return registry.solve
@@ -124,11 +124,11 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
     if int(repeat) < 1:
         raise ConfigError(f"repeat must be at least 1, got {repeat!r}")
     if solve_fn is None:
-        missing = _unavailable_pairs({(c.model, c.method) for c in cases})
+        missing = unavailable_pairs({(c.model, c.method) for c in cases})
         if missing:
             raise SolverUnavailableError("cannot record: " + "; ".join(
                 f"{model}/{method}: {reason}" for (model, method), reason in missing.items()))
-    solve_fn = solve_fn or _default_solve()
+    solve_fn = solve_fn or default_solve()
     env = environment()
     with refusing(out):
         out.parent.mkdir(parents=True, exist_ok=True)
@@ -138,7 +138,7 @@ def record(out, suite: str | None = None, *, cases: Sequence[Case] | None = None
             records = _record_cases(tmp, cases, solve_fn, clock, repeat, warmup, progress)
             atomic.write_json(tmp / ENVIRONMENT, env)
             atomic.write_text(tmp / SUMMARY, _summary_csv(records))
-            _write_manifest(tmp, suite, [r["case"] for r in records])
+            write_manifest(tmp, suite, [r["case"] for r in records])
             write_marker(tmp, "baseline")
             if out.exists():
                 check_out(out, overwrite)          # again: the folder may have changed while we solved
@@ -160,18 +160,18 @@ def _record_cases(tmp, cases, solve_fn, clock, repeat, warmup, progress) -> list
     written: dict = {}
     warm: set = set()
     for case in cases:
-        name = _safe_name(case.instance_name)
+        name = safe_name(case.instance_name)
         if name not in written:
             built = case.build_instance()
             written[name] = (_write_instance(built, tmp / "instances" / name), built)
         inst = written[name][0]
         fp = instance_fingerprint(inst)
-        result, wall, cpu = _timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
+        result, wall, cpu = timed_solve(solve_fn, clock, inst, case.model, case.method, case.options, repeat,
                                          warm if warmup else None)
         data = _result_record(case, result, wall, fp, case.options, f"instances/{name}", cpu)
         cdir = tmp / "cases" / case.id
         atomic.write_json(cdir / "result.json", data)
-        atomic.write_text(cdir / BID_PRICES, _bid_prices_csv(result.leg_ids, result.bid_price_array))
+        atomic.write_text(cdir / BID_PRICES, bid_prices_csv(result.leg_ids, result.bid_price_array))
         rec = case_view(data)
         records.append(rec)
         if progress is not None:

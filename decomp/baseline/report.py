@@ -88,9 +88,9 @@ class CheckReport:
                 st = f"{m.get('status_old')} -> {m.get('status_new')}"
             bp = m.get("bid_max_abs_change")
             bp_s = "-" if bp is None else f"{bp:.3g} ({m.get('bid_max_abs_leg')}; rel {m.get('bid_max_rel_change'):.3g})"
-            lines.append(f"| {c.case} | {c.verdict} | {st} | {_fmt(m.get('objective_rel_change'))} | {bp_s} | "
-                         f"{_fmt(m.get('gap_old'))} -> {_fmt(m.get('gap_new'))} | {_fmt(m.get('time_old'))} -> "
-                         f"{_fmt(m.get('time_new'))} ({_fmt(m.get('time_ratio'), '.2f')}) |")
+            lines.append(f"| {c.case} | {c.verdict} | {st} | {format_value(m.get('objective_rel_change'))} | {bp_s} | "
+                         f"{format_value(m.get('gap_old'))} -> {format_value(m.get('gap_new'))} | {format_value(m.get('time_old'))} -> "
+                         f"{format_value(m.get('time_new'))} ({format_value(m.get('time_ratio'), '.2f')}) |")
         detailed = [c for c in self.cases if c.findings]
         if detailed:
             lines += ["", "## Findings", ""]
@@ -102,7 +102,7 @@ class CheckReport:
         return "\n".join(lines).rstrip() + "\n"
 
 
-def _fmt(v, spec=".3g") -> str:
+def format_value(v, spec=".3g") -> str:
     if v is None:
         return "-"
     if isinstance(v, str):

@@ -1,11 +1,15 @@
-"""Option types the commands share: argparse refuses a value outside its domain at once, naming
-the option (``argument --workers: must be at least 1, got 0``), exit 2, before any work starts."""
+"""Options and arguments the commands share: argparse types refuse a value outside its domain at
+once, naming the option (``argument --workers: must be at least 1, got 0``), exit 2, before any work
+starts; :func:`load_instance` reads the INSTANCE argument, :func:`check_scheduler` an external Dask
+scheduler's address. (The module's name starts with an underscore so that decomp/cli.py does not
+take it for a command.)"""
 
 from __future__ import annotations
 
 import argparse
 import math
 import pathlib
+import sys
 
 
 def whole(minimum: int | None = None, maximum: int | None = None, what: str = ""):
@@ -107,3 +111,41 @@ def demand_mix(text: str) -> str:
     except ConfigError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from None
     return text
+
+
+def load_instance(spec):
+    """The instance an INSTANCE argument names: a folder, or a ladder rung; InstanceError otherwise."""
+    from ..errors import InstanceError
+    from ..io import read_instance
+
+    if not str(spec).strip():
+        raise InstanceError("INSTANCE is an empty path: name an instance folder or a ladder rung", file=repr(spec))
+    path = pathlib.Path(spec)
+    if path.exists():
+        return read_instance(path)
+    from .. import ladder
+
+    if spec in ladder.RUNGS:
+        return ladder.load_rung(spec)
+    raise InstanceError(f"no instance folder here (and not a ladder rung: {', '.join(ladder.RUNGS)})", file=spec)
+
+
+def check_scheduler(address: str) -> None:
+    """An external scheduler's address: not empty; without TLS, a warning (anyone who can reach a
+    plain tcp:// scheduler can run code on its workers; see the README, Reliability)."""
+    from ..errors import ConfigError
+
+    if not address.strip():
+        raise ConfigError("--scheduler is empty: give the address of a running Dask scheduler, "
+                          "or leave --scheduler out for the embedded cluster")
+    if not address.startswith("tls://"):
+        print(f"decomp: warning: --scheduler {address}: not a tls:// address; whoever can reach it can run "
+              f"code on its workers. Use TLS with credentials (README, Reliability)", file=sys.stderr)
+        return
+    from distributed.security import Security
+
+    sec = Security()                               # what Dask's configuration gives the client
+    if not (sec.tls_ca_file and sec.tls_client_cert and sec.tls_client_key):
+        raise ConfigError(f"--scheduler {address}: a TLS scheduler needs the client's credentials in Dask's "
+                          f"configuration (distributed.comm.tls.ca-file, .client.cert, .client.key; e.g. "
+                          f"DASK_DISTRIBUTED__COMM__TLS__CA_FILE); see the README, Reliability")

@@ -33,7 +33,7 @@ from __future__ import annotations
 import sys
 
 from . import _progress
-from ._options import count, demand_mix, duration, number, port, positive, positive_number
+from ._options import check_scheduler, count, demand_mix, duration, number, port, positive, positive_number
 from ._vocabulary import old_name
 
 
@@ -115,7 +115,7 @@ def run(args) -> int:
     if isinstance(fallback, Fallback):
         check_method(fallback.method, args.model, "--fallback")
     if args.scheduler is not None:
-        _check_scheduler(args.scheduler)
+        check_scheduler(args.scheduler)
     if args.warm_start_from is not None:
         existing_folder(args.warm_start_from, "--warm-start")
     dates = run_dates(args)
@@ -190,27 +190,6 @@ def run(args) -> int:
         return 1
     print(f"summary: {cfg.out}/summary.md, {cfg.out}/summary.json")
     return 0 if t["ok"] == t["n_tasks"] else 1
-
-
-def _check_scheduler(address: str) -> None:
-    """An external scheduler's address: not empty; without TLS, a warning (anyone who can reach a
-    plain tcp:// scheduler can run code on its workers; see the README, Reliability)."""
-    from ..errors import ConfigError
-
-    if not address.strip():
-        raise ConfigError("--scheduler is empty: give the address of a running Dask scheduler, "
-                          "or leave --scheduler out for the embedded cluster")
-    if not address.startswith("tls://"):
-        print(f"decomp: warning: --scheduler {address}: not a tls:// address; whoever can reach it can run "
-              f"code on its workers. Use TLS with credentials (README, Reliability)", file=sys.stderr)
-        return
-    from distributed.security import Security
-
-    sec = Security()                               # what Dask's configuration gives the client
-    if not (sec.tls_ca_file and sec.tls_client_cert and sec.tls_client_key):
-        raise ConfigError(f"--scheduler {address}: a TLS scheduler needs the client's credentials in Dask's "
-                          f"configuration (distributed.comm.tls.ca-file, .client.cert, .client.key; e.g. "
-                          f"DASK_DISTRIBUTED__COMM__TLS__CA_FILE); see the README, Reliability")
 
 
 def run_dates(args) -> list:

@@ -106,7 +106,7 @@ def run(args) -> int:
     from ..simulation.cluster import open_client
     from ..errors import UnknownMethodError
     from ..simulation.errors import SimulationConfigError
-    from .solve import _load
+    from ._options import load_instance
 
     from ..paths import output_folder, refusing
 
@@ -135,7 +135,7 @@ def run(args) -> int:
     cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
                            forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
                            chunk=args.chunk)
-    instance = _load(args.instance)
+    instance = load_instance(args.instance)
     try:
         cfg.check(instance)
     except (SimulationConfigError, UnknownMethodError) as exc:
@@ -143,9 +143,9 @@ def run(args) -> int:
     if args.workers == 0 and args.scheduler is None:
         print("decomp simulate: --workers 0: the paths run in this process (no Dask cluster)", file=sys.stderr)
     elif args.scheduler is not None:
-        from .run import _check_scheduler
+        from ._options import check_scheduler
 
-        _check_scheduler(args.scheduler)
+        check_scheduler(args.scheduler)
 
     bar = {}
     show_bar = _progress.wanted(args)

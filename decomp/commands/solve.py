@@ -24,12 +24,11 @@ import argparse
 import contextlib
 import logging
 import os
-import pathlib
 import sys
 
 import numpy as np
 
-from ._options import positive, positive_number
+from ._options import load_instance, positive, positive_number
 from ._vocabulary import old_name
 
 #: Methods that use --warm-start (the others would ignore it, so it is refused for them).
@@ -71,22 +70,6 @@ def _defaults_text() -> str:
     from ..registry import DEFAULT_METHOD
 
     return ", ".join(f"{m} for {model}" for model, m in DEFAULT_METHOD.items())
-
-
-def _load(spec):
-    from ..errors import InstanceError
-    from ..io import read_instance
-
-    if not str(spec).strip():
-        raise InstanceError("INSTANCE is an empty path: name an instance folder or a ladder rung", file=repr(spec))
-    path = pathlib.Path(spec)
-    if path.exists():
-        return read_instance(path)
-    from .. import ladder
-
-    if spec in ladder.RUNGS:
-        return ladder.load_rung(spec)
-    raise InstanceError(f"no instance folder here (and not a ladder rung: {', '.join(ladder.RUNGS)})", file=spec)
 
 
 def _num(v, fmt):
@@ -207,7 +190,7 @@ def run(args) -> int:
     options = _options(args)
     _check_outputs(args)
     warm = read_bid_prices(args.warm_start) if args.warm_start else None
-    instance = _load(args.instance)
+    instance = load_instance(args.instance)
     try:
         with _progress_to_terminal():
             result = _solve(instance, model=args.model, method=_method(args), options=options, warm_start=warm)

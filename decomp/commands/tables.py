@@ -87,7 +87,7 @@ def run(args) -> int:
     from ..dynamic.relaxation import CONVERGED, STATIONARY, relax
     from ..dynamic.tables import write
     from ..tables import check_table_path
-    from .solve import _load
+    from ._options import load_instance
 
     from ._options import check_method, method_or_default
 
@@ -98,7 +98,7 @@ def run(args) -> int:
         from ..errors import ConfigError
 
         raise ConfigError("--method chooses the solve of --model; with --static nothing is solved here: leave it out")
-    instance = _load(args.instance)
+    instance = load_instance(args.instance)
     t0 = time.perf_counter()
     demand = from_arrival_curves(instance, args.periods)
     t_demand = time.perf_counter() - t0

@@ -216,11 +216,11 @@ def _folder_bytes(path: pathlib.Path) -> int:
 
 def folder_digest(path: pathlib.Path) -> str:
     """sha256 over the names and bytes of the instance files in ``path`` (what read_instance reads)."""
-    from ..io import _INSTANCE_FILES
+    from ..io import INSTANCE_FILES
 
     h = hashlib.sha256(b"decomp-instance-files;")
     for p in sorted(path.iterdir()):
-        if p.name in _INSTANCE_FILES and p.is_file():
+        if p.name in INSTANCE_FILES and p.is_file():
             h.update(p.name.encode() + b"\0")
             with open(p, "rb") as fh:
                 for chunk in iter(lambda: fh.read(1 << 20), b""):
