@@ -253,6 +253,10 @@ class SimulationResult:
         }
 
 
+#: What each policy's controls count, summed over the initial solve and every task.
+_COUNTS = ("seconds", "solves", "failures", "rescued", "priced_non_optimal")
+
+
 def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
     parts = sorted(parts, key=lambda r: int(r["paths"][0]) if len(r["paths"]) else -1)
     cat = lambda key: np.concatenate([r[key] for r in parts]) if parts else np.zeros(0)  # noqa: E731
@@ -263,38 +267,23 @@ def _merge(parts: list, n_scen: int, n_pol: int, initial: dict, config) -> dict:
                                   for p in range(n_pol)]) for s in range(n_scen)])
         seats = np.stack([np.stack([np.concatenate([r["scenarios"][s][p].seats for r in parts])
                                     for p in range(n_pol)]) for s in range(n_scen)])
-    seconds = np.zeros((n_scen, n_pol))
-    solves = np.zeros((n_scen, n_pol), dtype=np.int64)
-    failures = np.zeros((n_scen, n_pol), dtype=np.int64)
-    rescued = np.zeros((n_scen, n_pol), dtype=np.int64)
-    priced_non_optimal = np.zeros((n_scen, n_pol), dtype=np.int64)
+    counts = {k: np.zeros((n_scen, n_pol), dtype=np.float64 if k == "seconds" else np.int64)
+              for k in _COUNTS}
     statuses = [[{} for _ in range(n_pol)] for _ in range(n_scen)]
     for s, (fe_i, _) in enumerate(config.scenarios):
         for p in range(n_pol):
-            cs = initial[fe_i][p]
-            seconds[s, p] += cs.seconds
-            solves[s, p] += cs.solves
-            failures[s, p] += cs.failures
-            rescued[s, p] += cs.rescued
-            priced_non_optimal[s, p] += cs.priced_non_optimal
-            for k, v in cs.statuses.items():
-                statuses[s][p][k] = statuses[s][p].get(k, 0) + v
-            for r in parts:
-                o = r["scenarios"][s][p]
-                seconds[s, p] += o.seconds
-                solves[s, p] += o.solves
-                failures[s, p] += o.failures
-                rescued[s, p] += o.rescued
-                priced_non_optimal[s, p] += o.priced_non_optimal
-                for k, v in o.statuses.items():
+            # the time-0 controls (solved once per forecast error, shared by all paths), then every task
+            for c in [initial[fe_i][p]] + [r["scenarios"][s][p] for r in parts]:
+                for k in _COUNTS:
+                    counts[k][s, p] += getattr(c, k)
+                for k, v in c.statuses.items():
                     statuses[s][p][k] = statuses[s][p].get(k, 0) + v
     phases = {}
     for r in parts:
         for k, v in r["seconds"].items():
             phases[k] = phases.get(k, 0.0) + v
     return dict(paths=cat("paths"), bound=cat("bound"), requests=cat("requests"), revenue=rev, seats=seats,
-                seconds=seconds, solves=solves, failures=failures, rescued=rescued,
-                priced_non_optimal=priced_non_optimal, statuses=statuses, phase_seconds=phases)
+                **counts, statuses=statuses, phase_seconds=phases)
 
 
 def simulate(instance, config: SimulationConfig, *, client=None, on_progress=None) -> SimulationResult:
