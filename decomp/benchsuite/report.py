@@ -101,6 +101,13 @@ def _load(v):
     return "-" if not v else ", ".join(f"{x:.2f}" for x in v)
 
 
+def _paragraph(out: list, label: str, items: list) -> None:
+    """``label: item; item; ...`` and a blank line, when there are items."""
+    if items:
+        out.append(f"{label}: " + "; ".join(items))
+        out.append("")
+
+
 def render(run, plots=(), stat: str = "min") -> str:
     """The report as Markdown."""
     d = run.decomp or {}
@@ -116,23 +123,13 @@ def render(run, plots=(), stat: str = "min") -> str:
                "building the model (the `build` phase column shows its share)")
     out.append(f"- memory: {d.get('memory_note', 'peak resident-set growth during the solve')}")
     out.append("")
-    excl = d.get("excluded_methods") or []
-    if excl:
-        out.append("Methods not in this run (no case generated): "
-                   + "; ".join(f"{e['model']}/{e['method']}: {e['reason']}" for e in excl))
-        out.append("")
-    rungs = d.get("rungs") or {}
-    if rungs:
-        out.append("Instances: " + "; ".join(
-            f"{k} = {v.get('source')} ({v.get('n_products')} products, {v.get('n_legs')} legs)"
-            for k, v in rungs.items()))
-        out.append("")
-    refs = d.get("references") or {}
-    if refs:
-        out.append("Reference solves (errors are measured against them): " + "; ".join(
-            f"{k}: {v.get('method')} {v.get('options') or ''} status {v.get('status')}, gap {_g(v.get('gap'))}"
-            for k, v in refs.items()))
-        out.append("")
+    _paragraph(out, "Methods not in this run (no case generated)",
+               [f"{e['model']}/{e['method']}: {e['reason']}" for e in d.get("excluded_methods") or []])
+    _paragraph(out, "Instances", [f"{k} = {v.get('source')} ({v.get('n_products')} products, {v.get('n_legs')} legs)"
+                                  for k, v in (d.get("rungs") or {}).items()])
+    _paragraph(out, "Reference solves (errors are measured against them)",
+               [f"{k}: {v.get('method')} {v.get('options') or ''} status {v.get('status')}, gap {_g(v.get('gap'))}"
+                for k, v in (d.get("references") or {}).items()])
     failed = [r for r in run.rows if r.get("accuracy_failures")]
     crashed = [c for c in rn.get("failed_cases", []) if not any(c.endswith(f"[{r.name.split('[', 1)[-1]}")
                                                                   for r in failed)]
