@@ -218,8 +218,8 @@ def _missing_cases(base, unavailable, progress, solve_fn_given) -> list:
 
 def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat, warm,
                 confirm_runs) -> None:
-    th = rep.thresholds
-    m = rep.metrics
+    """Solve one recorded case again and add its findings to ``rep``: status, objective, bid prices,
+    certificate, allocation, iterations and time, each against the record."""
     key = rec["instance_dir"]
     if key not in instances:
         instances[key] = read_case_instance(base, rec)
@@ -236,11 +236,26 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
         rep.add("note", "options", "solved with changed options: " +
                 ", ".join(f"{k} {o!r} -> {n!r}" for k, (o, n) in changed.items()))
     result, _, timed = timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
+    old_status = _compare_status(rep, rec, result)
+    obj_old, objective_same = _compare_objective(rep, rec, result)
+    _compare_bid_prices(rep, rec, result, inst, options, obj_old, objective_same)
+    _compare_certificate(rep, rec, result)
+    _compare_allocation(rep, rec, result)
+    # a record that held nothing to compare (no objective, no bid prices) cannot pass
+    if obj_old is None and not len(rec["bid_prices"][0]):
+        rep.add("regression", "not_compared", f"the case was recorded {old_status} with no objective and no "
+                                              f"bid prices: there is nothing to compare it with; re-record the "
+                                              f"baseline")
+    _compare_time(rep, rec, result, timed, lambda runs: timed_solve(
+        solve_fn, clock, inst, rec["model"], rec["method"], options, runs)[2], repeat, confirm_runs)
 
-    # status
+
+def _compare_status(rep: CaseReport, rec, result) -> str:
+    """A status that changed from optimal/optimal is a regression, any other change a note; the old
+    status is returned."""
     old_st = f"{rec['termination']}/{rec['solution_status']}"
     new_st = f"{result.termination.value}/{result.solution_status.value}"
-    m["status_old"], m["status_new"] = old_st, new_st
+    rep.metrics["status_old"], rep.metrics["status_new"] = old_st, new_st
     was_ok = rec["termination"] == "optimal" and rec["solution_status"] == "optimal"
     if new_st != old_st:
         if was_ok:
@@ -248,8 +263,12 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                                             + (f" ({result.message})" if result.message else ""))
         else:
             rep.add("note", "status", f"status {old_st} -> {new_st}")
+    return old_st
 
-    # objective
+
+def _compare_objective(rep: CaseReport, rec, result) -> tuple:
+    """(recorded objective, whether the new one is within objective_rtol of it)."""
+    th, m = rep.thresholds, rep.metrics
     obj_old, obj_new = optional_float(rec["objective"]), optional_float(result.objective)
     m["objective_old"], m["objective_new"] = obj_old, obj_new
     m["objective_rel_change"] = rel = _rel(obj_new, obj_old)
@@ -259,42 +278,53 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     elif rel is not None and not objective_same:
         rep.add("regression", "objective", f"objective {obj_old!r} -> {obj_new!r}: relative change {rel:.3g} "
                                            f"> {th['objective_rtol']:.3g}")
+    return obj_old, objective_same
 
-    # bid prices
+
+def _compare_bid_prices(rep: CaseReport, rec, result, inst, options, obj_old, objective_same) -> None:
+    """Bid prices moved beyond bid_rtol (relative) + bid_atol are a regression, unless the model is an
+    LP whose objective did not change and the new ones are optimal duals too."""
+    th, m = rep.thresholds, rep.metrics
     legs_old, pi_old = rec["bid_prices"]
     legs_now = [str(x) for x in np.asarray(result.leg_ids).tolist()]
     pi_new = None if result.bid_price_array is None else np.asarray(result.bid_price_array, dtype=np.float64)
     if legs_old and legs_now != legs_old:
         rep.add("regression", "bid_prices", "the legs of the bid-price vector changed (ids or order)")
-    elif len(legs_old) and pi_new is None:
+        return
+    if len(legs_old) and pi_new is None:
         rep.add("regression", "bid_prices", "no bid prices returned now")
-    elif len(legs_old):
-        diff = np.abs(pi_new - pi_old)
-        diff = np.where(np.isfinite(diff), diff, np.inf)   # a NaN or infinite bid price, old or new, has moved
-        finite_old = np.abs(pi_old[np.isfinite(pi_old)])
-        scale = max(1.0, float(np.max(finite_old)) if len(finite_old) else 1.0)
-        atol = th["bid_atol"] if th["bid_atol"] is not None else th["bid_rtol"] * scale
-        limit = atol + th["bid_rtol"] * np.where(np.isfinite(pi_old), np.abs(pi_old), 0.0)
-        relc = diff / np.maximum(np.where(np.isfinite(pi_old), np.abs(pi_old), 1.0), 1.0)   # rel. to max(1, |old|)
-        i_abs = int(np.argmax(diff))
-        i_rel = int(np.argmax(relc))
-        m.update(bid_max_abs_change=float(diff[i_abs]), bid_max_abs_leg=legs_old[i_abs],
-                 bid_max_rel_change=float(relc[i_rel]), bid_max_rel_leg=legs_old[i_rel], bid_atol_used=atol)
-        moved = np.flatnonzero(diff > limit)
-        order = moved[np.argsort(-diff[moved])]
-        moved_legs = [legs_old[i] for i in order]
-        m["bid_moved_legs"] = moved_legs
-        if moved_legs:
-            detail = (f"{len(moved_legs)} leg(s) beyond {th['bid_rtol']:.3g} rel + {atol:.3g} abs: "
-                      f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {float(pi_old[i_abs])!r} -> "
-                      f"{float(pi_new[i_abs])!r}")
-            if rec["model"] in LP_MODELS and objective_same:
-                _alternative_duals(rep, inst, rec["model"], options.segments, pi_new, obj_old, th, moved_legs,
-                                   detail)
-            else:
-                rep.add("regression", "bid_prices", "bid prices moved: " + detail)
+        return
+    if not len(legs_old):
+        return
+    diff = np.abs(pi_new - pi_old)
+    diff = np.where(np.isfinite(diff), diff, np.inf)   # a NaN or infinite bid price, old or new, has moved
+    finite_old = np.abs(pi_old[np.isfinite(pi_old)])
+    scale = max(1.0, float(np.max(finite_old)) if len(finite_old) else 1.0)
+    atol = th["bid_atol"] if th["bid_atol"] is not None else th["bid_rtol"] * scale
+    limit = atol + th["bid_rtol"] * np.where(np.isfinite(pi_old), np.abs(pi_old), 0.0)
+    relc = diff / np.maximum(np.where(np.isfinite(pi_old), np.abs(pi_old), 1.0), 1.0)   # rel. to max(1, |old|)
+    i_abs = int(np.argmax(diff))
+    i_rel = int(np.argmax(relc))
+    m.update(bid_max_abs_change=float(diff[i_abs]), bid_max_abs_leg=legs_old[i_abs],
+             bid_max_rel_change=float(relc[i_rel]), bid_max_rel_leg=legs_old[i_rel], bid_atol_used=atol)
+    moved = np.flatnonzero(diff > limit)
+    order = moved[np.argsort(-diff[moved])]
+    moved_legs = [legs_old[i] for i in order]
+    m["bid_moved_legs"] = moved_legs
+    if not moved_legs:
+        return
+    detail = (f"{len(moved_legs)} leg(s) beyond {th['bid_rtol']:.3g} rel + {atol:.3g} abs: "
+              f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {float(pi_old[i_abs])!r} -> "
+              f"{float(pi_new[i_abs])!r}")
+    if rec["model"] in LP_MODELS and objective_same:
+        _alternative_duals(rep, inst, rec["model"], options.segments, pi_new, obj_old, th, moved_legs, detail)
+    else:
+        rep.add("regression", "bid_prices", "bid prices moved: " + detail)
 
-    # certificate
+
+def _compare_certificate(rep: CaseReport, rec, result) -> None:
+    """Each certificate figure may grow to certificate_factor times the old one, or its floor."""
+    th, m = rep.thresholds, rep.metrics
     cert_old = rec.get("certificate") or {}
     cert_new = result.certificate.to_dict() if result.certificate is not None else {}
     for name, floor in (("gap", th["gap_floor"]), ("max_violation_rel", th["violation_floor"]),
@@ -312,30 +342,35 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
             rep.add("regression", "certificate", f"certificate {name} {format_value(o)} -> {n:.3g} "
                                                  f"(limit max({th['certificate_factor']:g} x old, {floor:.3g}))")
 
-    # allocation
+
+def _compare_allocation(rep: CaseReport, rec, result) -> None:
+    """A changed allocation digest is a note (LP allocations may be non-unique), or a regression beyond
+    allocation_rtol when one is set."""
+    th, m = rep.thresholds, rep.metrics
     dig_old = rec.get("allocation") or {}
     dig_new = allocation_digest(result.allocation)
     m["allocation_digest_same"] = dig_old.get("sha256") == dig_new["sha256"]
-    if not m["allocation_digest_same"] and dig_old.get("sha256") is not None:
-        scale = max(1.0, abs(dig_old.get("max") or 0.0))
-        changes = {k: (abs((dig_new[k] or 0.0) - (dig_old[k] or 0.0)) / (max(1.0, abs(dig_old[k] or 0.0))
-                       if k == "sum" else scale)) for k in ("sum", "min", "max")}
-        m["allocation_changes"] = changes
-        worst = max(changes.values())
-        text = (f"allocation digest changed (at {SIG_DIGITS} significant digits); relative change of "
-                f"sum {changes['sum']:.3g}, min {changes['min']:.3g}, max {changes['max']:.3g}")
-        if th["allocation_rtol"] is not None and worst > th["allocation_rtol"]:
-            rep.add("regression", "allocation", text + f" > {th['allocation_rtol']:.3g}")
-        else:
-            rep.add("note", "allocation", text + (" (LP allocations may be non-unique)"
-                                                  if th["allocation_rtol"] is None else " (within tolerance)"))
+    if m["allocation_digest_same"] or dig_old.get("sha256") is None:
+        return
+    scale = max(1.0, abs(dig_old.get("max") or 0.0))
+    changes = {k: (abs((dig_new[k] or 0.0) - (dig_old[k] or 0.0)) / (max(1.0, abs(dig_old[k] or 0.0))
+                   if k == "sum" else scale)) for k in ("sum", "min", "max")}
+    m["allocation_changes"] = changes
+    worst = max(changes.values())
+    text = (f"allocation digest changed (at {SIG_DIGITS} significant digits); relative change of "
+            f"sum {changes['sum']:.3g}, min {changes['min']:.3g}, max {changes['max']:.3g}")
+    if th["allocation_rtol"] is not None and worst > th["allocation_rtol"]:
+        rep.add("regression", "allocation", text + f" > {th['allocation_rtol']:.3g}")
+    else:
+        rep.add("note", "allocation", text + (" (LP allocations may be non-unique)"
+                                              if th["allocation_rtol"] is None else " (within tolerance)"))
 
-    # a record that held nothing to compare (no objective, no bid prices) cannot pass
-    if obj_old is None and not len(legs_old):
-        rep.add("regression", "not_compared", f"the case was recorded {old_st} with no objective and no bid "
-                                              f"prices: there is nothing to compare it with; re-record the baseline")
 
-    # iterations and time
+def _compare_time(rep: CaseReport, rec, result, timed: float, time_again, repeat, confirm_runs) -> None:
+    """Iterations (a note) and time: beyond time_ratio times the recorded CPU time, timed again
+    ``confirm_runs`` more times (``time_again(runs)``: the best time of that many solves) before it is
+    a regression, reported with the machine's load."""
+    th, m = rep.thresholds, rep.metrics
     m["iterations_old"], m["iterations_new"] = rec.get("iterations"), result.iterations
     if rec.get("iterations") != result.iterations:
         rep.add("note", "iterations", f"iterations {rec.get('iterations')} -> {result.iterations}")
@@ -354,10 +389,8 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     ratio = ratio_of(t_new)
     runs = max(1, int(repeat))
     if ratio > th["time_ratio"] and confirm_runs > 0:
-        # A slow solve is timed again (best of all runs) before it counts: one slow run on a shared
-        # machine is noise more often than not.
-        _, _, again = timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, confirm_runs)
-        t_new, runs = min(t_new, again), runs + confirm_runs
+        # one slow run on a shared machine is noise more often than not
+        t_new, runs = min(t_new, time_again(confirm_runs)), runs + confirm_runs
         ratio = ratio_of(t_new)
     m.update(time_old=t_old, time_new=t_new, time_ratio=ratio, time_runs=runs, time_clock=clock_name)
     if ratio > th["time_ratio"]:
