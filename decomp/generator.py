@@ -284,12 +284,49 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
     (``n_products``, ``seed``, parameters). ``meta`` records the generator,
     seed and the resolved parameters, so :func:`generate` with
     ``**meta["params"]`` gives the same instance again.
+
+    The steps below draw from one random stream in a fixed order (stations, itineraries, fares,
+    demand, capacities): a change of that order changes every generated instance.
     """
+    n, seed, p = _checked(n_products, seed, params, overrides)
+    rng = np.random.default_rng(seed)
+    net, its, resolved = _network(n, p)
+    H, S, B, C = resolved.hubs, resolved.spokes, resolved.banks, resolved.fare_classes
+    codes, xy, size = _stations(H + S, H, rng)
+    its = its.take(_pick_itineraries(-(-n // C), its.kind, net, p, rng))
+
+    # products: itinerary-major, class-minor, the first n
+    it_of = np.repeat(np.arange(len(its.legs)), C)[:n]
+    cls = np.tile(np.arange(C), len(its.legs))[:n]
+    nleg = (its.legs >= 0).sum(1)[it_of]
+    leg_ptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(nleg, out=leg_ptr[1:])
+    leg_index = its.legs[it_of][its.legs[it_of] >= 0]        # row-major keeps travel order
+
+    dist = np.hypot(*(xy[its.origin] - xy[its.destination]).T)
+    fare = _fares(dist, its.kind, it_of, cls, p, rng)
+    mean, std, capacity = _demand(dist, size, its, net, it_of, cls, nleg, leg_index, B, p, rng)
+    leg_ids, product_ids, product_extra = _ids(net, codes, its, it_of, cls, C, p)
+    inst = Instance(
+        leg_ids=leg_ids, leg_origin=codes[net.leg_origin], leg_destination=codes[net.leg_destination],
+        capacity=capacity, product_ids=product_ids, leg_ptr=leg_ptr, leg_index=leg_index,
+        fare=fare, mean=mean, std=std, leg_extra={"bank": net.leg_bank + 1}, product_extra=product_extra,
+        meta={"name": f"hub{H}x{S}-p{n}-s{seed}", "generator": GENERATOR_NAME, "seed": seed,
+              "n_products": n, "params": resolved.to_dict()},
+    )
+    if p.demand is not None:
+        from . import demand_mix
+
+        inst = demand_mix.apply(inst, demand_mix.DemandMix.parse(p.demand), seed)
+    return inst
+
+
+def _checked(n_products, seed, params, overrides) -> tuple:
+    """(n, seed, the validated parameters with ``overrides`` applied); ConfigError otherwise."""
     if int(n_products) != n_products or n_products < 1:
         raise ConfigError(f"generator: n_products must be a positive integer, got {n_products!r}")
     if int(seed) != seed or seed < 0:
         raise ConfigError(f"generator: seed must be a non-negative integer, got {seed!r}")
-    n, seed = int(n_products), int(seed)
     p = params if params is not None else GeneratorParams()
     unknown = set(overrides) - {f.name for f in dataclasses.fields(GeneratorParams)}
     if unknown:
@@ -298,9 +335,25 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
     for k in ("demand_factor", "cv"):
         if k in overrides:
             overrides[k] = tuple(overrides[k])
-    p = dataclasses.replace(p, **overrides).validated()
-    rng = np.random.default_rng(seed)
+    return int(n_products), int(seed), dataclasses.replace(p, **overrides).validated()
 
+
+@dataclasses.dataclass(frozen=True)
+class _Itineraries:
+    """Itineraries as rows: up to three leg indices (-1 where none), kind (0 local, 1 one stop,
+    2 two stops), origin and destination stations."""
+
+    legs: np.ndarray
+    kind: np.ndarray
+    origin: np.ndarray
+    destination: np.ndarray
+
+    def take(self, rows) -> "_Itineraries":
+        return _Itineraries(self.legs[rows], self.kind[rows], self.origin[rows], self.destination[rows])
+
+
+def _network(n: int, p: GeneratorParams) -> tuple:
+    """(network, every itinerary it offers, the parameters resolved from the size) for n products."""
     H, B, C, two_stop, leg_target = _auto_shape(n, p)
     need = -(-n // C)                                   # itineraries to sell
     if p.spokes is not None:
@@ -310,78 +363,79 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
         while _pool_size(H, S, B, two_stop) < need:
             S = max(S + 1, int(S * 1.1))
     net = _Network(H, S, B)
-    legs3, kind, it_o, it_d = _itineraries(net, two_stop)
-    if len(legs3) < need:
+    its = _Itineraries(*_itineraries(net, two_stop))
+    if len(its.legs) < need:
         raise ConfigError(
             f"generator: the network (hubs={H}, spokes={S}, banks={B}, two_stop={two_stop}) has only "
-            f"{len(legs3)} itineraries, {need} needed for {n} products in {C} fare classes; "
+            f"{len(its.legs)} itineraries, {need} needed for {n} products in {C} fare classes; "
             "raise spokes, banks or fare_classes")
-    resolved = dataclasses.replace(p, hubs=H, spokes=S, banks=B, fare_classes=C, two_stop=two_stop)
+    return net, its, dataclasses.replace(p, hubs=H, spokes=S, banks=B, fare_classes=C, two_stop=two_stop)
 
-    # --- stations: codes, positions (km on a plane), sizes -----------------
-    n_st = H + S
+
+def _stations(n_st: int, hubs: int, rng) -> tuple:
+    """(codes, positions in km on a plane, sizes) of the stations, the hubs first: near the
+    centre and four times larger."""
     codes = _station_codes(n_st, rng)
     ang = rng.uniform(0, 2 * np.pi, n_st)
-    rad = np.where(np.arange(n_st) < H, rng.uniform(0, 300, n_st), rng.uniform(300, 2500, n_st))
+    rad = np.where(np.arange(n_st) < hubs, rng.uniform(0, 300, n_st), rng.uniform(300, 2500, n_st))
     xy = np.stack([rad * np.cos(ang), rad * np.sin(ang)], 1)
     size = rng.lognormal(0.0, 0.6, n_st)
-    size[:H] *= 4.0
+    size[:hubs] *= 4.0
+    return codes, xy, size
 
-    # --- pick itineraries: all locals first, then weighted connections -----
+
+def _pick_itineraries(need: int, kind, net, p: GeneratorParams, rng) -> np.ndarray:
+    """The rows of the ``need`` itineraries sold: every local one first, then connections drawn
+    by weight without replacement (Efraimidis-Spirakis keys)."""
     n_loc = int((kind == 0).sum())
     if need <= n_loc:
-        chosen = np.sort(rng.choice(n_loc, size=need, replace=False))
         if need < net.n_legs:
             log.warning("generator: %d legs but only %d itineraries; some legs carry no product",
                         net.n_legs, need)
-    else:
-        w = np.where(kind[n_loc:] == 1, p.one_stop_weight, p.two_stop_weight)
-        keys = np.log(rng.uniform(1e-300, 1.0, len(w))) / w   # Efraimidis-Spirakis keys
-        k = need - n_loc
-        top = np.argpartition(-keys, k - 1)[:k] if k < len(w) else np.arange(len(w))
-        chosen = np.concatenate([np.arange(n_loc), n_loc + np.sort(top)])
-    legs3, kind, it_o, it_d = legs3[chosen], kind[chosen], it_o[chosen], it_d[chosen]
-    n_it = len(chosen)
+        return np.sort(rng.choice(n_loc, size=need, replace=False))
+    w = np.where(kind[n_loc:] == 1, p.one_stop_weight, p.two_stop_weight)
+    keys = np.log(rng.uniform(1e-300, 1.0, len(w))) / w
+    k = need - n_loc
+    top = np.argpartition(-keys, k - 1)[:k] if k < len(w) else np.arange(len(w))
+    return np.concatenate([np.arange(n_loc), n_loc + np.sort(top)])
 
-    # --- products: itinerary-major, class-minor, first n -------------------
-    it_of = np.repeat(np.arange(n_it), C)[:n]
-    cls = np.tile(np.arange(C), n_it)[:n]
-    nleg_it = (legs3 >= 0).sum(1)
-    nleg = nleg_it[it_of]
-    leg_ptr = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(nleg, out=leg_ptr[1:])
-    leg_index = legs3[it_of][legs3[it_of] >= 0]        # row-major keeps travel order
 
-    # fares: top fare from market distance, ladder down by fare_ratio
-    dist = np.hypot(*(xy[it_o] - xy[it_d]).T)
-    top = (60.0 + 0.22 * dist) * np.array([1.0, 0.92, 0.85])[kind] * rng.uniform(0.9, 1.1, n_it)
-    jitter = rng.uniform(0.96, 1.04, n)
-    fare = np.maximum(1.0, np.round(top[it_of] * p.fare_ratio ** cls * jitter))
+def _fares(dist, kind, it_of, cls, p: GeneratorParams, rng) -> np.ndarray:
+    """The top fare of a market from its distance, laddered down by fare_ratio per class."""
+    top = (60.0 + 0.22 * dist) * np.array([1.0, 0.92, 0.85])[kind] * rng.uniform(0.9, 1.1, len(kind))
+    jitter = rng.uniform(0.96, 1.04, len(it_of))
+    return np.maximum(1.0, np.round(top[it_of] * p.fare_ratio ** cls * jitter))
 
-    # demand: gravity-like market weight, lower classes get more
-    bank_pref = rng.uniform(0.6, 1.4, B)
-    first_bank = net.leg_bank[legs3[:, 0]]
-    market = (size[it_o] * size[it_d] / np.sqrt(50.0 + dist) * np.array([1.0, 0.5, 0.25])[kind]
-              * bank_pref[first_bank] * rng.lognormal(0.0, 0.4, n_it))
-    raw = market[it_of] * p.class_growth ** cls * rng.uniform(0.7, 1.3, n)
+
+def _demand(dist, size, its, net, it_of, cls, nleg, leg_index, banks: int, p: GeneratorParams, rng) -> tuple:
+    """(mean, std, capacity): a gravity-like market weight, more demand in the lower classes,
+    scaled so the median leg sees ``seats``; capacities set each leg's demand factor."""
+    bank_pref = rng.uniform(0.6, 1.4, banks)
+    first_bank = net.leg_bank[its.legs[:, 0]]
+    market = (size[its.origin] * size[its.destination] / np.sqrt(50.0 + dist)
+              * np.array([1.0, 0.5, 0.25])[its.kind] * bank_pref[first_bank] * rng.lognormal(0.0, 0.4, len(dist)))
+    raw = market[it_of] * p.class_growth ** cls * rng.uniform(0.7, 1.3, len(it_of))
     raw_load = np.bincount(leg_index, weights=np.repeat(raw, nleg), minlength=net.n_legs)
     used = raw_load > 0
     scale = p.seats / np.median(raw_load[used]) if used.any() else 1.0
     mean = _round_sig(np.maximum(raw * scale, 1e-6), 4)
-    cv = rng.uniform(p.cv[0], p.cv[1], n)
+    cv = rng.uniform(p.cv[0], p.cv[1], len(it_of))
     std = _round_sig(mean * cv, 4)
     load = np.bincount(leg_index, weights=np.repeat(mean, nleg), minlength=net.n_legs)
     target_df = rng.uniform(p.demand_factor[0], p.demand_factor[1], net.n_legs)
-    capacity = np.maximum(1.0, np.round(load / target_df))
+    return mean, std, np.maximum(1.0, np.round(load / target_df))
 
-    # --- ids -----------------------------------------------------------------
+
+def _ids(net, codes, its, it_of, cls, C: int, p: GeneratorParams) -> tuple:
+    """(leg ids ``<flight>-<origin>-<destination>``, product ids ``<flights>-<class letter>``, the
+    products' origin, destination and fare-class columns)."""
     width = max(4, len(str(100 + net.n_legs)))
     flights = np.array([f"{p.carrier}{100 + i + 1:0{width}d}" for i in range(net.n_legs)], dtype=object)
     leg_ids = np.array([f"{f}-{codes[o]}-{codes[d]}" for f, o, d in
                         zip(flights, net.leg_origin, net.leg_destination)], dtype=object)
     fl = pa.array(flights.tolist(), pa.string())
-    cols = [pc.take(fl, pa.array(np.where(legs3[:, k] >= 0, legs3[:, k], 0),
-                                 mask=legs3[:, k] < 0)) for k in range(3)]
+    cols = [pc.take(fl, pa.array(np.where(its.legs[:, k] >= 0, its.legs[:, k], 0),
+                                 mask=its.legs[:, k] < 0)) for k in range(3)]
     itin_id = pc.binary_join_element_wise(*cols, ".", null_handling="skip")
     letters = pa.array(list(_CLASS_LETTERS[:C]), pa.string())
     prod_id = pc.binary_join_element_wise(pc.take(itin_id, pa.array(it_of)),
@@ -391,34 +445,7 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
     def strings(arr):
         return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=object)
 
-    meta = {
-        "name": f"hub{H}x{S}-p{n}-s{seed}",
-        "generator": GENERATOR_NAME,
-        "seed": seed,
-        "n_products": n,
-        "params": resolved.to_dict(),
-    }
-    inst = Instance(
-        leg_ids=leg_ids,
-        leg_origin=codes[net.leg_origin],
-        leg_destination=codes[net.leg_destination],
-        capacity=capacity,
-        product_ids=strings(prod_id),
-        leg_ptr=leg_ptr,
-        leg_index=leg_index,
-        fare=fare,
-        mean=mean,
-        std=std,
-        leg_extra={"bank": net.leg_bank + 1},
-        product_extra={
-            "origin": strings(pc.take(code_arr, pa.array(it_o[it_of]))),
-            "destination": strings(pc.take(code_arr, pa.array(it_d[it_of]))),
-            "fare_class": strings(pc.take(letters, pa.array(cls))),
-        },
-        meta=meta,
-    )
-    if p.demand is not None:
-        from . import demand_mix
-
-        inst = demand_mix.apply(inst, demand_mix.DemandMix.parse(p.demand), seed)
-    return inst
+    extra = {"origin": strings(pc.take(code_arr, pa.array(its.origin[it_of]))),
+             "destination": strings(pc.take(code_arr, pa.array(its.destination[it_of]))),
+             "fare_class": strings(pc.take(letters, pa.array(cls)))}
+    return leg_ids, strings(prod_id), extra
