@@ -87,28 +87,53 @@ def register(sub):
 
 
 def run(args) -> int:
+    from ..production.lock import RunLockedError
+    from ..production.runner import OutputFolderError, run_batch
+    from ..production.signals import terminate_as_interrupt
+
+    _quiet_dask_logs(getattr(args, "verbose", False))
+    batch, cfg, method = _checked_run(args)
+    on_event, close_bar = _progress_events(_progress.wanted(args), args.window)
+    print(f"decomp run: {batch.description}; {args.model} by {method}, tol {args.tol:g}; out {cfg.out}")
+    try:
+        with terminate_as_interrupt():
+            s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
+                          window=args.window, on_event=on_event, dashboard=args.dashboard)
+    except (RunLockedError, OutputFolderError) as exc:
+        print(f"decomp run: error: {exc}", file=sys.stderr)
+        return 1
+    except (OSError, TimeoutError) as exc:
+        where = f"the scheduler at {args.scheduler}" if args.scheduler else "the embedded cluster"
+        print(f"decomp run: error: could not use {where}: {type(exc).__name__}: {exc}", file=sys.stderr)
+        return 1
+    finally:
+        close_bar()
+    return _report(s, args, cfg)
+
+
+def _quiet_dask_logs(verbose: bool) -> None:
+    """distributed logs every worker start and stop at INFO; the terminal is kept for the progress
+    bar unless -v. (distributed is imported first: importing it sets its loggers' levels.)"""
     import logging
 
-    # distributed logs every worker start and stop at INFO; keep the terminal for the progress bar
-    # (imported first: importing it sets its loggers' levels from its config)
     import distributed  # noqa: F401
 
     for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
                  "distributed.http.proxy", "distributed.diskutils", "distributed.worker"):
-        logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
-    from ..options import SolverOptions
-    from ..production.batch import DateVariation, build_batch
-    from ..production.durations import format_duration
-    from ..production.fallback import Fallback, parse as parse_fallback
-    from ..production.lock import RunLockedError
-    from ..production.runner import OutputFolderError, RunConfig, run_batch
-    from ..production.signals import terminate_as_interrupt
+        logging.getLogger(name).setLevel(logging.INFO if verbose else logging.ERROR)
 
+
+def _checked_run(args) -> tuple:
+    """(batch, RunConfig, method) from the arguments, every one checked before anything starts
+    (exit 2, the option named)."""
+    from ..options import SolverOptions
     from ..paths import output_folder
+    from ..production.batch import DateVariation, build_batch
+    from ..production.fallback import Fallback, parse as parse_fallback
+    from ..production.runner import RunConfig
     from ._options import check_method, existing_folder, method_or_default
 
-    window = args.window
-    output_folder(args.out, "--out")               # before anything starts: exit 2, the path named
+    output_folder(args.out, "--out")
     method = method_or_default(args.method, args.model)
     check_method(method, args.model)
     fallback = parse_fallback(args.fallback)
@@ -118,15 +143,21 @@ def run(args) -> int:
         check_scheduler(args.scheduler)
     if args.warm_start_from is not None:
         existing_folder(args.warm_start_from, "--warm-start")
-    dates = run_dates(args)
     variation = DateVariation(seed=args.variation_seed, sigma=args.variation_sigma, seasonal=args.seasonal)
-    batch = build_batch(args.batch, dates, variation, demand=args.demand)
+    batch = build_batch(args.batch, run_dates(args), variation, demand=args.demand)
     options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
                             threads=1)
     cfg = RunConfig(model=args.model, method=method, options=options, out=args.out,
                     warm_start_from=args.warm_start_from, fallback=args.fallback)
+    return batch, cfg, method
+
+
+def _progress_events(show_bar: bool, window) -> tuple:
+    """(on_event for run_batch, close): a progress bar with the projected finish and whether it
+    fits ``window``, or only the failures printed where there is no terminal."""
+    from ..production.durations import format_duration
+
     bar = {}
-    show_bar = _progress.wanted(args)
 
     def on_event(kind, rec, prog):
         if not show_bar:
@@ -150,22 +181,18 @@ def run(args) -> int:
         b.set_postfix(post, refresh=False)
         b.update(1)
 
-    print(f"decomp run: {batch.description}; {args.model} by {method}, tol {args.tol:g}; out {cfg.out}")
-    try:
-        with terminate_as_interrupt():
-            s = run_batch(batch, cfg, scheduler=args.scheduler, workers=args.workers, retries=args.retries,
-                          window=window, on_event=on_event, dashboard=args.dashboard)
-    except (RunLockedError, OutputFolderError) as exc:
-        print(f"decomp run: error: {exc}", file=sys.stderr)
-        return 1
-    except (OSError, TimeoutError) as exc:
-        where = f"the scheduler at {args.scheduler}" if args.scheduler else "the embedded cluster"
-        print(f"decomp run: error: could not use {where}: {type(exc).__name__}: {exc}", file=sys.stderr)
-        return 1
-    finally:
+    def close():
         if "b" in bar:
             bar["b"].close()
-    t = s["totals"]
+
+    return on_event, close
+
+
+def _report(s: dict, args, cfg) -> int:
+    """Print the run's totals, what went wrong and where the summary is; 0 when every task is ok."""
+    from ..production.durations import format_duration
+
+    t, window = s["totals"], args.window
     print(f"{t['n_tasks']} tasks: {t['ok']} ok, {t['not_optimal']} not optimal, {t['failed']} failed, "
           f"{t['skipped']} skipped (finished earlier); wall {format_duration(t['wall_seconds'])}"
           + (f" of window {format_duration(window)}: {'fits' if t['fits_window'] else 'DOES NOT FIT'}"
