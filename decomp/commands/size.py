@@ -91,17 +91,38 @@ def _m(s):
 
 def run(args) -> int:
     import json
-    import sys
-    import os
     import pathlib
+    import sys
 
     from .. import atomic
+    from ..paths import output_folder, refusing
     from ..production import sizing
 
-    from ..paths import output_folder, refusing
-
     output_folder(args.out, "--out")               # before anything is fitted: exit 2, the path named
-    window = args.window
+    s = _sizing(args)
+    out = pathlib.Path(args.out)
+    atomic.write_json(out / "sizing.json", s)
+    with refusing(out / "sizing.png"):
+        sizing.plot(s, out / "sizing.png")
+    if s.get("calibration") and s["calibration"]["warning"]:
+        print(f"decomp size: warning: {s['calibration']['warning']}", file=sys.stderr)
+    if args.json:
+        print(json.dumps(s, indent=2))
+    else:
+        _print_sizing(s, args)
+        verdict = "FITS" if s["result"]["fits"] else "DOES NOT FIT"
+        print(f"verdict: {verdict} on {s['workers']} workers; written {out / 'sizing.json'}, {out / 'sizing.png'}")
+    return 0 if s["result"]["fits"] else 1
+
+
+def _sizing(args) -> dict:
+    """The sizing of the arguments' run (production.sizing.size_run), with where its per-task
+    overhead came from."""
+    import os
+
+    from ..production import sizing
+    from ._options import method_or_default
+
     overhead, startup, source = 0.0, 0.0, "none given (0 s)"
     if args.run_summary:
         overhead, startup = sizing.read_run_overhead(args.run_summary)
@@ -117,30 +138,22 @@ def run(args) -> int:
 
             raise ConfigError("--calibrate needs --run-summary (a decomp run summary.json)")
         calibration = sizing.read_run_solves(args.run_summary)
-    workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
-    cases = sizing.load_bench(args.bench)
-    sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
-    from ._options import method_or_default
-
-    method = method_or_default(args.method, args.model)
-    s = sizing.size_run(cases, model=args.model, method=method, tol=args.tol, task_products=sizes,
-                        workers=workers, window=window, overhead=overhead, startup=startup,
-                        variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration,
+    s = sizing.size_run(sizing.load_bench(args.bench), model=args.model,
+                        method=method_or_default(args.method, args.model), tol=args.tol,
+                        task_products=sizing.task_sizes(args.dates, args.products, args.networks, args.instances),
+                        workers=args.workers if args.workers is not None else (os.cpu_count() or 1),
+                        window=args.window, overhead=overhead, startup=startup, variant=args.variant,
+                        fit_min_products=args.fit_min_products, calibration=calibration,
                         revenue_loss=args.revenue_loss)
     s["overhead_source"] = source
-    r, f = s["result"], s["result"]["fit"]
-    out = pathlib.Path(args.out)
-    atomic.write_json(out / "sizing.json", s)
-    with refusing(out / "sizing.png"):
-        sizing.plot(s, out / "sizing.png")
-    if s.get("calibration") and s["calibration"]["warning"]:
-        print(f"decomp size: warning: {s['calibration']['warning']}", file=sys.stderr)
-    if args.json:
-        print(json.dumps(s, indent=2))
-        return 0 if r["fits"] else 1
+    return s
 
+
+def _print_sizing(s: dict, args) -> None:
+    """The sizing as text: the fit, its calibration, the time per task and the table by tolerance."""
+    r, f = s["result"], s["result"]["fit"]
     print(f"decomp size: {s['tasks']} tasks of {s['products_min']:,.0f}..{s['products_max']:,.0f} products, "
-          f"{s['model']} by {s['variant']}, tol {r['tol']:g}, {s['workers']} workers, window {_m(window)}")
+          f"{s['model']} by {s['variant']}, tol {r['tol']:g}, {s['workers']} workers, window {_m(args.window)}")
     bse = "-" if f["b_stderr"] is None else f"{f['b_stderr']:.3f}"
     print(f"  fit: t = {f['a']:.3g} * n^{f['b']:.3f} (stderr of b {bse}; {f['n_points']} cases, "
           f"n {f['n_range'][0]:,.0f}..{f['n_range'][1]:,.0f}{'; EXTRAPOLATED' if r['extrapolated'] else ''})")
@@ -155,11 +168,19 @@ def run(args) -> int:
               f"{args.run_summary} are {cal['factor']:.2f}x the benchmark fit (median; {cal['ratio_range'][0]:.2f} to "
               f"{cal['ratio_range'][1]:.2f}); the fit is scaled by that and applied at "
               f"{cal['applied_at_products']:,.0f} products, {cal['reach']:.3g}x the pilot's largest task")
+    print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {s['overhead_per_task_seconds']:.3f} s "
+          f"({s['overhead_source']}); start-up {s['startup_seconds']:.1f} s")
+    _print_by_tol(s)
+    if s["revenue"] is not None:
+        _print_revenue(s["revenue"])
 
-    print(f"  per task: solve {r['per_task_solve_seconds']:.3f} s + overhead {overhead:.3f} s ({source}); "
-          f"start-up {startup:.1f} s")
+
+def _print_by_tol(s: dict) -> None:
+    """The wall time, its interval, the fit to the window and the fewest workers, per tolerance."""
+    from ..production import sizing
+
     rows = [("tol", "wall", "95% interval", "fits", "margin", "fewest workers (central/high)")]
-    for x in [r] + s["looser"]:
+    for x in [s["result"]] + s["looser"]:
         iv = "-" if x["wall_low"] is None else f"{_m(x['wall_low'])}..{_m(x['wall_high'])}"
         margin = ("+" if x["margin_seconds"] >= 0 else "-") + _m(abs(x["margin_seconds"]))
         rows.append((f"{x['tol']:g}", _m(x["wall_seconds"]), iv, "yes" if x["fits"] else "NO", margin,
@@ -174,11 +195,6 @@ def run(args) -> int:
               + ", ".join(f"{t:g}" for t in s["looser_too_few_sizes"]) + ")")
     elif not s["looser"]:
         print("  (no benchmark cases at a looser tolerance for this method)")
-    if s["revenue"] is not None:
-        _print_revenue(s["revenue"])
-    verdict = "FITS" if r["fits"] else "DOES NOT FIT"
-    print(f"verdict: {verdict} on {s['workers']} workers; written {out / 'sizing.json'}, {out / 'sizing.png'}")
-    return 0 if r["fits"] else 1
 
 
 def _print_revenue(rv: dict) -> None:
