@@ -22,3 +22,19 @@ def wanted(args=None, stream=None) -> bool:
         return bool(stream.isatty())
     except (AttributeError, ValueError):       # no isatty, or a closed stream
         return False
+
+
+#: distributed's loggers that report every worker start and stop at INFO.
+DASK_LOGGERS = ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
+                "distributed.batched", "distributed.worker", "distributed.diskutils", "distributed.http.proxy")
+
+
+def quiet_dask_logs(verbose: bool) -> None:
+    """Keep the terminal for the bar and the summary: distributed's loggers at ERROR unless -v.
+    distributed is imported first, since importing it sets its loggers' levels from its config."""
+    import logging
+
+    import distributed  # noqa: F401
+
+    for name in DASK_LOGGERS:
+        logging.getLogger(name).setLevel(logging.INFO if verbose else logging.ERROR)

@@ -91,7 +91,7 @@ def run(args) -> int:
     from ..production.runner import OutputFolderError, run_batch
     from ..production.signals import terminate_as_interrupt
 
-    _quiet_dask_logs(getattr(args, "verbose", False))
+    _progress.quiet_dask_logs(getattr(args, "verbose", False))
     batch, cfg, method = _checked_run(args)
     on_event, close_bar = _progress_events(_progress.wanted(args), args.window)
     print(f"decomp run: {batch.description}; {args.model} by {method}, tol {args.tol:g}; out {cfg.out}")
@@ -109,18 +109,6 @@ def run(args) -> int:
     finally:
         close_bar()
     return _report(s, args, cfg)
-
-
-def _quiet_dask_logs(verbose: bool) -> None:
-    """distributed logs every worker start and stop at INFO; the terminal is kept for the progress
-    bar unless -v. (distributed is imported first: importing it sets its loggers' levels.)"""
-    import logging
-
-    import distributed  # noqa: F401
-
-    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
-                 "distributed.http.proxy", "distributed.diskutils", "distributed.worker"):
-        logging.getLogger(name).setLevel(logging.INFO if verbose else logging.ERROR)
 
 
 def _checked_run(args) -> tuple:

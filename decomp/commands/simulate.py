@@ -96,31 +96,53 @@ def register(sub):
 
 
 def run(args) -> int:
-    import logging
-
-    for name in ("distributed", "distributed.nanny", "distributed.scheduler", "distributed.core",
-                 "distributed.batched", "distributed.worker", "distributed.diskutils", "distributed.http.proxy"):
-        logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
-    from ..simulation import ForecastError, SimulationConfig, parse_policies, simulate
-    from ..simulation import report
+    from ..paths import refusing
+    from ..simulation import report, simulate
     from ..simulation.cluster import open_client
+
+    instance, cfg = _checked_simulation(args)
+    if args.workers == 0 and args.scheduler is None:
+        print("decomp simulate: --workers 0: the paths run in this process (no Dask cluster)", file=sys.stderr)
+    else:
+        _progress.quiet_dask_logs(getattr(args, "verbose", False))
+    on_progress, close_bar = _path_progress(_progress.wanted(args))
+    try:
+        with open_client(args.workers, args.scheduler) as client:
+            result = simulate(instance, cfg, client=client, on_progress=on_progress)
+    finally:
+        close_bar()
+    summary = result.summary()
+    with refusing(args.out):
+        files = report.write(summary, args.out)
+    print("\n".join(report.header_lines(summary)))
+    print()
+    print(report.text_table(summary))
+    print()
+    for f in files:
+        print(f"wrote {f}")
+    for line in report.reoptimization_lines(summary):
+        if line.startswith("WARNING"):
+            print(f"decomp simulate: {line}", file=sys.stderr)
+    return 0
+
+
+def _checked_simulation(args) -> tuple:
+    """(instance, SimulationConfig) from the arguments, every one checked before anything is
+    simulated (exit 2, the option named)."""
     from ..errors import UnknownMethodError
+    from ..paths import output_folder
+    from ..production import fallback
+    from ..simulation import ForecastError, SimulationConfig, parse_policies
     from ..simulation.errors import SimulationConfigError
-    from ._options import load_instance
+    from ._options import check_method, check_scheduler, load_instance
 
-    from ..paths import output_folder, refusing
-
-    output_folder(args.out, "--out")               # before anything is simulated: exit 2, the path named
+    output_folder(args.out, "--out")
     every = _floats(args.reoptimize_every, "--reoptimize-every", 0.0, above=True)
     biases = _floats(args.forecast_bias, "--forecast-bias", -1.0, above=True)
     sigmas = _floats(args.sigma_factor, "--sigma-factor", 0.0)
     errors = [ForecastError(bias=b, sigma_factor=s, spread=args.bias_spread) for b in biases for s in sigmas]
-    from ..production import fallback
-
     fb = fallback.parse(args.fallback)
     if isinstance(fb, fallback.Fallback):
-        from ._options import check_method
-
         for model in ("dlp", "pnlp"):              # a fallback serves the policies' models
             try:
                 check_method(fb.method, model, "--fallback")
@@ -140,15 +162,14 @@ def run(args) -> int:
         cfg.check(instance)
     except (SimulationConfigError, UnknownMethodError) as exc:
         raise SimulationConfigError(f"--policies {args.policies!r}: {exc}") from None
-    if args.workers == 0 and args.scheduler is None:
-        print("decomp simulate: --workers 0: the paths run in this process (no Dask cluster)", file=sys.stderr)
-    elif args.scheduler is not None:
-        from ._options import check_scheduler
-
+    if args.scheduler is not None:
         check_scheduler(args.scheduler)
+    return instance, cfg
 
+
+def _path_progress(show_bar: bool) -> tuple:
+    """(on_progress for simulate, close): a bar of paths done, its total as planned so far."""
     bar = {}
-    show_bar = _progress.wanted(args)
 
     def on_progress(done, planned):
         if not show_bar:
@@ -163,22 +184,8 @@ def run(args) -> int:
         b.n = done
         b.refresh()
 
-    try:
-        with open_client(args.workers, args.scheduler) as client:
-            result = simulate(instance, cfg, client=client, on_progress=on_progress)
-    finally:
+    def close():
         if "b" in bar:
             bar["b"].close()
-    summary = result.summary()
-    with refusing(args.out):
-        files = report.write(summary, args.out)
-    print("\n".join(report.header_lines(summary)))
-    print()
-    print(report.text_table(summary))
-    print()
-    for f in files:
-        print(f"wrote {f}")
-    for line in report.reoptimization_lines(summary):
-        if line.startswith("WARNING"):
-            print(f"decomp simulate: {line}", file=sys.stderr)
-    return 0
+
+    return on_progress, close
