@@ -307,7 +307,6 @@ def test_answer_does_not_depend_on_the_clock(monkeypatch):
         assert np.array_equal(slow.bid_price_array, fast.bid_price_array)
 
 
-@pytest.mark.slow      # 5,010 products of negative-binomial demand, solved to tol 1e-9
 def test_discrete_demand_at_scale_is_certified():
     # Negative-binomial demand on 5,010 products: with whole seats the PNLP is a linear
     # program, whose split of a leg's last seats the dual leaves open; the restricted

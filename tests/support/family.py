@@ -196,55 +196,88 @@ def draw(seed: int, max_products: int = 3000) -> tuple[Instance, dict]:
 # ---------------------------------------------------------------------------
 # The independent certificate (scipy.stats only)
 # ---------------------------------------------------------------------------
-def _dist(fam, m, s):
+# Each product's expected sales S(x) = E[min(max(D, 0), x)] and subproblem maximum are evaluated
+# with scipy.stats' vectorized functions, one family at a time, never with decomp's own demand code.
+
+_DISCRETE = ("poisson", "negbin")
+
+
+def _frozen(fam, m, s):
+    """scipy.stats' distribution of family ``fam`` with means ``m`` and standard deviations ``s``
+    (arrays; negative binomial as scipy's nbinom(r, p) with r = m^2 / (s^2 - m), p = m / s^2)."""
     if fam == "normal":
         return stats.norm(m, s)
     if fam == "gamma":
         return stats.gamma((m / s) ** 2, scale=s * s / m)
     if fam == "poisson":
         return stats.poisson(m)
-    r = m * m / (s * s - m)
-    return stats.nbinom(r, m / (s * s))
+    return stats.nbinom(m * m / (s * s - m), m / (s * s))
 
 
-def expected_sales(fam, m, s, x):
-    """E[min(max(D, 0), x)] for one product, with x >= 0 (integrals of scipy.stats' survival
-    functions: for discrete demand the piecewise-linear interpolation between integers)."""
-    if x <= 0:
-        return 0.0
-    if s <= 0 or (fam in ("poisson", "negbin", "gamma") and m <= 0):
-        return min(x, max(m, 0.0))
-    d = _dist(fam, m, s)
-    if fam in ("poisson", "negbin"):
-        n = int(np.floor(x))
-        k = np.arange(n)
-        return float(np.sum(d.sf(k)) + (x - n) * d.sf(n))
+def _sales(fam, m, s, x):
+    """S(x) for products of one family whose demand is random (s > 0, and m > 0 where D >= 0), at
+    x >= 0: the integral of P(D > t) over [0, x] (a fact of nonnegative random variables), in
+    closed form for the normal (its loss function) and gamma (E[D 1{D <= x}] = m P(D' <= x) with
+    D' of shape k + 1) and for discrete demand the sum of P(D > k) over the whole units below x
+    plus the fraction of the next one (the piecewise-linear interpolation between integers)."""
     if fam == "normal":
-        # E[min(max(D,0), x)] = int_0^x P(D > t) dt; by the normal loss function
-        z0, z1 = -m / s, (x - m) / s
         loss = lambda z: stats.norm.pdf(z) - z * stats.norm.sf(z)   # noqa: E731
-        return float(s * (loss(z0) - loss(z1)))
-    k = (m / s) ** 2
-    theta = s * s / m
-    return float(m * stats.gamma(k + 1, scale=theta).cdf(x) + x * d.sf(x))
+        return s * (loss(-m / s) - loss((x - m) / s))
+    if fam == "gamma":
+        k, theta = (m / s) ** 2, s * s / m
+        return m * stats.gamma.cdf(x, k + 1, scale=theta) + x * stats.gamma.sf(x, k, scale=theta)
+    n = np.floor(x).astype(np.int64)
+    whole = np.zeros(len(x))
+    ends = np.cumsum(n)
+    start = 0
+    while start < len(x):                  # chunks of at most about 2 million terms
+        stop = max(start + 1, int(np.searchsorted(ends, ends[start] - n[start] + 2_000_000, side="right")))
+        nc = n[start:stop]
+        owner = np.repeat(np.arange(start, stop), nc)
+        k = np.arange(nc.sum()) - np.repeat(np.cumsum(nc) - nc, nc)     # 0 .. n_j - 1 for each product j
+        whole[start:stop] = np.bincount(owner - start, weights=_frozen(fam, m[owner], s[owner]).sf(k),
+                                        minlength=stop - start)
+        start = stop
+    return whole + (x - n) * _frozen(fam, m, s).sf(n)
 
 
-def subproblem_max(fam, m, s, f, a, u):
-    """max over 0 <= x <= u of f S(x) - a x, by the newsvendor condition f P(D > x) = a."""
-    if s <= 0 or (fam in ("poisson", "negbin", "gamma") and m <= 0):
-        cands = [0.0, min(max(m, 0.0), u)]
-    elif fam in ("poisson", "negbin"):
-        # concave piecewise linear between the integers: the optimum is an integer or u
-        d = _dist(fam, m, s)
-        k = np.arange(int(np.floor(u)) + 1)
-        sales = np.concatenate([[0.0], np.cumsum(d.sf(k[:-1]))])
-        best = float(np.max(f * sales - a * k))
-        return max(best, f * expected_sales(fam, m, s, u) - a * u)
-    else:
-        ratio = a / f
-        x = 0.0 if ratio >= 1.0 else (np.inf if ratio <= 0 else float(_dist(fam, m, s).isf(ratio)))
-        cands = [0.0, float(np.clip(x, 0.0, u)), u]
-    return max(f * expected_sales(fam, m, s, x) - a * x for x in cands)
+def _known(fam, m, s):
+    """Products whose sales are min(x, max(m, 0)): std 0, or a nonnegative family with mean <= 0."""
+    return (s <= 0) | ((fam != "normal") & (m <= 0))
+
+
+def expected_sales(fams, m, s, x):
+    """E[min(max(D, 0), x)] per product (arrays; families by name), with x >= 0."""
+    x = np.maximum(np.asarray(x, dtype=float), 0.0)
+    out = np.minimum(x, np.maximum(m, 0.0))
+    for fam in np.unique(fams):
+        j = (fams == fam) & ~_known(fam, m, s) & (x > 0)
+        if j.any():
+            out[j] = _sales(fam, m[j], s[j], x[j])
+    return np.where(x > 0, out, 0.0)
+
+
+def _candidates(fams, m, s, f, a, u):
+    """Allocations among which max_{0 <= x <= u} f S(x) - a x lies: the newsvendor condition
+    f P(D > x) = a gives it for continuous demand (or x = 0, x = u); for discrete demand the
+    objective is concave and piecewise linear between the integers, so its maximum is at the
+    smallest whole k with f P(D > k) <= a (scipy's isf, with its neighbours against rounding),
+    or at u where that k lies beyond it."""
+    ratio = a / f
+    known = _known(fams, m, s)
+    discrete = np.isin(fams, _DISCRETE) & ~known
+    cands = [np.zeros_like(u), np.where(discrete, 0.0, u)]       # discrete: u is reached by clipping
+    cands.append(np.where(known, np.minimum(np.maximum(m, 0.0), u), 0.0))
+    inner = np.zeros_like(u)
+    for fam in np.unique(fams):
+        j = (fams == fam) & ~known & (ratio > 0) & (ratio < 1)
+        if j.any():
+            inner[j] = _frozen(fam, m[j], s[j]).isf(ratio[j])
+    inner = np.where(ratio <= 0, u, np.where(ratio >= 1, 0.0, inner))
+    for shift in ((-1.0, 0.0, 1.0) if discrete.any() else (0.0,)):
+        x = np.where(discrete, inner + shift, inner)
+        cands.append(np.clip(np.where(known, 0.0, x), 0.0, u))
+    return cands
 
 
 def relative_gap(dual: float, primal: float) -> float:
@@ -260,18 +293,18 @@ def independent_certificate(inst: Instance, x, pi):
     A x <= c already implies x_j <= u_j, it is an upper bound on the PNLP optimum for every
     pi >= 0 (weak duality, a mathematical fact)."""
     fams = (np.full(inst.n_products, "normal", dtype=object) if inst.distribution is None
-            else np.asarray(inst.distribution, dtype=object))
+            else np.asarray(inst.distribution, dtype=object)).astype(str)
     x = np.asarray(x, dtype=float)
     pi = np.asarray(pi, dtype=float)
-    primal = 0.0
-    dual = float(inst.capacity @ pi)
-    for j in range(inst.n_products):
-        legs = inst.leg_index[inst.leg_ptr[j]:inst.leg_ptr[j + 1]]
-        f, m, s = float(inst.fare[j]), float(inst.mean[j]), float(inst.std[j])
-        fam = fams[j]
-        primal += f * expected_sales(fam, m, s, max(x[j], 0.0))
-        u = 2.0 * float(inst.capacity[legs].min()) + 1.0
-        dual += subproblem_max(fam, m, s, f, float(pi[legs].sum()), u)
+    f, m, s = (np.asarray(v, dtype=float) for v in (inst.fare, inst.mean, inst.std))
+    primal = float(f @ expected_sales(fams, m, s, x))
+    owner = np.repeat(np.arange(inst.n_products), np.diff(inst.leg_ptr))
+    a = np.bincount(owner, weights=pi[inst.leg_index], minlength=inst.n_products)
+    u = np.full(inst.n_products, np.inf)
+    np.minimum.at(u, owner, np.asarray(inst.capacity, dtype=float)[inst.leg_index])
+    u = 2.0 * u + 1.0
+    best = np.max([f * expected_sales(fams, m, s, c) - a * c for c in _candidates(fams, m, s, f, a, u)], axis=0)
+    dual = float(inst.capacity @ pi) + float(best.sum())
     load = inst.A @ x
     viol = float(np.max((load - inst.capacity) / np.maximum(inst.capacity, 1.0), initial=0.0))
     return primal, dual, max(viol, float(-x.min(initial=0.0)))
