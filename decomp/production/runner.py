@@ -415,20 +415,13 @@ def run_batch(batch: Batch, cfg: RunConfig, *, client=None, scheduler: str | Non
 
 
 def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on_event, dashboard) -> dict:
+    """The run, the output folder locked: resume what is verified finished, solve the rest on the
+    cluster, then (signals held) close what was started here and write the summary."""
     from . import summary as summary_mod
 
     _prepare_output(out, cfg, batch, retries, window)
     fps = {spec.key: cfg.fingerprint(spec) for spec in batch.tasks}
-    records, todo, redo = {}, [], {}
-    for spec in batch.tasks:
-        rec = read_finished(out, spec, fps[spec.key], redo)
-        if rec is None:
-            todo.append(spec)
-            _remove_stale_temporaries(task_dir(out, spec.key))
-        else:
-            records[spec.key] = {**rec, "skipped": True}
-    for key, why in redo.items():
-        log.info("task %s is solved again: %s", key, why)
+    records, todo, redo = _resume(batch, out, fps)
     progress = Progress(total=len(batch), skipped=len(records), todo=len(todo))
     t_start = time.perf_counter()
     own_cluster = own_client = None
@@ -439,34 +432,20 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
     try:
         if todo:
             if client is None:
-                if scheduler is not None:
-                    from distributed import Client
-
-                    client = own_client = Client(scheduler)
-                else:
-                    own_cluster, client = start_cluster(workers, dashboard)
-                    own_client = client
+                own_cluster, client = _connect(scheduler, workers, dashboard)
+                own_client = client
             client.run(prepare_worker, cfg.model, cfg.method)
             cluster_seconds = time.perf_counter() - t_start
             n_workers = len(client.scheduler_info().get("workers", {})) or None
             progress.started = time.perf_counter()
             if on_event is not None:
                 on_event("start", None, progress)
-            by_key = {}
-            futures = []
-            # Dask keys are unique per invocation, so a rerun on the same cluster never meets
-            # the cancelled futures of an interrupted one; the results do not depend on them.
-            nonce = uuid.uuid4().hex[:8]
-            for rank, spec in enumerate(todo):
-                fut = client.submit(run_task, spec, cfg, fps[spec.key], key=f"decomp-task-{spec.key}-{nonce}",
-                                    retries=retries, pure=False, priority=len(todo) - rank)
-                by_key[fut.key] = spec
-                futures.append(fut)
+            futures, by_key = _submit(client, todo, cfg, fps, retries)
             stopped = _collect(futures, by_key, fps, records, progress, out, on_event)
     except BaseException as exc:
         interrupted = exc
     # From here on a SIGINT or SIGTERM is held, not raised: closing the cluster and writing the
-    # summary finish whatever arrives (before, a signal after the last task cost the summary).
+    # summary finish whatever arrives.
     with signals.deferred() as late:
         wall = time.perf_counter() - t_start
         if own_client is not None:
@@ -482,15 +461,7 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
         for key, why in redo.items():
             if key in records:
                 records[key]["redone"] = why
-        reason = None
-        if interrupted is not None:
-            reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
-        after_last = None
-        if isinstance(interrupted, KeyboardInterrupt) and all(spec.key in records for spec in batch.tasks):
-            # every task had finished: nothing was cut short
-            after_last, reason, interrupted = ("SIGINT" if reason == "KeyboardInterrupt" else reason), None, None
-        if late and interrupted is None:
-            after_last = after_last or late.first
+        reason, after_last, interrupted = _how_it_ended(interrupted, late, records, batch)
         summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
                                          workers=n_workers or workers, window=window, interrupted=reason,
                                          stopped=stopped, signal_after_last_task=after_last,
@@ -506,6 +477,60 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
     if interrupted is not None:
         raise interrupted
     return summ
+
+
+def _resume(batch, out, fps) -> tuple:
+    """(records of the tasks verified finished, the tasks to solve, {key: why a finished-looking
+    task is solved again}); the temporaries of the tasks to solve are removed."""
+    records, todo, redo = {}, [], {}
+    for spec in batch.tasks:
+        rec = read_finished(out, spec, fps[spec.key], redo)
+        if rec is None:
+            todo.append(spec)
+            _remove_stale_temporaries(task_dir(out, spec.key))
+        else:
+            records[spec.key] = {**rec, "skipped": True}
+    for key, why in redo.items():
+        log.info("task %s is solved again: %s", key, why)
+    return records, todo, redo
+
+
+def _connect(scheduler, workers, dashboard) -> tuple:
+    """(cluster started here or None, client): a running scheduler's, or the embedded cluster's."""
+    if scheduler is not None:
+        from distributed import Client
+
+        return None, Client(scheduler)
+    return start_cluster(workers, dashboard)
+
+
+def _submit(client, todo, cfg, fps, retries) -> tuple:
+    """(futures, {future key: task}) of the tasks, the first ones first. Dask keys are unique per
+    invocation, so a rerun on the same cluster never meets the cancelled futures of an interrupted
+    one; the results do not depend on them."""
+    by_key, futures = {}, []
+    nonce = uuid.uuid4().hex[:8]
+    for rank, spec in enumerate(todo):
+        fut = client.submit(run_task, spec, cfg, fps[spec.key], key=f"decomp-task-{spec.key}-{nonce}",
+                            retries=retries, pure=False, priority=len(todo) - rank)
+        by_key[fut.key] = spec
+        futures.append(fut)
+    return futures, by_key
+
+
+def _how_it_ended(interrupted, late, records, batch) -> tuple:
+    """(the interruption to report or None, the signal that came after the last task or None, the
+    exception still to raise or None). A Ctrl-C once every task had finished cut nothing short: it
+    is reported as arriving after the last task, and the run ends normally."""
+    reason = None
+    if interrupted is not None:
+        reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
+    after_last = None
+    if isinstance(interrupted, KeyboardInterrupt) and all(spec.key in records for spec in batch.tasks):
+        after_last, reason, interrupted = ("SIGINT" if reason == "KeyboardInterrupt" else reason), None, None
+    if late and interrupted is None:
+        after_last = after_last or late.first
+    return reason, after_last, interrupted
 
 
 def _collect(futures, by_key, fps, records, progress, out, on_event):
