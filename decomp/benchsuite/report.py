@@ -109,8 +109,25 @@ def _paragraph(out: list, label: str, items: list) -> None:
 
 
 def render(run, plots=(), stat: str = "min") -> str:
-    """The report as Markdown."""
+    """The report as Markdown: how the run was made, failed cases, a table per rung, the demand
+    families, the fitted scaling, the notes on the columns and the plots."""
     d = run.decomp or {}
+    sp = speedups(run, stat)
+    out = _header(run, d, stat) + _failed_cases(run, d.get("run") or {})
+    for rung in RUNG_ORDER:
+        out += _rung_table(run, rung, sp)
+    out += demand_tables(run, sp, stat)
+    out += _fitted_scaling(run, stat)
+    out += _notes(d)
+    if plots:
+        out.append("## Plots")
+        out += [f"![{p}]({p})" for p in plots]
+        out.append("")
+    return "\n".join(out)
+
+
+def _header(run, d: dict, stat: str) -> list:
+    """The title, the machine, how the run was made and timed, what it left out and measured against."""
     rn = d.get("run") or {}
     out = [f"# Benchmark report: suite `{d.get('suite', rn.get('suite', '?'))}`", ""]
     out += _machine(run)
@@ -130,62 +147,80 @@ def render(run, plots=(), stat: str = "min") -> str:
     _paragraph(out, "Reference solves (errors are measured against them)",
                [f"{k}: {v.get('method')} {v.get('options') or ''} status {v.get('status')}, gap {_g(v.get('gap'))}"
                 for k, v in (d.get("references") or {}).items()])
+    return out
+
+
+def _failed_cases(run, rn: dict) -> list:
+    """Cases that failed an accuracy check, and cases that failed without timing data."""
     failed = [r for r in run.rows if r.get("accuracy_failures")]
     crashed = [c for c in rn.get("failed_cases", []) if not any(c.endswith(f"[{r.name.split('[', 1)[-1]}")
                                                                   for r in failed)]
-    if failed or crashed:
-        out.append("## Failed cases")
-        for r in failed:
-            out.append(f"- `{r.case}`: " + "; ".join(r.get("accuracy_failures")))
-        for c in crashed:
-            out.append(f"- `{c}`: failed without timing data (see pytest.log)")
-        out.append("")
+    if not (failed or crashed):
+        return []
+    out = ["## Failed cases"]
+    for r in failed:
+        out.append(f"- `{r.case}`: " + "; ".join(r.get("accuracy_failures")))
+    for c in crashed:
+        out.append(f"- `{c}`: failed without timing data (see pytest.log)")
+    out.append("")
+    return out
 
-    sp = speedups(run, stat)
-    for rung in RUNG_ORDER:
-        rows = [r for r in run.rows if r.get("rung") == rung and _demand(r) == "normal"]
-        if not rows:
-            continue
-        n, L = rows[0].get("n_products"), rows[0].get("n_legs")
-        has_rev = any(r.get("revenue_loss_rel") is not None for r in rows)
-        out += [f"## Rung {rung}: {n} products, {L} legs", "",
-                "| model | method | knobs | time s | median s | rounds | build s | iterations | gap | "
-                "objective err | bid-price err | " + ("revenue loss | " if has_rev else "")
-                + "violation (rel) | mem growth MiB | peak RSS MiB | status | x ipopt | x pyomo-ipopt |",
-                "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|" + ("---:|" if has_rev else "")
-                + "---:|---:|---:|---|---:|---:|"]
-        for r in sorted(rows, key=lambda r: (r.get("kind") != "solve", str(r.get("model")),
-                                             str(r.get("label")), _knobs(r))):
-            ph = r.get("phase_seconds") or {}
-            s = sp.get(r.case, {})
-            status = r.get("termination") or ("built" if r.get("kind") == "build" else "-")
-            if r.get("accuracy_failures"):
-                status += " (FAILED check)"
-            out.append("| " + " | ".join([
-                str(r.get("model")), str(r.get("label")), _knobs(r),
-                _g(r.min, "{:.4g}"), _g(r.median, "{:.4g}"), str(r.rounds), _g(ph.get("build"), "{:.3g}"),
-                _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
-                _g(r.get("bid_price_error"), "{:.2e}"),
-                *([_g(r.get("revenue_loss_rel"), "{:.2e}")] if has_rev else []),
-                _g(r.get("max_violation_rel"), "{:.1e}"),
-                _g(r.get("peak_memory_mib"), "{:.0f}"), _g(r.get("peak_rss_mib"), "{:.0f}"), status,
-                _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
-        out.append("")
-    out += demand_tables(run, sp, stat)
+
+def _rung_table(run, rung, sp) -> list:
+    """The normal-demand cases of one rung: times, accuracy, memory, status and speedups."""
+    rows = [r for r in run.rows if r.get("rung") == rung and _demand(r) == "normal"]
+    if not rows:
+        return []
+    n, L = rows[0].get("n_products"), rows[0].get("n_legs")
+    has_rev = any(r.get("revenue_loss_rel") is not None for r in rows)
+    out = [f"## Rung {rung}: {n} products, {L} legs", "",
+           "| model | method | knobs | time s | median s | rounds | build s | iterations | gap | "
+           "objective err | bid-price err | " + ("revenue loss | " if has_rev else "")
+           + "violation (rel) | mem growth MiB | peak RSS MiB | status | x ipopt | x pyomo-ipopt |",
+           "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|" + ("---:|" if has_rev else "")
+           + "---:|---:|---:|---|---:|---:|"]
+    for r in sorted(rows, key=lambda r: (r.get("kind") != "solve", str(r.get("model")),
+                                         str(r.get("label")), _knobs(r))):
+        ph = r.get("phase_seconds") or {}
+        s = sp.get(r.case, {})
+        status = r.get("termination") or ("built" if r.get("kind") == "build" else "-")
+        if r.get("accuracy_failures"):
+            status += " (FAILED check)"
+        out.append("| " + " | ".join([
+            str(r.get("model")), str(r.get("label")), _knobs(r),
+            _g(r.min, "{:.4g}"), _g(r.median, "{:.4g}"), str(r.rounds), _g(ph.get("build"), "{:.3g}"),
+            _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
+            _g(r.get("bid_price_error"), "{:.2e}"),
+            *([_g(r.get("revenue_loss_rel"), "{:.2e}")] if has_rev else []),
+            _g(r.get("max_violation_rel"), "{:.1e}"),
+            _g(r.get("peak_memory_mib"), "{:.0f}"), _g(r.get("peak_rss_mib"), "{:.0f}"), status,
+            _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
+    out.append("")
+    return out
+
+
+def _fitted_scaling(run, stat: str) -> list:
+    """t = a n^b per model and method, from the rungs of FIT_MIN_N products on."""
     fits = slopes(run, stat, min_n=FIT_MIN_N)
-    if fits:
-        out += ["## Fitted scaling t = a n^b (rungs from 1,000 products, headline knob)", "",
-                "| model | method | b | stderr of b | a | sizes |", "|---|---|---:|---:|---:|---|"]
-        for (model, label), f in sorted(fits.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1]))):
-            se = f.stderr.get("b")
-            out.append(f"| {model} | {label} | {f.b:.3f} | {_g(se, '{:.3f}')} | {f.a:.3g} | "
-                       f"{int(f.stderr['n_min'])}..{int(f.stderr['n_max'])} ({f.stderr['n_points']}) |")
-        out.append("")
-    out += ["Columns: `x ipopt` = time of `ipopt` (tol 1e-9, or its tightest tol) on the same rung in this "
-            "run divided by this case's time (> 1: faster than ipopt); same for `x pyomo-ipopt`. "
-            "Errors are relative, against the reference solve; bid-price error over legs whose reference "
-            "bid price is >= 1e-3 of the largest. DLP bid prices need not be unique (degenerate LPs), so "
-            "their bid-price error is informative only.", ""]
+    if not fits:
+        return []
+    out = ["## Fitted scaling t = a n^b (rungs from 1,000 products, headline knob)", "",
+           "| model | method | b | stderr of b | a | sizes |", "|---|---|---:|---:|---:|---|"]
+    for (model, label), f in sorted(fits.items(), key=lambda kv: (str(kv[0][0]), str(kv[0][1]))):
+        se = f.stderr.get("b")
+        out.append(f"| {model} | {label} | {f.b:.3f} | {_g(se, '{:.3f}')} | {f.a:.3g} | "
+                   f"{int(f.stderr['n_min'])}..{int(f.stderr['n_max'])} ({f.stderr['n_points']}) |")
+    out.append("")
+    return out
+
+
+def _notes(d: dict) -> list:
+    """What the columns mean, and how the revenue loss is measured."""
+    out = ["Columns: `x ipopt` = time of `ipopt` (tol 1e-9, or its tightest tol) on the same rung in this "
+           "run divided by this case's time (> 1: faster than ipopt); same for `x pyomo-ipopt`. "
+           "Errors are relative, against the reference solve; bid-price error over legs whose reference "
+           "bid price is >= 1e-3 of the largest. DLP bid prices need not be unique (degenerate LPs), so "
+           "their bid-price error is informative only.", ""]
     rev = d.get("revenue") or {}
     if rev.get("paths"):
         out += [f"Revenue loss: (reference revenue - case revenue) / reference revenue, the case's bid "
@@ -194,8 +229,4 @@ def render(run, plots=(), stat: str = "min") -> str:
                 "these paths). Reference revenue per rung/model: " + "; ".join(
                     f"{k} {_g((v or {}).get('mean'), '{:.6g}')}" for k, v in (rev.get("references") or {}).items())
                 + ".", ""]
-    if plots:
-        out.append("## Plots")
-        out += [f"![{p}]({p})" for p in plots]
-        out.append("")
-    return "\n".join(out)
+    return out
