@@ -111,6 +111,53 @@ def _read_progress(path, pos):
     return events, pos + len(chunk) - len(tail)
 
 
+def _follow(proc, prog, suite: str, progress: bool) -> tuple:
+    """Follow the pytest subprocess's progress file until it ends: (failed case ids, cases done),
+    with a bar unless ``progress`` is off. An interruption terminates the subprocess."""
+    from tqdm import tqdm
+
+    done, failed, bar, pos = 0, [], None, 0
+    try:
+        while True:
+            finished = proc.poll() is not None
+            events, pos = _read_progress(prog, pos)
+            for ev in events:
+                if ev.get("event") == "collected" and bar is None:
+                    bar = tqdm(total=int(ev["n"]), desc=f"bench {suite}", unit="case",
+                               disable=not progress, file=sys.stderr, dynamic_ncols=True)
+                elif ev.get("event") == "done":
+                    done += 1
+                    if ev.get("outcome") == "failed":
+                        failed.append(ev["nodeid"])
+                    if bar is not None:
+                        bar.set_postfix_str(case_name(ev["nodeid"])[:40]
+                                            + (f" failed={len(failed)}" if failed else ""))
+                        bar.update(1)
+            if finished:
+                return failed, done
+            time.sleep(0.2)
+    except BaseException:
+        proc.terminate()
+        proc.wait(timeout=30)
+        raise
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def _write_report(json_path, out, plots: bool) -> list:
+    """The plots (unless ``plots`` is off) and report.md of a run's benchmark.json; their paths."""
+    from . import plots as bplots
+    from . import report as breport
+    from .results import load_run
+
+    run = load_run(json_path)
+    made = bplots.make_plots(run, out) if plots else []
+    report_path = out / REPORT
+    atomic.write_text(report_path, breport.render(run, plots=[p.name for p in made]))
+    return [*made, report_path]
+
+
 def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bool = True,
               python: str | None = None, plots: bool = True, command: str | None = None,
               revenue_paths: int = 0) -> RunOutcome:
@@ -121,8 +168,6 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
     """
     if int(revenue_paths) < 0:
         raise ValueError(f"revenue_paths must be 0 (off) or positive, got {revenue_paths}")
-    from tqdm import tqdm
-
     # absolute: pytest runs in the project folder, the caller may be anywhere
     out = pathlib.Path(out).absolute()
     out.mkdir(parents=True, exist_ok=True)
@@ -134,41 +179,12 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
         env = _quiet_env(**{PROGRESS_ENV: str(prog), "MPLBACKEND": "Agg"})
         cmd = _pytest_command(suite, json_tmp, k, extra_args, python, revenue_paths)
         log.info("running %s", " ".join(cmd))
-        n_done = n_failed = 0
-        failed = []
-        bar = None
         with open(log_tmp, "w") as logfh:
             proc = subprocess.Popen(cmd, stdout=logfh, stderr=subprocess.STDOUT, env=env,
                                     cwd=str(bench_dir().parent))
-            pos = 0
-            try:
-                while True:
-                    finished = proc.poll() is not None
-                    events, pos = _read_progress(prog, pos)
-                    for ev in events:
-                        if ev.get("event") == "collected" and bar is None:
-                            bar = tqdm(total=int(ev["n"]), desc=f"bench {suite}", unit="case",
-                                       disable=not progress, file=sys.stderr, dynamic_ncols=True)
-                        elif ev.get("event") == "done":
-                            n_done += 1
-                            if ev.get("outcome") == "failed":
-                                n_failed += 1
-                                failed.append(ev["nodeid"])
-                            if bar is not None:
-                                bar.set_postfix_str(case_name(ev["nodeid"])[:40]
-                                                    + (f" failed={n_failed}" if n_failed else ""))
-                                bar.update(1)
-                    if finished:
-                        break
-                    time.sleep(0.2)
-            except BaseException:
-                proc.terminate()
-                proc.wait(timeout=30)
-                raise
-            finally:
-                if bar is not None:
-                    bar.close()
+            failed, n_done = _follow(proc, prog, suite, progress)
         rc = proc.returncode
+        n_failed = len(failed)
         wall = time.perf_counter() - t0
         files = []
         final_log = out / LOG
@@ -187,15 +203,6 @@ def run_suite(suite: str, out, k: str | None = None, extra_args=(), progress: bo
             atomic.write_json(json_path, data)
             files.append(json_path)
     if json_path is not None:
-        from . import plots as bplots
-        from . import report as breport
-        from .results import load_run
-
-        run = load_run(json_path)
-        made = bplots.make_plots(run, out) if plots else []
-        files += made
-        report_path = out / REPORT
-        atomic.write_text(report_path, breport.render(run, plots=[p.name for p in made]))
-        files.append(report_path)
+        files += _write_report(json_path, out, plots)
     return RunOutcome(returncode=rc, out=out, json_path=json_path, files=tuple(files),
                       wall_seconds=wall, n_cases=n_done, n_failed=n_failed)
