@@ -410,6 +410,44 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
     against ``tol`` (measured at the benchmark rung; projected at the tasks' size from
     both fits when the answer's tolerance has cases at two sizes or more).
     """
+    groups, tols, t0 = _groups_at(cases, model, method, variant, tol, fit_min_products)
+    task_products = np.asarray(task_products, dtype=np.float64)
+    factor = cal = None
+    if calibration:
+        cal = calibrate(_time_model(groups[t0]), calibration, task_products)
+        factor = cal["factor"]
+
+    def answer(t):
+        return _answer(t, groups[t], _time_model(groups[t], factor), task_products, workers, window,
+                       overhead, startup)
+
+    main, tm = answer(t0)
+    looser = [t for t in tols if t > t0 * (1 + 1e-9)]
+    others = [answer(t)[0] for t in looser if len({c.n_products for c in groups[t]}) >= MIN_FIT_SIZES]
+    too_few = [t for t in looser if len({c.n_products for c in groups[t]}) < MIN_FIT_SIZES]
+    w_max = min(max(2 * workers, (main["smallest_workers"] or 2 * workers) + 2, 8), len(task_products))
+    curve = [project(task_products, tm, w, overhead, startup) for w in range(1, w_max + 1)]
+    revenue = None
+    if revenue_loss is not None:
+        revenue = loosest_within_loss(groups, revenue_loss, t0)
+        revenue["seconds_saved_per_task"] = None
+        lt = revenue["loosest_tol"]
+        if lt is not None and len({c.n_products for c in groups[lt]}) >= MIN_FIT_SIZES:
+            per_l = float(_time_model(groups[lt], factor).predict(np.max(task_products)))
+            revenue["per_task_solve_seconds"] = per_l
+            revenue["seconds_saved_per_task"] = main["per_task_solve_seconds"] - per_l
+    return {"model": model, "method": method, "variant": next(iter(groups[t0])).variant,
+            "revenue": revenue,
+            "tasks": int(task_products.size), "products_min": float(task_products.min()),
+            "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
+            "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
+            "calibration": cal,
+            "result": main, "looser": others, "looser_too_few_sizes": too_few, "curve": curve}
+
+
+def _groups_at(cases, model, method, variant, tol, fit_min_products) -> tuple:
+    """(the cases of the method by tolerance, the tolerances, the one matching ``tol``); a
+    ConfigError when ``tol`` has no cases or too few sizes to fit."""
     if fit_min_products:
         cases = [c for c in cases if c.n_products >= fit_min_products]
     groups = select(cases, model, method, variant)
@@ -426,60 +464,31 @@ def size_run(cases, *, model, method, tol, task_products, workers, window, overh
             + (f", from {fit_min_products:,} up" if fit_min_products else "") + f"); a time fit needs at least "
             f"{MIN_FIT_SIZES} (with fewer there is no spread to size a prediction interval from): benchmark "
             f"more rungs, or lower --fit-min-products")
-    task_products = np.asarray(task_products, dtype=np.float64)
+    return groups, tols, match[0]
 
-    factor = cal = None
-    if calibration:
-        ref = TimeModel.fit([c.n_products for c in groups[match[0]]], [c.seconds for c in groups[match[0]]])
-        cal = calibrate(ref, calibration, task_products)
-        factor = cal["factor"]
 
-    def one(t):
-        cs = groups[t]
-        tm = TimeModel.fit([c.n_products for c in cs], [c.seconds for c in cs])
-        if factor is not None:
-            tm = dataclasses.replace(tm, a=tm.a * factor)
-        pr = project(task_products, tm, workers, overhead, startup)
-        per = float(tm.predict(np.max(task_products)))
-        res = {"tol": t, "fit": tm.to_dict(), "per_task_solve_seconds": per, **pr,
-               "cases": [c.name for c in cs],
-               "cases_with_accuracy_failures": sum(1 for c in cs if c.accuracy_failures),
-               "fits": pr["wall_seconds"] <= window, "margin_seconds": window - pr["wall_seconds"],
-               "fits_high": None if pr["wall_high"] is None else pr["wall_high"] <= window,
-               "smallest_workers": smallest_workers(task_products, tm, window, overhead, startup),
-               "smallest_workers_high": (None if pr["wall_high"] is None else
-                                         smallest_workers(task_products, tm, window, overhead, startup,
-                                                          key="wall_high")),
-               "extrapolated": bool(np.max(task_products) > tm.n_max * 1.0000001
-                                    or np.min(task_products) < tm.n_min / 1.0000001)}
-        return res, tm
+def _time_model(cases, factor: float | None = None) -> TimeModel:
+    """The time fit of ``cases``, scaled by the calibration ``factor`` when there is one."""
+    tm = TimeModel.fit([c.n_products for c in cases], [c.seconds for c in cases])
+    return tm if factor is None else dataclasses.replace(tm, a=tm.a * factor)
 
-    main, tm = one(match[0])
-    looser = [t for t in tols if t > match[0] * (1 + 1e-9)]
-    others = [one(t)[0] for t in looser if len({c.n_products for c in groups[t]}) >= MIN_FIT_SIZES]
-    too_few = [t for t in looser if len({c.n_products for c in groups[t]}) < MIN_FIT_SIZES]
-    w_max = min(max(2 * workers, (main["smallest_workers"] or 2 * workers) + 2, 8), len(task_products))
-    curve_w = list(range(1, w_max + 1))
-    curve = [project(task_products, tm, w, overhead, startup) for w in curve_w]
-    revenue = None
-    if revenue_loss is not None:
-        revenue = loosest_within_loss(groups, revenue_loss, match[0])
-        revenue["seconds_saved_per_task"] = None
-        lt = revenue["loosest_tol"]
-        if lt is not None and len({c.n_products for c in groups[lt]}) >= MIN_FIT_SIZES:
-            tm_l = TimeModel.fit([c.n_products for c in groups[lt]], [c.seconds for c in groups[lt]])
-            if factor is not None:
-                tm_l = dataclasses.replace(tm_l, a=tm_l.a * factor)
-            per_l = float(tm_l.predict(np.max(task_products)))
-            revenue["per_task_solve_seconds"] = per_l
-            revenue["seconds_saved_per_task"] = main["per_task_solve_seconds"] - per_l
-    return {"model": model, "method": method, "variant": next(iter(groups[match[0]])).variant,
-            "revenue": revenue,
-            "tasks": int(task_products.size), "products_min": float(task_products.min()),
-            "products_max": float(task_products.max()), "workers": int(workers), "window_seconds": window,
-            "overhead_per_task_seconds": overhead, "startup_seconds": startup, "calibration_factor": factor,
-            "calibration": cal,
-            "result": main, "looser": others, "looser_too_few_sizes": too_few, "curve": curve}
+
+def _answer(t, cases, tm: TimeModel, task_products, workers, window, overhead, startup) -> tuple:
+    """(the sizing at tolerance ``t`` with time model ``tm``: projection, fit to the window, margin,
+    fewest workers, whether the tasks' sizes lie outside the fitted range; tm)."""
+    pr = project(task_products, tm, workers, overhead, startup)
+    res = {"tol": t, "fit": tm.to_dict(), "per_task_solve_seconds": float(tm.predict(np.max(task_products))), **pr,
+           "cases": [c.name for c in cases],
+           "cases_with_accuracy_failures": sum(1 for c in cases if c.accuracy_failures),
+           "fits": pr["wall_seconds"] <= window, "margin_seconds": window - pr["wall_seconds"],
+           "fits_high": None if pr["wall_high"] is None else pr["wall_high"] <= window,
+           "smallest_workers": smallest_workers(task_products, tm, window, overhead, startup),
+           "smallest_workers_high": (None if pr["wall_high"] is None else
+                                     smallest_workers(task_products, tm, window, overhead, startup,
+                                                      key="wall_high")),
+           "extrapolated": bool(np.max(task_products) > tm.n_max * 1.0000001
+                                or np.min(task_products) < tm.n_min / 1.0000001)}
+    return res, tm
 
 
 def plot(sizing: dict, path) -> None:
