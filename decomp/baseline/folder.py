@@ -315,8 +315,22 @@ def check_recorded_options(options, file) -> dict:
 
 
 def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FORMAT_VERSION) -> dict:
+    """Case ``cid``'s record, every field checked, with its verified bid prices and instance folder;
+    BaselineError naming the file (and row and column where there is one) otherwise."""
+    rpath = path / f"cases/{cid}/result.json"
+    rec = _case_record(rpath, listed, cid, version)
+    optimal = rec["termination"] == "optimal" and rec["solution_status"] == "optimal"
+    _check_case_numbers(rec, rpath, optimal)
+    rec["options"] = check_recorded_options(rec.get("options"), rpath)
+    rec["instance_path"] = _case_instance_folder(path, listed, rec.get("instance_dir"), rpath)
+    rec["bid_prices"] = _case_bid_prices(path, listed, cid, rec, rpath, optimal)
+    return rec
+
+
+def _case_record(rpath: pathlib.Path, listed: Mapping, cid: str, version: int) -> dict:
+    """The case's result.json, listed in the manifest, in the result schema (format 2; seen through
+    :func:`case_view`), for this case, its text fields present."""
     rel = f"cases/{cid}/result.json"
-    rpath = path / rel
     if rel not in listed:
         raise BaselineError(f"case {cid!r} has no result.json listed in manifest.json", file=rpath)
     rec = _read_json(rpath)
@@ -339,11 +353,16 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
     if rec["model"] not in MODELS:
         raise BaselineError(f"unknown model; known: {', '.join(MODELS)}", file=rpath, column="model",
                             value=_short(rec["model"]))
-    optimal = rec["termination"] == "optimal" and rec["solution_status"] == "optimal"
+    return rec
+
+
+def _check_case_numbers(rec: Mapping, rpath: pathlib.Path, optimal: bool) -> None:
+    """Objective, bound, gap, times and certificate: numbers (finite where a case recorded optimal
+    needs them), times >= 0. A baseline recorded before CPU times were kept has no cpu_seconds."""
     for key in ("objective", "bound", "gap"):
         _number(rec, key, rpath, finite=optimal and key == "objective",
                 nullable=not (optimal and key == "objective"))
-    for key, nullable in (("wall_seconds", False), ("cpu_seconds", True)):   # cpu_seconds: from issue 24 on
+    for key, nullable in (("wall_seconds", False), ("cpu_seconds", True)):
         t = _number(rec, key, rpath, finite=True, nullable=nullable)
         if t is not None and t < 0:
             raise BaselineError(f"{key} must be >= 0", file=rpath, column=key, value=t)
@@ -353,9 +372,11 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
             raise BaselineError("certificate must be an object or null", file=rpath, column="certificate")
         for key in ("gap", "max_violation_rel", "kkt_residual"):
             _number(cert, key, rpath, finite=optimal and key == "gap")
-    rec["options"] = check_recorded_options(rec.get("options"), rpath)
-    # the instance: a folder under instances/ whose every file is listed (read_instance reads the folder)
-    idir = rec.get("instance_dir")
+
+
+def _case_instance_folder(path: pathlib.Path, listed: Mapping, idir, rpath: pathlib.Path) -> pathlib.Path:
+    """The case's instance: a folder instances/<name> inside the baseline whose every file is listed
+    in the manifest (read_instance reads the whole folder)."""
     folder = inside(path, idir, file=rpath, what="instance_dir")
     if not (isinstance(idir, str) and idir.startswith("instances/") and idir.count("/") == 1):
         raise BaselineError("instance_dir must be instances/<name>", file=rpath, column="instance_dir",
@@ -368,6 +389,13 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
         if f"{idir}/{p.name}" not in listed or p.is_symlink():
             raise BaselineError("a file in the instance folder is not listed in manifest.json (an instance "
                                 "is read from verified files only)", file=p)
+    return folder
+
+
+def _case_bid_prices(path: pathlib.Path, listed: Mapping, cid: str, rec: Mapping, rpath: pathlib.Path,
+                     optimal: bool) -> tuple:
+    """(leg ids, bid prices) from the case's listed bid-price file: each leg once; for a case recorded
+    optimal, one finite bid price >= 0 per leg."""
     name = rec.get("bid_prices_file", BID_PRICES)
     bpath = inside(path, f"cases/{cid}/{name}" if isinstance(name, str) and "/" not in name else None,
                    file=rpath, what="bid_prices_file")
@@ -392,9 +420,7 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
             k = int(np.argmin(pi))
             raise BaselineError("negative bid price in a case recorded optimal (bid prices are >= 0)",
                                 file=bpath, row=k + 1, column="bid_price", value=float(pi[k]))
-    rec["bid_prices"] = (legs, pi)
-    rec["instance_path"] = folder
-    return rec
+    return legs, pi
 
 
 def read_case_instance(base: Baseline, rec: Mapping) -> Instance:
