@@ -146,37 +146,20 @@ def _parse_override(items) -> dict:
 def run_check(args) -> int:
     from .. import baseline
     from ..baseline.check import load_text
-    from ..errors import InstanceError
-
-    from ..benchsuite.compare import parse_growth, parse_ratio
-
-    from ..errors import ConfigError
+    from ..errors import ConfigError, InstanceError
     from ..paths import output_folder
 
     try:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
-    old_ratio = getattr(args, "time_ratio", None)
-    option, value = ("--time-ratio", old_ratio) if old_ratio is not None else ("--max-time-growth",
-                                                                              args.max_time_growth)
-    try:
-        time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
-        if time_ratio < 1:
-            raise ConfigError(f"a ratio new/old of at least 1 is needed, got {time_ratio:g}")
-    except ConfigError as exc:
-        raise ConfigError(f"{option} {value!r}: {exc}") from None
+    th = _thresholds(args)
     if args.out is not None:
         output_folder(args.out, "--out")           # before any solve: exit 2, the folder named
     if not args.no_history:
         from .bench import check_history
 
         check_history(args)                        # before any solve: exit 2, the store's path named
-    th = baseline.Thresholds(
-        objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
-        allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
-        kkt_floor=args.kkt_floor, certificate_factor=args.certificate_factor, time_ratio=time_ratio,
-        time_floor=args.time_floor)
 
     def progress(rep):
         m = rep.metrics
@@ -209,6 +192,29 @@ def run_check(args) -> int:
         print("decomp baseline check: no case was compared; this is not a pass", file=sys.stderr)
         return 1
     return 1 if report.regression else 0
+
+
+def _thresholds(args):
+    """The check's thresholds from the options; the allowed time growth read in the forms of
+    ``bench compare`` (or the old --time-ratio), at least 1 as a ratio new/old."""
+    from .. import baseline
+    from ..benchsuite.compare import parse_growth, parse_ratio
+    from ..errors import ConfigError
+
+    old_ratio = getattr(args, "time_ratio", None)
+    option, value = ("--time-ratio", old_ratio) if old_ratio is not None else ("--max-time-growth",
+                                                                              args.max_time_growth)
+    try:
+        time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
+        if time_ratio < 1:
+            raise ConfigError(f"a ratio new/old of at least 1 is needed, got {time_ratio:g}")
+    except ConfigError as exc:
+        raise ConfigError(f"{option} {value!r}: {exc}") from None
+    return baseline.Thresholds(
+        objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
+        allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
+        kkt_floor=args.kkt_floor, certificate_factor=args.certificate_factor, time_ratio=time_ratio,
+        time_floor=args.time_floor)
 
 
 def _add_to_history(args, report, load_start, wall) -> None:

@@ -28,6 +28,8 @@ from ._vocabulary import old_name
 
 
 def register(sub):
+    """``decomp bench`` and its subcommands (list, compare, report, history): one add_argument per
+    option, each with its help text, which is what makes this function long."""
     p = sub.add_parser("bench", help="run the benchmark suite (time against accuracy), or compare two runs",
                        description=__doc__, formatter_class=__import__("argparse").RawDescriptionHelpFormatter)
     p.add_argument("--suite", choices=("micro", "quick", "full"), default="quick",

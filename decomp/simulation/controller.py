@@ -67,6 +67,11 @@ def run_policies(instance, requests, policies, *, horizon, every, opt_mean, opt_
     ``opt_mean``/``opt_std``: the optimizer's forecast for the whole horizon;
     ``initial``: per policy, the controls at time 0 computed once for all paths
     (a one-row :class:`ControlSet`), or None to compute them here.
+
+    One function on purpose: a row is a (policy, path) pair, and the flat views of the capacity,
+    sales, limit and protection arrays that the control updates write and the acceptance loop
+    reads are shared by both; between the reoptimization times the loop accepts one request per
+    path and policy at a time, vectorized over rows.
     """
     P, L = instance.n_products, instance.n_legs
     n, npol = len(requests.paths), len(policies)
