@@ -219,7 +219,7 @@ def _parse_csv(path, names, threads):
 
 def _read_parquet(path: pathlib.Path, required) -> pa.Table:
     try:
-        with pq.ParquetFile(path) as parquet:   # not pq.read_table: that imports pyarrow.dataset (0.15 s)
+        with pq.ParquetFile(path) as parquet:   # not pq.read_table: that imports pyarrow.dataset, a slow import
             table = parquet.read()
         names = table.column_names             # a damaged footer can hold names that are not UTF-8
         table.validate(full=True)              # and string data that is not (checked once, here)

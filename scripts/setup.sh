@@ -33,8 +33,8 @@ fi
 
 # The package is installed editable, so nothing byte-compiles its sources, and where
 # PYTHONDONTWRITEBYTECODE is set (containers, CI) every `decomp` process would compile
-# them again (about 0.1 s of a 1 s `decomp solve`). Compile them once here (quick when
-# they are current).
+# them again (a noticeable part of a short `decomp solve`). Compile them once here (quick
+# when they are current).
 "$VENV/bin/python" -m compileall -q -j 0 decomp
 
 # PyNumero's ASL interface, built from the sources shipped in the Pyomo wheel.

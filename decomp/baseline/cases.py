@@ -111,7 +111,7 @@ def micro_instance(seed: int, n_products: int = 12, name: str | None = None) -> 
 
 
 # Largest quick-suite rung per (model, method) or method: the Pyomo-built models take much
-# longer to build (the PWL by Pyomo at p10k takes about 20 s here, the DLP 2.5 s).
+# longer to build (the PWL's K columns per product most of all, so it stops at p1k).
 _QUICK_RUNGS = ("p100", "p1k", "p10k")
 _QUICK_MAX_RUNG = {("dlp", "pyomo-highs"): "p10k", "pyomo-highs": "p1k", "pyomo-ipopt": "p1k"}
 

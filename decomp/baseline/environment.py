@@ -92,7 +92,7 @@ def library_versions(ipopt: bool = True) -> dict:
     """Versions of the libraries and solvers the answers depend on (no solver object is built).
 
     ``ipopt=False`` leaves out the linked Ipopt library's version, which only
-    importing cyipopt can tell (0.15 s); ``decomp solve`` asks for it when Ipopt ran.
+    importing cyipopt (a slow import) can tell; ``decomp solve`` asks for it when Ipopt ran.
     """
     env: dict = {"python": platform.python_version()}
     env["numpy"] = np.__version__

@@ -143,14 +143,14 @@ _SPECS = (
           {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
     _Spec("pnlp", "lagrangian", ({"dual_method": "subgradient", "tol": 1e-3, "time_limit": 20.0},),
           {"quick": "p10k", "full": "p100k"}, expect_optimal=False),
-    # Ipopt on arrays: ~15 s at p100k on a quiet machine (90 s seen under load), ~2 min at p1m.
+    # Ipopt on arrays: the slowest array method at scale, so its tol 1e-6 case stops a rung lower.
     _Spec("pnlp", "ipopt", ({"tol": 1e-6},), {"quick": "p10k", "full": "p100k"}, rounds_cap=2),
     _Spec("pnlp", "ipopt", ({"tol": 1e-9},), {"quick": "p100k", "full": "p1m"}, rounds_cap=2),
-    # Pyomo + Ipopt: NL writing and ASL loading dominate (20-80 s at p10k, minutes at p100k).
+    # Pyomo + Ipopt: NL writing and ASL loading dominate its time, so quick stops at p1k.
     _Spec("pnlp", "pyomo-ipopt", ({"tol": 1e-9},), {"quick": "p1k", "full": "p100k"}, rounds_cap=1),
     _Spec("dlp", "highs", ({},), {"quick": "p100k", "full": "p1m"}),
     _Spec("dlp", "pyomo-highs", ({},), {"quick": "p10k", "full": "p100k"}, rounds_cap=1),
-    # PWL: K segments per product make K times the columns; K=64 takes ~25 s at p10k.
+    # PWL: K segments per product make K times the columns, so K=64 stops a rung lower.
     _Spec("pwl", "highs", ({"segments": 4}, {"segments": 16}), {"quick": "p10k", "full": "p100k"}, rounds_cap=2),
     _Spec("pwl", "highs", ({"segments": 64},), {"quick": "p1k", "full": "p10k"}, rounds_cap=2),
     _Spec("pwl", "pyomo-highs", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, rounds_cap=1),
@@ -158,7 +158,7 @@ _SPECS = (
     _Spec("pnlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
     _Spec("dlp", "pyomo", ({},), {"quick": "p10k", "full": "p100k"}, kind="build", rounds_cap=1),
     _Spec("pwl", "pyomo", ({"segments": 16},), {"quick": "p1k", "full": "p10k"}, kind="build", rounds_cap=1),
-    # Bid-price tables by leg, period and seats left from the DLP's bid prices (about 1 s at p10k, 200 periods).
+    # Bid-price tables by leg, period and seats left from the DLP's bid prices (200 periods).
     _Spec("dlp", "decomposition", ({"periods": 200},), {"quick": "p10k", "full": "p100k"}, kind="tables",
           rounds_cap=2),
 )

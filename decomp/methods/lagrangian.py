@@ -89,10 +89,9 @@ _CONTROLLER = None
 
 def _blas_threads(n):
     """One BLAS thread for the factorizations: idle OpenBLAS threads spin against the
-    product threads, and on small systems their wake-up dominates (generator-sweep draw
-    11, 152 legs, solved in 15.5 s with two BLAS threads and 1.8 s with one). The library
-    scan is done once (a cached controller: 0.014 ms per limit, against 1.7 ms for a
-    fresh scan)."""
+    product threads, and on small systems (a few hundred legs) their wake-up costs more
+    than the factorization itself. The library scan is done once: a cached controller
+    makes each limit cheap, a fresh scan would not."""
     global _CONTROLLER
     import contextlib
 

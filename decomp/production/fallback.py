@@ -17,13 +17,9 @@ each attempt ended with; the summary counts the tasks that needed it.
   does not model): ``lagrangian:lbfgsb``, the Lagrangian dual minimized by
   L-BFGS-B on pi >= 0 (Byrd, Lu, Nocedal & Zhu 1995), a bound-constrained
   quasi-Newton method that needs no Newton system and no positivity of the
-  bid prices: a second, different algorithm, not a proven one. Measured on
-  three generated 2,000-product networks (tol 1e-9; newton / lbfgsb): gamma
-  optimal / numerical_error at gap 2e-5; Poisson iteration_limit at gap 1e-2 /
-  numerical_error at gap 2e-3; negative binomial optimal after 170 iterations
-  (83 s) / optimal after 93 (0.8 s). No method of the project certifies every
-  non-normal PNLP today (issue 12); a task neither certifies ends
-  ``not_optimal`` with its status and the smaller-gap answer, as always.
+  bid prices: a second, different algorithm, not a proven one. A task that
+  neither certifies ends ``not_optimal`` with its status and the smaller-gap
+  answer, as always.
 
 ``none`` turns the fallback off. A fallback equal to the primary is skipped.
 The fallback runs with the task's tolerance and time limit, without the
