@@ -3,14 +3,15 @@
 # a second run skips what is already in place.
 #
 # Tests: `make test` is the default run (everything but the tests marked slow),
-# `make test-slow` the tests marked slow only, `make test-all` both; CI
-# (.ci/run) runs `make test` and then `make test-slow`. Each spreads the tests
-# over TEST_WORKERS processes (pytest-xdist; `logical`: one per CPU) with one
-# BLAS thread each, so the workers do not compete for the cores.
+# `make test-slow` the tests marked slow only, `make test-all` both; CI (.ci/run)
+# runs `make test` and then `make test-slow`. Each spreads the tests over
+# TEST_WORKERS processes (pytest-xdist; `logical`: one per CPU; an idle worker
+# takes queued tests from a busy one), each with one BLAS thread so that the
+# workers do not compete for the cores.
 PY ?= python3
 BIN := .venv/bin
 TEST_WORKERS ?= logical
-PYTEST := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python -m pytest -q -n $(TEST_WORKERS)
+PYTEST := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python -m pytest -q -n $(TEST_WORKERS) --dist worksteal
 
 .PHONY: demo test test-slow test-all setup bench-full clean-venv
 

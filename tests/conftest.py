@@ -52,6 +52,17 @@ def p100_dir(tmp_path_factory) -> pathlib.Path:
     return path
 
 
+@pytest.fixture(scope="module")
+def p100_dlp(p100_dir, tmp_path_factory) -> pathlib.Path:
+    """p100's DLP solved by HiGHS through ``decomp solve``, its result file (once per module; the
+    tests that use it are marked ``solver``)."""
+    from decomp.cli import main
+
+    out = tmp_path_factory.mktemp("res") / "dlp.json"
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", str(out)]) == 0
+    return out
+
+
 @pytest.fixture(autouse=True)
 def _history_store_in_tmp(tmp_path_factory, monkeypatch):
     """Runs of decomp bench and baseline check add themselves to the history store: in the tests,

@@ -3,7 +3,7 @@ deleted), judges time on CPU time with the load beside it, and ``record --force`
 baseline.
 
 External fact used: CPython's limit of 4,300 digits on integer-string conversion
-(``sys.get_int_max_str_digits``, Python 3.11 documentation).
+(tests/support/tiny.HUGE_INT).
 """
 
 from __future__ import annotations
@@ -19,15 +19,7 @@ from decomp.cli import main
 from decomp.instance import Instance
 
 from support.cli import run_cli
-
-
-HUGE_INT = "1" * 5000          # more digits than CPython converts (4,300): json.loads raises ValueError
-
-
-def _inst():
-    return Instance.from_lists([("L1", "KA1", "HU2", 100.0), ("L2", "HU2", "BO3", 80.0)],
-                               [("P1", ["L1"], 100.0, 10.0, 3.0), ("P2", ["L1", "L2"], 150.0, 30.0, 2.0),
-                                ("P3", ["L2"], 90.0, 8.0, 2.5)])
+from support.tiny import HUGE_INT, tiny_instance
 
 
 def test_baseline_record_force_replaces_only_a_baseline(tmp_path, capsys):
@@ -156,7 +148,7 @@ def test_json_integers_of_5000_digits_in_a_baseline_are_refused(tmp_path, capsys
     from decomp import baseline as bl
 
     base = tmp_path / "b"
-    bl.record(base, cases=[bl.Case(_inst().with_forecast(meta={"name": "t"}), "dlp", "highs")],
+    bl.record(base, cases=[bl.Case(tiny_instance().with_forecast(meta={"name": "t"}), "dlp", "highs")],
               solve_fn=lambda instance, **kw: _canned(instance))
     for rel in ("manifest.json", "cases/t-dlp-highs/result.json"):
         p = base / rel

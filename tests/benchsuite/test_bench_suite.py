@@ -5,7 +5,6 @@ These tests check the machinery, not speed: no timing is asserted.
 
 from __future__ import annotations
 
-import copy
 import json
 import math
 import os
@@ -171,8 +170,7 @@ def test_compare_identical_run_passes(micro_run, tmp_path):
 @pytest.mark.solver
 def test_compare_flags_2x_slowdown(micro_run, tmp_path):
     _, out = micro_run
-    data = json.loads((out / "benchmark.json").read_text())
-    slow = copy.deepcopy(data)
+    slow = json.loads((out / "benchmark.json").read_text())
     victim = slow["benchmarks"][0]
     for k in ("min", "max", "mean", "median"):
         victim["stats"][k] *= 2.0
@@ -190,8 +188,7 @@ def test_compare_flags_2x_slowdown(micro_run, tmp_path):
 @pytest.mark.solver
 def test_compare_flags_bid_price_error(micro_run, tmp_path):
     _, out = micro_run
-    data = json.loads((out / "benchmark.json").read_text())
-    bad = copy.deepcopy(data)
+    bad = json.loads((out / "benchmark.json").read_text())
     victim = next(b for b in bad["benchmarks"] if b["extra_info"]["kind"] == "solve")
     victim["extra_info"]["bid_price_error"] = 1e-2
     new = _write(tmp_path / "bad.json", bad)

@@ -7,6 +7,8 @@ import pytest
 from decomp import io
 from decomp.cli import main
 
+from support.tiny import write_tiny
+
 
 def test_generate_validate_inspect(tmp_path, capsys):
     out = tmp_path / "net"
@@ -30,20 +32,16 @@ def test_generate_parquet(tmp_path):
 
 
 def test_validate_invalid_exits_2(tmp_path, capsys):
-    d = tmp_path / "bad"
-    d.mkdir()
-    (d / "legs.csv").write_text("leg,origin,destination,capacity\nL1,AA1,BB2,-4\n")
-    (d / "products.csv").write_text("product,legs,fare,mean,std\nP1,L1,10,1,1\n")
+    d = write_tiny(tmp_path / "bad", "leg,origin,destination,capacity\nL1,AA1,BB2,-4\n",
+                   "product,legs,fare,mean,std\nP1,L1,10,1,1\n")
     assert main(["validate", str(d)]) == 2
     err = capsys.readouterr().err
     assert "legs.csv" in err and "row 1" in err and "capacity" in err
 
 
 def test_validate_prints_unused_leg_warning(tmp_path, capsys):
-    d = tmp_path / "w"
-    d.mkdir()
-    (d / "legs.csv").write_text("leg,origin,destination,capacity\nL1,AA1,BB2,4\nL2,BB2,AA1,4\n")
-    (d / "products.csv").write_text("product,legs,fare,mean,std\nP1,L1,10,1,1\n")
+    d = write_tiny(tmp_path / "w", "leg,origin,destination,capacity\nL1,AA1,BB2,4\nL2,BB2,AA1,4\n",
+                   "product,legs,fare,mean,std\nP1,L1,10,1,1\n")
     assert main(["validate", str(d)]) == 0
     assert "used by no product" in capsys.readouterr().out
 

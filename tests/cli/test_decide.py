@@ -15,23 +15,11 @@ from decomp.cli import main
 from support.cli import run_cli
 
 
-@pytest.fixture(scope="module")
-def p100(p100_dir):
-    return p100_dir
-
-
-@pytest.fixture(scope="module")
-def dlp_result(p100, tmp_path_factory):
-    out = tmp_path_factory.mktemp("res") / "dlp.json"
-    assert main(["solve", str(p100), "--model", "dlp", "--method", "highs", "--out", str(out)]) == 0
-    return out
-
-
 @pytest.mark.solver
-def test_decide_refuses_a_table_of_decomp_tables(p100, dlp_result, tmp_path, capsys):
+def test_decide_refuses_a_table_of_decomp_tables(p100_dir, p100_dlp, tmp_path, capsys):
     # a `decomp tables` file holds one row per leg, period and seats left; the last row won
     tables = tmp_path / "t.parquet"
-    assert main(["tables", str(p100), "--static", str(dlp_result), "--periods", "5", "--out", str(tables)]) == 0
+    assert main(["tables", str(p100_dir), "--static", str(p100_dlp), "--periods", "5", "--out", str(tables)]) == 0
     leg = str(ladder.load_rung("p100").leg_ids[0])
     rc, _, err = run_cli(["decide", tables, "--legs", leg, "--fare", "100"], capsys)
     assert rc == 2 and "listed twice" in err and "decomp tables" in err and "row" in err
@@ -63,10 +51,10 @@ def test_decide_refuses_a_leg_repeated_in_the_itinerary(tmp_path, capsys):
 
 
 @pytest.mark.solver
-def test_decide_from_a_non_optimal_result_says_so(p100, tmp_path, capsys):
+def test_decide_from_a_non_optimal_result_says_so(p100_dir, tmp_path, capsys):
     # a result stopped by its iteration limit; the decision must carry its status
     res = tmp_path / "limited.json"
-    assert main(["solve", str(p100), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "1",
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "1",
                  "--out", str(res)]) == 1
     capsys.readouterr()
     leg = str(ladder.load_rung("p100").leg_ids[0])

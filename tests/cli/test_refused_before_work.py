@@ -19,18 +19,6 @@ from support.cli import run_cli
 from support.tiny import write_benchmark, write_light
 
 
-@pytest.fixture(scope="module")
-def p100(p100_dir):
-    return p100_dir
-
-
-@pytest.fixture(scope="module")
-def dlp_result(p100, tmp_path_factory):
-    out = tmp_path_factory.mktemp("res") / "dlp.json"
-    assert main(["solve", str(p100), "--model", "dlp", "--method", "highs", "--out", str(out)]) == 0
-    return out
-
-
 def test_generate_refuses_a_folder_of_the_users_own_tables(tmp_path, capsys):
     own = write_light(tmp_path, "own")
     before = {p.name: p.read_bytes() for p in own.iterdir()}
@@ -128,7 +116,7 @@ def _full_disk(monkeypatch):
 
 
 @pytest.mark.solver
-def test_a_full_disk_is_named_by_the_path_that_failed(tmp_path, monkeypatch, capsys, dlp_result, p100):
+def test_a_full_disk_is_named_by_the_path_that_failed(tmp_path, monkeypatch, capsys, p100_dlp, p100_dir):
     # generate, baseline record, baseline check, simulate and tables said "cannot write : ..."
     inst = write_light(tmp_path)
     base = tmp_path / "base"
@@ -137,7 +125,7 @@ def test_a_full_disk_is_named_by_the_path_that_failed(tmp_path, monkeypatch, cap
     for argv, path in ((["generate", "--products", "20", "--out", tmp_path / "g"], tmp_path / "g"),
                        (["simulate", inst, "--policies", "fcfs", "--paths", "2", "--workers", "0", "--no-progress",
                          "--out", tmp_path / "s"], tmp_path / "s"),
-                       (["tables", p100, "--static", dlp_result, "--periods", "3", "--out", tmp_path / "t.parquet"],
+                       (["tables", p100_dir, "--static", p100_dlp, "--periods", "3", "--out", tmp_path / "t.parquet"],
                         tmp_path / "t.parquet"),
                        (["baseline", "record", "--suite", "micro", "--out", tmp_path / "b2"], tmp_path / "b2"),
                        (["baseline", "check", base, "--out", tmp_path / "chk"], tmp_path / "chk")):

@@ -9,20 +9,12 @@ import pytest
 
 from decomp import ladder
 from decomp.cli import main
-from decomp.io import write_instance
-
-
-@pytest.fixture(scope="module")
-def inst_dir(tmp_path_factory):
-    path = tmp_path_factory.mktemp("inst") / "p100"
-    write_instance(ladder.load_rung("p100"), path)
-    return path
 
 
 @pytest.mark.solver
-def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
+def test_solve_writes_result_and_allocation(p100_dir, tmp_path, capsys):
     out, alloc = tmp_path / "r.json", tmp_path / "a.csv"
-    code = main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
+    code = main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
                  "--product-table", str(alloc)])
     assert code == 0
     data = json.loads(out.read_text())
@@ -61,38 +53,38 @@ def test_solve_writes_result_and_allocation(inst_dir, tmp_path, capsys):
 
 
 @pytest.mark.solver
-def test_parquet_allocation_and_warm_start(inst_dir, tmp_path):
+def test_parquet_allocation_and_warm_start(p100_dir, tmp_path):
     first = tmp_path / "r1.json"
-    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(first),
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", str(first),
                  "--product-table", str(tmp_path / "a.parquet")]) == 0
     assert pq.read_table(tmp_path / "a.parquet").num_rows == 100
     second = tmp_path / "r2.json"
-    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(first),
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(first),
                  "--out", str(second)]) == 0
     assert json.loads(second.read_text())["termination"] == "optimal"
 
 
 @pytest.mark.solver
-def test_limits_exit_one_and_still_write(inst_dir, tmp_path):
+def test_limits_exit_one_and_still_write(p100_dir, tmp_path):
     out = tmp_path / "r.json"
-    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "2",
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--iteration-limit", "2",
                  "--out", str(out)]) == 1
     data = json.loads(out.read_text())
     assert data["termination"] == "iteration_limit" and data["solution_status"] != "optimal"
 
 
-def test_bad_input_exits_two(inst_dir, tmp_path, capsys):
+def test_bad_input_exits_two(p100_dir, tmp_path, capsys):
     out = tmp_path / "r.json"
     assert main(["solve", str(tmp_path / "missing"), "--model", "dlp", "--method", "highs", "--out", str(out)]) == 2
     assert "missing" in capsys.readouterr().err
-    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "highs", "--out", str(out)]) == 2
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "highs", "--out", str(out)]) == 2
     assert "methods for 'pnlp'" in capsys.readouterr().err
-    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
                  "--product-table", str(tmp_path / "a.txt")]) == 2
-    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", str(out),
                  "--tol", "5"]) == 2
     bad = tmp_path / "bad.json"
     bad.write_text("{not json")
-    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(out),
                  "--warm-start", str(bad)]) == 2
     assert not out.exists()

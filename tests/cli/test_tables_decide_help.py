@@ -18,14 +18,9 @@ from support.paths import ROOT
 
 
 @pytest.fixture(scope="module")
-def inst_dir(p100_dir):
-    return p100_dir
-
-
-@pytest.fixture(scope="module")
-def solved(inst_dir, tmp_path_factory):
+def solved(p100_dir, tmp_path_factory):
     d = tmp_path_factory.mktemp("solved")
-    assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(d / "r.json"),
+    assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--out", str(d / "r.json"),
                  "--leg-table", str(d / "legs.csv"), "--product-table", str(d / "products.parquet")]) == 0
     return d
 
@@ -37,8 +32,8 @@ def _decomp(*args, cwd=None):
 
 
 @pytest.mark.solver
-def test_solve_writes_leg_and_product_tables(solved, inst_dir):
-    inst = decomp.read_instance(inst_dir)
+def test_solve_writes_leg_and_product_tables(solved, p100_dir):
+    inst = decomp.read_instance(p100_dir)
     legs = pd.read_csv(solved / "legs.csv")
     products = pd.read_parquet(solved / "products.parquet")
     assert list(legs.columns) == list(decomp.tables.LEG_COLUMNS)
@@ -58,8 +53,8 @@ def test_solve_writes_leg_and_product_tables(solved, inst_dir):
 
 
 @pytest.mark.solver
-def test_solve_out_dash_and_refused_outputs(inst_dir, tmp_path, capfd):
-    code = main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", "-"])
+def test_solve_out_dash_and_refused_outputs(p100_dir, tmp_path, capfd):
+    code = main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", "-"])
     out, err = capfd.readouterr()
     assert code == 0
     data = json.loads(out)                              # stdout is the JSON alone
@@ -69,14 +64,14 @@ def test_solve_out_dash_and_refused_outputs(inst_dir, tmp_path, capfd):
     fifo = tmp_path / "fifo"
     os.mkfifo(fifo)
     for target in (tmp_path, fifo):
-        assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--out", str(target)]) == 2
+        assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--out", str(target)]) == 2
         assert "not a regular file" in capfd.readouterr().err
     assert fifo.is_fifo()
     # options that do not apply
-    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--segments", "4",
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--segments", "4",
                  "--out", str(tmp_path / "r.json")]) == 2
     assert "--segments applies to the pwl model only" in capfd.readouterr().err
-    assert main(["solve", str(inst_dir), "--model", "dlp", "--method", "highs", "--warm-start",
+    assert main(["solve", str(p100_dir), "--model", "dlp", "--method", "highs", "--warm-start",
                  str(tmp_path / "r.json"), "--out", str(tmp_path / "r.json")]) == 2
     assert "not used by method 'highs'" in capfd.readouterr().err
     assert not (tmp_path / "r.json").exists()
@@ -106,7 +101,7 @@ def test_decide_command(solved, capsys):
 
 
 @pytest.mark.solver
-def test_solve_warm_starts_from_a_table_or_a_task_folder(solved, inst_dir, tmp_path):
+def test_solve_warm_starts_from_a_table_or_a_task_folder(solved, p100_dir, tmp_path):
     task = tmp_path / "tasks" / "k1"
     task.mkdir(parents=True)
     result = json.loads((solved / "r.json").read_text())
@@ -114,13 +109,13 @@ def test_solve_warm_starts_from_a_table_or_a_task_folder(solved, inst_dir, tmp_p
                                                   "result": result}))
     for source in (solved / "legs.csv", task):
         out = tmp_path / "w.json"
-        assert main(["solve", str(inst_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(source),
+        assert main(["solve", str(p100_dir), "--model", "pnlp", "--method", "ipopt", "--warm-start", str(source),
                      "--out", str(out)]) == 0
         assert json.loads(out.read_text())["bid_prices"] == pytest.approx(result["bid_prices"], rel=1e-6)
 
 
-def test_validate_and_inspect_json(inst_dir, tmp_path, capsys):
-    assert main(["validate", str(inst_dir), "--json"]) == 0
+def test_validate_and_inspect_json(p100_dir, tmp_path, capsys):
+    assert main(["validate", str(p100_dir), "--json"]) == 0
     v = json.loads(capsys.readouterr().out)
     assert v["valid"] and v["n_products"] == 100
     bad = tmp_path / "bad"
@@ -130,17 +125,17 @@ def test_validate_and_inspect_json(inst_dir, tmp_path, capsys):
     assert main(["validate", str(bad), "--json"]) == 2
     e = json.loads(capsys.readouterr().out)
     assert not e["valid"] and e["error"]["row"] == 1 and e["error"]["column"] == "capacity"
-    assert main(["inspect", str(inst_dir), "--json", "--top", "3"]) == 0
+    assert main(["inspect", str(p100_dir), "--json", "--top", "3"]) == 0
     i = json.loads(capsys.readouterr().out)
     assert i["n_legs"] == 12 and len(i["most_loaded_legs"]) == 3
     assert sum(i["legs_per_product"].values()) == 100
 
 
 @pytest.mark.integration
-def test_version_verbose_after_subcommand_and_warnings_once(inst_dir, tmp_path):
+def test_version_verbose_after_subcommand_and_warnings_once(p100_dir, tmp_path):
     r = _decomp("--version")
     assert r.returncode == 0 and r.stdout.strip() == f"decomp {decomp.__version__}"
-    r = _decomp("validate", inst_dir, "-v")
+    r = _decomp("validate", p100_dir, "-v")
     assert r.returncode == 0 and "Traceback" not in r.stderr
     # a leg no product uses: one warning line, not a log line and a printed line
     unused = tmp_path / "unused"

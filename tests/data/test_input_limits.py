@@ -19,21 +19,12 @@ from decomp.instance import Instance
 from decomp.io import read_instance
 
 from support.cli import run_cli
-from support.tiny import write_light
-
-
-HUGE_INT = "1" * 5000          # more digits than CPython converts (4,300): json.loads raises ValueError
-
-
-def _inst():
-    return Instance.from_lists([("L1", "KA1", "HU2", 100.0), ("L2", "HU2", "BO3", 80.0)],
-                               [("P1", ["L1"], 100.0, 10.0, 3.0), ("P2", ["L1", "L2"], 150.0, 30.0, 2.0),
-                                ("P3", ["L2"], 90.0, 8.0, 2.5)])
+from support.tiny import HUGE_INT, tiny_instance, write_light
 
 
 def test_with_forecast_aligns_a_series_by_product_id():
     pd = pytest.importorskip("pandas")
-    inst = _inst()
+    inst = tiny_instance()
     mean = pd.Series({"P3": 7.0, "P1": 11.0, "P2": 30.0})       # not in the instance's order
     out = inst.with_forecast(mean=mean)
     assert out.mean.tolist() == [11.0, 30.0, 7.0]
@@ -49,7 +40,7 @@ def test_with_forecast_aligns_a_series_by_product_id():
                                        ("12", "not a number")])
 def test_with_forecast_checks_values_as_files_are(bad, words):
     with pytest.raises(InstanceError, match=words) as e:
-        _inst().with_forecast(mean=[10.0, bad, 8.0])
+        tiny_instance().with_forecast(mean=[10.0, bad, 8.0])
     assert e.value.row == 2 and e.value.column == "mean"
 
 

@@ -1,10 +1,16 @@
-"""Small inputs shared by the tests of issue 24 (invented data: a fictional carrier's three
-stations KA1, HU2, BO3)."""
+"""Small inputs shared by the command-line, validation and baseline tests (invented data: a
+fictional carrier's three stations KA1, HU2, BO3)."""
 
 from __future__ import annotations
 
 import json
 import pathlib
+
+from decomp.instance import Instance
+
+#: A 5,000-digit integer: more digits than CPython converts to int (4,300, sys.get_int_max_str_digits,
+#: Python 3.11 documentation), so json.loads raises ValueError on it.
+HUGE_INT = "1" * 5000
 
 LEGS_CSV = "leg,origin,destination,capacity\nL1,KA1,HU2,100\nL2,HU2,BO3,80\n"
 PRODUCTS_CSV = "product,legs,fare,mean,std\nP1,L1,100,60,9\nP2,L1 L2,150,50,8\nP3,L2,90,45,7\n"
@@ -37,3 +43,10 @@ def write_light(parent: pathlib.Path, name: str = "t", legs: str | None = None,
                 products: str | None = None) -> pathlib.Path:
     """``parent / name``: the tiny network's legs with two light products (or the given tables)."""
     return write_tiny(parent / name, legs, products or LIGHT_PRODUCTS_CSV)
+
+
+def tiny_instance() -> Instance:
+    """The tiny network's two legs with three products, as an Instance."""
+    return Instance.from_lists([("L1", "KA1", "HU2", 100.0), ("L2", "HU2", "BO3", 80.0)],
+                               [("P1", ["L1"], 100.0, 10.0, 3.0), ("P2", ["L1", "L2"], 150.0, 30.0, 2.0),
+                                ("P3", ["L2"], 90.0, 8.0, 2.5)])
