@@ -195,9 +195,7 @@ def newton_phase(state, pi0, theta_start=None):
                                or cont.stage_too_long()):
             if cont.lower() is None:
                 return "identified", pt.pi
-            lam = newton.LAM_START
-            pt = net.evaluate(pt.pi, cont.theta)
-            bounds.offer_dual(pt)
+            lam, pt = newton.LAM_START, _smoothed_again(net, pt, cont, bounds)
             continue
         decrements.append(dirn.decrement)
         gaps.append(bounds.gap)
@@ -210,9 +208,7 @@ def newton_phase(state, pi0, theta_start=None):
             if cont.theta > 0:
                 if cont.lower() is None:
                     return "identified", pt.pi
-                lam = newton.LAM_START
-                pt = net.evaluate(pt.pi, cont.theta)
-                bounds.offer_dual(pt)
+                lam, pt = newton.LAM_START, _smoothed_again(net, pt, cont, bounds)
                 continue
             bounds.offer_primal(*recover(net, pt))
             return ("optimal" if bounds.gap <= state.tol else "no_decrease"), bounds.pi
@@ -220,6 +216,13 @@ def newton_phase(state, pi0, theta_start=None):
         pt, _, step_len, lam = taken
         steps.append(step_len)
         bounds.offer_dual(pt)
+
+
+def _smoothed_again(net, pt, cont, bounds):
+    """The dual at ``pt``'s bid prices at the continuation's new (lower) smoothing level."""
+    pt = net.evaluate(pt.pi, cont.theta)
+    bounds.offer_dual(pt)
+    return pt
 
 
 def _stalled(values) -> bool:
