@@ -64,7 +64,8 @@ LEG_COLUMNS = ("leg", "origin", "destination", "capacity")
 PRODUCT_COLUMNS = ("product", "legs", "fare", "mean", "std")
 META_FILE = "meta.json"
 FORMATS = ("csv", "parquet")
-_INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE}
+_INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE,
+                   "markets.csv", "markets.parquet"}      # markets: decomp.choice.data
 
 MAX_CAPACITY = 1e12   # seats per leg
 MAX_FARE = 1e12       # fare units per seat
@@ -403,7 +404,10 @@ def read_instance(path) -> Instance:
     legs_path, legs = _read_table(folder, "legs", LEG_COLUMNS)
     prod_path, prods = _read_table(folder, "products", PRODUCT_COLUMNS)
     meta.setdefault("name", folder.resolve().name)
-    return instance_from_tables(legs, prods, meta=meta, legs_name=legs_path, products_name=prod_path)
+    inst = instance_from_tables(legs, prods, meta=meta, legs_name=legs_path, products_name=prod_path)
+    from .choice.data import read_markets       # customer choice: markets.csv, when there is one
+
+    return read_markets(folder, inst, products_name=prod_path)
 
 
 def instance_from_tables(legs: pa.Table, prods: pa.Table, *, meta=None, legs_name="legs",
@@ -659,6 +663,9 @@ def check_instance(inst: Instance) -> None:
             i = int(np.argmax(~known))
             raise InstanceError(f"unknown demand distribution; known: {', '.join(DISTRIBUTIONS)}",
                                 row=i + 1, column="distribution", value=str(inst.distribution[i]))
+    from .choice.data import check as check_markets    # customer choice: the markets, when there are some
+
+    check_markets(inst)
 
 
 def _as_arrow(values) -> pa.Array:
@@ -774,6 +781,9 @@ def write_instance(inst: Instance, path, format: str = "csv") -> pathlib.Path:
             for name, table in (("legs", legs), ("products", products)):
                 pq.write_table(table, tmp / f"{name}.parquet", compression="zstd")
         _write_meta(inst, tmp / META_FILE)
+        from .choice.data import write_markets   # customer choice: markets.csv, when there are markets
+
+        write_markets(inst, tmp, format)
         _replace_dir(tmp, target)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
