@@ -29,6 +29,16 @@ def register(sub):
                    help="range of the coefficient of variation std/mean (default: 0.25 0.6)")
     p.add_argument("--two-stop", action=argparse.BooleanOptionalAction, default=None,
                    help="sell spoke-hub-hub-spoke itineraries (default: when there are 2+ hubs)")
+    c = p.add_argument_group("customer choice (decomp.choice.generate)")
+    c.add_argument("--markets", action="store_true",
+                   help="sell the products in markets (origin, destination, first bank) where customers choose "
+                        "by logit: writes markets.csv and the product columns market, preference_weight "
+                        "(default: off, independent demand)")
+    c.add_argument("--weight-slope", type=float, metavar="G",
+                   help="preference weights fall with the fare as (top fare / fare)^G (with --markets; default: 2)")
+    c.add_argument("--strong-buy-down-share", type=float, metavar="S",
+                   help="share of markets whose no-purchase weight is small, so customers buy the cheapest open "
+                        "fare (with --markets; default: 0.5)")
     p.set_defaults(func=run)
 
 
@@ -37,11 +47,14 @@ def run(args) -> int:
     from ..io import write_instance
     from ..production.outputs import is_output_error
 
+    if not args.markets and (args.weight_slope is not None or args.strong_buy_down_share is not None):
+        print("decomp generate: error: --weight-slope and --strong-buy-down-share need --markets", file=sys.stderr)
+        return 2
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
                                                "demand_factor", "cv", "two_stop")
                  if getattr(args, k) is not None}
     t0 = time.perf_counter()
-    inst = generate(args.products, seed=args.seed, **overrides)
+    inst = _generate(args, overrides) if args.markets else generate(args.products, seed=args.seed, **overrides)
     t1 = time.perf_counter()
     try:
         out = write_instance(inst, args.out, format=args.format)
@@ -58,5 +71,16 @@ def run(args) -> int:
     p = inst.meta["params"]
     print(f"wrote {out} ({args.format}): {inst.n_legs} legs, {inst.n_products} products; "
           f"{p['hubs']} hubs, {p['spokes']} spokes, {p['banks']} banks, {p['fare_classes']} fare classes, "
-          f"two-stop {'on' if p['two_stop'] else 'off'}; generated in {t1 - t0:.2f} s, written in {t2 - t1:.2f} s")
+          f"two-stop {'on' if p['two_stop'] else 'off'}"
+          + (f"; {inst.markets.n_markets} markets" if inst.markets is not None else "")
+          + f"; generated in {t1 - t0:.2f} s, written in {t2 - t1:.2f} s")
     return 0
+
+
+def _generate(args, overrides):
+    """A network with markets (decomp.choice.generate); --weight-slope and --strong-buy-down-share only here."""
+    from ..choice.generate import ChoiceParams, generate_choice
+
+    choice = {k: v for k, v in (("weight_slope", args.weight_slope),
+                                ("strong_share", args.strong_buy_down_share)) if v is not None}
+    return generate_choice(args.products, seed=args.seed, choice=ChoiceParams(**choice), **overrides)
