@@ -136,6 +136,9 @@ class Master:
         load, rev = self._aggregate()
         self._agg_load = load
         nz = np.flatnonzero(load)
+        # HiGHS keeps one thread scheduler per process; an earlier solve with another thread count
+        # (the simulation's threads=1) would make this run fail unless it is reset
+        h.resetGlobalScheduler(True)
         h.addCol(rev, 0.0, 1.0, len(nz), nz.astype(np.int32), load[nz])
         self.n_cols = 1
         self._add_box(np.asarray(pi, dtype=np.float64), np.broadcast_to(np.asarray(box, dtype=np.float64), (L,)))

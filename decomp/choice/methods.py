@@ -98,6 +98,10 @@ class SalesLPHighs:
         if status == highspy.HighsStatus.kError:
             raise ConfigError(f"HiGHS rejected the sales LP of {instance.name} (HiGHS status: {status_words(status)})")
         t1 = time.perf_counter()
+        if options.threads is not None:
+            # as in decomp.methods.highs: HiGHS keeps one thread scheduler per process, and a run asking
+            # for another thread count than the first fails unless it is reset
+            h.resetGlobalScheduler(True)
         h.run()
         t2 = time.perf_counter()
         ms = h.getModelStatus()
