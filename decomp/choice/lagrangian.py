@@ -82,7 +82,9 @@ def solve(instance, options, warm_start=None) -> Outcome:
     box = BOX_WIDTHS * t * net.fare_scale
     m = master.Master(net, pi_n, free, delta_m, delta_o, ranges, box, verbose=options.verbose)
     scale = float(net.mp.arrivals @ net.top + net.mean_o @ net.fare_o)
-    eps = 1e-3 * options.tol * max(1.0, scale) / max(1, net.mp.n_markets + len(net.mean_o))
+    # a market is priced in when it gains more than eps: the gains then left add up to at most 1e-3 tol of
+    # the revenue scale; never below 1e-13 of it (the rounding of the pricing itself)
+    eps = max(1e-3 * options.tol, 1e-13) * max(1.0, scale) / max(1, net.mp.n_markets + len(net.mean_o))
     rounds = MAX_ROUNDS if options.iteration_limit is None else max(1, int(options.iteration_limit))
     status, duals = m.run(eps, rounds, deadline=deadline)
     for r in m.rounds:
@@ -90,7 +92,7 @@ def solve(instance, options, warm_start=None) -> Outcome:
                                        time.perf_counter() - t1))
     if duals is not None:
         pi = np.where(fixed & ~net.closed, 0.0, duals.pi)
-        x = net.allocation(*m.primal())
+        x = _within_capacity(net, net.allocation(*m.primal()))   # a stop with seats bought: scaled to fit
     else:                                   # no master answer at all: phase 1's prices, sales scaled to fit
         pi = np.where(fixed & ~net.closed, 0.0, pi_n)
         x = _scaled_best_sales(net, pi)
@@ -103,6 +105,15 @@ def solve(instance, options, warm_start=None) -> Outcome:
                    iterations=len(steps) + len(m.rounds), newton_iterations=len(steps), master_rounds=len(m.rounds),
                    free_markets=int(m.free.sum()), history=tuple(history), seconds_build=t1 - t0,
                    seconds_solve=t2 - t1)
+
+
+def _within_capacity(net, x) -> np.ndarray:
+    """``x`` scaled by the largest theta <= 1 that fits every leg (feasible: a mix with offering nothing)."""
+    load = net.instance.leg_load(x)
+    over = load > net.capacity * (1 + 1e-12) + 1e-9
+    if not over.any():
+        return x
+    return x * float(np.min(net.capacity[over] / load[over]))
 
 
 def _scaled_best_sales(net, pi) -> np.ndarray:
