@@ -77,11 +77,13 @@ def threshold_sets(net, ranges, markets: np.ndarray, r: np.ndarray, thresholds: 
 def offered_sets(net, markets: np.ndarray, offered: np.ndarray) -> Columns:
     """Columns offering, for each of ``markets``, its products marked in ``offered`` (empty sets dropped)."""
     mp = net.mp
-    mask = offered & np.isin(mp.market, markets)
-    pos = np.flatnonzero(mask)
+    chosen = np.zeros(mp.n_markets, dtype=bool)
+    chosen[np.asarray(markets, dtype=np.int64)] = True
+    pos = np.flatnonzero(offered & chosen[mp.market])
     mk = mp.market[pos]
-    uniq, col = np.unique(mk, return_inverse=True)
-    return _build(net, uniq, col.reshape(-1), pos)
+    has = np.zeros(mp.n_markets, dtype=bool)
+    has[mk] = True                                  # markets with a non-empty set, in market order
+    return _build(net, np.flatnonzero(has), (np.cumsum(has) - 1)[mk], pos)
 
 
 def _build(net, markets, col, pos) -> Columns:

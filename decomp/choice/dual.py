@@ -68,13 +68,19 @@ class SmoothPoint:
     curv_o: np.ndarray
 
 
-def smoothed(net, pi, mu_m: np.ndarray, mu_o: np.ndarray, start=None) -> SmoothPoint:
+def smoothed(net, pi, mu_m: np.ndarray, mu_o: np.ndarray, near=None) -> SmoothPoint:
     """q_mu(pi) and its gradient; ``mu_m`` per market, ``mu_o`` per other product (fare units).
 
-    ``start``: the markets' values R^mu at a nearby point (speeds up the root finding).
+    ``near``: (bid prices, SmoothPoint) of a nearby point; the root finding then starts from
+    its values moved to first order, R + sum_j p_j (change of r_j).
     """
     mp = net.mp
     r_m, r_o = net.net_fares(pi)
+    start = None
+    if near is not None:
+        pi_near, point_near = near
+        moved = net.legs_m @ (np.asarray(pi_near) - pi)                     # change of the net fares
+        start = point_near.market.value + mp.per_market(point_near.market.prob * moved)
     sm = mnl.smoothed_value(mp, r_m, mu_m, start=start)
     z = r_o / mu_o
     s = expit(z)
@@ -101,14 +107,16 @@ def hessian(net, point: SmoothPoint) -> np.ndarray:
         G = len(net.group_market)
         d = np.bincount(net.group[soft], weights=mp.arrivals[mp.market[soft]] * sm.curv / sm.total[mp.market[soft]],
                         minlength=G)
-        mkts = np.unique(mp.market[soft])
-        in_soft = np.flatnonzero(np.isin(net.group_market, mkts))          # groups of those markets
+        has = np.zeros(mp.n_markets, dtype=bool)
+        has[mp.market[soft]] = True                                        # markets with smooth products
+        row_of = np.cumsum(has) - 1
+        in_soft = np.flatnonzero(has[net.group_market])                    # groups of those markets
         p_g = np.bincount(net.group, weights=sm.prob, minlength=G)[in_soft]
-        pos = np.searchsorted(mkts, net.group_market[in_soft])
-        Pm = sp.csr_matrix((p_g, (pos, np.arange(len(in_soft)))), shape=(len(mkts), len(in_soft)))
+        pos = row_of[net.group_market[in_soft]]
+        Pm = sp.csr_matrix((p_g, (pos, np.arange(len(in_soft)))), shape=(int(has.sum()), len(in_soft)))
         ubar = Pm @ net.legs_g[in_soft]                                    # expected legs per arrival
         act = in_soft[d[in_soft] > 0]
-        Y = (net.legs_g[act] - ubar[np.searchsorted(mkts, net.group_market[act])]).tocsr()
+        Y = (net.legs_g[act] - ubar[row_of[net.group_market[act]]]).tocsr()
         H += (Y.T @ sp.diags(d[act]) @ Y).toarray()
     if len(point.curv_o):
         keep = point.curv_o > 1e-300

@@ -30,8 +30,8 @@ from .network import ChoiceNetwork
 log = logging.getLogger(__name__)
 
 #: Width of the band of free markets and of the stabilizing box, in smoothing widths.
-BAND_WIDTHS = 10.0
-BOX_WIDTHS = 5.0
+BAND_WIDTHS = 5.0
+BOX_WIDTHS = 3.0
 #: Master rounds before the method gives up (each adds a column or frees a market).
 MAX_ROUNDS = 200
 

@@ -92,8 +92,9 @@ def candidate_sets(net, ranges, markets, pi, delta_m) -> cols_mod.Columns:
         return cols_mod.Columns.empty(net.n_legs)
     r_m, _ = net.net_fares(pi)
     R, _ = mnl.best_offer(mp, r_m)
-    in_free = np.isin(mp.market, markets)
-    near = in_free & (np.abs(r_m - R[mp.market]) <= delta_m[mp.market]) & (r_m > 0)
+    chosen = np.zeros(mp.n_markets, dtype=bool)
+    chosen[np.asarray(markets, dtype=np.int64)] = True
+    near = chosen[mp.market] & (np.abs(r_m - R[mp.market]) <= delta_m[mp.market]) & (r_m > 0)
     thr_m = np.concatenate([np.asarray(markets, dtype=np.int64), mp.market[near]])
     thr = np.concatenate([R[markets] + delta_m[markets], r_m[near]])
     return cols_mod.threshold_sets(net, ranges, thr_m, r_m, thr)
@@ -271,7 +272,7 @@ class Master:
         if len(newly) or len(wrong_o):
             keep_old = cols_mod.offered_sets(net, newly, self.fixed_offered)   # the set they were fixed to
             self.free[newly] = True
-            self.fixed_offered &= ~np.isin(mp.market, newly)
+            self.fixed_offered &= ~self.free[mp.market]
             self.free_o[wrong_o] = True
             self._update_aggregate()
             self._add_rows(newly)

@@ -59,19 +59,30 @@ def best_offer(mp: MarketProducts, r: np.ndarray, max_steps: int | None = None):
     """(R per market, offered mask per product): the best offer sets at net fares ``r`` (Dinkelbach).
 
     ``r`` is aligned with ``mp`` (market products in market order). Products with
-    r_j <= R_m are not offered (a tie adds nothing).
+    r_j <= R_m are not offered (a tie adds nothing). The value rises and the set shrinks
+    from step to step (kept so in floating point: a product once dropped stays out, so
+    rounding at a tie cannot make it cycle), so each market is done within one step more
+    than it has products; a market whose set repeats is done, and each step works on the
+    products of the markets not yet done.
     """
-    v = mp.weight
-    vr = v * r
+    M = mp.n_markets
     offered = r > 0.0
+    R = np.zeros(M)
+    act = np.arange(len(r))                       # products of the markets still changing
     steps = max_steps if max_steps is not None else int(np.bincount(mp.market).max(initial=0)) + 2
-    R = np.zeros(mp.n_markets)
     for _ in range(steps):
-        R = mp.per_market(np.where(offered, vr, 0.0)) / (mp.w0 + mp.per_market(np.where(offered, v, 0.0)))
-        again = r > R[mp.market]
-        if np.array_equal(again, offered):
+        m, v, ra, oa = mp.market[act], mp.weight[act], r[act], offered[act]
+        vo = np.where(oa, v, 0.0)
+        value = np.bincount(m, weights=vo * ra, minlength=M) / (mp.w0 + np.bincount(m, weights=vo, minlength=M))
+        R[m] = value[m]
+        again = oa & (ra > value[m])
+        moved = again != oa
+        if not moved.any():
             break
-        offered = again
+        offered[act] = again
+        changed = np.zeros(M, dtype=bool)
+        changed[m[moved]] = True
+        act = act[changed[m]]
     return R, offered
 
 
@@ -109,7 +120,7 @@ class Smoothed:
 #: linear (or zero) terms: their softplus differs from (z)^+ by less than e^-20 of mu.
 SATURATED = 20.0
 #: Half-width of the band of smooth products around the starting value, in smoothing widths.
-BAND = 30.0
+BAND = 40.0
 
 
 def smoothed_value(mp: MarketProducts, r: np.ndarray, mu: np.ndarray, start=None, tol: float = 1e-12,
@@ -143,17 +154,25 @@ def _smoothed_from(mp, r, mu, start, tol, max_steps):
     hard_in = gap >= band
     A = mp.per_market(np.where(hard_in, v * r, 0.0))
     B = mp.per_market(np.where(hard_in, v, 0.0))
-    ms, vs, rs, mus = m[soft], v[soft], r[soft], mu[m[soft]]
     R = start.copy()
+    going = np.ones(M, dtype=bool)                    # markets not yet converged
+    sel = soft                                        # ... and their smooth products
     for _ in range(max_steps):
-        z = (rs - R[ms]) / mus
-        phi = mp.w0 * R - (A - B * R) - np.bincount(ms, weights=vs * mus * np.logaddexp(0.0, z), minlength=M)
-        W = mp.w0 + B + np.bincount(ms, weights=vs * expit(z), minlength=M)
-        step = -phi / W
+        ms, mus = m[sel], mu[m[sel]]
+        z = (r[sel] - R[ms]) / mus
+        e = np.exp(-np.abs(z))                        # softplus and logistic from one exponential
+        soft_plus = np.maximum(z, 0.0) + np.log1p(e)
+        logistic = np.where(z >= 0, 1.0, e) / (1.0 + e)
+        phi = mp.w0 * R - (A - B * R) - np.bincount(ms, weights=v[sel] * mus * soft_plus, minlength=M)
+        W = mp.w0 + B + np.bincount(ms, weights=v[sel] * logistic, minlength=M)
+        step = np.where(going, -phi / W, 0.0)
         R += step
-        if np.all(np.abs(step) <= tol * np.maximum(1.0, np.abs(R))):
+        going &= np.abs(step) > tol * np.maximum(1.0, np.abs(R))
+        if not going.any():
             break
-    z = (rs - R[ms]) / mus
+        sel = sel[going[m[sel]]]
+    ms, vs, mus = m[soft], v[soft], mu[m[soft]]
+    z = (r[soft] - R[ms]) / mus
     ss = expit(z)
     W = mp.w0 + B + np.bincount(ms, weights=vs * ss, minlength=M)
     s_all = hard_in.astype(np.float64)

@@ -13,7 +13,9 @@ are all far from their markets' thresholds, and the pure Newton step is huge the
 
 Each level stops when Newton's step would move no bid price by more than ``close``
 smoothing widths (t times the median top fare: the iterate is then within the region
-where the level's quadratic model holds, and the next level starts close), or when
+where the level's quadratic model holds, and the next level starts close), after a
+full step of at most ``settled`` widths (Newton's next step would be much smaller: no
+Hessian is computed to find that out), or when
 Newton's decrement g'H^-1 g is below ``decrement x t`` of the dual value (the
 smoothing changes the dual by about t times its size: a level need not be solved
 more finely than that). This phase only has to come close: the exact answer comes from
@@ -42,11 +44,12 @@ MAX_HALVINGS = 30
 class Schedule:
     """Smoothing levels t (relative to each market's top fare): start, factor, last."""
 
-    start: float = 0.3
+    start: float = 0.15
     factor: float = 0.5
     last: float = 1e-3
     decrement: float = 1e-3
     close: float = 0.5
+    settled: float = 2.0
     max_iterations: int = 60
 
 
@@ -101,7 +104,7 @@ def approach(net, pi0, schedule: Schedule = Schedule(), deadline: float | None =
     t0 = time.perf_counter()
     while True:
         mu_m, mu_o = t * np.maximum(net.top, 1e-12), t * net.fare_o
-        point = dual.smoothed(net, pi, mu_m, mu_o, start=None if not history else point.market.value)
+        point = dual.smoothed(net, pi, mu_m, mu_o, near=None if not history else (pi, point))
         evals += 1
         last = t <= schedule.last * (1 + 1e-12)
         level_tol = schedule.decrement * t * max(1.0, abs(point.value))
@@ -122,7 +125,7 @@ def approach(net, pi0, schedule: Schedule = Schedule(), deadline: float | None =
             for _ in range(MAX_HALVINGS):
                 trial = np.maximum(pi + alpha * d, 0.0)
                 trial[fixed] = 0.0
-                cand = dual.smoothed(net, trial, mu_m, mu_o, start=point.market.value)
+                cand = dual.smoothed(net, trial, mu_m, mu_o, near=(pi, point))
                 evals += 1
                 expect = float(g @ (pi - trial))        # first-order decrease along the projection arc
                 if cand.value <= point.value - ARMIJO * max(expect, 0.0):
@@ -133,6 +136,8 @@ def approach(net, pi0, schedule: Schedule = Schedule(), deadline: float | None =
             history.append(Step(it, t, point.value, dec, moved, int((~active).sum()), time.perf_counter() - t0))
             if deadline is not None and time.perf_counter() > deadline:
                 return pi, t, history, evals
+            if alpha == 1.0 and size <= schedule.settled * t * width:
+                break          # a full step within the quadratic region: the next would be far smaller
         if last or it >= schedule.max_iterations:
             return pi, t, history, evals
         t = max(t * schedule.factor, schedule.last)
