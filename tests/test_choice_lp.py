@@ -215,3 +215,29 @@ def test_mnl_sales_match_the_formula():
         x = mnl.sales(mp, offered)
         expect = np.where(offered, 10 * w / (4 + w[offered].sum()), 0.0)
         assert np.allclose(x, expect, rtol=1e-15)
+
+
+def _family_draw(seed):
+    """Random networks the generator never makes (hub networks of 2-7 spokes, markets of 1-8 products, products
+    outside markets, closed legs, slack to very tight) and generated ones with random choice options."""
+    from decomp.choice.generate import ChoiceParams, generate_choice
+
+    rng = np.random.default_rng(seed)
+    if seed % 2 == 0:
+        return random_network(seed, legs=int(rng.integers(2, 8)), markets=int(rng.integers(3, 40)),
+                              max_products=int(rng.integers(1, 9)), others=int(rng.integers(0, 4)),
+                              tightness=float(rng.uniform(0.1, 1.5)), closed=int(rng.integers(0, 2)))
+    choice = ChoiceParams(weight_slope=float(rng.uniform(0, 4)), strong_share=float(rng.uniform(0, 1)),
+                          strong_no_purchase=(0.02, 0.3), weak_no_purchase=(1.0, 20.0))
+    return generate_choice(int(rng.integers(300, 6000)), seed=seed, choice=choice,
+                           demand_factor=(float(rng.uniform(0.3, 1.0)), float(rng.uniform(1.0, 3.0))))
+
+
+@pytest.mark.parametrize("seed", [pytest.param(s, marks=pytest.mark.slow) if s >= 30 else s for s in range(100)])
+def test_family_lagrangian_certifies_and_agrees_with_highs(seed):
+    # Strong duality (the certificate's dual bound at the returned bid prices) and HiGHS on the same LP.
+    inst = _family_draw(seed)
+    r = decomp.solve(inst, model="sblp", method="lagrangian", tol=1e-9)
+    h = decomp.solve(inst, model="sblp", method="highs")
+    assert r.ok and abs(r.gap) <= 1e-9 and r.certificate.max_violation_rel <= 1e-9, r.message
+    assert r.objective == pytest.approx(h.objective, rel=1e-9)
