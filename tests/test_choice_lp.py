@@ -241,3 +241,16 @@ def test_family_lagrangian_certifies_and_agrees_with_highs(seed):
     h = decomp.solve(inst, model="sblp", method="highs")
     assert r.ok and abs(r.gap) <= 1e-9 and r.certificate.max_violation_rel <= 1e-9, r.message
     assert r.objective == pytest.approx(h.objective, rel=1e-9)
+
+
+def test_time_limit_is_a_status_with_a_feasible_answer():
+    from decomp.choice.generate import generate_choice
+
+    inst = generate_choice(3000, seed=12)
+    r = decomp.solve(inst, model="sblp", method="lagrangian", time_limit=1e-4)
+    assert r.termination is Termination.TIME_LIMIT
+    assert r.certificate.max_violation_rel <= 1e-9                # scaled to fit the legs
+    assert r.solution_status.value in ("feasible", "optimal")
+    h = decomp.solve(inst, model="sblp", method="highs")
+    assert r.objective <= h.objective * (1 + 1e-9)                 # a feasible point is below the optimum
+    assert r.bound >= h.objective * (1 - 1e-9)                     # and the dual bound above it

@@ -3,7 +3,7 @@
 Two phases, each in its own module:
 
 1. :mod:`decomp.choice.newton` comes close: projected Newton on the smoothed dual, the
-   smoothing driven down from 0.3 to 0.001 of each market's top fare;
+   smoothing driven down from 0.15 to 0.001 of each market's top fare (:class:`decomp.choice.newton.Schedule`);
 2. :mod:`decomp.choice.master` finishes exactly: markets whose best offer set is
    unambiguous at those bid prices are fixed, the rest keep revenue-ordered sets as
    columns of a restricted choice-based LP (HiGHS), priced exactly market by market

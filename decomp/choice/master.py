@@ -297,7 +297,7 @@ class Master:
         return x_m, x_o
 
     def run(self, eps: float, max_rounds: int, deadline=None):
-        """Solve and price until nothing is added: (status, duals of the last solve, rounds)."""
+        """Solve and price until nothing is added: (status, duals of the last solve); rounds in ``self.rounds``."""
         duals = None
         for k in range(1, max_rounds + 1):
             t0 = time.perf_counter()

@@ -210,7 +210,7 @@ class SalesLPLagrangian:
         t2 = time.perf_counter()
         return choice_result(instance, self.name, options, termination=out.termination, x=out.x, pi=out.pi,
                              marks=(t0, t1, t2), iterations=out.iterations, solver="decomp-choice-lagrangian",
-                             solver_version=None, raw_status=out.raw_status, message=out.message,
+                             solver_version=_version(), raw_status=out.raw_status, message=out.message,
                              history=out.history,
                              extra_options={"newton_iterations": out.newton_iterations,
                                             "master_rounds": out.master_rounds, "free_markets": out.free_markets,
@@ -226,3 +226,9 @@ def _prices(instance, warm_start) -> np.ndarray:
     if a.shape != (instance.n_legs,) or not np.all(np.isfinite(a)):
         raise ConfigError(f"warm start: expected {instance.n_legs} finite bid prices, got shape {a.shape}")
     return np.maximum(a, 0.0)
+
+
+def _version():
+    from .. import __version__
+
+    return __version__
