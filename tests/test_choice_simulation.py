@@ -82,6 +82,24 @@ def test_epochs_equal_one_customer_at_a_time(spec, every):
     assert sold.sum() > 0
 
 
+def test_fixed_bid_prices_are_the_sblp_policy_priced_once():
+    # The bench's revenue pricing on networks with markets: fixed bid prices, each customer offered the best
+    # revenue-ordered available set; the sblp policy without re-optimization (checked above against the
+    # customer-by-customer loop), for any split of the paths into batches.
+    from decomp.benchsuite.measure import price_bid_prices
+
+    inst = random_network(23, legs=4, markets=10, tightness=0.5)
+    policy = cs.parse_policies("sblp:highs")[0]
+    customers = cs.sample_customers(inst.markets, np.arange(7), seed=5)
+    out = cs.run_policy(inst, cs.Tables.of(inst), policy, customers, every=None, forecast=None,
+                        counts=cs.SolveCounts(), horizon=60.0)
+    pi = policy.prices(inst, np.floor(inst.capacity + 1e-9), 0.0, None, None, cs.SolveCounts())
+    for chunk in (1, 3, 7):
+        assert np.array_equal(cs.path_revenues_for_bid_prices(inst, pi, 7, seed=5, chunk=chunk), out.revenue)
+    assert out.revenue.sum() > 0
+    assert price_bid_prices(inst, pi, 7, 5)["mean"] == pytest.approx(out.revenue.mean(), rel=1e-12)
+
+
 def test_small_window_gives_the_same_answer():
     inst = random_network(22, legs=3, markets=8, tightness=0.4)
     policy = cs.parse_policies("sblp:highs")[0]

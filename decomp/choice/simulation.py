@@ -215,6 +215,21 @@ class ChoiceBidPrices(_Priced):
         return best_available_set(tables, markets, prods, available, tables.fare[prods] - displacement)
 
 
+class FixedBidPrices(ChoicePolicy):
+    """Given bid prices, never re-optimized; the customer is offered the best revenue-ordered available set."""
+
+    label = spec = "fixed"
+
+    def __init__(self, bid_prices):
+        self.bid_prices = np.maximum(np.asarray(bid_prices, dtype=np.float64), 0.0)
+
+    def prices(self, instance, capacity, t_frac, forecast, warm, counts):
+        return self.bid_prices.copy()
+
+    def offer(self, tables, markets, prods, available, displacement):
+        return best_available_set(tables, markets, prods, available, tables.fare[prods] - displacement)
+
+
 class IndependentBidPrices(_Priced):
     """Bid prices of the DLP or PNLP from the independent-demand forecast; open when the fare covers them."""
 
@@ -457,6 +472,26 @@ class ChoiceSimResult:
                           "method": self.bound_result.method, "gap": self.bound_result.gap},
                 "customers_per_path": mean_ci(self.customers), "policies": pols,
                 "first_policy": self.config.policies[0].label, "seconds": self.seconds}
+
+
+def path_revenues_for_bid_prices(instance, bid_prices, paths: int, seed: int = 0, chunk: int = 4) -> np.ndarray:
+    """Revenue of each sample path under fixed bid prices, customers choosing (:class:`FixedBidPrices`).
+
+    Path ``k`` holds the same customers for every call with the same seed, so two sets of
+    bid prices give paired revenues. Paths are simulated ``chunk`` at a time (the epoch
+    tables are paths x markets x products per market).
+    """
+    mk = require(instance)
+    policy = FixedBidPrices(bid_prices)
+    if policy.bid_prices.shape != (instance.n_legs,):
+        raise ValueError(f"expected {instance.n_legs} bid prices, got shape {policy.bid_prices.shape}")
+    tables = Tables.of(instance)
+    out = []
+    for lo in range(0, int(paths), int(chunk)):
+        customers = sample_customers(mk, np.arange(lo, min(int(paths), lo + int(chunk))), seed)
+        out.append(run_policy(instance, tables, policy, customers, every=None, forecast=None, counts=SolveCounts(),
+                              horizon=1.0).revenue)
+    return np.concatenate(out) if out else np.zeros(0)
 
 
 def independent_forecast(instance) -> np.ndarray:
