@@ -91,11 +91,12 @@ def pytest_collection_modifyitems(session, config, items):
     if drop:
         config.hook.pytest_deselected(items=drop)
     order = {r: i for i, r in enumerate(bcases.RUNG_ORDER)}
+    demand = {d: i for i, d in enumerate(("normal",) + bcases.DEMANDS)}
 
     def key(item):
         p = item.callspec.params
         c = p.get("solve_case") or p.get("build_case") or p.get("tables_case")
-        return (order[c.rung], c.kind != "build")
+        return (order[c.rung], demand[c.demand], c.kind != "build")
 
     keep.sort(key=key)
     items[:] = keep

@@ -39,8 +39,8 @@ def _timed(benchmark, fn, args, kwargs, rounds, mem: PeakMemory):
 @pytest.mark.bench_solve
 def test_solve(solve_case, benchmark, instances, references, warm_up, revenue):
     case = solve_case
-    inst = instances.get(case.rung)
-    ref = references.get(case.rung, REFERENCE_MODEL[case.model])
+    inst = instances.get(case.data)
+    ref = references.get(case.data, REFERENCE_MODEL[case.model])
     options = SolverOptions(**case.options)
     warm_up(case.model, case.method, options)
     mem = PeakMemory()
@@ -52,9 +52,9 @@ def test_solve(solve_case, benchmark, instances, references, warm_up, revenue):
     limits = thresholds(case)
     failures = check(acc, limits)
     # Untimed, after the timed call: price the bid prices on the rung's sample paths.
-    rev = revenue.price(case.rung, REFERENCE_MODEL[case.model], result.bid_price_array)
+    rev = revenue.price(case.data, REFERENCE_MODEL[case.model], result.bid_price_array)
     benchmark.extra_info.update({
-        "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
+        "case": case.id, "kind": case.kind, "rung": case.rung, "demand": case.demand, "model": case.model,
         "method": case.method, "label": case.label, "knobs": case.options,
         "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
         **acc,
@@ -70,7 +70,7 @@ def test_solve(solve_case, benchmark, instances, references, warm_up, revenue):
 @pytest.mark.bench_build
 def test_build(build_case, benchmark, instances):
     case = build_case
-    inst = instances.get(case.rung)
+    inst = instances.get(case.data)
     build = builders.resolve(case.model)
     options = SolverOptions(**case.options)
     build(bcases_tiny(), options)   # warm-up: imports, untimed
@@ -78,7 +78,7 @@ def test_build(build_case, benchmark, instances):
     model = _timed(benchmark, build, (inst, options), {}, case.rounds, mem)
     size = builders.size(model)
     benchmark.extra_info.update({
-        "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
+        "case": case.id, "kind": case.kind, "rung": case.rung, "demand": case.demand, "model": case.model,
         "method": case.method, "label": case.label, "knobs": case.options,
         "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
         "peak_memory_mib": mem.peak_mib, "peak_rss_mib": mem.peak_rss_mib, "memory_method": mem.method,
@@ -103,8 +103,8 @@ def test_tables(tables_case, benchmark, instances, references):
     from decomp.dynamic import decompose, from_arrival_curves
 
     case = tables_case
-    inst = instances.get(case.rung)
-    ref = references.get(case.rung, case.model)
+    inst = instances.get(case.data)
+    ref = references.get(case.data, case.model)
     periods = int(case.options.get("periods", 200))
     demand = from_arrival_curves(inst, periods)
     decompose(*bcases_tiny_with_demand(periods))          # warm-up (imports), untimed
@@ -113,7 +113,7 @@ def test_tables(tables_case, benchmark, instances, references):
     cap = tables.capacity
     per_leg = np.diff(inst.A.indptr)
     benchmark.extra_info.update({
-        "case": case.id, "kind": case.kind, "rung": case.rung, "model": case.model,
+        "case": case.id, "kind": case.kind, "rung": case.rung, "demand": case.demand, "model": case.model,
         "method": case.method, "label": case.label, "knobs": case.options,
         "n_products": inst.n_products, "n_legs": inst.n_legs, "rounds": case.rounds,
         "periods": periods, "leg_steps": tables.info.get("steps"), "threads": tables.info.get("threads"),

@@ -44,7 +44,7 @@ def write_instance(instance, path, **kw):
 
 def check_instance(instance) -> None:
     """Run every check of :func:`read_instance` on an in-memory instance; raise InstanceError."""
-    from .io import check_instance as _check
+    from .validation import check_instance as _check
 
     _check(instance)
 

@@ -9,31 +9,34 @@ import os
 import pathlib
 import tempfile
 
+from .paths import output_file, refusing
+
 
 @contextlib.contextmanager
 def atomic_path(path):
     """Yield a temporary path in the target's folder; rename it over ``path`` on success.
 
-    ``path`` must be a regular file or not exist (FileExistsError otherwise).
+    ``path`` must be a regular file or not exist (:class:`~decomp.errors.OutputPathError`
+    otherwise: a folder, a device such as /dev/stdout, a pipe would be replaced by a file). A full
+    disk, a read-only folder or a denied permission is
+    :class:`~decomp.errors.EnvironmentRefusedError` naming ``path``, not the temporary file.
     """
-    path = pathlib.Path(path)
-    if path.exists() and not path.is_file():
-        # a folder, a device (/dev/stdout), a pipe: renaming over it would replace it with a file
-        raise FileExistsError(f"{path} exists and is not a regular file; not replacing it")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    # mkstemp creates the file private (0600); give it the usual mode for new files
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
-    try:
-        yield pathlib.Path(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
+    path = output_file(path, option="output file")
+    with refusing(path):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+        os.close(fd)
+        # mkstemp creates the file private (0600); give it the usual mode for new files
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
+        try:
+            yield pathlib.Path(tmp)
+            os.replace(tmp, path)
+        except BaseException:
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(tmp)
+            raise
 
 
 def write_text(path, text: str) -> None:

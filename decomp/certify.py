@@ -12,7 +12,10 @@ Computed from the instance alone, independently of what the solver claims:
   point gives an upper bound on the optimum), and the relative gap
   (dual - primal) / max(1, |primal|):
 
-  - PNLP: the Lagrangian dual q(pi) (:func:`decomp.dual.evaluate`);
+  - PNLP: the Lagrangian dual q(pi) = sum_j max_x [f_j S_j(x) - a_j x] + c.pi, each
+    product's maximum found here from scipy.special (the normal and gamma fractiles by
+    scipy's inverses, the discrete one by a search on the incomplete gamma and beta
+    functions), independently of the solver's own demand classes;
   - DLP:  the LP dual objective c.pi + sum_j mean_j (f_j - a_j)^+;
   - PWL:  the LP dual objective c.pi + sum_j sum_k w_jk (f_j s_jk - a_j)^+.
 
@@ -23,6 +26,7 @@ products to bound memory at a million products.
 from __future__ import annotations
 
 import numpy as np
+from scipy import special
 
 from .result import Certificate, SolutionStatus, Termination
 
@@ -99,47 +103,170 @@ def _slice(instance, lo, hi):
         product_extra={})
 
 
-def _pnlp_kkt(instance, x, a):
-    """Largest per-product violation of f S'(x) = a (x > 0) / f S'(x) <= a (x = 0), over f."""
-    from . import distributions
-
-    fare, mean, std = instance.fare, instance.mean, instance.std
-    ratio = a / fare
-    tol = BOUND_TOL * np.maximum(1.0, np.abs(mean))
-    at_zero = x <= tol
-    # products with std > 0: S'(x) = P(D > x)
-    tail = distributions.marginal_sales(instance, np.maximum(x, 0.0))
-    r = np.where(at_zero, np.maximum(tail - ratio, 0.0), np.abs(tail - ratio))
-    det = std <= 0
-    if np.any(det):
-        # std = 0: S(x) = min(x, mean), derivative 1 below the mean, 0 above,
-        # any value in [0, 1] at the mean (and at 0 when mean = 0).
-        xd, md, rd = x[det], np.maximum(mean[det], 0.0), ratio[det]
-        td = tol[det]
-        lo_slope = np.where(xd < md - td, 1.0, 0.0)              # right derivative
-        hi_slope = np.where((xd > td) & (xd > md + td), 0.0, 1.0)  # left derivative (x>0)
-        hi_slope = np.where(xd <= td, np.inf, hi_slope)          # at x = 0 any ratio above is fine
-        rdet = np.maximum(lo_slope - rd, 0.0) + np.maximum(rd - hi_slope, 0.0)
-        r = r.copy()
-        r[det] = rdet
-    return float(r.max()) if r.size else 0.0
-
-
 def _pnlp_terms(instance, x, a, lo, hi, with_dual):
     """(primal value, largest KKT residual, sum of the dual's product terms) of the
-    products lo:hi: each term depends on its own product only."""
-    from . import distributions
+    products lo:hi: each term depends on its own product only. Computed here from
+    scipy.special, family by family, without the solver's own classes: a check of them."""
+    from .distributions import family_codes
 
-    part = _slice(instance, lo, hi)
-    xs, aa = x[lo:hi], a[lo:hi]
-    sub = distributions.Subproblems.from_instance(part)
-    primal = float(part.fare @ sub.expected_sales(np.maximum(xs, 0.0))) if hi > lo else 0.0
-    kkt = _pnlp_kkt(part, xs, aa)
-    terms = 0.0
-    if with_dual and hi > lo:
-        with np.errstate(divide="ignore", invalid="ignore"):   # std = 0 products in the fractile
-            terms = float(sub.evaluate(aa).exact_value)
-    return primal, kkt, terms
+    codes = family_codes(instance)
+    sl = slice(lo, hi)
+    f, m, s = instance.fare[sl], instance.mean[sl], instance.std[sl]
+    c = np.zeros(hi - lo, dtype=np.int8) if codes is None else codes[sl]
+    xs, aa = np.maximum(x[sl], 0.0), a[sl]
+    primal = dual = kkt = 0.0
+    for fam in (_normal_terms, _gamma_terms, _discrete_terms, _known_terms):
+        mask = fam.select(c, m, s)
+        if not np.any(mask):
+            continue
+        p, d, k = fam(f[mask], m[mask], s[mask], c[mask], xs[mask], aa[mask], with_dual)
+        primal, dual, kkt = primal + p, dual + d, max(kkt, k)
+    return primal, kkt, dual
+
+
+def _kkt(fare, a, x, right, left, mean):
+    """Largest violation, over the fare, of right <= a / f <= left where x > 0 and of
+    right <= a / f at x = 0 (the subproblem's optimality condition)."""
+    ratio = a / fare
+    at_zero = x <= BOUND_TOL * np.maximum(1.0, np.abs(mean))
+    over = np.maximum(right - ratio, 0.0)
+    under = np.where(at_zero, 0.0, np.maximum(ratio - left, 0.0))
+    return float(np.max(over + under, initial=0.0))
+
+
+def _normal_terms(f, m, s, c, x, a, with_dual):
+    from . import normal
+
+    sales = normal.expected_sales(x, m, s)
+    slope = special.ndtr(-(x - m) / s)
+    dual = 0.0
+    if with_dual:
+        r = np.clip(a / f, 1e-300, 1.0)
+        xs = np.where(r < 1.0, np.maximum(m - s * special.ndtri(r), 0.0), 0.0)
+        dual = float(np.sum(f * normal.expected_sales(xs, m, s) - a * xs))
+    return float(f @ sales), dual, _kkt(f, a, x, slope, slope, m)
+
+
+_normal_terms.select = lambda c, m, s: (c == 0) & (s > 0)
+
+
+def _gamma_sales(x, m, s):
+    """E[min(D, x)] = m P(k + 1, x / theta) + x Q(k, x / theta) for gamma D."""
+    k, th = (m / s) ** 2, s * s / m
+    y = x / th
+    return m * special.gammainc(k + 1.0, y) + x * special.gammaincc(k, y)
+
+
+def _gamma_terms(f, m, s, c, x, a, with_dual):
+    k, th = (m / s) ** 2, s * s / m
+    slope = special.gammaincc(k, x / th)
+    dual = 0.0
+    if with_dual:
+        r = np.clip(a / f, 1e-300, 1.0)
+        xs = np.where(r < 1.0, th * special.gammainccinv(k, r), 0.0)
+        dual = float(np.sum(f * _gamma_sales(xs, m, s) - a * xs))
+    return float(f @ _gamma_sales(x, m, s)), dual, _kkt(f, a, x, slope, slope, m)
+
+
+_gamma_terms.select = lambda c, m, s: (c == 1) & (s > 0) & (m > 0)
+
+
+def _discrete_sf(n, m, s, nb):
+    """P(D > n) (1 for n < 0): Poisson P(n + 1, m), negative binomial I_{1-p}(n + 1, r)."""
+    out = np.ones(len(n))
+    pos = n >= 0
+    po, q = pos & ~nb, pos & nb
+    out[po] = special.gammainc(n[po] + 1.0, m[po])
+    var = s[q] ** 2
+    out[q] = special.betainc(n[q] + 1.0, m[q] ** 2 / (var - m[q]), 1.0 - m[q] / var)
+    return out
+
+
+def _discrete_sales(x, m, s, nb):
+    """S(x), linear between whole seats: S(n) = m (1 - P(D* >= n)) + n P(D > n), D* = D
+    (Poisson) or NB(r + 1, p), and S(x) = S(n) + (x - n) P(D > n)."""
+    n = np.floor(x)
+    sf = _discrete_sf(n, m, s, nb)
+    tail = np.ones(len(n))
+    pos = n >= 1
+    po, q = pos & ~nb, pos & nb
+    tail[po] = special.gammainc(n[po], m[po])
+    var = s[q] ** 2
+    tail[q] = special.betainc(n[q], m[q] ** 2 / (var - m[q]) + 1.0, 1.0 - m[q] / var)
+    return m * (1.0 - tail) + n * sf + (x - n) * sf
+
+
+def _discrete_terms(f, m, s, c, x, a, with_dual):
+    nb = c == 3
+    n = np.floor(x)
+    right = _discrete_sf(n, m, s, nb)
+    left = np.where(x == n, _discrete_sf(n - 1.0, m, s, nb), right)
+    dual = 0.0
+    if with_dual:
+        star = _discrete_argmax(f, m, s, nb, a, n)
+        dual = float(np.sum(f * _discrete_sales(star, m, s, nb) - a * star))
+        # a bid-price sum of 0 leaves the whole demand open: the term's supremum is f m
+        free = ~(a > 0)
+        dual += float(np.sum(f[free] * m[free] - (f[free] * _discrete_sales(star[free], m[free], s[free], nb[free])
+                                                 - a[free] * star[free])))
+    return float(f @ _discrete_sales(x, m, s, nb)), dual, _kkt(f, a, x, right, left, m)
+
+
+_discrete_terms.select = lambda c, m, s: ((c == 2) | (c == 3)) & (m > 0)
+
+
+def _discrete_argmax(f, m, s, nb, a, start):
+    """The smallest whole n with f P(D > n) <= a (the subproblem's maximizer), found from
+    ``start`` by a doubling search and bisection on scipy's tail probabilities."""
+    ratio = a / f
+    lo = np.full(len(a), -1.0)                    # f sf(lo) > a
+    hi = np.maximum(start, 0.0)
+    low_enough = _discrete_sf(hi, m, s, nb) <= ratio
+    # bracket: hi with sf(hi) <= ratio, lo with sf(lo) > ratio
+    step = np.ones(len(a))
+    up = np.flatnonzero(~low_enough & (ratio > 0))
+    while len(up):
+        lo[up] = hi[up]
+        hi[up] = hi[up] + step[up]
+        step[up] *= 2.0
+        up = up[~(_discrete_sf(hi[up], m[up], s[up], nb[up]) <= ratio[up])]
+    # from above: steps that double too (an allocation of 1e12 seats on an unlimited leg
+    # starts this search there), never below 0, the smallest answer
+    down = np.flatnonzero(low_enough & (hi > 0) & (ratio > 0))
+    step = np.ones(len(a))
+    while len(down):
+        trial = np.maximum(hi[down] - step[down], 0.0)
+        ok = _discrete_sf(trial, m[down], s[down], nb[down]) <= ratio[down]
+        lo[down] = np.where(ok, lo[down], trial)
+        hi[down] = np.where(ok, trial, hi[down])
+        step[down] *= 2.0
+        down = down[ok & (hi[down] > 0)]
+    while True:
+        idx = np.flatnonzero(hi - lo > 1)
+        if not len(idx):
+            break
+        mid = np.floor(0.5 * (lo[idx] + hi[idx]))
+        # beyond 2**53 whole numbers are not all floats: a midpoint equal to an end ends there
+        stuck = (mid <= lo[idx]) | (mid >= hi[idx])
+        lo[idx[stuck]] = hi[idx[stuck]]
+        idx, mid = idx[~stuck], mid[~stuck]
+        ok = _discrete_sf(mid, m[idx], s[idx], nb[idx]) <= ratio[idx]
+        hi[idx] = np.where(ok, mid, hi[idx])
+        lo[idx] = np.where(ok, lo[idx], mid)
+    return np.where(ratio > 0, hi, 0.0)
+
+
+def _known_terms(f, m, s, c, x, a, with_dual):
+    mk = np.maximum(m, 0.0)
+    sales = np.minimum(x, mk)
+    right = (x < mk).astype(float)
+    left = np.where(x > mk, 0.0, 1.0)
+    dual = float(mk @ np.maximum(f - a, 0.0)) if with_dual else 0.0
+    return float(f @ sales), dual, _kkt(f, a, x, right, left, mk)
+
+
+_known_terms.select = lambda c, m, s: ~(((c == 0) & (s > 0)) | ((c == 1) & (s > 0) & (m > 0))
+                                        | (((c == 2) | (c == 3)) & (m > 0)))
 
 
 def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16,

@@ -16,7 +16,7 @@ import sys
 import warnings
 
 from . import commands
-from .errors import ConfigError, InstanceError, UnknownMethodError
+from .errors import ConfigError, EnvironmentRefusedError, InstanceError, OutputPathError, UnknownMethodError
 
 EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -72,7 +72,10 @@ def main(argv=None) -> int:
     parser = build_parser()
     where = {"command": None}
     warnings.formatwarning = _format_warning(where)      # old option names warn while parsing
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:      # argparse refused an option (2, message printed) or printed --help (0)
+        return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
     if args.command is None:
         parser.print_help()
         return EXIT_BAD_INPUT
@@ -81,21 +84,25 @@ def main(argv=None) -> int:
                         format="%(levelname)s %(name)s: %(message)s")
     try:
         return int(args.func(args) or 0)
-    except (InstanceError, UnknownMethodError, ConfigError) as exc:
+    except (InstanceError, UnknownMethodError, ConfigError, OutputPathError) as exc:
         print(f"decomp {args.command}: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except BrokenPipeError:
         # output piped into a reader that stopped early (e.g. `head`)
         sys.stderr.close()
         return EXIT_FAIL
+    except EnvironmentRefusedError as exc:
+        # a full disk or a read-only folder: the cause once, naming the path, no traceback (writes are atomic)
+        print(f"decomp {args.command}: error: {exc}", file=sys.stderr)
+        return EXIT_FAIL
     except OSError as exc:
-        from .production.outputs import is_output_error
+        from .paths import is_refused
 
-        if not is_output_error(exc):
+        if not is_refused(exc):
             raise
-        # a full disk or a read-only folder: the cause once, no traceback (writes are atomic)
-        print(f"decomp {args.command}: error: cannot write {exc.filename or ''}: {exc.strerror} "
-              f"[Errno {exc.errno}]", file=sys.stderr)
+        # a refused write not wrapped where it happened: name what the system named
+        print(f"decomp {args.command}: error: cannot write {exc.filename or '(the system named no path)'}: "
+              f"{exc.strerror} [Errno {exc.errno}]", file=sys.stderr)
         return EXIT_FAIL
     except KeyboardInterrupt:
         print(f"decomp {args.command}: interrupted", file=sys.stderr)

@@ -72,6 +72,10 @@ class GeneratorParams:
     two_stop_weight, one_stop_weight: relative chance that a connection of
         that kind is picked, against each other.
     carrier: the flight number prefix (one or two letters).
+    demand: the demand model, as the text of a :class:`decomp.demand_mix.DemandMix`
+        (the families' shares and spreads) or one of its named mixes; None is normal
+        demand with the CV drawn in ``cv``. Drawn from a random stream of its own, so the
+        network, fares and means are the same with or without it.
     """
 
     hubs: int | None = None
@@ -87,6 +91,7 @@ class GeneratorParams:
     one_stop_weight: float = 1.0
     two_stop_weight: float = 0.3
     carrier: str = "K"
+    demand: str | None = None
 
     def validated(self) -> "GeneratorParams":
         def rng_pair(name, lo_min, strict_lo=False):
@@ -111,14 +116,22 @@ class GeneratorParams:
                 raise ConfigError(f"generator: {name} must be > 0, got {v!r}")
         if not (isinstance(self.carrier, str) and 1 <= len(self.carrier) <= 2 and self.carrier.isalpha()):
             raise ConfigError(f"generator: carrier must be one or two letters, got {self.carrier!r}")
+        demand = self.demand
+        if demand is not None:
+            from .demand_mix import DemandMix
+
+            mix = DemandMix.parse(demand)
+            demand = None if mix.is_plain_normal else mix.text()
         return dataclasses.replace(
             self, demand_factor=rng_pair("demand_factor", 0.0, strict_lo=True),
-            cv=rng_pair("cv", 0.0))
+            cv=rng_pair("cv", 0.0), demand=demand)
 
     def to_dict(self) -> dict:
         d = dataclasses.asdict(self)
         d["demand_factor"] = list(self.demand_factor)
         d["cv"] = list(self.cv)
+        if self.demand is None:
+            del d["demand"]                     # files of normal demand stay as they were
         return d
 
 
@@ -385,7 +398,7 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
         "n_products": n,
         "params": resolved.to_dict(),
     }
-    return Instance(
+    inst = Instance(
         leg_ids=leg_ids,
         leg_origin=codes[net.leg_origin],
         leg_destination=codes[net.leg_destination],
@@ -404,3 +417,8 @@ def generate(n_products: int, seed: int = 0, params: GeneratorParams | None = No
         },
         meta=meta,
     )
+    if p.demand is not None:
+        from . import demand_mix
+
+        inst = demand_mix.apply(inst, demand_mix.DemandMix.parse(p.demand), seed)
+    return inst

@@ -16,8 +16,8 @@ from typing import Any, Mapping
 import numpy as np
 import scipy.sparse as sp
 
-#: Demand distributions a product may carry (column ``distribution``).
-DISTRIBUTIONS = ("normal", "gamma", "poisson", "negbin")
+from . import validation
+from .validation import DISTRIBUTIONS  # noqa: F401  (the names a product's distribution may take)
 
 
 def _frozen(a, dtype=None) -> np.ndarray:
@@ -93,6 +93,9 @@ class Instance:
             raise ValueError("Instance: leg_ptr must have P+1 entries, start at 0 and end at len(leg_index)")
         if len(self.leg_index) and (self.leg_index.min() < 0 or self.leg_index.max() >= L):
             raise ValueError("Instance: leg_index refers to a leg that does not exist")
+        # the one rule every instance meets however it is made (the network build of the
+        # Lagrangian method grows with the square of an itinerary's length)
+        validation.check_itinerary_limit(self.leg_ptr, "products")
 
     # -- sizes -------------------------------------------------------------
     @property
@@ -147,17 +150,29 @@ class Instance:
         return list(self.leg_ids[self.leg_index[self.leg_ptr[j]:self.leg_ptr[j + 1]]])
 
     def with_forecast(self, mean=None, std=None, capacity=None, meta=None) -> "Instance":
-        """A copy with new demand forecasts and/or capacities (same network)."""
+        """A copy with new demand forecasts and/or capacities (same network), checked as a file is.
+
+        ``mean`` and ``std`` (per product) and ``capacity`` (per leg): an array or list in the
+        instance's order, or a pandas Series or dict keyed by product (leg) id -- aligned by id,
+        never by position, and every product (leg) needs a value. A negative, NaN or out-of-limit
+        value, a missing or unknown id, a value that is not a number: an
+        :class:`~decomp.errors.InstanceError` naming the column, the row and the value.
+        """
         changes = {}
-        if mean is not None:
-            changes["mean"] = mean
-        if std is not None:
-            changes["std"] = std
-        if capacity is not None:
-            changes["capacity"] = capacity
+        for name, values, ids, table, label in (("mean", mean, self.product_ids, "products", "product"),
+                                                ("std", std, self.product_ids, "products", "product"),
+                                                ("capacity", capacity, self.leg_ids, "legs", "leg")):
+            if values is not None:
+                arr = validation.forecast_values(values, ids, file=table, column=name, label=label)
+                validation.check_numbers(arr, validation.NUMBER_RULES[name], table)
+                changes[name] = arr
         if meta is not None:
-            changes["meta"] = meta
-        return dataclasses.replace(self, **changes)
+            changes["meta"] = validation.check_meta(meta, "meta")
+        out = dataclasses.replace(self, **changes)
+        if "mean" in changes or "std" in changes:
+            validation.check_negbin(out.distribution, out.meta.get("distribution", "normal"), out.mean, out.std,
+                                    "products")
+        return out
 
     def leg_position(self) -> dict:
         """Map from leg id to its row index."""
@@ -176,16 +191,17 @@ class Instance:
         legs, fare, mean, std`` where ``legs`` is the leg ids in travel order,
         either one text separated by single spaces or a list. Further columns
         (and ``distribution``) are kept as in files. The checks are those of
-        :func:`decomp.read_instance`, with the same
+        :func:`decomp.read_instance` (:mod:`decomp.validation`), with the same
         :class:`~decomp.errors.InstanceError`: the table ("legs" or "products"),
         the 1-based row (position, not the index label), the column and the value.
+        Number columns must hold numbers, as in a Parquet file (text is refused, not parsed).
         """
-        from .io import instance_from_tables
-
         meta = dict(meta or {})
         meta.setdefault("name", "instance")
-        return instance_from_tables(_arrow_table(legs, "legs"), _arrow_table(products, "products", list_column="legs"),
-                                    meta=meta, legs_name="legs", products_name="products")
+        fields = validation.fields_from_tables(validation.frame_table(legs, "legs"),
+                                               validation.frame_table(products, "products", list_column="legs"),
+                                               meta=meta)
+        return cls(**fields)
 
     @classmethod
     def from_lists(cls, legs, products, **kw) -> "Instance":
@@ -193,58 +209,39 @@ class Instance:
 
         ``legs``: iterable of (id, origin, destination, capacity);
         ``products``: iterable of (id, [leg ids], fare, mean, std).
-        Raises :class:`~decomp.errors.InstanceError` (row 1-based, column named)
-        for an unknown leg id or any value :func:`decomp.io.check_instance` refuses.
+        Optional keywords: ``distribution`` (one name per product), ``leg_extra``,
+        ``product_extra``, ``meta``. Raises :class:`~decomp.errors.InstanceError`
+        (the list, the 1-based row, the column, the value) for anything
+        :mod:`decomp.validation` refuses.
         """
+        import pyarrow as pa
+
         from .errors import InstanceError
-        from .io import check_instance
 
-        legs = list(legs)
-        products = list(products)
-        pos = {l[0]: i for i, l in enumerate(legs)}
-        ptr = np.zeros(len(products) + 1, dtype=np.int64)
-        ptr[1:] = np.cumsum([len(p[1]) for p in products])
-        idx = []
-        for row, p in enumerate(products, start=1):
-            for leg in p[1]:
-                if leg not in pos:
-                    raise InstanceError(f"unknown leg id '{leg}' (not in the legs table)", file="products",
-                                        row=row, column="legs", value=" ".join(map(str, p[1])))
-                idx.append(pos[leg])
-        inst = cls(
-            leg_ids=[l[0] for l in legs], leg_origin=[l[1] for l in legs],
-            leg_destination=[l[2] for l in legs], capacity=[l[3] for l in legs],
-            product_ids=[p[0] for p in products], leg_ptr=ptr, leg_index=np.array(idx, dtype=np.int64),
-            fare=[p[2] for p in products], mean=[p[3] for p in products],
-            std=[p[4] for p in products], **kw)
-        try:
-            check_instance(inst)
-        except InstanceError as exc:          # name the list, as from_frames names the table
-            table = "legs" if exc.column in ("leg", "origin", "destination", "capacity") else "products"
-            raise InstanceError(exc.reason, file=table, row=exc.row, column=exc.column, value=exc.value) from exc
-        return inst
-
-
-def _arrow_table(table, name, list_column=None):
-    """A pandas DataFrame or pyarrow Table as a pyarrow Table; a list column joined by spaces."""
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
-    from .errors import InstanceError
-
-    if isinstance(table, pa.Table):
-        out = table
-    elif hasattr(table, "columns") and hasattr(table, "iloc"):
-        try:
-            out = pa.Table.from_pandas(table, preserve_index=False)
-        except (pa.ArrowException, TypeError, ValueError) as exc:
-            raise InstanceError(f"cannot read the DataFrame: {exc}", file=name) from exc
-    else:
-        raise InstanceError(f"expected a pandas DataFrame or a pyarrow Table, got {type(table).__name__}",
-                            file=name)
-    if list_column in out.column_names:
-        col = out.column(list_column).combine_chunks()
-        if pa.types.is_list(col.type) or pa.types.is_large_list(col.type):
-            joined = pc.binary_join(pc.cast(col, pa.list_(pa.string())), " ")
-            out = out.set_column(out.column_names.index(list_column), list_column, joined)
-    return out
+        unknown = set(kw) - {"distribution", "leg_extra", "product_extra", "meta"}
+        if unknown:
+            raise TypeError(f"Instance.from_lists got unexpected keyword(s) {sorted(unknown)}")
+        legs, products = list(legs), list(products)
+        for name, rows, width in (("legs", legs, 4), ("products", products, 5)):
+            for row, item in enumerate(rows, start=1):
+                if isinstance(item, (str, bytes)) or not hasattr(item, "__len__") or len(item) != width:
+                    raise InstanceError(f"expected a tuple of {width} values", file=name, row=row,
+                                        value=repr(item)[:200])
+        cols = validation.column_from_values
+        leg_table = pa.table({
+            "leg": cols([l[0] for l in legs], "legs", "leg", numeric=False),
+            "origin": cols([l[1] for l in legs], "legs", "origin", numeric=False),
+            "destination": cols([l[2] for l in legs], "legs", "destination", numeric=False),
+            "capacity": cols([l[3] for l in legs], "legs", "capacity", numeric=True)})
+        prod_cols = {
+            "product": cols([p[0] for p in products], "products", "product", numeric=False),
+            "legs": cols([p[1] if isinstance(p[1], str) else " ".join(map(str, p[1])) for p in products],
+                         "products", "legs", numeric=False),
+            "fare": cols([p[2] for p in products], "products", "fare", numeric=True),
+            "mean": cols([p[3] for p in products], "products", "mean", numeric=True),
+            "std": cols([p[4] for p in products], "products", "std", numeric=True)}
+        if kw.get("distribution") is not None:
+            prod_cols["distribution"] = cols(list(kw["distribution"]), "products", "distribution", numeric=False)
+        fields = validation.fields_from_tables(leg_table, pa.table(prod_cols), meta=kw.get("meta") or {})
+        fields.update(leg_extra=kw.get("leg_extra") or {}, product_extra=kw.get("product_extra") or {})
+        return cls(**fields)

@@ -138,7 +138,7 @@ def write_rung(name: str) -> pathlib.Path:
     """Generate rung ``name`` and write it (atomically) to :func:`rung_path`."""
     from .io import write_instance
     rung = get_rung(name)
-    return write_instance(build_rung(name), rung_path(name), format=rung.format)
+    return write_instance(build_rung(name), rung_path(name), format=rung.format, replace_unmarked=True)
 
 
 def load_rung(name: str) -> Instance:
@@ -166,5 +166,5 @@ def load_rung(name: str) -> Instance:
                             "`decomp ladder --build`", file=path)
     log.info("generating rung %s (%d products, seed %d) into %s", name, rung.products, rung.seed, path)
     inst = build_rung(name)
-    write_instance(inst, path, format=rung.format)
+    write_instance(inst, path, format=rung.format, replace_unmarked=True)
     return inst                  # the same arrays a later read gives (tests check the round trip)

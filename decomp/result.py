@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import dataclasses
 import enum
-import json
 import math
 from types import MappingProxyType
 from typing import Any, Mapping
@@ -195,11 +194,13 @@ class SolveResult:
         """Accept or reject a request for itinerary ``legs`` at ``fare`` under the bid-price rule.
 
         Returns a :class:`decomp.decision.Decision` (accept when the fare is at
-        least the displacement, with each leg's bid price and the margin).
+        least the displacement, with each leg's bid price and the margin), carrying
+        this result's status: from a result that is not certified optimal it holds a warning.
         """
         from .decision import decide
 
-        return decide(self.leg_ids, self.bid_price_array, legs, fare)
+        return decide(self.leg_ids, self.bid_price_array, legs, fare,
+                      source_status=f"{self.termination.value}/{self.solution_status.value}", source_ok=self.ok)
 
     def to_json_dict(self, include_history: bool = True, include_allocation: bool = False,
                      context: Mapping[str, Any] | None = None) -> dict:
@@ -289,26 +290,17 @@ def _load_json(source):
     """(dict, where) from a dict, a JSON text or a path (a folder: its result.json)."""
     import pathlib
 
+    from . import jsonfile
     from .errors import InstanceError
 
     if isinstance(source, Mapping):
         return dict(source), None
     if isinstance(source, str) and source.lstrip().startswith("{"):
-        try:
-            return json.loads(source), None
-        except json.JSONDecodeError as exc:
-            raise InstanceError(f"not valid JSON ({exc.msg} at line {exc.lineno})") from exc
+        return jsonfile.loads(source), None
     path = pathlib.Path(source)
     if path.is_dir():
         path = path / "result.json"
-    try:
-        data = json.loads(path.read_text())
-    except FileNotFoundError as exc:
-        raise InstanceError("result file not found", file=path) from exc
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InstanceError(f"cannot read the result file ({exc})", file=path) from exc
-    except json.JSONDecodeError as exc:
-        raise InstanceError(f"not valid JSON ({exc.msg} at line {exc.lineno})", file=path) from exc
+    data = jsonfile.read(path, missing="result file not found")
     if not isinstance(data, dict):
         raise InstanceError("a result file holds one JSON object", file=path)
     return data, path
@@ -407,7 +399,9 @@ def _from_dict(d: dict, where) -> "SolveResult":
 def read_bid_price_table(path) -> dict:
     """Bid prices by leg id from a table (CSV or Parquet by suffix) with columns leg, bid_price.
 
-    ``leg_id`` is read as ``leg`` (the name earlier versions wrote).
+    ``leg_id`` is read as ``leg`` (the name earlier versions wrote). A leg listed twice is refused
+    (which row is meant is ambiguous: a table of ``decomp tables``, one row per leg, period and
+    seats left, is not a bid-price vector).
     """
     import pathlib
 
@@ -434,32 +428,69 @@ def read_bid_price_table(path) -> dict:
     if leg_col is None or "bid_price" not in table.column_names:
         raise InstanceError("a bid-price table needs the columns leg, bid_price", file=path,
                             column="leg" if leg_col is None else "bid_price")
-    legs = pc.cast(table.column(leg_col), pa.string()).to_pylist()
     try:
+        legs = pc.cast(table.column(leg_col), pa.string()).to_pylist()
         prices = pc.cast(table.column("bid_price"), pa.float64()).to_pylist()
     except pa.ArrowException as exc:
-        raise InstanceError(f"bid_price is not a number ({exc})", file=path, column="bid_price") from exc
+        raise InstanceError(f"not a number ({exc})", file=path, column="bid_price") from exc
+    out: dict = {}
     for i, (leg, v) in enumerate(zip(legs, prices), start=1):
         if leg is None or v is None:
             raise InstanceError("missing value", file=path, row=i, column=leg_col if leg is None else "bid_price")
-    return dict(zip(legs, prices))
+        if leg in out:
+            first = legs.index(leg) + 1
+            hint = (" (this is a table of 'decomp tables', one row per leg, period and seats left: give a "
+                    "result of 'decomp solve' instead)" if "period" in table.column_names else "")
+            raise InstanceError(f"leg '{leg}' is listed twice (first in row {first}): which bid price is meant is "
+                                f"ambiguous{hint}", file=path, row=i, column=leg_col, value=leg)
+        out[leg] = v
+    return out
 
 
-def read_bid_prices(path) -> dict:
-    """Bid prices by leg id from anything decomp writes them to.
+@dataclasses.dataclass(frozen=True)
+class BidPriceSource:
+    """Bid prices read back from a file, with the status of the solve that produced them.
+
+    ``termination`` / ``solution_status`` are None when the file carries no status (a bid-price
+    table); ``ok`` is then None too (unknown), else whether both are optimal.
+    """
+
+    path: str
+    prices: Mapping[str, float]
+    termination: str | None = None
+    solution_status: str | None = None
+
+    @property
+    def ok(self) -> bool | None:
+        if self.termination is None:
+            return None
+        return self.termination == "optimal" and self.solution_status == "optimal"
+
+    @property
+    def status(self) -> str:
+        return "unknown" if self.termination is None else f"{self.termination}/{self.solution_status}"
+
+
+def read_bid_price_source(path) -> BidPriceSource:
+    """Bid prices by leg id, and the solve's status, from anything decomp writes them to.
 
     A result JSON (``decomp solve``, a ``decomp run`` task, a baseline case, any
     schema version), a folder holding one (a run task's or a baseline case's
-    folder), or a bid-price table (``.csv`` / ``.parquet`` with columns leg, bid_price).
+    folder), or a bid-price table (``.csv`` / ``.parquet`` with columns leg,
+    bid_price; no status). A leg listed twice is refused (:func:`read_bid_price_table`;
+    a JSON key twice, :mod:`decomp.jsonfile`).
     """
     import pathlib
 
     p = pathlib.Path(path)
     if p.suffix.lower() in (".csv", ".parquet"):
-        return read_bid_price_table(p)
+        return BidPriceSource(str(p), read_bid_price_table(p))
     data, where = _load_json(p)
     d = normalize(data, where)
-    out = {}
-    for leg, v in d["bid_prices"].items():
-        out[str(leg)] = _number(v, where, f"bid_prices.{leg}")
-    return out
+    prices = {str(leg): _number(v, where, f"bid_prices.{leg}") for leg, v in d["bid_prices"].items()}
+    return BidPriceSource(str(where or p), prices, str(d["termination"]), str(d["solution_status"]))
+
+
+def read_bid_prices(path) -> dict:
+    """Bid prices by leg id from anything decomp writes them to (see :func:`read_bid_price_source`)."""
+    return dict(read_bid_price_source(path).prices)

@@ -17,7 +17,7 @@ Product table (:data:`PRODUCT_COLUMNS`), one row per product:
     closed leg is ``closed`` whatever its margin: there is no seat to sell, and
     a zero-capacity leg's bid price is not unique, see README, "Closed legs").
 
-The same column names are used by ``decomp solve --legs / --products`` and the
+The same column names are used by ``decomp solve --leg-table / --product-table`` and the
 library (:func:`leg_table`, :func:`product_table`); bid-price files use
 ``leg, bid_price``.
 """
@@ -116,14 +116,12 @@ def product_table(instance, result):
         "margin": margin, "decision": decision}, columns=list(PRODUCT_COLUMNS))
 
 
-def check_table_path(path) -> pathlib.Path:
-    """The path if it ends in .csv or .parquet and is not a folder; InstanceError otherwise."""
-    path = pathlib.Path(path)
-    if path.suffix.lower() not in (".csv", ".parquet"):
-        raise InstanceError("a table file must end in .csv or .parquet", file=path)
-    if path.exists() and not path.is_file():
-        raise InstanceError("exists and is not a regular file; not replacing it", file=path)
-    return path
+def check_table_path(path, option: str = "table file") -> pathlib.Path:
+    """The path if it ends in .csv or .parquet and can be written (:func:`decomp.paths.output_file`);
+    :class:`~decomp.errors.OutputPathError` naming ``option`` otherwise."""
+    from .paths import output_file
+
+    return output_file(path, option, suffixes=(".csv", ".parquet"))
 
 
 def write_table(frame, path) -> pathlib.Path:

@@ -16,6 +16,17 @@ def root() -> pathlib.Path:
     return ROOT
 
 
+@pytest.fixture(scope="module")
+def p100_dir(tmp_path_factory) -> pathlib.Path:
+    """The ladder rung p100 written as an instance folder (once per module)."""
+    from decomp import ladder
+    from decomp.io import write_instance
+
+    path = tmp_path_factory.mktemp("inst") / "p100"
+    write_instance(ladder.load_rung("p100"), path)
+    return path
+
+
 @pytest.fixture(autouse=True)
 def _history_store_in_tmp(tmp_path_factory, monkeypatch):
     """Runs of decomp bench and baseline check add themselves to the history store: in the tests,

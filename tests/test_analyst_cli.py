@@ -11,16 +11,13 @@ import pytest
 import decomp
 from decomp import ladder
 from decomp.cli import main
-from decomp.io import write_instance
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 
 @pytest.fixture(scope="module")
-def inst_dir(tmp_path_factory):
-    path = tmp_path_factory.mktemp("inst") / "p100"
-    write_instance(ladder.load_rung("p100"), path)
-    return path
+def inst_dir(p100_dir):
+    return p100_dir
 
 
 @pytest.fixture(scope="module")
@@ -191,7 +188,7 @@ def test_generate_into_an_unwritable_place_is_an_error_not_a_traceback(tmp_path)
     blocker = tmp_path / "file"
     blocker.write_text("x")
     r = _decomp("generate", "--products", "100", "--out", blocker / "inst")
-    assert r.returncode == 2 and "cannot write" in r.stderr and "Traceback" not in r.stderr
+    assert r.returncode == 2 and "is a file, not a folder" in r.stderr and "Traceback" not in r.stderr
     assert blocker.read_text() == "x"
 
 

@@ -1,14 +1,22 @@
 """A sweep of bad instance folders through ``decomp validate``: every one must end with exit 2 and a
-message naming the file (and the row and column where there is one), never a traceback and never
-"valid". The inputs are variations of the hand-written tables of tests/test_validation.py.
+message naming the file (and the row and column where there is one), in printable text, never a
+traceback and never "valid". The inputs are variations of the hand-written tables of
+tests/test_validation.py: the hand-picked cases of issue 13 (``CASES``, ``SPECIAL``) and the
+families of issue 24 (``GENERATED``: every number column against every kind of bad number, in CSV
+and in Parquet; every id and station column against every refused character; itineraries; the
+files themselves; meta.json), made programmatically from the same small base, and the same
+families for the markets of issue 27 (markets.csv and the product columns market and
+preference_weight).
 
-``sweep()`` is also what the counts in the issue-13 note come from (run this file with
-``python tests/test_bad_input_sweep.py`` to print them).
+``sweep()`` is also what the counts in the issue notes come from (run this file with
+``python tests/test_bad_input_sweep.py`` to print them: kinds, tracebacks, silently accepted).
 """
 
 from __future__ import annotations
 
+import decimal
 import json
+import math
 import os
 import pathlib
 import sys
@@ -107,19 +115,26 @@ CASES = {
 }
 
 
+def _not_a_table(p: pathlib.Path, kind: str) -> bool:
+    """Make ``p`` something that is not a readable file (``kind``); False for another kind."""
+    if kind == "a symlink loop":
+        p.symlink_to(p)
+    elif kind == "a folder":
+        p.mkdir()
+    elif kind == "a FIFO":
+        os.mkfifo(p)
+    elif kind in ("a broken symlink", "a link to nothing"):
+        p.symlink_to(p.parent / f"nowhere{p.suffix}")
+    else:
+        return False
+    return True
+
+
 def _special(name: str, d: pathlib.Path) -> None:
     """Inputs that are not text tables: links, folders, FIFOs, damaged Parquet."""
     _write(d, products=None)
     p = d / "products.csv"
-    if name == "products.csv a symlink loop":
-        p.symlink_to(p)
-    elif name == "products.csv a folder":
-        p.mkdir()
-    elif name == "products.csv a FIFO":
-        os.mkfifo(p)
-    elif name == "products.csv a broken symlink":
-        p.symlink_to(d / "nowhere.csv")
-    elif name.startswith("Parquet"):
+    if not _not_a_table(p, name.removeprefix("products.csv ")) and name.startswith("Parquet"):
         (d / "products.csv").unlink(missing_ok=True)
         t = pa.table({"product": ["P1", None], "legs": ["L1", "L1"], "fare": [100.0, 90.0], "mean": [1.0, 2.0],
                       "std": [0.5, 0.5]})
@@ -141,6 +156,274 @@ SPECIAL = ["products.csv a symlink loop", "products.csv a folder", "products.csv
            "Parquet and CSV both"]
 
 
+# ---------------------------------------------------------------------------- issue 24: generated families
+HUGE_INT = "1" * 5000           # more digits than CPython converts (4,300)
+
+#: Number columns: (file, column, the row the bad value goes to).
+NUMBER_COLUMNS = [("legs.csv", "capacity", 2), ("products.csv", "fare", 3), ("products.csv", "mean", 1),
+                  ("products.csv", "std", 4)]
+#: Text that is not a number decomp accepts, whatever the column (CSV).
+BAD_NUMBER_TEXTS = ["twelve", "", " ", "nan", "NaN", "inf", "-inf", "Infinity", "-1", "-0.5", "1e308", "1e999",
+                    "1e-320", "0x10", "1,200", "1.200,50", "$100", "100 EUR", "1e", "--1", "1 2", "true",
+                    HUGE_INT, "1_000", "\u00bd"]
+#: Typed values that are not a number decomp accepts (Parquet).
+BAD_NUMBER_ARRAYS = {
+    "text that reads as a number": lambda n, k: pa.array(["100"] * n),
+    "text": lambda n, k: pa.array(["abc"] * n),
+    "null": lambda n, k: pa.array([None if i == k else 1.0 for i in range(n)], pa.float64()),
+    "NaN": lambda n, k: pa.array([math.nan if i == k else 1.0 for i in range(n)]),
+    "inf": lambda n, k: pa.array([math.inf if i == k else 1.0 for i in range(n)]),
+    "negative": lambda n, k: pa.array([-1.0 if i == k else 1.0 for i in range(n)]),
+    "1e308": lambda n, k: pa.array([1e308 if i == k else 1.0 for i in range(n)]),
+    "subnormal": lambda n, k: pa.array([1e-320 if i == k else 1.0 for i in range(n)]),
+    "int64 2**62": lambda n, k: pa.array([2**62 if i == k else 1 for i in range(n)], pa.int64()),
+    "uint64 max": lambda n, k: pa.array([2**64 - 1 if i == k else 1 for i in range(n)], pa.uint64()),
+    "boolean": lambda n, k: pa.array([True] * n),
+    "decimal 1e30": lambda n, k: pa.array([decimal.Decimal(10) ** 30 if i == k else decimal.Decimal(1)
+                                           for i in range(n)], pa.decimal128(38, 0)),
+    "timestamp": lambda n, k: pa.array([0] * n, pa.timestamp("s")),
+    "binary": lambda n, k: pa.array([b"1"] * n),
+    "list": lambda n, k: pa.array([[1.0]] * n),
+}
+#: Characters an id or a station code may not hold (C0, DEL, C1, separators, bidirectional controls,
+#: and the spaces an id may not hold).
+REFUSED_CHARS = {"NUL": "\x00", "tab": "\t", "ESC": "\x1b", "DEL": "\x7f", "U+0085": "\u0085",
+                 "U+2028": "\u2028", "U+2029": "\u2029", "U+202E (RLO)": "\u202e", "U+200F (RLM)": "\u200f",
+                 "U+2066 (LRI)": "\u2066", "U+061C (ALM)": "\u061c", "space": " ", "U+00A0": "\u00a0",
+                 "U+3000": "\u3000"}
+#: Itineraries (products row 2, travel order matters): what each must be refused for.
+BAD_ITINERARIES = {"empty": "", "blank": " ", "two spaces": "L1  L2", "leading space": " L1",
+                   "trailing space": "L1 ", "unknown leg": "L9", "unknown leg, case": "l1",
+                   "legs that do not connect": "L2 L1", "a leg twice": "L1 L2 L3 L2",
+                   "comma-separated": "L1,L2", "tab-separated": "L1\tL2", "17 legs": "CHAIN17"}
+
+
+def _number_case(file, column, row, value):
+    lines = LEGS if file == "legs.csv" else PRODUCTS
+    quoted = '"' + value.replace('"', '""') + '"' if ("," in value or '"' in value) else value
+    out = with_field(lines, row, column, quoted)
+    return ({"legs" if file == "legs.csv" else "products": out}, file, row)
+
+
+def _parquet_case(file, column, row, make):
+    def build(d):
+        legs = {"leg": ["L1", "L2", "L3"], "origin": ["KA1", "HU2", "BO3"], "destination": ["HU2", "BO3", "HU2"],
+                "capacity": pa.array([100.0, 80.0, 50.0])}
+        prods = {"product": ["P1", "P2", "P3", "P4"], "legs": ["L1", "L1 L2", "L2", "L3"],
+                 "fare": pa.array([100.0, 150.0, 90.0, 60.0]), "mean": pa.array([10.0, 5.0, 8.0, 4.0]),
+                 "std": pa.array([3.0, 2.0, 2.5, 1.0])}
+        table = legs if file == "legs.parquet" else prods
+        table[column] = make(len(table[column]), row - 1)
+        d.mkdir(parents=True)
+        pq.write_table(pa.table(legs), d / "legs.parquet")
+        pq.write_table(pa.table(prods), d / "products.parquet")
+    return build
+
+
+def _chain17(d):
+    legs = ["leg,origin,destination,capacity"] + [f"C{k},S{k},S{k + 1},10" for k in range(17)]
+    prods = list(PRODUCTS[:2]) + ["P2," + " ".join(f"C{k}" for k in range(17)) + ",500,1,1"]
+    _write(d, legs=LEGS + legs[1:], products=prods)
+
+
+def _generated() -> dict:
+    """name -> (builder of the folder (callable) or _write keyword arguments, file named, row named)."""
+    out = {}
+    for file, column, row in NUMBER_COLUMNS:
+        for value in BAD_NUMBER_TEXTS:
+            if column == "std" and value in ("-0.5",):
+                continue                                   # the same as -1 there
+            shown = value if len(value) < 20 else f"{value[:8]}... ({len(value)} characters)"
+            out[f"{file} {column} = {shown!r}"] = _number_case(file, column, row, value)
+        if column == "fare":
+            for value in ("0", "0.0", "-0"):
+                out[f"{file} fare = {value!r}"] = _number_case(file, column, row, value)
+        pfile = file.replace(".csv", ".parquet")
+        for kind, make in BAD_NUMBER_ARRAYS.items():
+            row_named = row if kind not in ("text that reads as a number", "text", "boolean", "timestamp",
+                                            "binary", "list") else 1
+            out[f"{pfile} {column} as {kind}"] = (_parquet_case(pfile, column, row, make), pfile, row_named)
+    for file, column, row in (("legs.csv", "leg", 2), ("products.csv", "product", 3), ("legs.csv", "origin", 1),
+                              ("legs.csv", "destination", 3)):
+        lines = LEGS if file == "legs.csv" else PRODUCTS
+        base = lines[row].split(",")[lines[0].split(",").index(column)]
+        for what, ch in REFUSED_CHARS.items():
+            if column in ("origin", "destination") and what in ("space", "U+00A0", "U+3000", "tab"):
+                continue                                   # station codes are trimmed, spaces inside allowed
+            value = base[:1] + ch + base[1:]
+            out[f"{file} {column} with {what}"] = ({"legs" if file == "legs.csv" else "products":
+                                                   with_field(lines, row, column, value)}, file, row)
+        if column in ("leg", "product"):
+            out[f"{file} {column} empty"] = ({"legs" if file == "legs.csv" else "products":
+                                             with_field(lines, row, column, "")}, file, row)
+    for what, value in BAD_ITINERARIES.items():
+        if value == "CHAIN17":
+            out[f"products.csv itinerary of {what}"] = (_chain17, "products.csv", 2)
+            continue
+        q = '"' + value + '"' if "," in value else value
+        out[f"products.csv itinerary {what}"] = (_p(2, "legs", q), "products.csv", 2)
+    sep_legs = {";": ";", "tab": "\t", "|": "|"}
+    for what, sep in sep_legs.items():
+        out[f"legs.csv separated by {what}"] = ({"legs": [ln.replace(",", sep) for ln in LEGS]}, "legs.csv", None)
+        out[f"products.csv separated by {what}"] = ({"products": [ln.replace(",", sep) for ln in PRODUCTS]},
+                                                    "products.csv", None)
+    for col in ("leg", "origin", "destination", "capacity"):
+        k = LEGS[0].split(",").index(col)
+        out[f"legs.csv without column {col}"] = ({"legs": [",".join(f for i, f in enumerate(ln.split(",")) if i != k)
+                                                           for ln in LEGS]}, "legs.csv", None)
+    for col in ("product", "legs", "fare", "mean", "std"):
+        k = PRODUCTS[0].split(",").index(col)
+        out[f"products.csv without column {col}"] = ({"products": [",".join(f for i, f in enumerate(ln.split(","))
+                                                                            if i != k) for ln in PRODUCTS]},
+                                                     "products.csv", None)
+    out["legs.csv header only"] = ({"legs": LEGS[:1]}, "legs.csv", None)
+    out["legs.csv blank line in the middle"] = ({"legs": LEGS[:2] + [""] + LEGS[2:]}, "legs.csv", 2)
+    out["legs.csv row with too many fields"] = ({"legs": LEGS[:2] + [LEGS[2] + ",7"] + LEGS[3:]}, "legs.csv", 2)
+    out["legs.csv UTF-16"] = ({"raw_legs": ("\n".join(LEGS) + "\n").encode("utf-16")}, "legs.csv", None)
+    out["legs.csv latin-1 byte"] = ({"raw_legs": ("\n".join(LEGS) + "\n").replace("BO3", "B\xd63").encode("latin-1")},
+                                    "legs.csv", 2)
+    out["products.csv distribution empty"] = ({"products": [PRODUCTS[0] + ",distribution"] +
+                                               [p + "," for p in PRODUCTS[1:]]}, "products.csv", 1)
+    out["products.csv distribution in capitals"] = ({"products": [PRODUCTS[0] + ",distribution"] +
+                                                     [p + ",Normal" for p in PRODUCTS[1:]]}, "products.csv", 1)
+    metas = {"a 5,000-digit integer": '{"seed": ' + HUGE_INT + "}", "a key twice": '{"name": "a", "name": "b"}',
+             "null": "null", "a number": "3", "a string": '"net"', "empty": "",
+             "name with ESC": json.dumps({"name": "n\x1b[2Jx"}), "name with RLO": json.dumps({"name": "n\u202ex"}),
+             "nested text with BEL": json.dumps({"params": {"note": ["ok", "\x07"]}}),
+             "a key with a line separator": json.dumps({"na\u2028me": 1}),
+             "not UTF-8": None}
+    for what, text in metas.items():
+        if text is None:
+            out[f"meta.json {what}"] = (lambda d: (_write(d), (d / "meta.json").write_bytes(b'{"name": "\xff"}')),
+                                        "meta.json", None)
+        else:
+            out[f"meta.json {what}"] = ({"meta": text}, "meta.json", None)
+    return out
+
+
+def _special_meta(kind):
+    def build(d):
+        _write(d)
+        _not_a_table(d / "meta.json", kind)
+    return build
+
+
+def _special_legs(kind):
+    def build(d):
+        _write(d, legs=None)
+        if _not_a_table(d / "legs.csv", kind):
+            return
+        if kind == "Parquet with no rows":
+            pq.write_table(pa.table({"leg": pa.array([], pa.string()), "origin": pa.array([], pa.string()),
+                                     "destination": pa.array([], pa.string()),
+                                     "capacity": pa.array([], pa.float64())}), d / "legs.parquet")
+        elif kind == "Parquet without column capacity":
+            pq.write_table(pa.table({"leg": ["L1"], "origin": ["KA1"], "destination": ["HU2"]}), d / "legs.parquet")
+        elif kind == "Parquet naming a column twice":
+            pq.write_table(pa.Table.from_arrays([pa.array(["L1"]), pa.array(["KA1"]), pa.array(["HU2"]),
+                                                 pa.array([10.0]), pa.array([1.0])],
+                                                names=["leg", "origin", "destination", "capacity", "leg"]),
+                           d / "legs.parquet")
+        elif kind == "not Parquet at all":
+            (d / "legs.parquet").write_bytes(b"PAR1 but not really")
+    return build
+
+
+for _k in ("a symlink loop", "a link to nothing", "a folder", "a FIFO"):
+    GENERATED_SPECIAL = globals().setdefault("GENERATED_SPECIAL", {})
+    GENERATED_SPECIAL[f"meta.json {_k}"] = (_special_meta(_k), "meta.json", None)
+for _k in ("a symlink loop", "a folder", "a FIFO", "a link to nothing", "Parquet with no rows",
+           "Parquet without column capacity", "Parquet naming a column twice", "not Parquet at all"):
+    GENERATED_SPECIAL[f"legs {_k}"] = (_special_legs(_k), "legs.", None)
+
+
+# ---------------------------------------------------------------------------- issue 27: markets (customer choice)
+#: The base tables with markets: products.csv with a market and a preference weight (P4 outside every
+#: market), and markets.csv.
+MARKET_PRODUCTS = [PRODUCTS[0] + ",market,preference_weight", PRODUCTS[1] + ",MA,1", PRODUCTS[2] + ",MA,2",
+                   PRODUCTS[3] + ",MB,1", PRODUCTS[4] + ",,"]
+MARKETS = ["market,arrivals,no_purchase_weight", "MA,30,1.5", "MB,20,0.8"]
+#: Number columns of the markets: (file, column, the row the bad value goes to).
+MARKET_NUMBER_COLUMNS = [("markets.csv", "arrivals", 2), ("markets.csv", "no_purchase_weight", 1),
+                         ("products.csv", "preference_weight", 2)]
+
+
+def _with_markets(products=None, markets=None, markets_table=None, markets_file="markets.csv"):
+    """A builder of a folder with markets: the base tables, or the given lines (None: no such file)."""
+    def build(d):
+        _write(d, products=MARKET_PRODUCTS if products is None else products)
+        if markets_table is not None:
+            pq.write_table(markets_table, d / "markets.parquet")
+        elif markets is not False:
+            (d / markets_file).write_text("\n".join(MARKETS if markets is None else markets) + "\n")
+    return build
+
+
+def _market_field(file, row, column, value):
+    quoted = '"' + value.replace('"', '""') + '"' if ("," in value or '"' in value) else value
+    if file == "markets.csv":
+        return _with_markets(markets=with_field(MARKETS, row, column, quoted))
+    return _with_markets(products=with_field(MARKET_PRODUCTS, row, column, quoted))
+
+
+def _market_parquet(column, row, make):
+    cols = {"market": pa.array(["MA", "MB"]), "arrivals": pa.array([30.0, 20.0]),
+            "no_purchase_weight": pa.array([1.5, 0.8])}
+    cols[column] = make(2, row - 1)
+    return _with_markets(markets_table=pa.table(cols))
+
+
+def _markets_generated() -> dict:
+    """name -> (builder, file named, row named): the markets table and the product columns market and
+    preference_weight, checked by decomp.validation as the other tables are."""
+    out = {}
+    for file, column, row in MARKET_NUMBER_COLUMNS:
+        for value in BAD_NUMBER_TEXTS + ["0"] * (column != "arrivals"):
+            shown = value if len(value) < 20 else f"{value[:8]}... ({len(value)} characters)"
+            out[f"{file} {column} = {shown!r}"] = (_market_field(file, row, column, value), file, row)
+        if file == "markets.csv":
+            for kind, make in BAD_NUMBER_ARRAYS.items():
+                row_named = row if kind not in ("text that reads as a number", "text", "boolean", "timestamp",
+                                                "binary", "list") else 1
+                out[f"markets.parquet {column} as {kind}"] = (_market_parquet(column, row, make), "markets.parquet",
+                                                              row_named)
+    for what, ch in REFUSED_CHARS.items():
+        out[f"markets.csv market with {what}"] = (_market_field("markets.csv", 2, "market", "M" + ch + "B"),
+                                                  "markets.csv", 2)
+        out[f"products.csv market with {what}"] = (_market_field("products.csv", 3, "market", "M" + ch + "B"),
+                                                   "products.csv", 3)
+    out["markets.csv market empty"] = (_market_field("markets.csv", 1, "market", ""), "markets.csv", 1)
+    out["markets.csv market twice"] = (_market_field("markets.csv", 2, "market", "MA"), "markets.csv", 2)
+    out["products.csv unknown market"] = (_market_field("products.csv", 3, "market", "MZ"), "products.csv", 3)
+    out["products.csv weight without a market"] = (_market_field("products.csv", 4, "preference_weight", "2"),
+                                                   "products.csv", 4)
+    out["products.csv weight 1e7 times the no-purchase weight"] = (
+        _market_field("products.csv", 2, "preference_weight", "1.5e7"), "products.csv", 2)
+    out["products.csv market column, no markets.csv"] = (_with_markets(markets=False), "products.csv", None)
+    out["markets.csv, products without the market columns"] = (_with_markets(products=PRODUCTS), "products.csv",
+                                                               None)
+    out["markets.csv header only"] = (_with_markets(markets=MARKETS[:1]), "markets.csv", None)
+    for col in ("market", "arrivals", "no_purchase_weight"):
+        k = MARKETS[0].split(",").index(col)
+        out[f"markets.csv without column {col}"] = (
+            _with_markets(markets=[",".join(f for i, f in enumerate(ln.split(",")) if i != k) for ln in MARKETS]),
+            "markets.csv", None)
+    out["markets.csv separated by ;"] = (_with_markets(markets=[ln.replace(",", ";") for ln in MARKETS]),
+                                         "markets.csv", None)
+    out["markets.csv and markets.parquet both"] = (
+        lambda d: (_with_markets()(d), pq.write_table(pa.table({"market": ["MA"], "arrivals": [1.0],
+                                                                "no_purchase_weight": [1.0]}),
+                                                      d / "markets.parquet")), "markets.", None)
+    for kind in ("a symlink loop", "a link to nothing", "a folder", "a FIFO"):
+        out[f"markets.csv {kind}"] = (
+            lambda d, kind=kind: (_with_markets(markets=False)(d), _not_a_table(d / "markets.csv", kind)),
+            "markets.csv", None)
+    return out
+
+
+GENERATED = {**_generated(), **GENERATED_SPECIAL, **_markets_generated()}
+
+
 def classify(d: pathlib.Path, file: str, row) -> tuple:
     """('clear' | 'unclear' | 'crash' | 'accepted', message) of ``decomp validate d``."""
     import contextlib
@@ -157,31 +440,43 @@ def classify(d: pathlib.Path, file: str, row) -> tuple:
     text = err.getvalue()
     if rc == 0:
         return "accepted", ""
-    ok = rc == 2 and file in text and len(text) < 2000 and (row is None or f"row {row}" in text)
+    printable = all(c.isprintable() or c in "\n" for c in text)     # no input can drive the terminal
+    ok = rc == 2 and file in text and len(text) < 2000 and (row is None or f"row {row}" in text) and printable
     return ("clear" if ok else "unclear"), text[:300]
+
+
+def _build(name: str, d: pathlib.Path) -> tuple:
+    """Write case ``name`` into ``d``; returns (file the message must name, row or None)."""
+    if name in SPECIAL:
+        _special(name, d)
+        return "products.", None
+    spec, file, row = CASES[name] if name in CASES else GENERATED[name]
+    if callable(spec):
+        spec(d)
+    else:
+        _write(d, **spec)
+    return file, row
+
+
+ALL = list(CASES) + SPECIAL + list(GENERATED)
 
 
 def sweep(root: pathlib.Path) -> dict:
     out = {}
-    for name, (kw, file, row) in CASES.items():
+    for name in ALL:
         d = root / f"c{len(out)}"
-        _write(d, **kw)
+        file, row = _build(name, d)
         out[name] = classify(d, file, row)
-    for name in SPECIAL:
-        d = root / f"c{len(out)}"
-        _special(name, d)
-        out[name] = classify(d, "products.", None)
     return out
 
 
-@pytest.mark.parametrize("name", list(CASES) + SPECIAL)
+def test_the_sweep_has_at_least_250_kinds():
+    assert len(set(ALL)) == len(ALL) >= 250
+
+
+@pytest.mark.parametrize("name", ALL)
 def test_bad_input_gets_a_clear_error(tmp_path, name):
-    if name in CASES:
-        kw, file, row = CASES[name]
-        _write(tmp_path / "i", **kw)
-    else:
-        file, row = "products.", None
-        _special(name, tmp_path / "i")
+    file, row = _build(name, tmp_path / "i")
     verdict, text = classify(tmp_path / "i", file, row)
     assert verdict == "clear", (verdict, text)
 
@@ -194,4 +489,4 @@ if __name__ == "__main__":
         counts[verdict] = counts.get(verdict, 0) + 1
         if verdict != "clear":
             print(f"{verdict:9s} {name}: {text}")
-    print(f"{len(res)} bad inputs: {counts}")
+    print(f"{len(res)} kinds of bad instance folders: {counts} (crash = traceback, accepted = silently accepted)")

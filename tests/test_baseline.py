@@ -189,9 +189,9 @@ def test_record_failure_leaves_nothing(tmp_path):
         bl.record(tmp_path / "base", cases=[bl.Case(_series(), "dlp", "highs")], solve_fn=boom)
     assert list(tmp_path.iterdir()) == []
     (tmp_path / "base").mkdir()
-    from decomp.errors import ConfigError
+    from decomp.errors import OutputPathError
 
-    with pytest.raises(ConfigError, match="already exists"):
+    with pytest.raises(OutputPathError, match="already exists"):
         bl.record(tmp_path / "base", cases=[bl.Case(_series(), "dlp", "highs")],
                   solve_fn=_canned_solver([100, 0]))
 

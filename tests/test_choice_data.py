@@ -73,7 +73,8 @@ def test_network_without_markets_is_unchanged(tmp_path):
     inst = decomp.read_instance(ROOT / "instances" / "p100")
     assert inst.markets is None
     out = decomp.write_instance(inst, tmp_path / "p100")
-    assert sorted(p.name for p in out.iterdir()) == ["legs.csv", "meta.json", "products.csv"]
+    # the instance's files and decomp's marker (decomp.paths), no markets file
+    assert sorted(p.name for p in out.iterdir()) == [".decomp", "legs.csv", "meta.json", "products.csv"]
     for f in ("legs.csv", "products.csv"):
         assert (out / f).read_bytes() == (ROOT / "instances" / "p100" / f).read_bytes()
 

@@ -198,3 +198,23 @@ def test_gamma_instance_agrees_with_pwl_lps_as_segments_grow():
         errs.append((r.objective - lp) / r.objective)
     assert errs[0] > errs[1] > errs[2]
     assert errs[2] < 2e-3
+
+
+def test_kink_prefix_sums_keep_their_digits_in_a_large_table():
+    # A p1m table of discrete demand holds tens of millions of kinks. Each owner's prefix
+    # sums of r w must be as exact as summing that owner's kinks alone: the reference is
+    # math.fsum (exactly rounded summation, Python's standard library).
+    import math
+    from decomp.distributions.kinks import KinkTable
+    rng = np.random.default_rng(0)
+    count = rng.integers(0, 50, 200_000)
+    slope = rng.uniform(1.0, 1000.0, int(count.sum()))
+    table = KinkTable(np.arange(len(count)), count, slope, np.ones(len(slope)))
+    worst = 0.0
+    for o in rng.choice(len(count), 500, replace=False):
+        vals = slope[table.ptr[o]:table.ptr[o + 1]]
+        got = table.cum_rw[table.pp[o]:table.pp[o] + count[o] + 1]
+        ref = [math.fsum(vals[:n]) for n in range(count[o] + 1)]
+        worst = max(worst, max(abs(g - r) for g, r in zip(got, ref)))
+    assert worst <= 1e-7          # a fare of up to 1000 per seat: 1e-10 of it
+    assert np.array_equal(table.cum_w[table.pp + table.count], table.count.astype(float))

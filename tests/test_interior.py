@@ -1,10 +1,10 @@
-"""The interior-point method (decomp.lagrangian.interior) on its own, and the handover to it.
+"""The restricted problem and its interior-point method (decomp.lagrangian.master,
+decomp.lagrangian.interior), on their own and in the loop.
 
 References outside the method's code: the independent certificate of tests/family.py
-(scipy.stats alone; weak duality, a mathematical fact) and Ipopt (cyipopt,
-bound_relax_factor = 0) for normal demand. The networks are the randomized family's
-(tests/family.py) and one generated network of the low-CV class on which projected Newton
-alone ended at its iteration limit.
+(scipy.stats alone; weak duality, a mathematical fact), Ipopt (cyipopt,
+bound_relax_factor = 0) for normal demand, and HiGHS (scipy.optimize.linprog) for the
+linear program that a piecewise-linear network is.
 """
 
 from __future__ import annotations
@@ -13,26 +13,21 @@ import time
 
 import numpy as np
 import pytest
+from scipy import optimize
 
 import family
 from decomp import SolverOptions, Termination, solve
 from decomp.generator import generate
-from decomp.lagrangian import interior
+from decomp.lagrangian import interior, master
 from decomp.lagrangian.hessian import LegSystem
-from decomp.lagrangian.loop import Certified
+from decomp.lagrangian.loop import Bounds
 from decomp.lagrangian.network import Network
 from decomp.lagrangian.prices import fare_start, price_closed_legs
 
 pytestmark = pytest.mark.solver
 
-
-def _applicable(seed):
-    inst, _ = family.draw(seed, max_products=3000)
-    return interior.applies(Network(inst))
-
-
-#: every second family draw the method applies to (no discrete demand)
-SEEDS = [s for s in range(0, 300, 2) if _applicable(s)]
+#: every fourth draw of the family (5 to 3,000 products)
+SEEDS = list(range(0, 300, 4))
 
 
 def _relative(dual, primal):
@@ -40,26 +35,31 @@ def _relative(dual, primal):
 
 
 def _interior_alone(inst, tol=1e-9):
+    """The whole problem as one master (every kink free) by the interior-point method from
+    the fare start, pricing until consistent."""
     net = Network(inst)
     system = LegSystem(net)
-    best = Certified()
-    fare_max = float(inst.fare.max())
-    raw, its, _ = interior.run_interior(net, system, tol, 400, None, time.perf_counter(),
-                                        fare_start(net), fare_max, best)
-    pi = net.full_prices(best.pi)
-    price_closed_legs(inst, net, pi)          # legs of zero capacity, as solve_dual does
-    return raw, its, net.full_allocation(best.x), pi
-
-
-def test_the_family_sample_is_not_empty():
-    assert len(SEEDS) >= 40
+    bounds = Bounds()
+    k = net.products.kinks
+    lo, hi = np.zeros(k.n_owners, dtype=np.int64), k.count.copy()
+    pi = fare_start(net)
+    its = 0
+    for _ in range(4):
+        m = master.build(net, lo, hi)
+        word, n, pi, _ = interior.solve_master(net, system, m, pi, tol, 400, None, time.perf_counter(), bounds, [], 0)
+        its += n
+        if word != "master_solved":
+            break
+    full = net.full_prices(bounds.pi)
+    price_closed_legs(inst, net, full)          # legs of zero capacity, as solve_dual does
+    return word, its, net.full_allocation(bounds.x), full
 
 
 @pytest.mark.parametrize("seed", SEEDS)
 def test_interior_point_alone_on_family_draws(seed):
     inst, desc = family.draw(seed, max_products=3000)
-    raw, its, x, pi = _interior_alone(inst)
-    assert raw == "optimal", (desc, its)
+    word, its, x, pi = _interior_alone(inst)
+    assert word == "optimal", (desc, its)
     primal, dual, viol = family.independent_certificate(inst, x, pi)
     assert viol <= 1e-9, desc
     assert _relative(dual, primal) <= 1e-8, desc
@@ -72,19 +72,18 @@ def test_interior_point_alone_on_family_draws(seed):
 
 
 def _low_cv_network():
-    # a generated network of the class projected Newton alone could not finish (sweep
-    # draw 7 of bench/generator_sweep.py: one hub, CV 0.065-0.144, demand 1.3-2.9 times
-    # the capacity): it ended at 200 iterations with a certified gap of 1.0e-8
+    # a generated network of the low-CV class on which projected Newton alone creeps (one
+    # hub, CV 0.065-0.144, demand 1.3-2.9 times the capacity)
     return generate(5968, seed=7, demand_factor=(1.2607744487313262, 2.9044594619928015),
                     cv=(0.06473373694670354, 0.14362834833006247), fare_ratio=0.8924354333900795,
                     class_growth=1.2865351175695026, seats=95.09505796799849, hubs=1)
 
 
-def test_a_low_cv_network_is_handed_over_and_solved():
+def test_a_low_cv_network_is_solved_through_the_restricted_problem():
     inst = _low_cv_network()
     r = solve(inst, "pnlp", "lagrangian")
     assert r.termination is Termination.OPTIMAL, r.message
-    assert r.raw_status == "interior_optimal", r.message
+    assert "restricted problem" in r.message, r.message
     primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
     assert viol <= 1e-9
     assert _relative(dual, primal) <= 1e-8
@@ -96,8 +95,57 @@ def test_a_low_cv_network_is_handed_over_and_solved():
     assert np.all((pi == 0.0) | (pi > 1e-9 * inst.fare.max()))
 
 
-def test_discrete_demand_is_not_handed_over():
-    # the barrier needs a density: Poisson and negative-binomial products keep Newton
-    inst, desc = next(family.draw(s, max_products=300) for s in range(300)
-                      if family.draw(s, max_products=300)[1]["demand"] == "poisson")
-    assert not interior.applies(Network(inst)), desc
+def _poisson_network(products=600, seed=5):
+    inst = generate(products, seed=seed)
+    return inst.with_forecast(meta={**inst.meta, "distribution": "poisson"})
+
+
+def test_the_restricted_problem_with_pricing_solves_the_linear_program():
+    # With whole seats a Poisson network is a linear program, one column per seat (slope
+    # f P(D > k), width 1); reference: HiGHS through scipy.optimize.linprog on every seat
+    # of the kink table. The master from the first windows, priced until consistent, must
+    # reach its optimum (LP duality: consistent fixed kinks make the master's optimum the
+    # whole problem's).
+    inst = _poisson_network()
+    net = Network(inst)
+    k = net.products.kinks
+    owner = k.owner[k.kink_owner()]
+    cols = net.AT_g[net.group_of(owner)].T.tocsr()
+    lp = optimize.linprog(-k.slope, A_ub=cols, b_ub=net.cap, bounds=np.column_stack([np.zeros(len(k)), k.width]),
+                          method="highs")
+    assert lp.status == 0
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert r.objective == pytest.approx(-lp.fun, rel=1e-9)
+
+
+def test_pricing_frees_exactly_the_kinks_on_the_wrong_side():
+    # A fixed-full kink whose slope is below the bid-price sum, or a fixed-empty one above it,
+    # is inconsistent (complementary slackness of its bound, an LP fact): pricing widens that
+    # product's window to reach it, and leaves consistent products alone.
+    inst = _poisson_network(products=200, seed=2)
+    net = Network(inst)
+    k = net.products.kinks
+    pi = fare_start(net)
+    lo, hi = master.first_windows(net, pi)
+    m = master.build(net, lo, hi)
+    assert master.price(net, m, pi) is None              # consistent where it was built
+    new = master.price(net, m, pi * 3.0)                 # dearer legs: full kinks now unprofitable
+    assert new is not None
+    nlo, nhi = new
+    a = net.to_products(net.AT_g @ (pi * 3.0))[k.owner]
+    above = k.above(a)
+    moved = (nlo != m.lo) | (nhi != m.hi)
+    assert np.all(nlo[moved] <= above[moved]) and np.all(above[moved] <= nhi[moved])
+    assert np.array_equal(nlo[~moved], m.lo[~moved]) and np.array_equal(nhi[~moved], m.hi[~moved])
+
+
+def test_fixed_seats_never_overfill_a_leg():
+    # The master needs room for its interior: where the fixed-full kinks would fill a leg,
+    # build() frees them (a leg's capacity minus its fixed seats stays positive).
+    inst = _poisson_network(products=300, seed=3)
+    net = Network(inst)
+    k = net.products.kinks
+    lo = k.count.copy()                  # everything fixed full: far more than the legs hold
+    m = master.build(net, lo, k.count.copy())
+    assert np.all(m.capacity > 0)

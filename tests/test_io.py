@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 
 from decomp import io
+from decomp.errors import OutputPathError
 from decomp.generator import generate
 from decomp.instance import Instance
 
@@ -113,15 +114,41 @@ def test_replaces_an_existing_instance_atomically(tmp_path, monkeypatch):
     assert [p.name for p in tmp_path.iterdir()] == ["inst"]        # no temporary left behind
     monkeypatch.setattr(io, "_csv_bytes", real)
     io.write_instance(generate(60, seed=2), out, format="parquet")
-    assert sorted(p.name for p in out.iterdir()) == ["legs.parquet", "meta.json", "products.parquet"]
+    assert sorted(p.name for p in out.iterdir()) == [".decomp", "legs.parquet", "meta.json", "products.parquet"]
     assert io.read_instance(out).n_products == 60
 
 
 def test_refuses_a_folder_with_other_files(tmp_path):
     (tmp_path / "notes.txt").write_text("keep me")
-    with pytest.raises(FileExistsError, match="notes.txt"):
+    with pytest.raises(OutputPathError, match="no .decomp marker"):
         io.write_instance(generate(20, seed=1), tmp_path)
     assert (tmp_path / "notes.txt").read_text() == "keep me"
+    # a folder decomp wrote, to which someone added a file of their own, is not replaced either
+    out = io.write_instance(generate(20, seed=1), tmp_path / "inst")
+    (out / "notes.txt").write_text("mine")
+    with pytest.raises(OutputPathError, match="notes.txt"):
+        io.write_instance(generate(20, seed=2), out)
+    assert (out / "notes.txt").read_text() == "mine"
+
+
+def test_refuses_a_folder_of_the_users_own_tables(tmp_path):
+    # issue 24, item 9: a folder holding someone's own legs.csv / products.csv (no marker) is not
+    # replaced, by the Python API or by `decomp generate --out`
+    from decomp.cli import main
+
+    own = tmp_path / "mine"
+    own.mkdir()
+    (own / "legs.csv").write_text("leg,origin,destination,capacity\nL1,AA1,BB2,10\n")
+    (own / "products.csv").write_text("product,legs,fare,mean,std\nP1,L1,100,5,1\n")
+    before = {p.name: p.read_bytes() for p in own.iterdir()}
+    with pytest.raises(OutputPathError, match="not written by decomp"):
+        io.write_instance(generate(20, seed=1), own)
+    assert main(["generate", "--products", "20", "--out", str(own)]) == 2
+    assert {p.name: p.read_bytes() for p in own.iterdir()} == before
+    # a folder decomp generated is replaced (its marker says so)
+    assert main(["generate", "--products", "20", "--out", str(tmp_path / "gen")]) == 0
+    assert main(["generate", "--products", "30", "--out", str(tmp_path / "gen")]) == 0
+    assert io.read_instance(tmp_path / "gen").n_products == 30
 
 
 def test_unknown_format(tmp_path):

@@ -12,6 +12,7 @@ from decomp import threads as _threads
 from decomp.generator import generate
 from decomp import lagrangian as m_lagr
 from decomp.lagrangian.alternatives import lbfgsb_termination
+from decomp import demand_mix
 from decomp.result import IterationRecord
 
 pytestmark = pytest.mark.solver
@@ -162,6 +163,30 @@ def test_newton_iteration_and_time_limits(rungs):
     assert r.solution_status is SolutionStatus.FEASIBLE
 
 
+@pytest.mark.parametrize("mix", [None, "gamma", "lowcv", "poisson", "negbin", "mix"])
+def test_unlimited_legs_written_as_capacity_1e12(rungs, mix):
+    # The README writes an unlimited leg as capacity 1e12. Every fifth leg of p100 so: the
+    # method must still certify (it ended numerical_error), and its message must state the
+    # gap the result carries (it said 7.6e-4 beside a gap field of 3.2e-12).
+    inst = rungs["p100"]
+    cap = inst.capacity.copy()
+    cap[::5] = 1e12
+    inst = inst.with_forecast(capacity=cap)
+    if mix is not None:
+        inst = demand_mix.apply(inst, demand_mix.NAMED[mix], seed=1)
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL and r.solution_status is SolutionStatus.OPTIMAL, r.message
+    assert r.message.endswith(f"certified gap {r.gap:.3g}"), r.message
+    # weak duality (a mathematical fact): the certificate's dual bound is above its primal
+    assert r.certificate.dual_value >= r.certificate.primal_value - 1e-9 * abs(r.objective)
+    assert np.all(r.bid_price_array[::5] == 0.0)       # a leg that cannot fill has no value
+    if mix is None:
+        # Reference: Ipopt (cyipopt) on the same arrays, normal demand
+        ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-10))
+        assert ref.termination is Termination.OPTIMAL
+        assert r.objective == pytest.approx(ref.objective, rel=1e-8)
+
+
 def test_dense_and_schur_factorizations_agree():
     inst = generate(3000, seed=3)
     a = solve(inst, "pnlp", "lagrangian", SolverOptions(solver_options={"linear_solver": "dense"}))
@@ -258,7 +283,7 @@ def test_history_is_finite_for_every_family():
         json.dumps(r.to_json_dict(include_history=True), allow_nan=False)
 
 
-# -- the bound-constrained method: exact zeros, the barrier segments ------------------------
+# -- the bound-constrained method: exact zeros, the kinks and their smoothing ----------------
 
 def _two_leg_instance(rng):
     """Leg L1 slack, leg L2 tight; P1 flies L1 then L2, P2 flies L2 only (no product uses
@@ -291,93 +316,85 @@ def test_slack_leg_shared_with_a_tight_leg_gets_exactly_zero():
         assert got.bid_prices["L2"] == pytest.approx(ref.bid_prices["L2"], rel=1e-6)
 
 
-def _deterministic_segment(fare, mean, upper):
-    """The Segments of one deterministic product (std = 0): one segment of slope fare."""
-    from decomp.lagrangian.segments import Segments
+def _one_kink(fare, mean, upper):
+    """The kink table of one product of known demand (std = 0): one kink of slope fare."""
+    from decomp.distributions import Products
 
-    class _One:
-        all_normal = False
-        n = 1
-        i_norm = i_gam = i_dis = np.zeros(0, dtype=np.int64)
-        i_det = np.array([0])
-
-    sub = _One()
-    sub.fare = sub.t_f = np.array([fare])
-    sub.t_m = np.array([mean])
-    return Segments(sub, np.array([upper]))
+    return Products(np.array([fare]), np.array([mean]), np.array([0.0]), upper=np.array([upper])).kinks
 
 
-def test_barrier_segment_solves_its_subproblem():
-    # Closed form of max_{0<y<w} g y + mu (log(2y/w) + log(2(w-y)/w)) against a bounded
-    # scalar minimization (scipy.optimize.minimize_scalar), and its value change.
-    from scipy.optimize import minimize_scalar
-
-    seg = _deterministic_segment(fare=10.0, mean=4.0, upper=9.0)
-    for a, delta in ((3.0, 0.1), (9.999, 1e-3), (10.5, 1e-2), (25.0, 1e-6)):
-        x_exact = np.array([4.0 if a < 10.0 else 0.0])
-        x, w, change = seg.smooth(np.array([a]), x_exact, delta)
-        g, width, mu = 10.0 - a, 4.0, delta * 10.0 * 4.0
-        f = lambda y: -(g * y + mu * (np.log(2 * y / width) + np.log(2 * (width - y) / width)))  # noqa: E731
-        ref = minimize_scalar(f, bounds=(0.0, width), method="bounded", options={"xatol": 1e-12})
-        assert x[0] == pytest.approx(ref.x, rel=1e-6, abs=1e-9)
-        assert change == pytest.approx(-ref.fun - max(g, 0.0) * width, rel=1e-6, abs=1e-9)
-        assert change <= 0.0                          # the barrier is <= 0: a lower approximation
-        assert w[0] > 0.0
+def test_exact_kink_terms_are_the_piecewise_linear_maximum():
+    # h(a) = max_{0<=x<=w} (r - a) x over one kink (slope r = fare, width min(mean, u)):
+    # the allocation is w where a < r and 0 where a > r, the term (r - a)^+ w (a fact of
+    # this linear program).
+    k = _one_kink(fare=10.0, mean=4.0, upper=9.0)
+    for a in (3.0, 9.999, 10.5, 25.0):
+        r = k.exact(np.array([a]))
+        assert r.x[0] == (4.0 if a < 10.0 else 0.0)
+        assert r.value[0] == pytest.approx(max(10.0 - a, 0.0) * 4.0, rel=1e-15)
+    assert _one_kink(fare=10.0, mean=40.0, upper=9.0).width[0] == 9.0     # the bound u caps the mean
 
 
-def test_barrier_segment_value_is_smooth_at_small_mu():
-    # With g w / mu = 1e5 the closed form once cancelled D - g w against 2 mu, and the
-    # smoothed term was noisy at 1e-16 g w / mu relative: the arc
-    # search then stalled. Fact checked: its derivative in a is -(x(a) beyond the
-    # exact allocation), so the value's change over a step h matches the midpoint rule
-    # to second order (central differences; a mathematical fact of smooth functions).
-    seg = _deterministic_segment(fare=190.0, mean=40.0, upper=100.0)
-    delta = 1e-6                                       # mu = delta r w: g w / mu about 1e5
-    x_exact = np.array([40.0])
-    for a in (150.0, 165.0, 189.0):
-        h = 1e-9 * a
-        lo, hi, mid = (seg.smooth(np.array([b]), x_exact, delta) for b in (a - h, a + h, a))
-        slope = -(mid[0][0] - 40.0)                   # d(change)/da = -(y - w) where full
-        assert (hi[2] - lo[2]) == pytest.approx(2 * h * slope, rel=1e-3, abs=1e-11)
+def test_smoothed_kink_is_the_lognormal_partial_expectation():
+    # The smoothed term of a kink is E[(R - a)^+] with R = r exp(theta Z - theta^2/2), i.e.
+    # scipy.stats.lognorm(s=theta, scale=r exp(-theta^2/2)); reference: the integral of its
+    # sf() from a on (E[(R - a)^+] = int_a^inf P(R > t) dt for R >= 0, a mathematical fact),
+    # by adaptive quadrature (scipy.integrate.quad). Its derivative in a is -P(R > a) (the
+    # allocation, per unit of width), and Jensen's inequality puts it above (r - a)^+.
+    from scipy import integrate
+    from scipy import stats
+
+    k = _one_kink(fare=10.0, mean=4.0, upper=9.0)
+    for theta in (0.3, 0.03, 0.003):
+        R = stats.lognorm(s=theta, scale=10.0 * np.exp(-0.5 * theta * theta))
+        for a in (8.0, 9.9, 10.0, 10.2, 12.0):
+            got = k.smoothed(np.array([a]), theta)
+            ref = integrate.quad(R.sf, a, R.isf(1e-17), epsabs=1e-15, epsrel=1e-12, limit=400)[0]
+            assert got.value[0] == pytest.approx(4.0 * ref, rel=1e-7, abs=1e-11)
+            assert got.x[0] == pytest.approx(4.0 * R.sf(a), rel=1e-9, abs=1e-14)
+            assert got.value[0] >= 4.0 * max(10.0 - a, 0.0) - 1e-12
 
 
 def test_smoothed_dual_brackets_the_exact_dual():
-    # q_delta <= q <= q_delta + delta (1 + log(1 + 1/delta)) E (the barrier bound, see
-    # decomp.lagrangian.segments), on a Poisson network at random bid prices.
-    from decomp.lagrangian.smoothing import error_bound
-
+    # q <= q_theta (Jensen, kink by kink), and the excess q_theta - q reported by the
+    # evaluation is exactly their difference, on a Poisson network at random bid prices.
     inst = generate(400, seed=9)
     inst = inst.with_forecast(meta={**inst.meta, "distribution": "poisson"})
     net = m_lagr.Network(inst)
     rng = np.random.default_rng(3)
     base = m_lagr.fare_start(net)
-    for delta in (1e-1, 1e-3, 1e-6):
-        pt = net.evaluate(base * rng.uniform(0.3, 2.0, net.n), delta)
-        assert pt.value <= pt.exact + 1e-9 * abs(pt.exact)
-        assert pt.exact <= pt.value + error_bound(delta, net.segments.scale) + 1e-9 * abs(pt.exact)
+    for theta in (3e-1, 3e-2, 3e-3):
+        pi = base * rng.uniform(0.3, 2.0, net.n)
+        pt = net.evaluate(pi, theta)
+        exact = net.evaluate(pi)
+        assert pt.exact == pytest.approx(exact.exact, rel=1e-13)
+        assert pt.value >= pt.exact - 1e-12 * abs(pt.exact)
+        assert pt.value - pt.exact <= 0.4 * theta * float(inst.fare.max()) * len(net.products.kinks)
 
 
-def test_poisson_segments_are_every_seat_above_the_tail():
-    # Whole-seat segments of Poisson demand: one per seat k below the product's bound u
-    # with P(D > k) > 1e-12 (the rest are worth less than 1e-12 of the fare), at slope
-    # f P(D > k). Reference: scipy.stats.poisson.sf. Large capacities make u about twice
-    # them, far beyond the demand's tail, where the segments are cut off early.
+def test_poisson_kinks_are_every_seat_above_the_tail():
+    # Whole-seat kinks of Poisson demand: one per seat k below the product's bound u with
+    # P(D > k) > 1e-12 (and the first seat beyond, which the table's recurrence records
+    # before it stops), at slope f P(D > k). Reference: scipy.stats.poisson.sf. The table's
+    # slopes come from 1 - (the probabilities summed): accurate to about 1e-14 of the fare,
+    # absolute, which is what a slope times a seat needs. Large capacities make u about
+    # twice them, far beyond the demand's tail, where the table stops early.
     from scipy import stats
 
     inst = generate(300, seed=4)
     inst = inst.with_forecast(capacity=inst.capacity * 50.0,
                               meta={**inst.meta, "distribution": "poisson"})
     net = m_lagr.Network(inst)
-    seg = net.segments
-    mean = net.sub.d_m
+    k = net.products.kinks
+    row = {int(o): i for i, o in enumerate(k.owner)}
     for j in range(0, net.n_products, 37):
-        k = np.arange(int(net.upper[j]))
-        sf = stats.poisson.sf(k, mean[j])
-        want = k[sf > 1e-12]
-        mine = np.sort(seg.off[seg.prod == j])
-        assert np.array_equal(mine, want)
-        assert seg.slope[seg.prod == j][np.argsort(seg.off[seg.prod == j])] == pytest.approx(
-            net.sub.fare[j] * sf[sf > 1e-12], rel=1e-9)
+        seats = np.arange(int(net.upper[j]))
+        sf = stats.poisson.sf(seats, net.products.mean[j])
+        i = row[j]
+        mine = k.slope[k.ptr[i]:k.ptr[i + 1]]
+        assert len(mine) == int(np.sum(sf > 1e-12)) + 1 or len(mine) == int(np.sum(sf > 1e-12))
+        want = net.products.fare[j] * sf[sf > 1e-12]
+        assert np.all(np.abs(mine[:len(want)] - want) <= 1e-13 * net.products.fare[j] + 1e-9 * want)
 
 
 def test_answer_does_not_depend_on_the_clock(monkeypatch):
@@ -423,7 +440,7 @@ def test_room_left_goes_to_the_dearest_seat_first():
     net = m_lagr.Network(inst)
     rng = np.random.default_rng(2)
     for _ in range(5):
-        y = rng.uniform(0.0, 2.0, net.n_products) * net.sub.d_m
+        y = rng.uniform(0.0, 2.0, net.n_products) * net.products.mean
         load = net.load(y)
         over = load > net.cap
         y = scale_to_capacity(net, y, load, over) if np.any(over) else y
@@ -434,14 +451,11 @@ def test_room_left_goes_to_the_dearest_seat_first():
         assert net.revenue(filled) >= net.revenue(y) - 1e-9 * abs(net.revenue(y))
 
 
-def test_discrete_demand_at_scale_gets_its_lp_completion():
+def test_discrete_demand_at_scale_is_certified():
     # Negative-binomial demand on 5,010 products: with whole seats the PNLP is a linear
-    # program, whose split of a leg's last seats the dual leaves open; the LP completion
-    # settles it. Its size (the undetermined seats; no smooth parts here) is counted before
-    # it runs, so the work budget admits it: sized at 64 columns per product instead (as
-    # for chords of smooth demand), it was predicted at 146 s and held back, and this
-    # network ended at the iteration limit with certified gap 2e-6. Checked by the
-    # independent certificate (scipy.stats only; weak duality, a mathematical fact).
+    # program, whose split of a leg's last seats the dual leaves open; the restricted
+    # problem of the kinks near the bid prices settles it. Checked by the independent
+    # certificate (scipy.stats only; weak duality, a mathematical fact).
     import dataclasses
 
     import family

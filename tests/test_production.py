@@ -98,12 +98,11 @@ def test_batch_shapes(tmp_path):
 
 @pytest.fixture(scope="module")
 def cluster():
-    distributed = pytest.importorskip("distributed")
-    import logging
+    pytest.importorskip("distributed")
+    from decomp.production.runner import start_cluster
 
-    cl = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=":0", silence_logs=logging.ERROR)
-    client = distributed.Client(cl)
+    # the embedded cluster of decomp run itself: TLS with per-run credentials, workers ignoring SIGINT
+    cl, client = start_cluster(2)
     yield cl, client
     client.close()
     cl.close()
@@ -224,6 +223,8 @@ def test_worker_killed_mid_run(clean, cluster, tmp_path):
     assert _outputs(tmp_path / "killed", b) == _outputs(clean[0], b)
     client.wait_for_workers(2, timeout=60)      # the nanny restarted the killed worker ...
     assert killed["pid"] not in client.run(os.getpid).values()   # ... as a new process
+    # ... which ignores SIGINT too (the worker plugin reaches restarted workers)
+    assert all(client.run(lambda: signal.getsignal(signal.SIGINT) == signal.SIG_IGN).values())
 
 
 class _Stop(Exception):
@@ -278,8 +279,18 @@ def test_corrupt_instance_fails_alone(cluster, tmp_path):
     lines[5] = ",".join(row)
     products.write_text("\n".join(lines) + "\n")
     out = tmp_path / "out"
-    rc = main(["run", str(nets), "--model", METHOD[0], "--method", METHOD[1], "--out", str(out),
-               "--scheduler", cluster[0].scheduler_address, "--no-progress"])
+    argv = ["run", str(nets), "--model", METHOD[0], "--method", METHOD[1], "--out", str(out),
+            "--scheduler", cluster[0].scheduler_address, "--no-progress"]
+    assert main(argv) == 2 and not out.exists()     # a TLS scheduler, no credentials configured: refused
+    # the client's credentials through Dask's configuration, as the README tells for an external
+    # scheduler (here the embedded cluster's own, held in memory)
+    import dask
+
+    sec = cluster[0].security
+    with dask.config.set({"distributed.comm.require-encryption": True, "distributed.comm.tls.ca-file": sec.tls_ca_file,
+                          "distributed.comm.tls.client.cert": sec.tls_client_cert,
+                          "distributed.comm.tls.client.key": sec.tls_client_key}):
+        rc = main(argv)
     assert rc == 1
     s = json.loads((out / "summary.json").read_text())
     by = {t["key"]: t for t in s["tasks"]}

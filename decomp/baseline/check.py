@@ -50,8 +50,10 @@ class Thresholds:
     gap_floor, violation_floor, kkt_floor, certificate_factor: a certificate measure regresses
         when new > max(certificate_factor * old, floor); gap_floor defaults to the recorded tol (the
         certified gap the case was asked for: an answer now less accurate than requested regresses).
-    time_ratio, time_floor: wall time regresses when max(new, floor) / max(old, floor) > time_ratio
-        (the floor keeps millisecond solves from tripping on timer noise).
+    time_ratio, time_floor: the solve's time regresses when max(new, floor) / max(old, floor) > time_ratio
+        (the floor keeps millisecond solves from tripping on timer noise). The time is CPU time of the
+        solving process (a busy machine stretches wall time, far less CPU time); a baseline recorded
+        before CPU times were kept is compared on wall time, and the report says so.
     """
 
     objective_rtol: float | None = None
@@ -114,18 +116,27 @@ def _options_for(rec: Mapping, override: Mapping | None) -> SolverOptions:
 
 
 def check(path, *, thresholds: Thresholds | None = None, options_override: Mapping | None = None,
-          solve_fn: Callable | None = None, clock: Callable[[], float] = time.perf_counter, repeat: int = 1,
+          solve_fn: Callable | None = None, clock: Callable[[], float] = time.process_time, repeat: int = 1,
           warmup: bool = True, confirm_runs: int = 2, only: Sequence[str] | None = None,
           progress: Callable | None = None) -> CheckReport:
     """Re-solve every case of the baseline at ``path`` and compare with what was recorded.
 
     Test hooks: ``options_override`` (e.g. ``{"tol": 1e-3}``) changes the
     options of every case; ``solve_fn`` replaces :func:`decomp.registry.solve`
-    (same keywords); ``clock`` replaces the timer; ``repeat`` and ``warmup`` as
+    (same keywords); ``clock`` replaces the timer (CPU time by default); ``repeat`` and ``warmup`` as
     in :func:`record`; a case over the time ratio is timed ``confirm_runs``
-    more times and judged on the best run. ``only`` restricts the check
-    to the named case ids. ``progress(case_report)`` is called after each case.
+    more times and judged on the best run, the machine's load printed beside it. ``only`` restricts
+    the check to the named case ids. ``progress(case_report)`` is called after each case.
+
+    A check that compares nothing does not pass: when the baseline names a suite, every case the
+    suite defines (for the methods available here) must be in it -- a case deleted from the folder
+    and its manifest is a ``missing`` regression -- and a case recorded without an objective or bid
+    prices to compare is a ``not_compared`` regression.
     """
+    if int(repeat) < 1:
+        raise ConfigError(f"repeat must be at least 1, got {repeat!r}")
+    if int(confirm_runs) < 0:
+        raise ConfigError(f"confirm_runs must be >= 0, got {confirm_runs!r}")
     base = load(path)
     thresholds = thresholds or Thresholds()
     solve_fn_given = solve_fn is not None
@@ -136,7 +147,6 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
     if bad:
         raise ConfigError(f"options_override names unknown options {bad}; valid: {', '.join(sorted(known))}")
     env_new = environment()
-    reports = []
     wanted = None if only is None else set(only)
     if wanted is not None:
         missing = sorted(wanted - {r["case"] for r in base.cases})
@@ -150,6 +160,9 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
     # Availability first (as record's suites do): a missing solver is reported by name, and the
     # libraries are imported before any timed solve, as they were when the baseline was recorded.
     unavailable = {} if solve_fn_given else _unavailable_pairs({(r["model"], r["method"]) for r in todo})
+    reports = []
+    if wanted is None:
+        reports.extend(_missing_cases(base, unavailable, progress, solve_fn_given))
     for rec in todo:
         rep = CaseReport(rec["case"], rec["model"], rec["method"])
         rep.thresholds = thresholds.for_case(rec["model"], float(rec["options"]["tol"]))
@@ -177,6 +190,31 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
         options_override=override)
 
 
+def _missing_cases(base, unavailable, progress, solve_fn_given) -> list:
+    """A regression per case the baseline's suite defines (for the methods available here) that the
+    baseline does not hold: the manifest detects damage, not malice, so the suite's own definition is
+    what a deleted case is found against."""
+    from .cases import SUITES, suite_cases
+
+    suite = base.manifest.get("suite")
+    if solve_fn_given or suite not in SUITES:       # a custom case list (or a test's solver): nothing to match
+        return []
+    have = {r["case"] for r in base.cases}
+    out = []
+    for case in suite_cases(suite):
+        if case.id in have or (case.model, case.method) in unavailable:
+            continue
+        rep = CaseReport(case.id, case.model, case.method)
+        rep.add("regression", "missing", f"suite {suite!r} defines case {case.id}, but the baseline holds no record "
+                                         f"of it (deleted from the folder and its manifest, or recorded where "
+                                         f"{case.method} was unavailable): nothing to compare; re-record the "
+                                         f"baseline")
+        out.append(rep)
+        if progress is not None:
+            progress(rep)
+    return out
+
+
 def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat, warm,
                 confirm_runs) -> None:
     th = rep.thresholds
@@ -196,7 +234,7 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                    if rec["options"].get(k) != v}
         rep.add("note", "options", "solved with changed options: " +
                 ", ".join(f"{k} {o!r} -> {n!r}" for k, (o, n) in changed.items()))
-    result, wall = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
+    result, _, timed = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, repeat, warm)
 
     # status
     old_st = f"{rec['termination']}/{rec['solution_status']}"
@@ -291,11 +329,22 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
             rep.add("note", "allocation", text + (" (LP allocations may be non-unique)"
                                                   if th["allocation_rtol"] is None else " (within tolerance)"))
 
+    # a record that held nothing to compare (no objective, no bid prices) cannot pass
+    if obj_old is None and not len(legs_old):
+        rep.add("regression", "not_compared", f"the case was recorded {old_st} with no objective and no bid "
+                                              f"prices: there is nothing to compare it with; re-record the baseline")
+
     # iterations and time
     m["iterations_old"], m["iterations_new"] = rec.get("iterations"), result.iterations
     if rec.get("iterations") != result.iterations:
         rep.add("note", "iterations", f"iterations {rec.get('iterations')} -> {result.iterations}")
-    t_old, t_new = float(rec["wall_seconds"]), float(wall)
+    cpu_old = rec.get("cpu_seconds")
+    clock_name = "CPU time"
+    if cpu_old is None:
+        clock_name = "wall time against CPU time"
+        rep.add("note", "time", "the baseline was recorded before CPU times were kept: its wall time is "
+                                "compared with CPU time now; re-record for a like-for-like comparison")
+    t_old, t_new = float(rec["wall_seconds"] if cpu_old is None else cpu_old), float(timed)
     floor = th["time_floor"]
 
     def ratio_of(t):
@@ -306,14 +355,34 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
     if ratio > th["time_ratio"] and confirm_runs > 0:
         # A slow solve is timed again (best of all runs) before it counts: one slow run on a shared
         # machine is noise more often than not.
-        _, again = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, confirm_runs)
+        _, _, again = _timed_solve(solve_fn, clock, inst, rec["model"], rec["method"], options, confirm_runs)
         t_new, runs = min(t_new, again), runs + confirm_runs
         ratio = ratio_of(t_new)
-    m.update(time_old=t_old, time_new=t_new, time_ratio=ratio, time_runs=runs)
+    m.update(time_old=t_old, time_new=t_new, time_ratio=ratio, time_runs=runs, time_clock=clock_name)
     if ratio > th["time_ratio"]:
-        rep.add("regression", "time", f"wall time {t_old:.3g} s -> {t_new:.3g} s (best of {runs} runs): ratio "
+        load = machine_load()
+        m["machine_load"] = load
+        rep.add("regression", "time", f"{clock_name} {t_old:.3g} s -> {t_new:.3g} s (best of {runs} runs): ratio "
                                       f"{ratio:.2f} > {th['time_ratio']:g} (times below {floor:g} s count as "
-                                      f"{floor:g} s)")
+                                      f"{floor:g} s); {load_text(load)}")
+
+
+def machine_load() -> dict:
+    """The load average (1, 5, 15 minutes) and the CPUs it is shared by, to print beside a slow time."""
+    import os
+
+    try:
+        one, five, fifteen = os.getloadavg()
+    except (OSError, AttributeError):
+        return {"load_1m": None, "load_5m": None, "load_15m": None, "cpus": os.cpu_count()}
+    return {"load_1m": one, "load_5m": five, "load_15m": fifteen, "cpus": os.cpu_count()}
+
+
+def load_text(load: Mapping) -> str:
+    if load.get("load_1m") is None:
+        return "machine load unknown"
+    return (f"machine load {load['load_1m']:.2f} / {load['load_5m']:.2f} / {load['load_15m']:.2f} "
+            f"(1 / 5 / 15 min) on {load['cpus']} CPUs")
 
 
 def _alternative_duals(rep, inst, model, segments, pi_new, obj_old, th, moved_legs, detail) -> None:

@@ -26,6 +26,7 @@ import numpy as np
 from .. import atomic
 from ..errors import InstanceError
 from ..instance import Instance
+from ..paths import MARKER
 from ..result import SCHEMA, SCHEMA_VERSION
 from ..tables import BID_PRICE_COLUMNS
 from ..atomic import file_sha256
@@ -156,17 +157,12 @@ def inside(base: pathlib.Path, rel, *, file, what: str) -> pathlib.Path:
 
 # --------------------------------------------------------------------------- load and verify
 def _read_json(path: pathlib.Path):
-    try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError as exc:
-        raise BaselineError("baseline file is missing", file=path) from exc
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise BaselineError(f"not valid JSON ({_short(exc)}); the file was truncated or edited",
-                            file=path) from exc
-    except RecursionError as exc:
-        raise BaselineError("JSON nested too deeply; the file was edited", file=path) from exc
-    except OSError as exc:
-        raise BaselineError(f"cannot read the file ({exc.strerror or exc})", file=path) from exc
+    """The JSON in a baseline file; a missing, unreadable or malformed one is a BaselineError (an
+    integer of 4,300 digits and a key listed twice included: see :mod:`decomp.jsonfile`)."""
+    from .. import jsonfile
+
+    value = jsonfile.read(path, error=BaselineError, missing="baseline file is missing")
+    return value
 
 
 @dataclasses.dataclass(frozen=True)
@@ -329,9 +325,10 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
     for key in ("objective", "bound", "gap"):
         _number(rec, key, rpath, finite=optimal and key == "objective",
                 nullable=not (optimal and key == "objective"))
-    wall = _number(rec, "wall_seconds", rpath, finite=True, nullable=False)
-    if wall < 0:
-        raise BaselineError("wall_seconds must be >= 0", file=rpath, column="wall_seconds", value=wall)
+    for key, nullable in (("wall_seconds", False), ("cpu_seconds", True)):   # cpu_seconds: from issue 24 on
+        t = _number(rec, key, rpath, finite=True, nullable=nullable)
+        if t is not None and t < 0:
+            raise BaselineError(f"{key} must be >= 0", file=rpath, column=key, value=t)
     cert = rec.get("certificate")
     if cert is not None:
         if not isinstance(cert, dict):
@@ -348,6 +345,8 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
     if not folder.is_dir():
         raise BaselineError("the case's instance folder is missing", file=folder)
     for p in folder.iterdir():
+        if p.name == MARKER and not p.is_symlink():
+            continue                       # decomp's marker: never read as instance data
         if f"{idir}/{p.name}" not in listed or p.is_symlink():
             raise BaselineError("a file in the instance folder is not listed in manifest.json (an instance "
                                 "is read from verified files only)", file=p)
@@ -357,6 +356,18 @@ def _load_case(path: pathlib.Path, listed: Mapping, cid: str, version: int = FOR
     if f"cases/{cid}/{name}" not in listed:
         raise BaselineError("the case's bid-price file is not listed in manifest.json", file=bpath)
     legs, pi = read_bid_prices_csv(bpath, finite=optimal)
+    n_legs = rec.get("n_legs")
+    if optimal and not len(pi):
+        raise BaselineError("a case recorded optimal has no bid prices (the file holds its header only): it "
+                            "was cut or edited after recording, and the check would compare nothing; "
+                            "re-record the baseline", file=bpath)
+    if optimal and isinstance(n_legs, int) and not isinstance(n_legs, bool) and len(pi) != n_legs:
+        raise BaselineError(f"{len(pi)} bid prices for a case recorded optimal on {n_legs} legs: the file was "
+                            f"cut or edited after recording; re-record the baseline", file=bpath)
+    if len(set(legs)) < len(legs):
+        dup = next(l for k, l in enumerate(legs) if l in legs[:k])
+        raise BaselineError(f"leg '{_short(dup)}' is listed twice", file=bpath, row=legs.index(dup, legs.index(dup) + 1) + 1,
+                            column="leg")
     if optimal and len(pi):
         floor = -1e-6 * max(1.0, float(np.max(np.abs(pi))))
         if pi.min() < floor:

@@ -172,10 +172,11 @@ def history_records(result, limit: int = 300) -> list:
 REVENUE_SEED = 20261202
 
 
-def revenue_seed(rung: str) -> int:
+def revenue_seed(data: str) -> int:
+    """The seed of a case's sample paths: per rung (a demand model's cases share their rung's)."""
     from .cases import RUNG_ORDER
 
-    return REVENUE_SEED + RUNG_ORDER.index(rung)
+    return REVENUE_SEED + RUNG_ORDER.index(data.partition("-")[0])
 
 
 def price_bid_prices(instance, bid_prices, paths: int, seed: int) -> dict | None:

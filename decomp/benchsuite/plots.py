@@ -52,7 +52,7 @@ def headline_series(run, stat: str = "min") -> dict:
     """(model, label) -> sorted list of (n_products, time, row) at the headline knob."""
     groups = {}
     for r in run.rows:
-        if r.get("kind") not in ("solve", "build", "tables"):
+        if r.get("kind") not in ("solve", "build", "tables") or (r.get("demand") or "normal") != "normal":
             continue
         groups.setdefault((r.get("model"), r.get("label")), []).append(r)
     out = {}
@@ -202,7 +202,8 @@ def _no_minor_labels(ax):
 
 def plot_pareto(run, rung, path, stat="min"):
     plt = _plt()
-    rows = [r for r in run.rows if r.get("rung") == rung and r.get("kind") == "solve"]
+    rows = [r for r in run.rows if r.get("rung") == rung and r.get("kind") == "solve"
+            and (r.get("demand") or "normal") == "normal"]
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(12, 5))
     colors = method_colors(rows)
     _scatter(ax1, [r for r in rows if r.get("model") in ("pnlp", "pwl")], "bid_price_error", stat,
@@ -221,7 +222,8 @@ def plot_pareto(run, rung, path, stat="min"):
 
 def plot_lagrangian_gap(run, path):
     """Each dual method on the largest rung it ran (tightest tol), and Newton on every rung (dashed)."""
-    rows = [r for r in run.rows if r.get("method") == "lagrangian" and r.get("history")]
+    rows = [r for r in run.rows if r.get("method") == "lagrangian" and r.get("history")
+            and (r.get("demand") or "normal") == "normal"]
     if not rows:
         return None
     order = {r: i for i, r in enumerate(RUNG_ORDER)}

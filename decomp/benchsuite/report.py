@@ -30,17 +30,53 @@ def baseline_row(rows, method: str):
     return exact[0] if exact else min(cand, key=lambda r: (r.get("knobs") or {}).get("tol", 1.0))
 
 
+def _demand(row) -> str:
+    return row.get("demand") or "normal"
+
+
 def speedups(run, stat: str = "min") -> dict:
-    """case -> {baseline method: baseline time / case time} within each rung."""
+    """case -> {baseline method: baseline time / case time} within each rung (and demand model)."""
     out = {}
-    for rung in RUNG_ORDER:
-        rows = [r for r in run.rows if r.get("rung") == rung]
+    keys = sorted({(r.get("rung"), _demand(r)) for r in run.rows}, key=str)
+    for rung, demand in keys:
+        rows = [r for r in run.rows if r.get("rung") == rung and _demand(r) == demand]
         bases = {m: baseline_row(rows, m) for m in BASELINES}
         for r in rows:
             if r.get("kind") != "solve":
                 continue
             out[r.case] = {m: (None if b is None or r.time(stat) <= 0 else b.time(stat) / r.time(stat))
                            for m, b in bases.items()}
+    return out
+
+
+def demand_tables(run, sp, stat: str = "min") -> list:
+    """Markdown lines: per demand model, time against accuracy on each rung, with the time of
+    the same method and knobs on the ladder's normal demand in this run for scale."""
+    demands = sorted({_demand(r) for r in run.rows} - {"normal"})
+    if not demands:
+        return []
+    normal = {(r.get("rung"), r.get("label"), _knobs(r)): r for r in run.rows
+              if _demand(r) == "normal" and r.get("kind") == "solve"}
+    out = ["## Demand models", "",
+           "The same networks (legs, products, fares, means) with another demand model "
+           "(decomp.demand_mix); `x normal` = this case's time over the same method's on the ladder's "
+           "normal demand in this run.", "",
+           "| demand | rung | method | knobs | time s | iterations | gap | objective err | peak RSS MiB | "
+           "status | x normal | x ipopt |", "|---|---|---|---|---:|---:|---:|---:|---:|---|---:|---:|"]
+    order = {r: i for i, r in enumerate(RUNG_ORDER)}
+    rows = [r for r in run.rows if _demand(r) in demands and r.get("kind") == "solve"]
+    for r in sorted(rows, key=lambda r: (_demand(r), order.get(r.get("rung"), 99), str(r.get("label")))):
+        base = normal.get((r.get("rung"), r.get("label"), _knobs(r)))
+        ratio = None if base is None or not base.time(stat) else r.time(stat) / base.time(stat)
+        status = r.get("termination") or "-"
+        if r.get("accuracy_failures"):
+            status += " (FAILED check)"
+        out.append("| " + " | ".join([
+            _demand(r), str(r.get("rung")), str(r.get("label")), _knobs(r), _g(r.time(stat), "{:.4g}"),
+            _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
+            _g(r.get("peak_rss_mib"), "{:.0f}"), status, _g(ratio, "{:.3g}"),
+            _g(sp.get(r.case, {}).get("ipopt"), "{:.3g}")]) + " |")
+    out.append("")
     return out
 
 
@@ -110,7 +146,7 @@ def render(run, plots=(), stat: str = "min") -> str:
 
     sp = speedups(run, stat)
     for rung in RUNG_ORDER:
-        rows = [r for r in run.rows if r.get("rung") == rung]
+        rows = [r for r in run.rows if r.get("rung") == rung and _demand(r) == "normal"]
         if not rows:
             continue
         n, L = rows[0].get("n_products"), rows[0].get("n_legs")
@@ -138,6 +174,7 @@ def render(run, plots=(), stat: str = "min") -> str:
                 _g(r.get("peak_memory_mib"), "{:.0f}"), _g(r.get("peak_rss_mib"), "{:.0f}"), status,
                 _g(s.get("ipopt"), "{:.3g}"), _g(s.get("pyomo-ipopt"), "{:.3g}")]) + " |")
         out.append("")
+    out += demand_tables(run, sp, stat)
     fits = slopes(run, stat, min_n=FIT_MIN_N)
     if fits:
         out += ["## Fitted scaling t = a n^b (rungs from 1,000 products, headline knob)", "",

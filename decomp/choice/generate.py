@@ -98,6 +98,9 @@ def generate_choice(n_products: int, seed: int = 0, params=None, choice: ChoiceP
     from ..generator import _round_sig, generate
 
     c = (choice or ChoiceParams()).validated()
+    if overrides.get("demand") is not None:
+        raise ConfigError("a network with markets takes its products' demand from the logit (a Poisson spread); "
+                          "it has no demand model (demand=)")
     base = generate(n_products, seed=seed, params=params, **overrides)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(CHOICE_STREAM,)))
     market, ids = market_keys(base)

@@ -19,6 +19,7 @@ import json
 import sys
 import time
 
+from ._options import count, number, positive
 from ._vocabulary import old_name
 from .bench import add_history_options
 
@@ -31,8 +32,10 @@ def register(sub):
     r = bsub.add_parser("record", help="solve a suite and write a baseline folder")
     r.add_argument("--suite", default="quick", help="suite name (default: %(default)s; see --list)")
     r.add_argument("--out", help="baseline folder to create (default: none; needed unless --list)")
-    r.add_argument("--force", action="store_true", help="replace an existing baseline folder")
-    r.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
+    r.add_argument("--force", action="store_true",
+                   help="replace an existing baseline folder decomp recorded (its .decomp marker or baseline "
+                        "manifest; anything else is refused; default: off)")
+    r.add_argument("--repeat", type=positive, default=1, help="time each solve as the best of N runs (default 1)")
     r.add_argument("--no-warmup", action="store_true",
                    help="do not solve the first case of each (model, method) once untimed before timing it")
     r.add_argument("--list", action="store_true", help="list the suites and their cases, then stop")
@@ -42,29 +45,29 @@ def register(sub):
     c.add_argument("baseline", help="baseline folder written by 'decomp baseline record'")
     c.add_argument("--out", help="folder for check.json and check.md (default: print the Markdown only)")
     c.add_argument("--case", action="append", dest="cases", metavar="ID", help="check only this case (repeatable; default: every case)")
-    c.add_argument("--repeat", type=int, default=1, help="time each solve as the best of N runs (default 1)")
-    c.add_argument("--confirm-runs", type=int, default=2,
+    c.add_argument("--repeat", type=positive, default=1, help="time each solve as the best of N runs (default 1)")
+    c.add_argument("--confirm-runs", type=count, default=2,
                    help="time a case over the time ratio this many more times, judge the best run (default 2)")
     c.add_argument("--no-warmup", action="store_true",
                    help="do not solve the first case of each (model, method) once untimed before timing it")
     g = c.add_argument_group("thresholds (defaults fit each case's model and recorded tolerance)")
-    g.add_argument("--rtol-objective", type=float, help="objective relative change (default max(10 tol, 1e-9))")
-    g.add_argument("--rtol-bid", type=float, help="bid-price relative change (default 1e-7 LP, max(1e-6, 1e3 tol) PNLP)")
-    g.add_argument("--atol-bid", type=float, help="bid-price absolute change in fare units "
+    g.add_argument("--rtol-objective", type=number(0.0), help="objective relative change (default max(10 tol, 1e-9))")
+    g.add_argument("--rtol-bid", type=number(0.0), help="bid-price relative change (default 1e-7 LP, max(1e-6, 1e3 tol) PNLP)")
+    g.add_argument("--atol-bid", type=number(0.0), help="bid-price absolute change in fare units "
                                                   "(default rtol x max(1, largest recorded bid price))")
-    g.add_argument("--rtol-allocation", type=float, help="allocation sum/min/max relative change "
+    g.add_argument("--rtol-allocation", type=number(0.0), help="allocation sum/min/max relative change "
                                                          "(default max(1e-5, 1e3 tol) PNLP; LP: note only)")
-    g.add_argument("--gap-floor", type=float, help="certified gap allowed in any case (default: the recorded tol)")
-    g.add_argument("--violation-floor", type=float, default=1e-6, help="relative capacity violation (default 1e-6)")
-    g.add_argument("--kkt-floor", type=float, default=1e-6, help="KKT residual (default 1e-6)")
-    g.add_argument("--certificate-factor", type=float, default=10.0,
+    g.add_argument("--gap-floor", type=number(0.0), help="certified gap allowed in any case (default: the recorded tol)")
+    g.add_argument("--violation-floor", type=number(0.0), default=1e-6, help="relative capacity violation (default 1e-6)")
+    g.add_argument("--kkt-floor", type=number(0.0), default=1e-6, help="KKT residual (default 1e-6)")
+    g.add_argument("--certificate-factor", type=number(0.0), default=10.0,
                    help="a certificate measure may grow to this multiple of its recorded value (default 10)")
     g.add_argument("--max-time-growth", default="2x",
-                   help="allowed wall-time growth new/old: a ratio such as 2x or a growth such as 100%%, as "
-                        "bench compare --max-growth (default: %(default)s)")
+                   help="allowed growth new/old of the solve's CPU time: a ratio such as 2x or a growth such as "
+                        "100%%, as bench compare --max-growth (default: %(default)s)")
     old_name(g, "--time-ratio", new="--max-time-growth", dest="time_ratio", metavar="X",
              note="; a bare number is the ratio there (2 = 2x)")
-    g.add_argument("--time-floor", type=float, default=0.5,
+    g.add_argument("--time-floor", type=number(0.0), default=0.5,
                    help="seconds below which times count as this value in the ratio (default 0.5)")
     add_history_options(c, "the check")
     c.add_argument("--override", action="append", default=[], metavar="OPTION=VALUE",
@@ -91,6 +94,9 @@ def run_record(args) -> int:
         return 0
     if not args.out:
         return _bad("record needs --out DIR")
+    from ..baseline.record import check_out
+
+    check_out(args.out, args.force)                # before any solve: exit 2, the folder named
 
     def progress(cid, rec):
         cert = rec["certificate"] or {}
@@ -98,7 +104,12 @@ def run_record(args) -> int:
               f"objective {rec['objective']!s:<22} gap {cert.get('gap')!s:<24} "
               f"iter {rec['iterations']!s:<5} {rec['wall_seconds']:.3f} s", flush=True)
 
-    cases = baseline.suite_cases(args.suite)
+    from ..errors import ConfigError
+
+    try:
+        cases = baseline.suite_cases(args.suite)
+    except ConfigError as exc:
+        raise ConfigError(f"--suite: {exc}") from None
     print(f"recording suite {args.suite}: {len(cases)} cases -> {args.out}", flush=True)
     try:
         summary = baseline.record(args.out, args.suite, cases=cases, repeat=args.repeat,
@@ -134,15 +145,33 @@ def _parse_override(items) -> dict:
 
 def run_check(args) -> int:
     from .. import baseline
+    from ..baseline.check import load_text
+    from ..errors import InstanceError
 
     from ..benchsuite.compare import parse_growth, parse_ratio
+
+    from ..errors import ConfigError
+    from ..paths import output_folder
 
     try:
         override = _parse_override(args.override)
     except ValueError as exc:
         return _bad(str(exc))
-    old_ratio = getattr(args, "time_ratio", None)      # a ConfigError: exit 2, naming the value
-    time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
+    old_ratio = getattr(args, "time_ratio", None)
+    option, value = ("--time-ratio", old_ratio) if old_ratio is not None else ("--max-time-growth",
+                                                                              args.max_time_growth)
+    try:
+        time_ratio = parse_ratio(old_ratio) if old_ratio is not None else 1.0 + parse_growth(args.max_time_growth)
+        if time_ratio < 1:
+            raise ConfigError(f"a ratio new/old of at least 1 is needed, got {time_ratio:g}")
+    except ConfigError as exc:
+        raise ConfigError(f"{option} {value!r}: {exc}") from None
+    if args.out is not None:
+        output_folder(args.out, "--out")           # before any solve: exit 2, the folder named
+    if not args.no_history:
+        from .bench import check_history
+
+        check_history(args)                        # before any solve: exit 2, the store's path named
     th = baseline.Thresholds(
         objective_rtol=args.rtol_objective, bid_rtol=args.rtol_bid, bid_atol=args.atol_bid,
         allocation_rtol=args.rtol_allocation, gap_floor=args.gap_floor, violation_floor=args.violation_floor,
@@ -151,17 +180,23 @@ def run_check(args) -> int:
 
     def progress(rep):
         m = rep.metrics
+        load = m.get("machine_load")
         print(f"  {rep.case:<34} {rep.verdict:<17} objective rel {m.get('objective_rel_change')!s:<22} "
-              f"bid max {m.get('bid_max_abs_change')!s:<22} time ratio {m.get('time_ratio', float('nan')):.2f}",
-              flush=True)
+              f"bid max {m.get('bid_max_abs_change')!s:<22} time ratio {m.get('time_ratio', float('nan')):.2f}"
+              + (f" ({load_text(load)})" if load else ""), flush=True)
 
     from ..benchsuite import history
 
     load_start, t0 = history.load_average(), time.perf_counter()
-    report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
-                            repeat=args.repeat, warmup=not args.no_warmup,
-                            confirm_runs=args.confirm_runs, only=args.cases,
-                            progress=progress)
+    try:
+        report = baseline.check(args.baseline, thresholds=th, options_override=override or None,
+                                repeat=args.repeat, warmup=not args.no_warmup,
+                                confirm_runs=args.confirm_runs, only=args.cases,
+                                progress=progress)
+    except ConfigError as exc:          # an override the replay allow-list refuses, an unknown --case
+        if isinstance(exc, InstanceError):
+            raise
+        raise ConfigError(f"{'--override' if 'option' in str(exc) else '--case'}: {exc}") from None
     wall = time.perf_counter() - t0
     print()
     print(report.to_markdown())
@@ -170,6 +205,9 @@ def run_check(args) -> int:
         print(f"wrote {jpath} and {mpath}")
     if not args.no_history:
         _add_to_history(args, report, load_start, wall)
+    if not report.cases:
+        print("decomp baseline check: no case was compared; this is not a pass", file=sys.stderr)
+        return 1
     return 1 if report.regression else 0
 
 

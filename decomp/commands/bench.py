@@ -23,6 +23,7 @@ import sys
 
 from ..errors import DecompError
 from . import _progress
+from ._options import count, number
 from ._vocabulary import old_name
 
 
@@ -39,7 +40,7 @@ def register(sub):
                                                        "ones) and exit without running them")
     p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     add_history_options(p, "the run")
-    p.add_argument("--revenue-paths", type=int, default=0, metavar="N",
+    p.add_argument("--revenue-paths", type=count, default=0, metavar="N",
                    help="after timing, price each case's bid prices on N booking sample paths against the "
                         "reference's (same paths); adds a revenue-loss column (default 0: off)")
     p.set_defaults(func=run)
@@ -58,7 +59,7 @@ def register(sub):
              note="; a bare number is a growth fraction there (0.1 = 10%%, 10 = 1000%%)")
     c.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare (default min)")
-    c.add_argument("--accuracy-floor", type=float, default=1e-9,
+    c.add_argument("--accuracy-floor", type=number(0.0), default=1e-9,
                    help="errors and gaps below this are round-off, never a regression (default 1e-9)")
     c.add_argument("--out", default=None, metavar="FILE.json",
                    help="also write the comparison as JSON (default: not written)")
@@ -88,7 +89,7 @@ def register(sub):
                         "bench compare (default: %(default)s)")
     h.add_argument("--stat", choices=("min", "median", "mean"), default="min",
                    help="which statistic of the rounds to compare and draw (default min)")
-    h.add_argument("--accuracy-floor", type=float, default=1e-9,
+    h.add_argument("--accuracy-floor", type=number(0.0), default=1e-9,
                    help="errors and gaps below this are round-off, never a regression (default 1e-9)")
     h.add_argument("--json", action="store_true", help="print the runs or the comparison as JSON (default: text)")
     h.set_defaults(func=run_history)
@@ -102,6 +103,32 @@ def add_history_options(parser, what: str) -> None:
     parser.add_argument("--no-history", action="store_true", help=f"do not add {what} to the history store")
 
 
+def check_history(args) -> None:
+    """The history store a run will add itself to, checked as a file to write before any work
+    (:func:`decomp.paths.output_file`: exit 2 naming it); nothing to check with ``--no-history``."""
+    import os
+
+    from ..benchsuite.history import ENV_VAR, default_path
+    from ..paths import output_file
+
+    if getattr(args, "no_history", False):
+        return
+    if args.history is not None:
+        output_file(args.history, "--history")
+    else:
+        output_file(default_path(), f"${ENV_VAR}" if os.environ.get(ENV_VAR) else "the history store")
+
+
+def _growth(text, option: str, parse) -> float:
+    """Allowed growth read by ``parse``; a ConfigError naming ``option`` and its value otherwise."""
+    from ..errors import ConfigError
+
+    try:
+        return parse(text)
+    except ConfigError as exc:
+        raise ConfigError(f"{option} {text!r}: {exc}") from None
+
+
 def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True, revenue_paths: int = 0,
               history=None, record_history: bool = True) -> int:
     """Run a suite, print where its outputs went and add it to the history store; returns the exit code."""
@@ -111,7 +138,9 @@ def run_suite(suite: str = "quick", out=None, k=None, progress: bool = True, rev
         print(f"decomp bench: error: --revenue-paths must be 0 (off) or positive, got {revenue_paths}",
               file=sys.stderr)
         return 2
-    out = pathlib.Path(out or f"bench/results/{suite}")
+    from ..paths import output_folder
+
+    out = output_folder(out or f"bench/results/{suite}", "--out")   # before the suite runs: exit 2, path named
     command = (f"decomp bench --suite {suite} --out {out}" + (f" -k {k!r}" if k else "")
                + (f" --revenue-paths {revenue_paths}" if revenue_paths else ""))
     res = _run(suite, out, k=k, progress=progress, command=command, revenue_paths=revenue_paths)
@@ -163,17 +192,35 @@ def run(args) -> int:
             print(f"decomp bench: no case of suite {args.suite} matches -k {args.k!r}", file=sys.stderr)
             return 2
         return 0
+    check_history(args)
     return run_suite(args.suite, args.out, k=args.k, progress=_progress.wanted(args),
                      revenue_paths=args.revenue_paths, history=args.history, record_history=not args.no_history)
+
+
+def _json_readable(*paths) -> None:
+    """Each run's benchmark.json parses (an InstanceError naming it otherwise). ``benchsuite.results``
+    reads it with ``json.loads``, which a 5,000-digit integer or deep nesting turns into a traceback;
+    :mod:`decomp.jsonfile` says which file instead. (Reads the file twice; benchmark files are small.)"""
+    from .. import jsonfile
+    from ..benchsuite.results import resolve_path
+
+    for path in paths:
+        jsonfile.read(resolve_path(path))
 
 
 def run_compare(args) -> int:
     from .. import atomic
     from ..benchsuite.compare import compare_runs, parse_growth, parse_threshold, render
 
+    from ..paths import output_file
+
+    if args.out is not None:
+        output_file(args.out, "--out")             # before the comparison: exit 2, the path named
     old_threshold = getattr(args, "threshold", None)
-    growth = parse_threshold(old_threshold) if old_threshold is not None else parse_growth(args.max_growth)
+    growth = _growth(old_threshold, "--threshold", parse_threshold) if old_threshold is not None \
+        else _growth(args.max_growth, "--max-growth", parse_growth)
     try:
+        _json_readable(args.old, args.new)
         cmp = compare_runs(args.old, args.new, threshold=growth, stat=args.stat,
                            accuracy_floor=args.accuracy_floor)
     except DecompError as exc:
@@ -190,7 +237,12 @@ def run_report(args) -> int:
     from ..benchsuite import plots, report
     from ..benchsuite.results import load_run
 
+    from ..paths import output_folder
+
+    if args.out is not None:
+        output_folder(args.out, "--out")           # before the plots: exit 2, the path named
     try:
+        _json_readable(args.run)
         run_ = load_run(args.run)
     except DecompError as exc:
         print(f"decomp bench report: error: {exc}", file=sys.stderr)
@@ -213,7 +265,14 @@ def run_history(args) -> int:
     from ..benchsuite.compare import Comparison, compare_cases, parse_growth, render
     from ..benchsuite.results import load_run
 
-    growth = parse_growth(args.max_growth)
+    from ..paths import output_file
+
+    growth = _growth(args.max_growth, "--max-growth", parse_growth)
+    if args.html is not None:
+        output_file(args.html, "--html")           # before the store is read: exit 2, the path named
+    if args.add and args.store is not None:
+        output_file(args.store, "--store")         # --add writes into the store
+    _json_readable(*args.add)
     with history.open_store(args.store, create=bool(args.add)) as store:
         for run_path in args.add:
             run_id = store.add_bench_run(load_run(run_path))

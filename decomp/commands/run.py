@@ -17,9 +17,14 @@ say which method produced the published bid prices.
 
 One run at a time per OUT (a lock; a second run exits 1 naming the holder).
 SIGTERM and Ctrl-C both stop the run, keep what is finished and write the
-summary marked interrupted. A full or read-only OUT stops the run with that
-reason, keeping every finished task. The Dask dashboard is off unless
-``--dashboard PORT`` (loopback only).
+summary marked interrupted (exit 1); one that arrives after the last task has
+finished is noted in the summary, which is written all the same, and the exit
+code is that of the finished run. A Ctrl-C at the terminal stops the client
+only: the workers ignore it and are closed by the client. A full or read-only OUT stops the run with that
+reason, keeping every finished task. The embedded cluster speaks TLS with
+credentials made for the run (no other local user can connect); the Dask
+dashboard is off unless ``--dashboard PORT`` (loopback only). ``--scheduler``
+connects with the credentials of Dask's configuration (README, Reliability).
 The summary is written to OUT/summary.json and OUT/summary.md.
 """
 
@@ -28,19 +33,24 @@ from __future__ import annotations
 import sys
 
 from . import _progress
+from ._options import count, demand_mix, duration, number, port, positive, positive_number
 from ._vocabulary import old_name
 
 
 def register(sub):
     p = sub.add_parser("run", help="solve a batch of departure dates on Dask (resumable)", description=__doc__)
     p.add_argument("batch", help="folder of instances, an instance folder, or gen:PRODUCTS[:SEED]")
-    p.add_argument("--out", required=True, help="output folder (finished tasks in it are skipped)")
+    from .generate import DEMAND_HELP
+
+    p.add_argument("--demand", type=demand_mix, metavar="MIX",
+                   help="of a gen:PRODUCTS[:SEED] batch: " + DEMAND_HELP)
+    p.add_argument("--out", required=True, help="output folder (finished tasks in it are skipped; required)")
     p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="default: %(default)s")
     p.add_argument("--method", default=None,
                    help="method of --model (default: lagrangian for pnlp, highs for dlp and pwl)")
-    p.add_argument("--tol", type=float, default=1e-9, help="optimality tolerance (default: %(default)g)")
-    p.add_argument("--time-limit", type=float, default=None, help="seconds per task solve (default: none)")
-    p.add_argument("--iteration-limit", type=int, default=None, metavar="N",
+    p.add_argument("--tol", type=positive_number, default=1e-9, help="optimality tolerance (default: %(default)g)")
+    p.add_argument("--time-limit", type=positive_number, default=None, help="seconds per task solve (default: none)")
+    p.add_argument("--iteration-limit", type=positive, default=None, metavar="N",
                    help="iterations per task solve (default: the method's own)")
     p.add_argument("--fallback", default="auto", metavar="METHOD",
                    help="method for tasks the primary leaves non-optimal: auto, none, a method "
@@ -49,27 +59,29 @@ def register(sub):
     g.add_argument("--dates", metavar="N|FIRST:LAST",
                    help="N dates from --start, or FIRST:LAST inclusive ISO dates, e.g. 2027-01-01:2027-12-31 "
                         "(default: one date, --start)")
-    old_name(g, "--days", new="--dates N", dest="days", type=int, metavar="N")
+    old_name(g, "--days", new="--dates N", dest="days", type=positive, metavar="N")
     g.add_argument("--start", help="first date of --dates N (default: today, UTC)")
     g.add_argument("--variation-seed", type=int, default=0,
                    help="seed of the per-date demand variation (default: %(default)s)")
-    g.add_argument("--variation-sigma", type=float, default=0.10,
+    g.add_argument("--variation-sigma", type=number(0.0), default=0.10,
                    help="per-product lognormal sigma of the daily variation (default: %(default)s)")
-    g.add_argument("--seasonal", type=float, default=0.15, help="seasonal amplitude (default: %(default)s)")
+    g.add_argument("--seasonal", type=number(0.0, maximum=1.0, below=True), default=0.15,
+                   help="seasonal amplitude, in [0, 1) (default: %(default)s)")
     c = p.add_argument_group("cluster")
     c.add_argument("--scheduler", help="address of an existing Dask scheduler (OUT must be visible to its "
                                        "workers; default: an embedded cluster)")
-    c.add_argument("--workers", type=int, help="worker processes of the embedded cluster (default: one per core)")
-    c.add_argument("--retries", type=int, default=2, help="retries of a task that raised (default: %(default)s)")
-    c.add_argument("--dashboard", type=int, metavar="PORT",
+    c.add_argument("--workers", type=positive, help="worker processes of the embedded cluster (default: one per core)")
+    c.add_argument("--retries", type=count, default=2, help="retries of a task that raised (default: %(default)s)")
+    c.add_argument("--dashboard", type=port, metavar="PORT",
                    help="serve the Dask dashboard of the embedded cluster on 127.0.0.1:PORT (0: any free "
                         "port; default: no dashboard)")
     p.add_argument("--warm-start", dest="warm_start_from", metavar="DIR",
                    help="an earlier run's OUT folder: each task starts from the bid prices of the same key "
                         "there, as solve --warm-start does from one result (default: cold starts)")
     old_name(p, "--warm-start-from", new="--warm-start", dest="warm_start_from", metavar="DIR")
-    p.add_argument("--window", help="optimization window with its unit, e.g. 2h, 90m, 5400s (for the progress "
-                                    "bar and summary; default: none)")
+    p.add_argument("--window", type=duration,
+                   help="optimization window with its unit, e.g. 2h, 90m, 5400s (for the progress "
+                        "bar and summary; default: none)")
     p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.set_defaults(func=run)
 
@@ -86,17 +98,29 @@ def run(args) -> int:
         logging.getLogger(name).setLevel(logging.INFO if getattr(args, "verbose", False) else logging.ERROR)
     from ..options import SolverOptions
     from ..production.batch import DateVariation, build_batch
-    from ..registry import DEFAULT_METHOD
-    from ..production.durations import format_duration, parse_duration
+    from ..production.durations import format_duration
+    from ..production.fallback import Fallback, parse as parse_fallback
     from ..production.lock import RunLockedError
     from ..production.runner import OutputFolderError, RunConfig, run_batch
     from ..production.signals import terminate_as_interrupt
 
-    window = parse_duration(args.window, "--window") if args.window else None
+    from ..paths import output_folder
+    from ._options import check_method, existing_folder, method_or_default
+
+    window = args.window
+    output_folder(args.out, "--out")               # before anything starts: exit 2, the path named
+    method = method_or_default(args.method, args.model)
+    check_method(method, args.model)
+    fallback = parse_fallback(args.fallback)
+    if isinstance(fallback, Fallback):
+        check_method(fallback.method, args.model, "--fallback")
+    if args.scheduler is not None:
+        _check_scheduler(args.scheduler)
+    if args.warm_start_from is not None:
+        existing_folder(args.warm_start_from, "--warm-start")
     dates = run_dates(args)
-    method = args.method or DEFAULT_METHOD[args.model]
     variation = DateVariation(seed=args.variation_seed, sigma=args.variation_sigma, seasonal=args.seasonal)
-    batch = build_batch(args.batch, dates, variation)
+    batch = build_batch(args.batch, dates, variation, demand=args.demand)
     options = SolverOptions(tol=args.tol, time_limit=args.time_limit, iteration_limit=args.iteration_limit,
                             threads=1)
     cfg = RunConfig(model=args.model, method=method, options=options, out=args.out,
@@ -148,6 +172,9 @@ def run(args) -> int:
              if window else ""))
     if t.get("fallback_used"):
         print(f"fallback ({args.fallback}) published the bid prices of {t['fallback_used']} task(s)")
+    if s.get("signal_after_last_task"):
+        print(f"decomp run: {s['signal_after_last_task']} arrived after the last task had finished; the run "
+              f"is complete and its summary written", file=sys.stderr)
     if s.get("stopped"):
         print(f"decomp run: STOPPED: {s['stopped']}; {t['ok']} finished task(s) kept; rerun with the same "
               f"arguments once the folder can be written", file=sys.stderr)
@@ -163,6 +190,27 @@ def run(args) -> int:
         return 1
     print(f"summary: {cfg.out}/summary.md, {cfg.out}/summary.json")
     return 0 if t["ok"] == t["n_tasks"] else 1
+
+
+def _check_scheduler(address: str) -> None:
+    """An external scheduler's address: not empty; without TLS, a warning (anyone who can reach a
+    plain tcp:// scheduler can run code on its workers; see the README, Reliability)."""
+    from ..errors import ConfigError
+
+    if not address.strip():
+        raise ConfigError("--scheduler is empty: give the address of a running Dask scheduler, "
+                          "or leave --scheduler out for the embedded cluster")
+    if not address.startswith("tls://"):
+        print(f"decomp: warning: --scheduler {address}: not a tls:// address; whoever can reach it can run "
+              f"code on its workers. Use TLS with credentials (README, Reliability)", file=sys.stderr)
+        return
+    from distributed.security import Security
+
+    sec = Security()                               # what Dask's configuration gives the client
+    if not (sec.tls_ca_file and sec.tls_client_cert and sec.tls_client_key):
+        raise ConfigError(f"--scheduler {address}: a TLS scheduler needs the client's credentials in Dask's "
+                          f"configuration (distributed.comm.tls.ca-file, .client.cert, .client.key; e.g. "
+                          f"DASK_DISTRIBUTED__COMM__TLS__CA_FILE); see the README, Reliability")
 
 
 def run_dates(args) -> list:

@@ -47,9 +47,18 @@ import re
 import sys
 
 from . import _progress
+from ._options import count, number, positive, positive_number
 
 
-def _floats(text: str, what: str) -> list:
+#: Default policies of a network without markets, and of one with markets (customer choice).
+INDEPENDENT_POLICIES = "pnlp:lagrangian:1e-9,dlp:highs,fcfs"
+CHOICE_POLICIES = "sblp:lagrangian,dlp:highs,pnlp:lagrangian,fcfs"
+
+
+def _floats(text: str, what: str, low: float, above: bool = False) -> list:
+    """Comma-separated finite numbers, each >= low (> low with ``above``); errors name ``what``."""
+    import math
+
     from ..simulation.errors import SimulationConfigError
 
     try:
@@ -58,6 +67,10 @@ def _floats(text: str, what: str) -> list:
         raise SimulationConfigError(f"{what}: expected comma-separated numbers, got {text!r}") from exc
     if not vals:
         raise SimulationConfigError(f"{what}: no value given")
+    for v in vals:
+        if not math.isfinite(v) or (v <= low if above else v < low):
+            raise SimulationConfigError(f"{what}: every value must be a finite number {'>' if above else '>='} "
+                                        f"{low:g}, got {v:g}")
     return vals
 
 
@@ -69,53 +82,38 @@ def register(sub):
     p._negative_number_matcher = re.compile(r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(,[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)*$")
     p.add_argument("instance", help="instance folder, or a ladder rung name (p1k, p10k, ...)")
     p.add_argument("--policies", default=None,
-                   help="comma-separated policy specifications (default: pnlp:lagrangian:1e-9,dlp:highs,fcfs; on "
-                        "networks with markets sblp:lagrangian,dlp:highs,pnlp:lagrangian,fcfs)")
-    p.add_argument("--reestimate", type=int, default=0, metavar="CYCLES",
+                   help=f"comma-separated policy specifications (default: {INDEPENDENT_POLICIES}; on networks with "
+                        f"markets {CHOICE_POLICIES})")
+    p.add_argument("--reestimate", type=count, default=0, metavar="CYCLES",
                    help="networks with markets: re-estimate each independent-demand forecast from its own sales "
                         "for CYCLES seasons (spiral-down; default: 0, off)")
-    p.add_argument("--paths", type=int, default=200,
+    p.add_argument("--paths", type=positive, default=200,
                    help="sample paths (the maximum with --target-halfwidth; default: %(default)s)")
-    p.add_argument("--target-halfwidth", type=float, default=None,
+    p.add_argument("--target-halfwidth", type=positive_number, default=None,
                    help="add paths until every paired 95%% half-width (vs the first policy) is at most this "
                         "(default: off, run --paths)")
     p.add_argument("--reoptimize-every", default="7", help="days between re-optimizations, list allowed (default: 7)")
-    p.add_argument("--horizon", type=float, default=60.0, help="booking horizon in days (default: %(default)g)")
+    p.add_argument("--horizon", type=positive_number, default=60.0, help="booking horizon in days (default: %(default)g)")
     p.add_argument("--forecast-bias", default="0",
                    help="optimizer sees mean x (1 + B); list allowed, e.g. -0.2,0,0.2 (default: %(default)s)")
     p.add_argument("--sigma-factor", default="1", help="optimizer sees std x S; list allowed (default: %(default)s)")
-    p.add_argument("--bias-spread", type=float, default=0.0,
+    p.add_argument("--bias-spread", type=number(0.0), default=0.0,
                    help="per-product random bias B + spread x N(0,1), seeded (default: 0, aggregate)")
-    p.add_argument("--periods", type=int, default=200,
+    p.add_argument("--periods", type=positive, default=200,
                    help="booking periods of the table policies (dynamic:, relaxed:) (default: %(default)s)")
     p.add_argument("--fallback", default="auto", metavar="METHOD",
                    help="method that solves again a re-optimization the policy's method leaves non-optimal: "
                         "auto, none, a method name, or lagrangian:DUAL (newton, lbfgsb, subgradient); "
                         "as in decomp run (default: %(default)s)")
-    p.add_argument("--seed", type=int, default=0, help="seed of the sample paths (default: %(default)s)")
-    p.add_argument("--chunk", type=int, default=50, help="paths per task (default: %(default)s)")
+    p.add_argument("--seed", type=count, default=0, help="seed of the sample paths (default: %(default)s)")
+    p.add_argument("--chunk", type=positive, default=50, help="paths per task (default: %(default)s)")
     c = p.add_argument_group("cluster")
     c.add_argument("--scheduler", help="address of an existing Dask scheduler (default: an embedded cluster)")
-    c.add_argument("--workers", type=int, default=None,
+    c.add_argument("--workers", type=count, default=None,
                    help="worker processes of the embedded cluster (default: one per core; 0: in this process)")
-    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--out", required=True, help="output folder (required)")
     p.add_argument("--no-progress", action="store_true", help=_progress.HELP)
     p.set_defaults(func=run)
-
-
-def _load(name: str):
-    import pathlib
-
-    from .. import read_instance
-
-    if not pathlib.Path(name).exists():
-        try:
-            from ..ladder import RUNGS, load_rung
-        except ImportError:
-            RUNGS, load_rung = (), None
-        if name in RUNGS:
-            return load_rung(name)
-    return read_instance(name)
 
 
 def run(args) -> int:
@@ -127,29 +125,53 @@ def run(args) -> int:
     from ..simulation import ForecastError, SimulationConfig, parse_policies, simulate
     from ..simulation import report
     from ..simulation.cluster import open_client
+    from ..errors import UnknownMethodError
     from ..simulation.errors import SimulationConfigError
+    from .solve import _load
 
-    if args.workers is not None and args.workers < 0:
-        raise SimulationConfigError(f"--workers must be >= 0, got {args.workers}")
-    every = _floats(args.reoptimize_every, "--reoptimize-every")
-    biases = _floats(args.forecast_bias, "--forecast-bias")
-    sigmas = _floats(args.sigma_factor, "--sigma-factor")
+    from ..paths import output_folder, refusing
+
+    output_folder(args.out, "--out")               # before anything is simulated: exit 2, the path named
+    every = _floats(args.reoptimize_every, "--reoptimize-every", 0.0, above=True)
+    biases = _floats(args.forecast_bias, "--forecast-bias", -1.0, above=True)
+    sigmas = _floats(args.sigma_factor, "--sigma-factor", 0.0)
     errors = [ForecastError(bias=b, sigma_factor=s, spread=args.bias_spread) for b in biases for s in sigmas]
-    if args.periods < 1:
-        raise SimulationConfigError(f"--periods must be a positive integer, got {args.periods}")
     from ..production import fallback
 
+    fb = fallback.parse(args.fallback)
+    if isinstance(fb, fallback.Fallback):
+        from ._options import check_method
+
+        for model in ("dlp", "pnlp"):              # a fallback serves the policies' models
+            try:
+                check_method(fb.method, model, "--fallback")
+                break
+            except UnknownMethodError:
+                if model == "pnlp":
+                    raise
     instance = _load(args.instance)
     if instance.markets is not None:
-        return _choice(args, instance, every, errors)
+        return _choice(args, instance, every, errors, fb)
     if args.reestimate:
         raise SimulationConfigError("--reestimate needs a network with markets (customer choice)")
-    policies = parse_policies(args.policies or "pnlp:lagrangian:1e-9,dlp:highs,fcfs", periods=args.periods,
-                              fallback=fallback.parse(args.fallback))
+    text = args.policies if args.policies is not None else INDEPENDENT_POLICIES
+    try:
+        policies = parse_policies(text, periods=args.periods, fallback=fb)
+    except (SimulationConfigError, UnknownMethodError) as exc:
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
     cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
                            forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
                            chunk=args.chunk)
-    cfg.check(instance)
+    try:
+        cfg.check(instance)
+    except (SimulationConfigError, UnknownMethodError) as exc:
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
+    if args.workers == 0 and args.scheduler is None:
+        print("decomp simulate: --workers 0: the paths run in this process (no Dask cluster)", file=sys.stderr)
+    elif args.scheduler is not None:
+        from .run import _check_scheduler
+
+        _check_scheduler(args.scheduler)
 
     bar = {}
     show_bar = _progress.wanted(args)
@@ -174,7 +196,8 @@ def run(args) -> int:
         if "b" in bar:
             bar["b"].close()
     summary = result.summary()
-    files = report.write(summary, args.out)
+    with refusing(args.out):
+        files = report.write(summary, args.out)
     print("\n".join(report.header_lines(summary)))
     print()
     print(report.text_table(summary))
@@ -187,10 +210,12 @@ def run(args) -> int:
     return 0
 
 
-def _choice(args, instance, every, errors) -> int:
+def _choice(args, instance, every, errors, fb) -> int:
     """The simulation with customer choice (decomp.choice.simulation) and, with --reestimate, the spiral loop."""
     from ..choice import report, simulation, spiral
-    from ..production import fallback
+    from ..errors import UnknownMethodError
+    from ..paths import refusing
+    from ..registry import get_method
     from ..simulation.errors import SimulationConfigError
 
     unused = [flag for flag, given in (
@@ -202,13 +227,20 @@ def _choice(args, instance, every, errors) -> int:
     if unused:
         raise SimulationConfigError(f"{', '.join(unused)}: not used on a network with markets (customer choice); "
                                     "leave them out")
-    if args.reestimate < 0:
-        raise SimulationConfigError(f"--reestimate must be >= 0, got {args.reestimate}")
+    if args.paths < 2:
+        raise SimulationConfigError(f"--paths {args.paths}: the choice simulation needs at least 2 paths (for its "
+                                    "paired intervals)")
+    text = args.policies if args.policies is not None else CHOICE_POLICIES
+    try:
+        policies = simulation.parse_policies(text, fb)
+        for pol in policies:
+            if pol.model is not None:                 # priced by a solve: the method must solve its model
+                get_method(pol.method, pol.model)
+    except (SimulationConfigError, UnknownMethodError) as exc:
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
     every_days = every[0] if every[0] < args.horizon else None
-    cfg = simulation.ChoiceSimConfig(policies=args.policies or "sblp:lagrangian,dlp:highs,pnlp:lagrangian,fcfs",
-                                     paths=args.paths, seed=args.seed, horizon=args.horizon,
-                                     reoptimize_every=every_days, chunk=args.chunk,
-                                     fallback=fallback.parse(args.fallback))
+    cfg = simulation.ChoiceSimConfig(policies=policies, paths=args.paths, seed=args.seed, horizon=args.horizon,
+                                     reoptimize_every=every_days, chunk=args.chunk, fallback=fb)
     result = simulation.simulate(instance, cfg)
     summary = result.summary()
     spirals = {}
@@ -217,7 +249,8 @@ def _choice(args, instance, every, errors) -> int:
             cycles = spiral.run(instance, pol, args.reestimate, args.paths, seed=args.seed,
                                 reoptimize_every=every_days, horizon=args.horizon, bound=result.bound)
             spirals[pol.label] = [c.to_dict() for c in cycles]
-    files = report.write(args.out, summary, spirals)
+    with refusing(args.out):
+        files = report.write(args.out, summary, spirals)
     print(report.text(summary, spirals))
     for f in files:
         print(f"wrote {f}")

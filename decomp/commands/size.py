@@ -16,6 +16,8 @@ more (from --fit-min-products, 1,000 by default); fewer is an error (exit 2).
 
 from __future__ import annotations
 
+from ._options import count, duration, number, positive, positive_number
+
 
 def register(sub):
     p = sub.add_parser("size", help="project a production run's wall time against the window", description=__doc__)
@@ -24,8 +26,8 @@ def register(sub):
     p.add_argument("--dates", type=_dates, default=365, metavar="N|FIRST:LAST",
                    help="departure dates: a count, or FIRST:LAST inclusive ISO dates as for decomp run "
                         "(default: %(default)s)")
-    p.add_argument("--products", type=int, metavar="P", help="products per network (no default: give it or --instances)")
-    p.add_argument("--networks", type=int, default=1, metavar="N", help="networks per date (default: %(default)s)")
+    p.add_argument("--products", type=positive, metavar="P", help="products per network (no default: give it or --instances)")
+    p.add_argument("--networks", type=positive, default=1, metavar="N", help="networks per date (default: %(default)s)")
     p.add_argument("--instances", metavar="DIR",
                    help="folder of instance folders (sizes read from it), each solved once per date "
                         "(default: --products)")
@@ -33,24 +35,24 @@ def register(sub):
     p.add_argument("--method", default=None,
                    help="method of --model (default: lagrangian for pnlp, highs for dlp and pwl)")
     p.add_argument("--variant", help="benchmark label to use (e.g. lagrangian-lbfgsb); default: the method's default")
-    p.add_argument("--tol", type=float, default=1e-9, help="tolerance of the run (default: %(default)g)")
-    p.add_argument("--fit-min-products", type=int, default=1000, metavar="N",
+    p.add_argument("--tol", type=positive_number, default=1e-9, help="tolerance of the run (default: %(default)g)")
+    p.add_argument("--fit-min-products", type=count, default=1000, metavar="N",
                    help="fit only benchmark cases of at least N products: small ones carry fixed costs that "
                         "bend the curve (default: %(default)s; 0 fits every case)")
-    p.add_argument("--workers", type=int, default=None, metavar="W",
+    p.add_argument("--workers", type=positive, default=None, metavar="W",
                    help="workers of the production run (default: one per core of this machine, as decomp run)")
-    p.add_argument("--window", required=True,
+    p.add_argument("--window", type=duration, required=True,
                    help="optimization window with its unit, e.g. 2h, 90m, 180s (a bare number is refused)")
-    p.add_argument("--overhead", type=float, metavar="S",
+    p.add_argument("--overhead", type=number(0.0), metavar="S",
                    help="seconds per task beyond the solve (default: from --run-summary, else 0)")
-    p.add_argument("--startup", type=float, metavar="S",
+    p.add_argument("--startup", type=number(0.0), metavar="S",
                    help="seconds to start the cluster (default: from --run-summary, else 0)")
     p.add_argument("--run-summary", metavar="FILE",
                    help="a decomp run summary.json to take the overhead from (default: none)")
     p.add_argument("--calibrate", action="store_true",
                    help="scale the benchmark fit by the solve times measured in --run-summary (a pilot run "
                         "of the same method and tolerance on the production machine; default: off)")
-    p.add_argument("--revenue-loss", type=float, metavar="X",
+    p.add_argument("--revenue-loss", type=number(0.0, above=True), metavar="X",
                    help="also answer the loosest benchmarked tolerance whose relative revenue loss is within X "
                         "(e.g. 0.001), upper end of its 95%% interval included, at the largest priced rung, from "
                         "a 'decomp bench --revenue-paths N' run (default: not asked)")
@@ -95,9 +97,11 @@ def run(args) -> int:
 
     from .. import atomic
     from ..production import sizing
-    from ..production.durations import parse_duration
 
-    window = parse_duration(args.window, "--window")
+    from ..paths import output_folder, refusing
+
+    output_folder(args.out, "--out")               # before anything is fitted: exit 2, the path named
+    window = args.window
     overhead, startup, source = 0.0, 0.0, "none given (0 s)"
     if args.run_summary:
         overhead, startup = sizing.read_run_overhead(args.run_summary)
@@ -116,9 +120,9 @@ def run(args) -> int:
     workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
     cases = sizing.load_bench(args.bench)
     sizes = sizing.task_sizes(args.dates, args.products, args.networks, args.instances)
-    from ..registry import DEFAULT_METHOD
+    from ._options import method_or_default
 
-    method = args.method or DEFAULT_METHOD[args.model]
+    method = method_or_default(args.method, args.model)
     s = sizing.size_run(cases, model=args.model, method=method, tol=args.tol, task_products=sizes,
                         workers=workers, window=window, overhead=overhead, startup=startup,
                         variant=args.variant, fit_min_products=args.fit_min_products, calibration=calibration,
@@ -127,7 +131,8 @@ def run(args) -> int:
     r, f = s["result"], s["result"]["fit"]
     out = pathlib.Path(args.out)
     atomic.write_json(out / "sizing.json", s)
-    sizing.plot(s, out / "sizing.png")
+    with refusing(out / "sizing.png"):
+        sizing.plot(s, out / "sizing.png")
     if s.get("calibration") and s["calibration"]["warning"]:
         print(f"decomp size: warning: {s['calibration']['warning']}", file=sys.stderr)
     if args.json:

@@ -29,6 +29,7 @@ import sys
 
 import numpy as np
 
+from ._options import positive, positive_number
 from ._vocabulary import old_name
 
 #: Methods that use --warm-start (the others would ignore it, so it is refused for them).
@@ -45,12 +46,12 @@ def register(sub):
     p.add_argument("--method", default=None, metavar="NAME",
                    help="highs, pyomo-highs (dlp, pwl, sblp); ipopt, pyomo-ipopt (pnlp); lagrangian (pnlp, sblp) "
                         f"(default: {_defaults_text()})")
-    p.add_argument("--tol", type=float, metavar="T", help="solver tolerance (default: 1e-9)")
-    p.add_argument("--time-limit", type=float, metavar="S",
+    p.add_argument("--tol", type=positive_number, metavar="T", help="solver tolerance (default: 1e-9)")
+    p.add_argument("--time-limit", type=positive_number, metavar="S",
                    help="wall-clock limit of the solve in seconds (default: none)")
-    p.add_argument("--iteration-limit", type=int, metavar="N",
+    p.add_argument("--iteration-limit", type=positive, metavar="N",
                    help="iteration limit (default: the method's own)")
-    p.add_argument("--segments", type=int, metavar="K",
+    p.add_argument("--segments", type=positive, metavar="K",
                    help="segments per product of the pwl model (default: 16; pwl only)")
     p.add_argument("--warm-start", metavar="RESULT",
                    help="start from earlier bid prices: a result JSON of decomp solve, a decomp run task "
@@ -78,6 +79,8 @@ def _load(spec):
     from ..errors import InstanceError
     from ..io import read_instance
 
+    if not str(spec).strip():
+        raise InstanceError("INSTANCE is an empty path: name an instance folder or a ladder rung", file=repr(spec))
     path = pathlib.Path(spec)
     if path.exists():
         return read_instance(path)
@@ -151,9 +154,9 @@ def _leg_lines(instance, result) -> list:
 
 def _method(args) -> str:
     """The method named, or the model's default."""
-    from ..registry import DEFAULT_METHOD
+    from ._options import method_or_default
 
-    return args.method or DEFAULT_METHOD[args.model]
+    return method_or_default(args.method, args.model)
 
 
 def _options(args):
@@ -161,6 +164,9 @@ def _options(args):
     from ..errors import ConfigError
     from ..options import SolverOptions
 
+    from ._options import check_method
+
+    check_method(_method(args), args.model)
     if args.segments is not None and args.model != "pwl":
         raise ConfigError(f"--segments applies to the pwl model only, not {args.model}")
     if args.warm_start and _method(args) not in WARM_START_METHODS:
@@ -172,20 +178,22 @@ def _options(args):
 
 
 def _check_outputs(args):
-    """Refuse bad output paths before the solve (a folder, a device, a wrong suffix)."""
-    from ..errors import InstanceError
+    """Refuse bad output paths before the solve (empty, a folder, a device, under a file, a wrong
+    suffix, two options naming one file): :class:`~decomp.errors.OutputPathError`, exit 2."""
+    from ..errors import OutputPathError
+    from ..paths import output_file
     from ..tables import check_table_path
 
-    if args.out not in (None, "-"):
-        out = pathlib.Path(args.out)
-        if out.exists() and not out.is_file():
-            raise InstanceError("--out exists and is not a regular file; not replacing it "
-                                "(use --out - for stdout)", file=out)
+    if args.out is not None:                       # without --out only the summary is printed
+        output_file(args.out, "--out", stdout=True)
     for flag, path in (("--leg-table", args.leg_table), ("--product-table", args.product_table)):
-        if path:
-            check_table_path(path)
+        if path is not None:
+            check_table_path(path, flag)
             if path == args.out:
-                raise InstanceError(f"{flag} and --out name the same file", file=path)
+                raise OutputPathError(f"{flag} and --out name the same file", path=path, option=flag)
+    if args.leg_table is not None and args.leg_table == args.product_table:
+        raise OutputPathError("--leg-table and --product-table name the same file", path=args.leg_table,
+                              option="--product-table")
 
 
 def run(args) -> int:
@@ -194,7 +202,7 @@ def run(args) -> int:
     from .. import solve as _solve
     from ..atomic import write_json
     from ..baseline import library_versions
-    from ..errors import SolverUnavailableError
+    from ..errors import EnvironmentRefusedError, SolverUnavailableError
     from ..result import read_bid_prices
     from ..tables import leg_table, product_table, write_table
 
@@ -227,9 +235,9 @@ def run(args) -> int:
             written.append(str(write_table(leg_table(instance, result), args.leg_table)))
         if args.product_table and result.allocation is not None:
             written.append(str(write_table(product_table(instance, result), args.product_table)))
-    except OSError as exc:      # a full disk or a read-only folder: say so, no traceback (atomic: nothing half-written)
-        print(f"decomp solve: error: cannot write {exc.filename or args.out}: {exc.strerror or exc} "
-              f"[Errno {exc.errno}]", file=sys.stderr)
+    except EnvironmentRefusedError as exc:   # a full disk, a read-only folder: the file it refused, and
+        print(f"decomp solve: error: {exc}" + (f" (written: {', '.join(written)})" if written else ""),
+              file=sys.stderr)               # what was written before it (atomic: nothing half-written)
         return 1
     print(summary(result, instance), file=human)
     if written:

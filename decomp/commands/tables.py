@@ -24,6 +24,8 @@ import argparse
 import logging
 import sys
 
+from ._options import positive
+
 log = logging.getLogger(__name__)
 
 
@@ -37,13 +39,13 @@ def register(sub):
                      help="solve this static model here (default: %(default)s)")
     p.add_argument("--method", default=None, metavar="NAME", help="method of --model (default: highs for dlp, "
                                                                    "lagrangian for pnlp)")
-    p.add_argument("--periods", type=int, default=200, help="booking periods (default: %(default)s)")
+    p.add_argument("--periods", type=positive, default=200, help="booking periods (default: %(default)s)")
     p.add_argument("--by", choices=("decomposition", "relaxation"), default="decomposition",
                    help="decomposition by leg from the static bid prices, or the Lagrangian relaxation "
                         "(default: %(default)s)")
-    p.add_argument("--threads", type=int, default=None, help="threads over legs (default: the CPUs available)")
+    p.add_argument("--threads", type=positive, default=None, help="threads over legs (default: the CPUs available)")
     p.add_argument("--out", required=True, metavar="TABLES.parquet",
-                   help="output file, .parquet or .csv (written atomically)")
+                   help="output file, .parquet or .csv (written atomically; required)")
     p.set_defaults(func=run)
 
 
@@ -64,9 +66,9 @@ def _static_bid_prices(args, instance):
             raise InstanceError("bid prices must be finite and >= 0", file=args.static, column="bid_prices")
         return pi, f"{args.static}", True
     from .. import solve
-    from ..registry import DEFAULT_METHOD
+    from ._options import method_or_default
 
-    method = args.method or DEFAULT_METHOD[args.model]
+    method = method_or_default(args.method, args.model)
     log.info("solving the static %s by %s on %s", args.model, method, instance.name)
     res = solve(instance, model=args.model, method=method)
     if res.bid_price_array is None:
@@ -87,13 +89,15 @@ def run(args) -> int:
     from ..tables import check_table_path
     from .solve import _load
 
-    if args.periods < 1:
-        print(f"decomp tables: error: --periods must be a positive integer, got {args.periods}", file=sys.stderr)
-        return 2
-    if args.threads is not None and args.threads < 1:
-        print(f"decomp tables: error: --threads must be >= 1, got {args.threads}", file=sys.stderr)
-        return 2
-    check_table_path(args.out)              # .parquet or .csv, refused before any work
+    from ._options import check_method, method_or_default
+
+    check_table_path(args.out, "--out")     # .parquet or .csv, a writable path: refused before any work, named
+    if args.static is None:
+        check_method(method_or_default(args.method, args.model), args.model)
+    elif args.method is not None:
+        from ..errors import ConfigError
+
+        raise ConfigError("--method chooses the solve of --model; with --static nothing is solved here: leave it out")
     instance = _load(args.instance)
     t0 = time.perf_counter()
     demand = from_arrival_curves(instance, args.periods)

@@ -2,39 +2,33 @@
 
 Relaxing A x <= c with bid prices pi >= 0 splits the PNLP into one newsvendor
 problem per product, max_{0 <= x_j <= u_j} f_j S_j(x_j) - a_j x_j with
-a_j = (A^T pi)_j, solved in closed form (:mod:`decomp.distributions`). The
-dual q(pi) = sum_j h_j(a_j) + c.pi is convex, an upper bound on the optimum
-for every pi >= 0, and its minimum equals the PNLP optimum (strong duality
-for a concave program with linear constraints).
+a_j = (A^T pi)_j, solved in closed form or by a table lookup
+(:mod:`decomp.distributions`). The dual q(pi) = sum_j h_j(a_j) + c.pi is convex,
+an upper bound on the optimum for every pi >= 0, and its minimum equals the PNLP
+optimum (strong duality for a concave program with linear constraints).
 
-The dual is minimized over pi >= 0 by projected Newton with an epsilon-active
-set and Armijo's rule along the projection arc (Bertsekas 1982), which
-converges on the bound-constrained problem: slack legs reach bid price 0
-exactly. Products whose terms have kinks are handled by smoothing with a
-proven continuation. Each iterate's exact dual value is an upper bound and a
-recovered feasible allocation's exact revenue a lower bound; the method
-stops when their certified gap is within tol.
-
-Where projected Newton has not certified after INTERIOR_AFTER iterations and no
-product has discrete demand, a primal-dual interior-point method on the PNLP
-itself takes over (:mod:`.interior`), with the same certificate: on low-CV
-demand a product's dual term is nearly a kink and Newton creeps, while the
-primal term is merely nearly linear.
+The dual is minimized over pi >= 0 by projected Newton with an epsilon-active set
+and Armijo's rule along the projection arc (Bertsekas 1982). Smooth terms (normal
+and gamma demand) are exact; the piecewise-linear ones (discrete demand, known
+demand, and the leading linear piece of low-CV products: their "kinks") are
+smoothed in log(a), less and less, until the bid prices say which kinks can still
+matter. Then a restricted problem that fixes the others is solved exactly by a
+primal-dual interior-point method, and every fixed kink is checked at its bid
+prices (column generation). Each iterate's exact dual value is an upper bound and
+a recovered feasible allocation's exact revenue a lower bound; the method stops
+when their certified gap is within tol.
 
 Modules, in the order of the algorithm:
 
-- :mod:`.network`: live legs and products, groups by leg tuple, the bounded
-  subproblems and the dual's value, gradient and curvature;
+- :mod:`.network`: live legs and products, groups by leg tuple, the dual's value,
+  gradient and curvature;
 - :mod:`.hessian`: the reduced Hessian's pattern and factorization;
 - :mod:`.newton`: the projected Newton step and the arc search;
-- :mod:`.smoothing`: the continuation for non-smooth products;
-- :mod:`.recovery`: a feasible allocation and its exact revenue;
-- :mod:`.polish`: near the optimum, an LP that splits capacity among the
-  undetermined linear segments (an exact primal completion);
-- :mod:`.crossover`: the bid prices that allocation asks for (its optimality
-  conditions as an LP), another exact upper bound;
-- :mod:`.loop`: the iteration and its stopping test, and the handover;
-- :mod:`.interior`: the interior-point method on the primal, same leg system;
+- :mod:`.continuation`: the smoothing level of the kinks;
+- :mod:`.recovery`: a feasible allocation and its revenue;
+- :mod:`.master`: the restricted problem and the pricing of its fixed kinks;
+- :mod:`.interior`: the primal-dual interior-point method on it;
+- :mod:`.loop`: the two phases, their stopping test and status table;
 - :mod:`.alternatives`: L-BFGS-B and projected subgradient on the same dual;
 - :mod:`.prices`: starting points, warm starts, exact zeros, closed legs.
 """
@@ -54,6 +48,8 @@ from .prices import FLOOR, fare_start, price_closed_legs, snap_zeros, warm_price
 
 #: Default iteration limits per dual method.
 ITERATION_LIMITS = {"newton": 200, "lbfgsb": 5000, "subgradient": 5000}
+#: The kinks' first smoothing level from a warm start (its bid prices are close already).
+WARM_THETA = 0.03
 
 
 def _reported_prices(net, out, x_live, fare_max, floor, tol):
@@ -102,7 +98,8 @@ def solve_dual(instance, tol, dual_method="newton", iteration_limit=None, time_l
     limit = iteration_limit or ITERATION_LIMITS[dual_method]
     deadline = None if time_limit is None else t0 + time_limit
     if dual_method == "newton":
-        out = run(net, system, pi0, tol, limit, deadline, t1, floor)
+        theta = WARM_THETA if warm_start is not None else None
+        out = run(net, system, pi0, tol, limit, deadline, t1, floor, theta)
     elif dual_method == "lbfgsb":
         out = run_lbfgsb(net, pi0, tol, limit, deadline, t1, floor)
     else:

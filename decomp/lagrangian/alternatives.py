@@ -14,7 +14,7 @@ import time
 import numpy as np
 
 from ..result import Termination
-from .loop import Certified, Outcome, _record
+from .loop import Bounds, Outcome, record
 from .recovery import recover
 
 log = logging.getLogger(__name__)
@@ -46,7 +46,7 @@ class _Stop(Exception):
 def run_lbfgsb(net, pi0, tol, limit, deadline, t0, floor) -> Outcome:
     from scipy.optimize import minimize
 
-    best = Certified()
+    best = Bounds()
     history = []
     state = {"last": None, "stop": None}
 
@@ -62,7 +62,7 @@ def run_lbfgsb(net, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             pt = net.evaluate(p)
         best.offer_dual(pt)
         best.offer_primal(*recover(net, pt))
-        history.append(_record(len(history) + 1, pt, best, 1.0, t0))
+        history.append(record(len(history) + 1, best, pt.pi, 1.0, t0))
         if best.gap <= tol:
             state["stop"] = Termination.OPTIMAL
             raise StopIteration
@@ -82,7 +82,7 @@ def run_lbfgsb(net, pi0, tol, limit, deadline, t0, floor) -> Outcome:
 
 
 def run_subgradient(net, pi0, tol, limit, deadline, t0, floor) -> Outcome:
-    best = Certified()
+    best = Bounds()
     history = []
     pt = net.evaluate(np.maximum(pi0, floor))
     term, raw = Termination.ITERATION_LIMIT, "iteration_limit"
@@ -97,7 +97,7 @@ def run_subgradient(net, pi0, tol, limit, deadline, t0, floor) -> Outcome:
             stall += 1
             if stall >= 20:                     # halve Polyak's factor when the dual stalls
                 lam, stall = 0.5 * lam, 0
-        history.append(_record(it, pt, best, lam, t0))
+        history.append(record(it, best, pt.pi, lam, t0))
         if best.gap <= tol:
             term, raw = Termination.OPTIMAL, "optimal"
             break

@@ -20,8 +20,9 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 from scipy.linalg import blas
 
-#: Attempts with a growing ridge when a factorization fails.
-_RIDGES = (1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0)
+#: Attempts with a growing ridge when a factorization fails (the first: the caller's own
+#: lam, which may be 0, as the interior-point method needs its system exactly).
+_RIDGES = (0.0, 1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0)
 
 
 class LegSystem:

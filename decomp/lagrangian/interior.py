@@ -1,215 +1,439 @@
-"""A primal-dual interior-point method on the PNLP itself, for networks whose products
-are all smooth (normal or gamma demand) or deterministic.
+"""A primal-dual interior-point method on a restricted problem (:mod:`.master`).
 
-    max  sum_j f_j S_j(x_j)   s.t.   A x <= c,   0 <= x <= u
+The master's variables are the smooth parts v_j of products (v_j = x_j - offset_j in
+[0, u_j - offset_j], revenue f_j S_j(offset_j + v_j)) and free kinks y_k in [0, w_k]
+(revenue r_k y_k); the fixed kinks are constants and have reduced the capacities to c'.
+With the slack s = c' - A X (X the variables summed per product), the barrier problem
+at level mu,
 
-The barrier problem at level mu (s = c - A x the slack),
+    min  -F(v, y) - mu sum (log v + log(u - v)) - mu sum (log y + log(w - y)) - mu sum log s,
 
-    min  phi(x) = -sum_j f_j S_j(x_j) - mu sum_j (log x_j + log(u_j - x_j)) - mu sum_i log s_i,
+is solved along the central path in two modes (the adaptive barrier strategy with a
+monotone safeguard of Nocedal, Waechter and Waltz 2009):
 
-is convex on the strictly feasible set. Each step is the primal-dual Newton direction
-(Wachter and Biegler 2006, without the filter: every iterate is strictly feasible, so
-the only measure is phi): it solves M dx = -grad phi with
+- free mode, Mehrotra's predictor-corrector (Mehrotra 1992): an affine-scaling predictor
+  gives sigma = (mu_aff / mu)^3, and the corrector aims at sigma mu with the predictor's
+  second-order terms, improved by Gondzio's centrality correctors (Gondzio 1996). A
+  master of smooth parts only takes one step length for primal and dual and stays in
+  the wide neighbourhood of the central path (long-step path following); with kinks,
+  primal and dual lengths are separate, as in linear programming;
+- monotone mode, entered when a free step is short (the iterate has lost the central
+  path: nearly kinked revenue, low-CV or gamma demand near its corner): Newton on the
+  barrier problem at a fixed level (Fiacco and McCormick) until that problem is solved,
+  then back to free mode. Damped Newton on the strictly convex barrier function
+  converges from any interior point, which the free mode alone does not promise.
 
-    M = diag(f p(x) + z / x + v / (u - x)) + A^T diag(y / s) A,
+Eliminating the variables leaves one system of leg size,
+with the dual Hessian's pattern (:class:`.hessian.LegSystem`),
 
-p the demand density and z, v, y the multipliers of the bounds and the capacities.
-M is positive definite, so dx is a descent direction, and the step is taken by
-Armijo's rule on phi within the fraction-to-the-boundary rule: on each barrier level
-this is damped Newton on a strictly convex function (it converges). mu falls by
-Fiacco and McCormick's monotone rule once the level's optimality error is below
-KAPPA_EPS mu. Eliminating dx leaves one system of leg size for the change dy of y,
+    (A D A^T + S / lambda) d_lambda = A D rho + targets / lambda - s,
+    D = (f p(x) + z / v + t / (u - v))^-1 per variable, summed per product,
 
-    (A D A^T + S Y^-1) dy = A D r - s + mu / y,
-    D = diag(f p(x) + z / x + v / (u - x))^-1,   r = f S'(x) + mu / x - mu / (u - x) - A^T y,
-
-then dx = D (r - A^T dy): the pattern of the dual's Hessian, which
-:class:`.hessian.LegSystem` already factors. The leg multipliers y are bid prices.
-
-Why a second method: where demand has a small CV, a product's term of the dual is
-nearly a kink (its fractile falls from m - 3 s to 0 within a tiny range of bid prices,
-and the dual's curvature spans a dozen decades across one Newton step), while in the
-primal that product is merely nearly linear on [0, m - 3 s]; the barrier treats that
-as it treats an LP. The loop (:mod:`.loop`) turns to it when projected Newton stalls.
-
-Every iterate is certified as the Newton loop's are: the exact dual q(y) is an upper
-bound and the (feasible) allocation's exact revenue a lower bound; the method stops
-when their gap is within tol.
+lambda the leg multipliers, i.e. the bid prices (in units of the largest fare).
+Every iterate is primal feasible (the slacks, and the distances to the upper bounds,
+are carried; steps keep them positive within the fraction-to-the-boundary rule), and
+where the master has smooth parts the primal step must decrease the barrier function
+at the target level (Armijo; the primal-dual direction is a descent direction of it
+because the eliminated matrix is positive definite), which globalizes the method on
+their nonlinear revenue. The certificate is the loop's: the exact dual q(lambda) over
+the whole problem and the exact revenue of the fixed seats plus the master's
+allocation.
 """
 
 from __future__ import annotations
 
+import dataclasses
+import logging
 import time
 
 import numpy as np
 
-from ..result import IterationRecord
-from .recovery import smallest_over_legs, within_capacity
+from .recovery import recover, smallest_over_legs, within_capacity
 
-#: The first barrier level (objective in units of the largest fare).
-MU_START = 1e-1
-#: Fiacco-McCormick: a level is done when its optimality error is below KAPPA_EPS mu;
-#: the next is min(KAPPA_MU mu, mu ^ THETA_MU). KAPPA_MU and THETA_MU are Ipopt's
-#: defaults; KAPPA_EPS is 100 rather than its 10, measured when chosen: generator-sweep
-#: draws 7, 25 and 81 took 85, 109 and 76 iterations instead of 98, 162 and 114.
-KAPPA_EPS, KAPPA_MU, THETA_MU = 100.0, 0.2, 1.5
-#: The bound multipliers stay within a factor KAPPA_SIGMA of mu / distance to the bound.
-KAPPA_SIGMA = 1e10
-#: The first iterate: x at the mean within [X_LOW, X_HIGH] of the bound, then scaled down
-#: so that every leg is at most FILL full.
-X_LOW, X_HIGH, FILL = 0.05, 0.5, 0.5
-#: The fraction of the distance to the boundary a step may go. Fixed: with Ipopt's
-#: max(0.99, 1 - mu) a tight leg's slack fell to 1e-12 in one step at mu = 2e-6 on
-#: generator draw 7, and the next directions were rounding (no descent).
+log = logging.getLogger(__name__)
+
+#: The first barrier level (objective in units of the largest fare, seats).
+MU_START = 1e-3
+#: The fraction of the distance to the boundary a step may go (at least; 1 - mu late on).
 TO_BOUNDARY = 0.995
-#: The certificate (an exact dual evaluation and an exact revenue, half of an iteration's
-#: work with gamma demand) is computed once the complementarity, the duality gap of a
-#: primal-dual feasible point, is within CERTIFY_WITHIN tol of the objective, and every
-#: CERTIFY_EVERY iterations before.
-CERTIFY_WITHIN, CERTIFY_EVERY = 1e3, 10
-#: Armijo's sufficient-decrease fraction and the backtracking factor.
+#: Gondzio's correctors: at most CORRECTORS of them, each aiming at a step STRETCH times
+#: (+0.1) the current one, the products kept within [BETA_LOW, BETA_HIGH] times the target,
+#: kept only if the step grows by GROWTH of the trial step.
+CORRECTORS, STRETCH, BETA_LOW, BETA_HIGH, GROWTH = 2, 2.0, 0.1, 10.0, 0.1
+#: Steps keep every complementarity product above NEIGHBOURHOOD times their average,
+#: shrinking both by NEIGHBOURHOOD_SHRINK at most NEIGHBOURHOOD_TRIES times.
+NEIGHBOURHOOD, NEIGHBOURHOOD_SHRINK, NEIGHBOURHOOD_TRIES = 1e-3, 0.8, 30
+#: Armijo's sufficient-decrease fraction and the backtracking factor (all-primal masters).
 ARMIJO, BACKTRACK = 1e-4, 0.5
+#: The start is scaled so that no leg is fuller than this (all-primal masters).
+FILL = 0.9
+#: A free (predictor-corrector) step shorter than POOR_STEP hands over to the monotone
+#: mode; that mode's barrier problem counts as solved when its optimality error is
+#: within KAPPA_EPS times the level (Ipopt's kappa_eps; Nocedal, Waechter and Waltz 2009
+#: safeguard the free mode the same way).
+POOR_STEP, KAPPA_EPS = 0.1, 10.0
+#: A solved monotone level is followed by one at most KAPPA_MU times it, or its power
+#: THETA_MU (Ipopt's kappa_mu and theta_mu).
+KAPPA_MU, THETA_MU = 0.2, 1.5
+#: The certificate (an exact dual evaluation over the whole problem and a feasible
+#: allocation's revenue) is computed at the first iteration and then at each once the
+#: complementarity is within CERTIFY_WITHIN tol of the objective.
+CERTIFY_WITHIN = 1e2
+#: The barrier level's floor: complementarity MU_FLOOR tol of the objective (summed).
+MU_FLOOR = 1e-2
+#: The master counts as solved when, besides its complementarity, its largest dual
+#: residual (a slope, in units of the largest fare) and its largest primal residual
+#: (relative to the capacity) are below this.
+RESIDUAL = 1e-11
 
 
-def applies(net) -> bool:
-    """Whether every product is smooth or deterministic (no discrete demand)."""
-    return net.n_products > 0 and not len(net.sub.i_dis)
+@dataclasses.dataclass
+class Variables:
+    """The master's primal variables, in the method's units."""
+
+    owner: np.ndarray     # product of each variable
+    group: np.ndarray     # its group
+    ub: np.ndarray        # upper bound (lower bound 0)
+    n_smooth: int         # the first n_smooth are smooth parts
+    offset: np.ndarray    # smooth parts: where they start (jump)
+    slope: np.ndarray     # kinks: r / fare_max
 
 
 class _Iterate:
-    """The iterate, in units where the largest fare is 1 (so y is bid price / fare_max)."""
+    """Primal variables v (with carried distances to their upper bounds), slacks s; bound
+    multipliers z, t; leg multipliers lambda."""
 
-    def __init__(self, net, y0, fare_max, mu):
-        sub = net.sub
-        self.net = net
-        self.fscale = sub.fare / fare_max
-        ub = net.upper.astype(np.float64).copy()
-        if len(sub.i_det):
-            ub[sub.i_det] = np.minimum(ub[sub.i_det], sub.t_m)
-        # a deterministic product with mean 0 keeps a sliver of room (it earns nothing)
-        self.ub = np.maximum(ub, 1e-9)
-        x = np.clip(np.maximum(sub.mean, 0.0), X_LOW * self.ub, X_HIGH * self.ub)
-        fill = np.minimum(1.0, FILL * net.cap / np.maximum(net.load(x), 1e-300))
-        self.x = x * net.to_products(smallest_over_legs(net, fill, np.ones(net.n, dtype=bool)))
-        self.s = net.cap - net.load(self.x)
-        self.y = np.maximum(y0 / fare_max, mu / self.s)
-        self.z = mu / self.x
-        self.v = mu / (self.ub - self.x)
+    def __init__(self, net, master, pi, fmax, mu):
+        self.net, self.fmax = net, fmax
+        self.capacity = master.capacity
+        k = net.products.kinks
+        owner = np.concatenate([master.smooth, master.kink_owner]).astype(np.int64)
+        ub = np.concatenate([net.upper[master.smooth] - master.offset, k.width[master.kink]])
+        self.var = var = Variables(owner=owner, group=net.group_of(owner), ub=np.maximum(ub, 1e-12),
+                                   n_smooth=len(master.smooth), offset=master.offset,
+                                   slope=k.slope[master.kink] / fmax)
+        self.smooth = master.smooth
+        lam = np.maximum(pi / fmax, 1e-12)
+        a = self.prices(lam)
+        n = var.n_smooth
+        self.part = net.products.smooth_part(self.smooth) if n else None
+        self._cache = None
+        v = np.empty(len(var.ub))
+        # kinks: centred at (lambda, mu), slope - a + mu/v - mu/(u - v) = 0
+        v[n:] = _centre(lambda _, k=var.slope: k, a[n:], var.ub[n:], mu)
+        if n:
+            # smooth parts start at their own responses to the bid prices (the fractile beyond
+            # the offset): where the curvature is steep the barrier's centre is far from there
+            # in the part's own scale, and the method would crawl back; closed ones (no
+            # response beyond the offset) are centred like the kinks
+            x = net.products.subset(self.smooth).respond(a[:n] * fmax).x - var.offset
+            v[:n] = x
+            closed = np.flatnonzero(~(x > 0))
+            if len(closed):
+                part = net.products.smooth_part(self.smooth[closed])
+                off = var.offset[closed]
+                v[closed] = _centre(lambda w: part.terms(off + w)[1] / fmax, a[closed], var.ub[closed], mu)
+        v = np.clip(v, 1e-9 * var.ub, (1.0 - 1e-9) * var.ub)
+        # primal feasible: scaled into the capacities
+        load = net.A_g @ self.per_group(v)
+        fill = np.minimum(1.0, FILL * self.capacity / np.maximum(load, 1e-300))
+        v = v * smallest_over_legs(net, fill, np.ones(net.n, dtype=bool))[var.group]
+        self.v = v
+        # the distances to the upper bounds and to the capacities are carried, not computed
+        # as u - v and c' - A X: near a bound those differences lose every digit
+        self.up = var.ub - v
+        self.s = self.capacity - net.A_g @ self.per_group(v)
+        self.lam = np.maximum(lam, mu / self.s)
+        self.z = mu / v
+        self.t = mu / self.up
+        self.residual = np.inf
+        self.infeasibility = np.inf
+        self.last_steps = (1.0, 1.0)
 
-    def derivatives(self):
-        """(f S'(x), f p(x)) in fare units."""
-        sub = self.net.sub
-        return self.fscale * sub.marginal_sales(self.x)[0], self.fscale * sub.sales_density(self.x)
+    def per_group(self, values):
+        return np.bincount(self.var.group, weights=values, minlength=self.net.G)
 
-    def barrier(self, x, s, mu):
-        if np.any(x <= 0) or np.any(x >= self.ub) or np.any(s <= 0):
-            return np.inf
-        revenue = self.fscale @ self.net.sub.expected_sales(x)
-        return float(-revenue - mu * (np.log(x).sum() + np.log(self.ub - x).sum() + np.log(s).sum()))
+    def prices(self, lam):
+        """a per variable: the sum of its product's leg multipliers."""
+        return (self.net.AT_g @ lam)[self.var.group]
+
+    def _terms(self, v):
+        """(f S, f S', -f S'') of the smooth parts at ``v`` (fare_max units), kept for the
+        last point asked: the line search's accepted trial is the next iterate."""
+        x = self.var.offset + v[:self.var.n_smooth]
+        if self._cache is None or not np.array_equal(self._cache[0], x):
+            self._cache = (x, *(t / self.fmax for t in self.part.terms(x)))
+        return self._cache[1:]
+
+    def slopes(self, v):
+        """(g, h): the revenue's slope and -curvature per variable (fare_max units)."""
+        var = self.var
+        n = var.n_smooth
+        g = np.empty(len(v))
+        h = np.zeros(len(v))
+        g[n:] = var.slope
+        if n:
+            _, g[:n], h[:n] = self._terms(v)
+        return g, h
+
+    def revenue(self, v):
+        """The master's revenue (fare_max units, up to a constant)."""
+        var = self.var
+        n = var.n_smooth
+        out = float(var.slope @ v[n:])
+        if n:
+            out += float(self._terms(v)[0].sum())
+        return out
+
+    def primal_residual(self):
+        return self.capacity - self.net.A_g @ self.per_group(self.v) - self.s
 
     def complementarity(self):
-        """x z + (u - x) v + s y, summed (fare units)."""
-        return float(self.x @ self.z + (self.ub - self.x) @ self.v + self.s @ self.y)
+        return float(self.v @ self.z + self.up @ self.t + self.s @ self.lam)
 
-    def dual_residual(self, g1):
-        """The largest |f S'(x) - A^T y + z - v| (fare units), independent of mu."""
-        net = self.net
-        rd = -g1 + net.to_products(net.AT_g @ self.y) - self.z + self.v
-        return float(np.abs(rd).max(initial=0.0))
-
-    def error(self, residual, mu):
-        """A barrier level's optimality error: the dual residual and the complementarity."""
-        return max(residual,
-                   float(np.abs(self.x * self.z - mu).max(initial=0.0)),
-                   float(np.abs((self.ub - self.x) * self.v - mu).max(initial=0.0)),
-                   float(np.abs(self.s * self.y - mu).max(initial=0.0)))
+    def allocation(self, master):
+        """Per product: the fixed seats plus the master's variables (a smooth part's seats
+        are v; its offset, the jump, is either fixed or a free kink of its own)."""
+        return master.fixed_x + np.bincount(self.var.owner, weights=self.v, minlength=len(master.fixed_x))
 
 
-def run_interior(net, system, tol, limit, deadline, t0, y0, fare_max, best):
-    """Iterate until ``best`` (a :class:`.loop.Certified`, offered every iterate) is within
-    tol; returns (termination word, iterations, history). ``y0``: starting bid prices."""
-    mu = MU_START
-    cur = _Iterate(net, y0, fare_max, mu)
-    held = np.zeros(net.n, dtype=bool)
-    history = []
-    step = 0.0
-    pairs = 2 * net.n_products + net.n
+def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration):
+    """The interior-point method on ``master`` from bid prices ``pi0``; every certified
+    iterate is offered to ``bounds``. Returns (termination word, iterations, pi, final
+    iterate)."""
+    from .loop import record
+
+    fmax = float(net.fare.max(initial=1.0))
+    if not master.size:
+        _certify(net, master, None, pi0, bounds)
+        return ("optimal" if bounds.gap <= tol else "master_solved"), 0, pi0, None
+    cur = _Iterate(net, master, pi0, fmax, MU_START)
+    pairs = 2 * len(cur.v) + net.n
+    certified = np.inf
+    level, next_level = None, np.inf
     for it in range(1, limit + 1):
-        if it % CERTIFY_EVERY == 1 or cur.complementarity() * fare_max <= CERTIFY_WITHIN * tol * _size(best):
-            _certify(net, cur, fare_max, best)
-        history.append(IterationRecord(iteration=it, dual_value=float(best.dual),
-                                       primal_value=float(best.primal), gap=_finite(best.gap),
-                                       step=float(step), pi_norm=float(np.linalg.norm(best.pi)),
-                                       seconds=time.perf_counter() - t0))
-        if best.gap <= tol:
-            return "optimal", it, history
+        comp = cur.complementarity()
+        if it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= 0.1 * certified):
+            _certify(net, master, cur, cur.lam * fmax, bounds)
+            certified = comp
+        history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
+        if bounds.gap <= tol:
+            return "optimal", it, cur.lam * fmax, cur
+        # the master is solved (its own duality gap far below tol, its residuals met): back
+        # to pricing
+        if (comp * fmax <= 2 * MU_FLOOR * tol * _size(bounds) and cur.residual <= RESIDUAL
+                and cur.infeasibility <= RESIDUAL):
+            _certify(net, master, cur, cur.lam * fmax, bounds, final=True, system=system)
+            return ("optimal" if bounds.gap <= tol else "master_solved"), it, cur.lam * fmax, cur
         if deadline is not None and time.perf_counter() > deadline:
-            return "time_limit", it, history
-        g1, h = cur.derivatives()
-        # the barrier's duality gap is about pairs * mu (fare units): the last level keeps
-        # it at a tenth of tol, in the certificate's relative measure
-        mu_floor = 0.1 * tol * _size(best) / (pairs * fare_max)
-        residual = cur.dual_residual(g1)
-        while mu > mu_floor and cur.error(residual, mu) <= KAPPA_EPS * mu:
-            mu = max(mu_floor, min(KAPPA_MU * mu, mu ** THETA_MU))
-        d = _direction(net, system, cur, g1, h, mu, held)
-        if d is None:
-            return "numerical_error", it, history
-        step = _take_step(cur, d, g1, mu)
-        if step == 0.0:
-            return "numerical_error", it, history
-    return "iteration_limit", limit, history
+            return "time_limit", it, cur.lam * fmax, cur
+        mu = comp / pairs
+        # the barrier level need not fall below what tol asks of the complementarity: below
+        # that the slacks would sink to the rounding of the loads and block the steps
+        mu_min = MU_FLOOR * tol * _size(bounds) / (pairs * fmax)
+        if level is None:
+            # free mode: Mehrotra's predictor-corrector; a poor step (or none) hands over to
+            # the monotone mode at the current level, or at the next one if lower
+            if not _step(net, system, cur, mu, mu_min) or min(cur.last_steps) < POOR_STEP:
+                level = max(min(mu, next_level), mu_min)
+            continue
+        # monotone mode: Newton on the barrier problem at a fixed level until it is solved
+        # (its optimality error within KAPPA_EPS of the level); then back to free mode, the
+        # next monotone level lower by KAPPA_MU (or to the power THETA_MU), so that the
+        # levels fall however the modes alternate
+        taken, error = _barrier_step(net, system, cur, level)
+        if not taken:
+            _certify(net, master, cur, cur.lam * fmax, bounds, final=True, system=system)
+            return ("optimal" if bounds.gap <= tol else "numerical_error"), it, cur.lam * fmax, cur
+        if error <= KAPPA_EPS * level:
+            next_level = min(KAPPA_MU * level, level ** THETA_MU)
+            level = None
+    return "iteration_limit", limit, cur.lam * fmax, cur
 
 
-def _direction(net, system, cur, g1, h, mu, held):
-    """(dx, dy, dz, dv): the primal-dual Newton direction at barrier level mu. The leg
-    system is solved for the change dy (its right-hand side is a residual, small near
-    the level's solution), not for y + dy: near a tight leg's bound mu / s is large and
-    dx = D (r - A^T (y + dy)) would be the difference of two large numbers."""
-    x, ub, s, y = cur.x, cur.ub, cur.s, cur.y
-    D = 1.0 / (h + cur.z / x + cur.v / (ub - x))
-    r1 = g1 + mu / x - mu / (ub - x) - net.to_products(net.AT_g @ y)
-    hv = system.pair_values(net.to_groups(D))
-    hv[system.diag_pair] += s / y
-    diag = system.diagonal(hv)
-    if not (np.all(np.isfinite(diag)) and np.all(diag > 0)):
-        return None
-    scale = 1.0 / np.sqrt(diag)
-    dy = scale * system.solve(hv, scale, held, 0.0, scale * (net.load(D * r1) - s + mu / y))
-    if not np.all(np.isfinite(dy)):
-        return None
-    dx = D * (r1 - net.to_products(net.AT_g @ dy))
-    dz = mu / x - cur.z - (cur.z / x) * dx
-    dv = mu / (ub - x) - cur.v + (cur.v / (ub - x)) * dx
-    return dx, dy, dz, dv
+def _barrier_step(net, system, cur, mu):
+    """One primal-dual Newton step on the barrier problem at the fixed level mu
+    (Fiacco-McCormick); (taken, the barrier problem's optimality error before it)."""
+    var = cur.var
+    g, h = cur.slopes(cur.v)
+    rd = g - cur.prices(cur.lam) + cur.z - cur.t
+    rp = cur.primal_residual()
+    cur.residual = float(np.abs(rd).max(initial=0.0))
+    cur.infeasibility = float((np.abs(rp) / np.maximum(cur.capacity, 1.0)).max(initial=0.0))
+    v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
+    err = max(cur.residual, cur.infeasibility, float(np.abs(v * z - mu).max(initial=0.0)),
+              float(np.abs(up * t - mu).max(initial=0.0)), float(np.abs(s * lam - mu).max(initial=0.0)))
+    solve = _Solver(net, system, cur, h, rp)
+    if solve.failed:
+        return False, err
+    direction = solve(rd, mu - v * z, mu - up * t, mu - s * lam)
+    dv, ds, dl, dz, dt = direction
+    frac = max(TO_BOUNDARY, 1.0 - mu)
+    ap, ad = _steps(cur, direction)
+    ap, ad = frac * ap, frac * ad
+    if var.n_smooth:
+        ap = _armijo(cur, g, dv, ds, ap, mu)
+        if ap <= 0.0:
+            return False, err
+    log.debug("barrier mu %.3g err %.3g steps %.3g %.3g", mu, err, ap, ad)
+    cur.v = v + ap * dv
+    cur.up = up - ap * dv
+    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
+    cur.z = z + ad * dz
+    cur.t = t + ad * dt
+    cur.lam = lam + ad * dl
+    return True, err
 
 
-def _take_step(cur, d, g1, mu):
-    """Armijo on the barrier function within the fraction to the boundary (``g1``: f S'(x)
-    in fare units, for the slope); the dual variables take their own fraction-to-the-
-    boundary step. Returns the primal step, 0 if none decreases the barrier function."""
-    net = cur.net
-    dx, dy, dz, dv = d
-    ds = -net.load(dx)
-    alpha = TO_BOUNDARY * min(_longest(cur.x, dx), _longest(cur.ub - cur.x, -dx), _longest(cur.s, ds))
-    slope = float(-(g1 + mu / cur.x - mu / (cur.ub - cur.x)) @ dx - (mu / cur.s) @ ds)
-    phi0 = cur.barrier(cur.x, cur.s, mu)
-    noise = 1e-13 * max(1.0, abs(phi0))
-    while alpha > 1e-14:
-        x, s = cur.x + alpha * dx, cur.s + alpha * ds
-        if cur.barrier(x, s, mu) <= phi0 + ARMIJO * alpha * min(slope, 0.0) + noise:
+def _step(net, system, cur, mu, mu_min) -> bool:
+    """One predictor-corrector step, aiming no lower than ``mu_min``; False when no step
+    could be taken."""
+    var = cur.var
+    g, h = cur.slopes(cur.v)
+    rd = g - cur.prices(cur.lam) + cur.z - cur.t                 # dual residual per variable
+    rp = cur.primal_residual()
+    cur.residual = float(np.abs(rd).max(initial=0.0))
+    cur.infeasibility = float((np.abs(rp) / np.maximum(cur.capacity, 1.0)).max(initial=0.0))
+    v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
+    solve = _Solver(net, system, cur, h, rp)
+    if solve.failed:
+        return False
+    # predictor (affine scaling: targets 0)
+    dv, ds, dl, dz, dt = solve(rd, -v * z, -up * t, -s * lam)
+    ap, ad = _steps(cur, (dv, ds, dl, dz, dt))
+    pairs = 2 * len(v) + len(s)
+    mu_aff = ((v + ap * dv) @ (z + ad * dz) + (up - ap * dv) @ (t + ad * dt)
+              + (s + ap * ds) @ (lam + ad * dl)) / pairs
+    sigma = min(1.0, (mu_aff / mu) ** 3)
+    target = max(sigma * mu, mu_min)
+    # corrector: aim at sigma mu with the predictor's second-order terms
+    direction = solve(rd, target - v * z - dv * dz, target - up * t + dv * dt, target - s * lam - ds * dl)
+    direction = _centrality(cur, solve, direction, target)
+    dv, ds, dl, dz, dt = direction
+    frac = max(TO_BOUNDARY, 1.0 - mu)
+    ap, ad = _steps(cur, direction)
+    ap, ad = frac * ap, frac * ad
+    if var.n_smooth == len(var.ub):
+        # a master of smooth parts only is a nonlinear program: one step length for primal
+        # and dual (with two, a part opening from 0 multiplies its v by far more than its
+        # multiplier falls) and the wide neighbourhood of long-step path-following methods;
+        # with kinks, separate lengths as in linear programming
+        ap = ad = min(ap, ad)
+        ap, ad = _neighbourhood(cur, direction, ap, ad)
+    if var.n_smooth:
+        ap = _armijo(cur, g, dv, ds, ap, target)
+        if ap <= 0.0:
+            return False
+    log.debug("ipm mu %.3g sigma %.3g steps %.3g %.3g", mu, sigma, ap, ad)
+    cur.last_steps = (ap, ad)
+    cur.v = v + ap * dv
+    cur.up = up - ap * dv
+    # a slack at the rounding of its leg's load is as good as none: keep it there
+    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
+    cur.z = z + ad * dz
+    cur.t = t + ad * dt
+    cur.lam = lam + ad * dl
+    return True
+
+
+def _centre(slope, a, ub, mu, rounds=60):
+    """v in (0, ub) with slope(v) - a + mu/v - mu/(ub - v) = 0, by bisection (the left
+    side decreases in v: slope is a concave revenue's)."""
+    lo, hi = np.zeros(len(ub)), ub.copy()
+    v = 0.5 * ub
+    for _ in range(rounds):
+        F = slope(v) - a + mu / v - mu / (ub - v)
+        lo = np.where(F > 0, v, lo)
+        hi = np.where(F > 0, hi, v)
+        v = 0.5 * (lo + hi)
+    return v
+
+
+def _steps(cur, direction):
+    """(primal, dual) step lengths to the boundary."""
+    dv, ds, dl, dz, dt = direction
+    ap = min(_longest(cur.v, dv), _longest(cur.up, -dv), _longest(cur.s, ds))
+    ad = min(_longest(cur.z, dz), _longest(cur.t, dt), _longest(cur.lam, dl))
+    return ap, ad
+
+
+class _Solver:
+    """The eliminated system at the current iterate, factored once for all its solves."""
+
+    def __init__(self, net, system, cur, h, rp):
+        self.net, self.system, self.cur, self.rp = net, system, cur, rp
+        self.inv = 1.0 / (h + cur.z / cur.v + cur.t / cur.up)
+        hv = system.pair_values(cur.per_group(self.inv))
+        hv[system.diag_pair] += cur.s / cur.lam
+        diag = system.diagonal(hv)
+        self.failed = not (np.all(np.isfinite(diag)) and np.all(diag > 0))
+        self.hv = hv
+        self.scale = 1.0 / np.sqrt(np.where(diag > 0, diag, 1.0))
+        self.held = np.zeros(net.n, dtype=bool)
+        self.first = True
+
+    def __call__(self, rd, cz, ct, cs, residuals=True):
+        """The direction for dual residual ``rd`` and complementarity right-hand sides
+        (``cz``: v z, ``ct``: (u - v) t, ``cs``: s lambda); ``residuals=False``: a pure
+        centrality correction (no primal residual either)."""
+        cur, net = self.cur, self.net
+        rp = self.rp if residuals else 0.0
+        rho = rd + cz / cur.v - ct / cur.up
+        rhs = net.A_g @ cur.per_group(rho * self.inv) + cs / cur.lam - rp
+        if self.first:
+            u = self.system.solve(self.hv, self.scale, self.held, 0.0, self.scale * rhs)
+            self.first = False
+        else:
+            again = self.system.solve_again((self.scale * rhs)[:, None])
+            u = again[:, 0] if again is not None else self.system.solve(self.hv, self.scale, self.held, 0.0,
+                                                                        self.scale * rhs)
+        dl = self.scale * u
+        dv = (rho - cur.prices(dl)) * self.inv
+        ds = rp - net.A_g @ cur.per_group(dv)
+        dz = (cz - cur.z * dv) / cur.v
+        dt = (ct + cur.t * dv) / cur.up
+        return dv, ds, dl, dz, dt
+
+
+def _centrality(cur, solve, direction, target):
+    """Gondzio's multiple centrality correctors (Gondzio 1996): at an enlarged trial step,
+    pull the complementarity products that would fall outside [BETA_LOW, BETA_HIGH] times
+    the target back into it (and cap the very large ones), with the same factorization,
+    as long as that lengthens the step by at least GROWTH of the enlarged step."""
+    v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
+    ap, ad = _steps(cur, direction)
+    for _ in range(CORRECTORS):
+        trial_p, trial_d = min(1.0, STRETCH * ap + 0.1), min(1.0, STRETCH * ad + 0.1)
+        dv, ds, dl, dz, dt = direction
+        products = [(v + trial_p * dv) * (z + trial_d * dz), (up - trial_p * dv) * (t + trial_d * dt),
+                    (s + trial_p * ds) * (lam + trial_d * dl)]
+        low, high = BETA_LOW * target, BETA_HIGH * target
+        fixes = [np.where(p < low, low - p, np.where(p > high, np.maximum(high - p, -high), 0.0))
+                 for p in products]
+        corr = solve(np.zeros(len(v)), fixes[0], fixes[1], fixes[2], residuals=False)
+        new = tuple(d + c for d, c in zip(direction, corr))
+        ap_new, ad_new = _steps(cur, new)
+        if ap_new + ad_new < ap + ad + GROWTH * (trial_p + trial_d):
             break
-        alpha *= BACKTRACK
-    else:
-        return 0.0
-    alpha_d = TO_BOUNDARY * min(_longest(cur.y, dy), _longest(cur.z, dz), _longest(cur.v, dv))
-    # the slack is carried, not recomputed as c - A x: on a tight leg that difference
-    # loses every digit of a slack far below the capacity
-    cur.x, cur.s = x, s
-    cur.y = cur.y + alpha_d * dy
-    cur.z = np.clip(cur.z + alpha_d * dz, mu / (KAPPA_SIGMA * x), KAPPA_SIGMA * mu / x)
-    cur.v = np.clip(cur.v + alpha_d * dv, mu / (KAPPA_SIGMA * (cur.ub - x)), KAPPA_SIGMA * mu / (cur.ub - x))
-    return alpha
+        direction, ap, ad = new, ap_new, ad_new
+    return direction
+
+
+def _neighbourhood(cur, direction, ap, ad):
+    """Shorten both steps until every complementarity product is at least NEIGHBOURHOOD
+    times their average (the wide neighbourhood of the central path of long-step
+    path-following methods): a product far below the others blocks later steps."""
+    dv, ds, dl, dz, dt = direction
+    for _ in range(NEIGHBOURHOOD_TRIES):
+        products = ((cur.v + ap * dv) * (cur.z + ad * dz), (cur.up - ap * dv) * (cur.t + ad * dt),
+                    (cur.s + ap * ds) * (cur.lam + ad * dl))
+        total = sum(float(p.sum()) for p in products)
+        pairs = sum(len(p) for p in products)
+        low = min(float(p.min(initial=np.inf)) for p in products)
+        if low >= NEIGHBOURHOOD * total / pairs:
+            break
+        ap, ad = NEIGHBOURHOOD_SHRINK * ap, NEIGHBOURHOOD_SHRINK * ad
+    return ap, ad
 
 
 def _longest(value, change):
@@ -220,17 +444,47 @@ def _longest(value, change):
     return float(min(1.0, np.min(-value[neg] / change[neg])))
 
 
-def _certify(net, cur, fare_max, best):
-    """Offer the iterate's bid prices (exact dual) and its allocation (the carried slack
-    keeps A x <= c up to rounding; within_capacity removes that too)."""
-    best.offer_dual(net.evaluate(np.maximum(cur.y, 0.0) * fare_max))
-    best.offer_primal(*within_capacity(net, np.minimum(cur.x, net.upper)))
+def _armijo(cur, g, dv, ds, alpha, mu):
+    """Backtrack the primal step until the barrier function at level mu decreases enough."""
+
+    def phi(v, up, s):
+        return -cur.revenue(v) - mu * (np.log(v).sum() + np.log(up).sum() + np.log(s).sum())
+
+    slope = float(-(g + mu / cur.v - mu / cur.up) @ dv - (mu / cur.s) @ ds)
+    if slope >= 0:
+        return alpha                       # not a descent direction at mu: take it (the dual guides it)
+    p0 = phi(cur.v, cur.up, cur.s)
+    noise = 1e-13 * max(1.0, abs(p0))
+    if -slope * alpha <= noise:
+        return alpha                       # below the barrier function's resolution: Newton's step
+    while alpha > 1e-14:
+        if phi(cur.v + alpha * dv, cur.up - alpha * dv, cur.s + alpha * ds) <= p0 + ARMIJO * alpha * slope + noise:
+            return alpha
+        alpha *= BACKTRACK
+    return 0.0
 
 
-def _size(best):
-    """The objective's size in the certificate's relative measure: max(1, |best primal|)."""
-    return max(1.0, abs(best.primal)) if np.isfinite(best.primal) else 1.0
+def _certify(net, master, cur, pi, bounds, final=False, system=None):
+    """Offer the exact dual at ``pi`` and the allocation (fixed seats and the master's
+    variables), made feasible; ``final``: also the allocation a Newton
+    step of the exact dual predicts at ``pi`` (:func:`.recovery.recover` with its second
+    correction): where the method stopped short, its primal may lag its bid prices."""
+    pt = net.evaluate(np.maximum(pi, 0.0))
+    bounds.offer_dual(pt)
+    x = master.fixed_x if cur is None else cur.allocation(master)
+    bounds.offer_primal(*within_capacity(net, np.minimum(x, net.upper)))
+    if final:
+        bounds.offer_primal(*recover(net, pt))
+        if system is not None:
+            from . import newton
+            from .prices import FLOOR
+
+            fmax = float(net.fare.max(initial=1.0))
+            floor = FLOOR * fmax
+            pt = net.evaluate(np.maximum(pi, floor))
+            dirn = newton.direction(net, system, pt, newton.LAM_MIN, 1e-3 * fmax, floor)
+            bounds.offer_primal(*recover(net, pt, dirn, system, both=False))
 
 
-def _finite(v):
-    return float(v) if np.isfinite(v) else None
+def _size(bounds):
+    return max(1.0, abs(bounds.primal)) if np.isfinite(bounds.primal) else 1.0

@@ -12,11 +12,13 @@ Built once per solve, everything here is independent of the bid prices:
   have bid price 0;
 - products are grouped by their tuple of legs (per-iteration sums over
   products become sums over groups), and the Hessian's pattern (pairs of legs
-  sharing a group) is computed once (:mod:`decomp.lagrangian.hessian`).
+  sharing a group) is computed once (:mod:`decomp.lagrangian.hessian`);
+- the subproblems (:class:`decomp.distributions.Products`): one object per demand
+  family and the table of kinks of the piecewise-linear parts.
 
-:meth:`Network.evaluate` gives the dual q(pi) (exact and, for non-smooth
-products, smoothed), its gradient c - A x(pi) and the per-product curvature
-w = -dx/da.
+:meth:`Network.evaluate` gives the dual q(pi) (exact and, with ``smoothing`` theta > 0,
+with the kinks smoothed in log(a), see :mod:`decomp.distributions.kinks`), its gradient
+c - A x(pi) and the per-product curvature w = -dx/da.
 """
 
 from __future__ import annotations
@@ -29,7 +31,6 @@ import scipy.sparse as sp
 
 from .. import distributions
 from .. import threads as _threads
-from .segments import Segments
 
 
 @dataclasses.dataclass(eq=False)
@@ -46,7 +47,7 @@ class DualPoint:
     grad: np.ndarray       # c - A x: the gradient of the (smoothed) dual
     value: float           # the dual the line search minimizes (smoothed when smoothing > 0)
     exact: float           # the exact dual q(pi): an upper bound on the PNLP optimum
-    smoothing: float
+    smoothing: float       # theta of the kinks' smoothing (0: exact)
 
 
 class Network:
@@ -74,14 +75,12 @@ class Network:
         lpp_l = lpp[self.prods] if self.prods is not None else lpp
         idx_l = leg_map[leg_index[live_nnz]]
         self.cap = np.ascontiguousarray(cap[self.legs], dtype=np.float64)
-        self.sub = distributions.Subproblems.from_instance(instance, self.prods)
         self.n_products = len(lpp_l)
         self._group(lpp_l, idx_l)
         # the allocation bound u_j = 2 min(capacity of its legs) + 1 (whole seats), per group
         self.upper_g = np.ceil(2.0 * self._min_capacity_g()) + 1.0
         self.upper = self.to_products(self.upper_g)
-        self.sub.set_upper(self.upper)
-        self.segments = Segments(self.sub, self.upper)
+        self.products = distributions.Products.from_instance(instance, self.prods, self.upper)
         self._setup_threads(threads)
         #: per leg: the largest fare of its products (a price scale)
         self.fare_scale = np.zeros(self.n)
@@ -131,8 +130,12 @@ class Network:
         capx = np.append(self.cap, np.inf)                     # index -1 (no leg) -> inf
         return capx[self.Mg - 1].min(axis=1) if self.G else np.zeros(0)
 
+    @property
+    def fare(self):
+        return self.products.fare
+
     def _max_fare_g(self):
-        f = self.sub.fare
+        f = self.products.fare
         if self.g_start is not None:
             return np.maximum.reduceat(f, self.g_start) if len(f) else np.zeros(0)
         if self.g_of_p is not None:
@@ -194,16 +197,15 @@ class Network:
 
     def allocation_of(self, products, a):
         """The subproblem solutions x_j(a_j) of the given products (no smoothing)."""
-        x = self.sub.subset(products).evaluate(a).x
-        return np.minimum(x, self.upper[products])
+        return self.products.subset(products).respond(a).x
 
     @functools.cached_property
     def zero_threshold(self):
         """Per product: the bid-price sum a at and above which its allocation is 0."""
-        return self.sub.zero_threshold()
+        return self.products.closing()
 
     def fare_of(self, products):
-        return self.sub.fare[products]
+        return self.products.fare[products]
 
     def full_allocation(self, x_live):
         """Live products' allocation placed into the instance's product order (0 elsewhere)."""
@@ -221,78 +223,47 @@ class Network:
 
     # -- the dual --------------------------------------------------------------------------
     def evaluate(self, pi, smoothing=0.0) -> DualPoint:
-        """q(pi) with every product's allocation in [0, u_j]; with ``smoothing`` delta > 0
-        the linear segments take their barrier solutions (:mod:`.segments`), and
-        ``value`` is the smoothed dual while ``exact`` stays q(pi)."""
+        """q(pi) with every product's allocation in [0, u_j]; with ``smoothing`` theta > 0
+        the kinks are smoothed (``value`` is the smoothed dual, ``exact`` stays q(pi))."""
         self.evaluations += 1
         a_g = self.AT_g @ pi
-        if self._chunks is not None:
-            x, w, x_g, w_g, exact = self._evaluate_threads(a_g)
-        else:
-            v = self.sub.evaluate(self.to_products(a_g))
-            x, w, exact = v.x, v.w, v.exact_value
-            x_g = w_g = None
-        x, w, change = self._apply_bound(a_g, x, w)
-        if change is not None:
-            exact += change
-        value = exact
-        if smoothing > 0 and len(self.segments):
-            x, dw, smooth_change = self.segments.smooth(self.to_products(a_g), x, smoothing)
-            w = w + dw
-            value += smooth_change
-            change = True
-        if change is not None or x_g is None:
-            x_g, w_g = self.to_groups(x), self.to_groups(w)
+        a = self.to_products(a_g)
+        normal_part = None if self._chunks is None else self._normal_threads(a)
+        r = self.products.respond(a, smoothing, normal_part)
+        x_g, w_g = self.to_groups(r.x), self.to_groups(r.w)
         load = self.A_g @ x_g
         cp = float(self.cap @ pi)
-        return DualPoint(pi=pi, a_g=a_g, x=x, x_g=x_g, w=w, w_g=w_g, load=load, grad=self.cap - load,
-                         value=value + cp, exact=exact + cp, smoothing=smoothing)
-
-    def _apply_bound(self, a_g, x, w):
-        """Clip the unbounded fractiles at u (concave terms: the bounded maximum is the
-        clipped one) and return the change of the dual terms, or None when none moved."""
-        over = np.flatnonzero(x > self.upper)
-        if len(over) == 0:
-            return x, w, None
-        x = x.copy()
-        w = w.copy()
-        u = self.upper[over]
-        a = self.to_products(a_g)[over]
-        sales = self.sub.expected_sales_of(over, np.stack([x[over], u]))
-        f = self.sub.fare[over]
-        change = float(f @ (sales[1] - sales[0]) - a @ (u - x[over]))
-        x[over] = u
-        w[over] = 0.0
-        return x, w, change
+        return DualPoint(pi=pi, a_g=a_g, x=r.x, x_g=x_g, w=r.w, w_g=w_g, load=load, grad=self.cap - load,
+                         value=r.value + cp, exact=r.exact + cp, smoothing=smoothing)
 
     def revenue(self, y):
-        """sum_j f_j S_j(y_j), exactly."""
-        return self.sub.revenue(y)
+        """sum_j f_j S_j(y_j) (piecewise-linear parts from the kink table)."""
+        return self.products.revenue(y)
 
     def _setup_threads(self, threads):
-        """One product slice per thread, split at group boundaries (normal demand,
-        products in runs of equal legs, from decomp.threads.FROM_PRODUCTS on)."""
+        """One product slice per thread, split at group boundaries (normal demand without
+        kinks, products in runs of equal legs, from decomp.threads.FROM_PRODUCTS on)."""
         self._chunks = None
         P = self.n_products
-        if threads < 2 or P < _threads.FROM_PRODUCTS or self.g_start is None or not self.sub.all_normal:
+        pr = self.products
+        if (threads < 2 or P < _threads.FROM_PRODUCTS or self.g_start is None or not pr.all_normal
+                or pr.has_kinks):
             return
         cuts = np.searchsorted(self.g_start, np.arange(1, threads) * P // threads)
         gb = np.unique(np.concatenate([[0], cuts, [self.G]]))
         pb = np.append(self.g_start, P)[gb]
-        self._chunks = [(int(gb[i]), int(gb[i + 1]), int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
+        self._chunks = [(int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
         self._pool = _threads.pool(threads)
 
-    def _evaluate_threads(self, a_g):
-        P, sub = self.n_products, self.sub
-        x, w, e = np.empty(P), np.empty(P), np.empty(P)
-        x_g, w_g = np.empty(self.G), np.empty(self.G)
-        count, start = self.g_count, self.g_start
+    def _normal_threads(self, a):
+        """The normal products' (x, w, value) at bid-price sums ``a``, their slices on the
+        thread pool."""
+        P = self.n_products
+        out = (np.empty(P), np.empty(P), np.empty(P))
+        normal = self.products.normal
 
         def part(chunk):
-            g0, g1, p0, p1 = chunk
-            value, _ = sub.normal_slice(np.repeat(a_g[g0:g1], count[g0:g1]), p0, p1, x, w, e)
-            x_g[g0:g1] = np.add.reduceat(x[p0:p1], start[g0:g1] - p0)
-            w_g[g0:g1] = np.add.reduceat(w[p0:p1], start[g0:g1] - p0)
-            return value
+            lo, hi = chunk
+            return normal.respond(a[lo:hi], out, lo, hi)[2]
 
-        return x, w, x_g, w_g, sum(self._pool.map(part, self._chunks))
+        return out[0], out[1], sum(self._pool.map(part, self._chunks))

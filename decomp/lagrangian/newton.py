@@ -32,8 +32,8 @@ allocation crossed 0 in the last step, which take the chord's slope across
 that step where it is larger (:func:`kink_curvature`), and products the step
 itself would close or whose bid-price sum it moves far, which take the chord
 of the step (:func:`chord_update`, a low-rank update of the factored system);
-both only without linear segments, see the loop. The dual is once differentiable at that kink, and the tangent
-there makes the steps oscillate across it or creep up to it.
+both only for networks without kinks, see the loop. The dual is once differentiable at
+that kink, and the tangent there makes the steps oscillate across it or creep up to it.
 
 Safeguard: when the Newton arc gives no decrease (the projection turned it
 uphill, or rounding), a projected step along the diagonally scaled gradient
@@ -74,6 +74,7 @@ class Direction:
     curvature: np.ndarray  # the diagonal the step was scaled with
     stationarity: float    # g.(pi - [pi - g/h]^+): the diagonally scaled projected decrement
     lower: np.ndarray      # per leg: the projection's lower bound for this step
+    fixed: np.ndarray      # legs outside the Newton system (held or flat)
 
 
 def leg_curvature(system, hv):
@@ -119,7 +120,7 @@ def direction(net, system, pt, lam, eps_bar, floor, previous=None, chords=False)
     # the decrement counts only what the projection lets the step realize
     realized = pi - np.maximum(pi + d, lower)
     return Direction(d=d, held=held, decrement=float(g @ realized), curvature=h, stationarity=float(g @ proj),
-                     lower=lower)
+                     lower=lower, fixed=held | flat)
 
 
 def chord_update(net, system, pt, u, scale, fixed, lower, w_g, hv):
@@ -221,7 +222,7 @@ def gradient_direction(pt, curvature, floor) -> Direction:
     d = -pt.grad / curvature
     decrement = float(-(pt.grad @ d))
     return Direction(d=d, held=np.zeros(len(d), bool), decrement=decrement, curvature=curvature,
-                     stationarity=decrement, lower=step_floor(pt.pi, floor))
+                     stationarity=decrement, lower=step_floor(pt.pi, floor), fixed=np.ones(len(d), bool))
 
 
 def arc_search(net, pt, d, smoothing, lower):

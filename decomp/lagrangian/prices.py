@@ -24,7 +24,7 @@ def fare_start(net):
     """Half the demand-weighted fare per leg of each leg's products (a cold start)."""
     if net.n == 0:
         return np.zeros(0)
-    sub = net.sub
+    sub = net.products
     share_g = 1.0 / np.maximum(np.asarray(net.AT_g.sum(axis=1)).ravel(), 1.0)
     share = sub.fare * net.to_products(share_g)
     mean = np.maximum(sub.mean, 0.0)
@@ -72,7 +72,7 @@ def price_closed_legs(instance, net, pi_full):
     if not np.any(net.dead):
         return
     dead = np.nonzero(net.dead)[0]
-    thr = distributions.Subproblems.from_instance(instance, dead).zero_threshold()
+    thr = distributions.Products.from_instance(instance, dead).closing()
     lpp = instance.legs_per_product
     starts, counts = instance.leg_ptr[dead], lpp[dead]
     idx = np.repeat(starts - np.cumsum(np.concatenate([[0], counts[:-1]])), counts) + np.arange(counts.sum())

@@ -1,19 +1,20 @@
-"""A feasible allocation from a dual point, and its exact expected revenue.
+"""A feasible allocation from a dual point, and its expected revenue.
 
 y = x(pi) - w (A^T d): the allocation the dual's linear model predicts at the
 next iterate pi + d (d the projected step actually available, so held legs
-drop to 0). Its loads equal the capacities on the free legs to first order,
-and on slack legs they stay what the products ask for: nothing is pushed
-to fill a slack leg. y is then clipped to [0, u] and each product scaled down
-by the smallest capacity / load over its legs, which makes it feasible.
-Scaling a product for one overloaded leg also leaves room on its other legs;
-two rounds of filling give that room back, each product up to its predicted
-allocation, in proportion on every leg (so no leg is overfilled).
+drop to 0). Its loads equal the capacities on the free legs to first order.
+One more Newton correction with the same factorization makes them equal to
+second order: with r = c - A y, solve (A W A^T) mu = r on the free legs and take
+y + W A^T mu (W = diag(w)), the allocation the linear model predicts after one
+more step, at no more cost than a solve. y is then clipped to [0, u] and made
+feasible: products on overloaded legs are scaled down by the smallest
+capacity / load over their legs (or, with kinks, the cheapest seats on each
+overloaded leg are cut), and two rounds of filling give back room the cuts freed,
+each product up to its predicted allocation, in proportion on every leg.
 
 Why this closes the gap when the dual converges: as pi_k -> pi*, x(pi_k)
-(smoothed, for non-smooth products, with the window shrinking) tends to a
-primal optimum x* with A x* <= c, the predicted step d_k -> 0, so y_k -> x*
-and the scaling factors -> 1; the expected revenue is continuous, so
+tends to a primal optimum x* with A x* <= c, the predicted step d_k -> 0, so
+y_k -> x* and the scaling factors -> 1; the expected revenue is continuous, so
 F(y_k) -> F(x*) = q(pi*) (strong duality for the concave PNLP).
 """
 
@@ -28,21 +29,44 @@ FILL_ROUNDS = 2
 DEAREST_ROUNDS = 4
 
 
-def recover(net, pt, d=None, lower=0.0, both=True):
-    """(y, exact expected revenue of y) for the dual point ``pt`` and step ``d``: the
+def recover(net, pt, dirn=None, system=None, both=True):
+    """(y, revenue of y) for the dual point ``pt`` and the Newton direction ``dirn`` (with
+    ``system``, the factorization it was solved with, for the second correction): the
     better of the predicted allocation and x(pi) itself, each made feasible. (The
     prediction is first-order: where a product's curvature is extreme, as for
     near-deterministic demand, or the step is damped, x(pi) can be the better one.)
     ``both=False``: the predicted one only (large instances recover only near the
     optimum, where it is the better one; each candidate costs a pass over the products)."""
-    if d is None:
+    if dirn is None:
         return _feasible(net, pt.x.copy())
-    step = np.maximum(pt.pi + d, lower) - pt.pi
-    predicted = _feasible(net, pt.x - pt.w * net.to_products(net.AT_g @ step))
+    step = np.maximum(pt.pi + dirn.d, dirn.lower) - pt.pi
+    y = pt.x - pt.w * net.to_products(net.AT_g @ step)
+    if system is not None:
+        y = _second_correction(net, pt, dirn, system, y)
+    predicted = _feasible(net, y)
     if not both:
         return predicted
     plain = _feasible(net, pt.x.copy())
     return predicted if predicted[1] >= plain[1] else plain
+
+
+def _second_correction(net, pt, dirn, system, y):
+    """y + W A^T mu with (A W A^T) mu = c - A y on the free legs (the factorization of the
+    direction, reused), clipped to [0, u]."""
+    np.clip(y, 0.0, net.upper, out=y)
+    free = ~dirn.fixed
+    if not np.any(free):
+        return y
+    scale = 1.0 / np.sqrt(dirn.curvature)
+    rhs = scale * (net.cap - net.load(y))
+    rhs[~free] = 0.0
+    u = system.solve_again(rhs[:, None])
+    if u is None:
+        return y
+    mu = scale * u[:, 0]
+    mu[~free] = 0.0
+    y = y + pt.w * net.to_products(net.AT_g @ mu)
+    return np.clip(y, 0.0, net.upper, out=y)
 
 
 def _feasible(net, y):
@@ -50,8 +74,9 @@ def _feasible(net, y):
     target = y.copy()
     load = net.load(y)
     over = load > net.cap
+    kinks = net.products.has_kinks
     if np.any(over):
-        if len(net.segments):
+        if kinks:
             # piecewise-linear products: an overload is usually one fractional product's
             # doing, and scaling would also cut the full ones beside it
             y = _cut_cheapest(net, y, load, over)
@@ -59,7 +84,7 @@ def _feasible(net, y):
             y = scale_to_capacity(net, y, load, over)
         for _ in range(FILL_ROUNDS):
             y = _fill(net, y, target)
-    if len(net.segments):
+    if kinks:
         for _ in range(DEAREST_ROUNDS):
             y = _fill_dearest(net, y)
     return y, net.revenue(y)
@@ -73,7 +98,7 @@ def _cut_cheapest(net, y, load, over):
     legs = np.flatnonzero(over)
     rows = net.A_g[legs].tocoo()
     leg, prod = _leg_product_pairs(net, legs[rows.row], rows.col)
-    value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
+    value = net.products.marginal_value(prod, y[prod])
     order = np.lexsort((value, leg))                         # by leg, then by value per seat
     prod, leg = prod[order], leg[order]
     amount = y[prod]
@@ -107,7 +132,7 @@ def _fill_dearest(net, y):
     # at most what the product's fullest leg leaves it
     reach = net.to_products(smallest_over_legs(net, np.maximum(room, 0.0), every_leg))
     amount = np.minimum(np.maximum(net.upper[prod] - y[prod], 0.0), reach[prod])
-    value = net.fare_of(prod) * net.sub.marginal_sales_of(prod, np.maximum(y[prod], 0.0))
+    value = net.products.marginal_value(prod, y[prod])
     order = np.lexsort((-value, leg))                        # by leg, then dearest seat first
     prod, leg, amount = prod[order], leg[order], amount[order]
     before = _ahead_on_leg(leg, amount)

@@ -84,9 +84,17 @@ def ipopt_version() -> str:
     return "Ipopt " + ".".join(str(v) for v in cyipopt.IPOPT_VERSION)
 
 
+#: Ipopt reads ``ipopt.opt`` from the working folder unless ``option_file_name`` says otherwise, and
+#: such a file may name an ``output_file`` to overwrite: the working folder is not the user's choice of
+#: solver options, so no option file is read (an empty name; Ipopt 3.14 reads none then).
+NO_OPTION_FILE = {"option_file_name": ""}
+
+
 def ipopt_options(options) -> dict:
-    """Ipopt option values for ``options`` (solver_options last, so they win)."""
+    """Ipopt option values for ``options`` (solver_options last, so they win; no ``ipopt.opt`` is read
+    from the working folder, see :data:`NO_OPTION_FILE`)."""
     opts = {
+        **NO_OPTION_FILE,
         "tol": float(options.tol),
         "bound_relax_factor": 0.0,
         "print_level": 5 if options.verbose else 0,

@@ -70,6 +70,11 @@ class LagrangianMethod:
         out = sol.outcome
         term = out.termination
         sstatus = _certify.solution_status(term, cert, gap_tol=options.tol)
+        # the message states the result's own certificate, the gap field's number; the loop's
+        # bounds are named only where they disagree with it about tol
+        message = f"{out.message}; certified gap {cert.gap:.3g}"
+        if (out.gap <= options.tol) != (cert.gap <= options.tol):
+            message += f" (the loop's own bounds gave {out.gap:.3g})"
         if term is Termination.OPTIMAL and sstatus.value != "optimal":
             log.warning("lagrangian: loop gap %.3g but certificate gap %.3g / violation %.3g",
                         out.gap, cert.gap, cert.max_violation_rel)
@@ -82,7 +87,7 @@ class LagrangianMethod:
             allocation=sol.x, iterations=out.iterations,
             seconds={"build": sol.seconds_build, "solve": sol.seconds_solve, "certify": t3 - t2},
             solver=f"decomp-lagrangian-{options.dual_method}", solver_version=_version(),
-            raw_status=out.raw_status, message=out.message, certificate=cert, history=out.history,
+            raw_status=out.raw_status, message=message, certificate=cert, history=out.history,
             options={**options_record(options), "linear_solver": sol.linear_solver,
                      "start": "warm" if warm_start is not None else "fare"})
 

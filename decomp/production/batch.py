@@ -92,7 +92,8 @@ class TaskSpec:
     """One task: where its instance comes from. Small and picklable.
 
     ``source`` is ``"folder"`` (read ``path``) or ``"generate"`` (call
-    :func:`decomp.generator.generate` with ``n_products`` and ``seed``);
+    :func:`decomp.generator.generate` with ``n_products``, ``seed`` and the demand
+    model ``demand``, a :mod:`decomp.demand_mix` text, None for normal demand);
     ``date`` (ISO) applies ``variation`` for that departure date, None uses the
     instance as it is. ``size`` estimates the work (products, or bytes on disk
     for an unread folder) and orders the submission largest first. ``content``
@@ -109,12 +110,16 @@ class TaskSpec:
     variation: DateVariation | None = None
     size: float = 0.0
     content: str | None = None
+    demand: str | None = None
 
     def to_dict(self) -> dict:
-        return {"key": self.key, "source": self.source, "path": self.path, "n_products": self.n_products,
-                "seed": self.seed, "date": self.date,
-                "variation": None if self.variation is None else self.variation.to_dict(),
-                "content": self.content}
+        out = {"key": self.key, "source": self.source, "path": self.path, "n_products": self.n_products,
+               "seed": self.seed, "date": self.date,
+               "variation": None if self.variation is None else self.variation.to_dict(),
+               "content": self.content}
+        if self.demand is not None:                 # fingerprints of normal-demand runs unchanged
+            out["demand"] = self.demand
+        return out
 
     def load(self):
         """Build this task's instance (on the worker)."""
@@ -129,7 +134,7 @@ class TaskSpec:
         elif self.source == "generate":
             from ..generator import generate
 
-            inst = generate(int(self.n_products), seed=int(self.seed))
+            inst = generate(int(self.n_products), seed=int(self.seed), demand=self.demand)
         else:
             raise ConfigError(f"unknown task source {self.source!r}")
         if self.date is not None:
@@ -224,14 +229,23 @@ def folder_digest(path: pathlib.Path) -> str:
     return h.hexdigest()
 
 
-def base_sources(batch: str) -> list:
-    """The base networks named by a BATCH argument: a list of (name, TaskSpec template)."""
+def base_sources(batch: str, demand: str | None = None) -> list:
+    """The base networks named by a BATCH argument: a list of (name, TaskSpec template).
+    ``demand``: the demand model of a generated network (a :mod:`decomp.demand_mix` text)."""
     m = _GEN.match(str(batch).strip())
     if m:
         n, seed = int(m.group(1)), int(m.group(2) or 0)
         if n < 1:
             raise ConfigError(f"{batch!r}: a generated network needs at least one product")
-        return [(f"gen{n}", TaskSpec(key=f"gen{n}", source="generate", n_products=n, seed=seed, size=n))]
+        if demand is not None:
+            from ..demand_mix import DemandMix
+
+            mix = DemandMix.parse(demand)
+            demand = None if mix.is_plain_normal else mix.text()
+        return [(f"gen{n}", TaskSpec(key=f"gen{n}", source="generate", n_products=n, seed=seed, size=n,
+                                     demand=demand))]
+    if demand is not None:
+        raise ConfigError("a demand model (--demand) applies to a generated network (gen:PRODUCTS[:SEED]) only")
     path = pathlib.Path(batch)
     if not path.exists():
         raise InstanceError("batch folder not found (give a folder of instances, an instance folder, "
@@ -248,7 +262,8 @@ def base_sources(batch: str) -> list:
                               size=float(_folder_bytes(p)), content=folder_digest(p))) for p in folders]
 
 
-def build_batch(batch: str, dates: list | None = None, variation: DateVariation | None = None) -> Batch:
+def build_batch(batch: str, dates: list | None = None, variation: DateVariation | None = None,
+                demand: str | None = None) -> Batch:
     """The batch for ``decomp run BATCH``.
 
     Without ``dates``, one task per instance folder (or the one generated
@@ -256,7 +271,7 @@ def build_batch(batch: str, dates: list | None = None, variation: DateVariation 
     are the ISO date, prefixed by the network's name when there are several.
     Tasks are ordered largest first (longest processing time first).
     """
-    bases = base_sources(batch)
+    bases = base_sources(batch, demand)
     if not dates:
         tasks = [spec for _, spec in bases]
         desc = f"{len(tasks)} instance(s) from {batch}"

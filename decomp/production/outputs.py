@@ -19,7 +19,6 @@ task that ended non-optimal -- is solved again, and the reason is kept.
 
 from __future__ import annotations
 
-import errno
 import json
 import pathlib
 
@@ -27,18 +26,16 @@ import numpy as np
 
 from .. import atomic
 from ..atomic import file_sha256
+from ..paths import REFUSED_ERRNOS, is_refused
 from ..result import read_bid_price_table
 from ..tables import BID_PRICE_COLUMNS
 
 RESULT_FILE, BID_FILE, ERROR_FILE = "result.json", "bid_prices.parquet", "error.json"
 
 #: Errors of the output folder itself (full, read-only, no permission, quota): retrying a task
-#: cannot help, and every other task would meet the same.
-OUTPUT_ERRNOS = frozenset({errno.ENOSPC, errno.EROFS, errno.EACCES, errno.EPERM, errno.EDQUOT, errno.EFBIG})
-
-
-def is_output_error(exc: BaseException) -> bool:
-    return isinstance(exc, OSError) and exc.errno in OUTPUT_ERRNOS
+#: cannot help, and every other task would meet the same (:data:`decomp.paths.REFUSED_ERRNOS`).
+OUTPUT_ERRNOS = REFUSED_ERRNOS
+is_output_error = is_refused
 
 
 def task_dir(out, key) -> pathlib.Path:

@@ -37,6 +37,7 @@ others.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import hashlib
 import json
@@ -54,6 +55,7 @@ from .. import atomic
 from ..warmstart import bounded_warm_start
 from ..errors import DecompError
 from . import fallback as fallback_mod
+from . import signals
 from .batch import Batch, TaskSpec
 from .lock import OutputLock
 from .outputs import (BID_FILE, ERROR_FILE, RESULT_FILE, is_output_error, read_bid_prices, read_finished,  # noqa: F401
@@ -317,24 +319,55 @@ _HEALTH_ONLY = ["distributed.http.health"]
 
 
 def start_cluster(workers: int | None = None, dashboard: int | None = None):
-    """An embedded LocalCluster: one single-threaded worker process per core, on the loopback address.
+    """An embedded LocalCluster: one single-threaded worker process per core, on the loopback address,
+    speaking TLS with credentials made for this run only.
 
-    The scheduler and workers listen on 127.0.0.1 only. Dask's HTTP servers (the dashboard, which
-    serves scheduler and worker details to anyone who can reach it) serve only ``/health`` unless
-    ``dashboard`` gives a port (0: any free port); then the dashboard is served, on 127.0.0.1 only.
+    The scheduler and workers listen on 127.0.0.1 only, and every connection needs the run's
+    certificate: :meth:`distributed.security.Security.temporary` makes a key and a self-signed
+    certificate in memory (never written to disk), handed to the workers by the cluster, so no
+    other local user can connect and run code on the workers (a plain ``tcp://`` client is refused).
+    Dask's HTTP servers (the dashboard, which serves scheduler and worker details to anyone who
+    can reach it) serve only ``/health`` unless ``dashboard`` gives a port (0: any free port);
+    then the dashboard is served, on 127.0.0.1 only. The workers ignore SIGINT: a Ctrl-C at the
+    terminal reaches the whole process group, and only the client decides what it means
+    (:mod:`.signals`); the cluster is closed by the client.
     """
     import dask
     from distributed import Client, LocalCluster
+    from distributed.security import Security
 
     n = int(workers or os.cpu_count() or 1)
+    if n < 1:
+        raise ValueError(f"workers must be at least 1, got {workers!r}")
     routes = {} if dashboard is not None else {"distributed.scheduler.http.routes": _HEALTH_ONLY,
                                                 "distributed.worker.http.routes": _HEALTH_ONLY}
-    with dask.config.set(routes):
+    with dask.config.set(routes), workers_ignore_sigint():
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
                                dashboard_address=f"127.0.0.1:{int(dashboard or 0)}",
                                scheduler_kwargs={"dashboard": dashboard is not None},
-                               silence_logs=logging.ERROR)
-    return cluster, Client(cluster)
+                               security=Security.temporary(), silence_logs=logging.ERROR)
+    from .workerplugin import IgnoreSigint
+
+    client = Client(cluster)
+    client.register_plugin(IgnoreSigint(), name="decomp-ignore-sigint")    # workers restarted later too
+    return cluster, client
+
+
+@contextlib.contextmanager
+def workers_ignore_sigint():
+    """SIGINT ignored while the worker processes are started (they inherit it, and Python keeps an
+    ignored SIGINT ignored), so a Ctrl-C that reaches the whole process group stops the client only."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _prepare_output(out: pathlib.Path, cfg: RunConfig, batch: Batch, retries, window) -> None:
@@ -438,32 +471,44 @@ def _run_locked(batch, cfg, out, client, scheduler, workers, retries, window, on
             stopped = _collect(futures, by_key, fps, records, progress, out, on_event)
     except BaseException as exc:
         interrupted = exc
-    finally:
+    # From here on a SIGINT or SIGTERM is held, not raised: closing the cluster and writing the
+    # summary finish whatever arrives (before, a signal after the last task cost the summary).
+    with signals.deferred() as late:
         wall = time.perf_counter() - t_start
         if own_client is not None:
             own_client.close()
         if own_cluster is not None:
             own_cluster.close()
-    if stopped is not None or interrupted is not None:   # tasks that ended meanwhile count as what they are
-        for spec in todo:
-            if spec.key not in records:
-                rec = read_finished(out, spec, fps[spec.key])
-                if rec is not None:
-                    records[spec.key] = {**rec, "skipped": False}
-    for key, why in redo.items():
-        if key in records:
-            records[key]["redone"] = why
-    reason = None
-    if interrupted is not None:
-        reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
-    summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
-                                     workers=n_workers or workers, window=window, interrupted=reason,
-                                     stopped=stopped, earlier=summary_mod.read_summary(out))
-    failed = summary_mod.write_summary(out, summ)
-    if failed:
-        summ["summary_error"] = f"not written to {out}: " + "; ".join(
-            f"{name} ({exc.strerror or exc} [Errno {exc.errno}])" for name, exc in failed)
-        log.error(summ["summary_error"])
+        if stopped is not None or interrupted is not None:   # tasks that ended meanwhile count as what they are
+            for spec in todo:
+                if spec.key not in records:
+                    rec = read_finished(out, spec, fps[spec.key])
+                    if rec is not None:
+                        records[spec.key] = {**rec, "skipped": False}
+        for key, why in redo.items():
+            if key in records:
+                records[key]["redone"] = why
+        reason = None
+        if interrupted is not None:
+            reason = "SIGTERM" if type(interrupted).__name__ == "Terminated" else type(interrupted).__name__
+        after_last = None
+        if isinstance(interrupted, KeyboardInterrupt) and all(spec.key in records for spec in batch.tasks):
+            # every task had finished: nothing was cut short
+            after_last, reason, interrupted = ("SIGINT" if reason == "KeyboardInterrupt" else reason), None, None
+        if late and interrupted is None:
+            after_last = after_last or late.first
+        summ = summary_mod.build_summary(batch, cfg, records, wall_seconds=wall, cluster_seconds=cluster_seconds,
+                                         workers=n_workers or workers, window=window, interrupted=reason,
+                                         stopped=stopped, signal_after_last_task=after_last,
+                                         earlier=summary_mod.read_summary(out))
+        failed = summary_mod.write_summary(out, summ)
+        if late and interrupted is None and summ["signal_after_last_task"] is None:   # one came while writing
+            summ["signal_after_last_task"] = late.first
+            failed = summary_mod.write_summary(out, summ)
+        if failed:
+            summ["summary_error"] = f"not written to {out}: " + "; ".join(
+                f"{name} ({exc.strerror or exc} [Errno {exc.errno}])" for name, exc in failed)
+            log.error(summ["summary_error"])
     if interrupted is not None:
         raise interrupted
     return summ

@@ -29,3 +29,38 @@ def terminate_as_interrupt():
         yield
     finally:
         signal.signal(signal.SIGTERM, previous)
+
+
+class Deferred:
+    """The signals that arrived while :func:`deferred` held them (``names``: 'SIGINT', 'SIGTERM')."""
+
+    def __init__(self):
+        self.names: list = []
+
+    def __bool__(self) -> bool:
+        return bool(self.names)
+
+    @property
+    def first(self) -> str | None:
+        return self.names[0] if self.names else None
+
+
+@contextlib.contextmanager
+def deferred():
+    """Within the block, SIGINT and SIGTERM are recorded instead of raised: the end of a run (closing
+    the cluster, writing the summary) is not cut short by a signal that arrives after the last task.
+    Yields a :class:`Deferred` that says which arrived. Outside the main thread nothing changes."""
+    held = Deferred()
+    if threading.current_thread() is not threading.main_thread():
+        yield held
+        return
+
+    def record(signum, frame):
+        held.names.append(signal.Signals(signum).name)
+
+    previous = {s: signal.signal(s, record) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield held
+    finally:
+        for s, handler in previous.items():
+            signal.signal(s, handler)

@@ -37,11 +37,14 @@ def short(text, limit: int = ERROR_CHARS):
 
 
 def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_seconds: float = 0.0,
-                  workers=None, window=None, interrupted=None, stopped=None, earlier: dict | None = None) -> dict:
+                  workers=None, window=None, interrupted=None, stopped=None, signal_after_last_task=None,
+                  earlier: dict | None = None) -> dict:
     """The summary dict. ``records`` maps task key to its record (missing: not run).
 
     ``interrupted``: why the run was cut short by the operator (KeyboardInterrupt, SIGTERM);
     ``stopped``: why it stopped by itself (the output folder cannot be written);
+    ``signal_after_last_task``: a SIGINT or SIGTERM that arrived once every task had finished
+    (nothing was cut short; the run is complete);
     ``earlier``: the summary this one replaces (:func:`read_summary`), whose measurements are kept
     when this run solved nothing."""
     tasks = []
@@ -100,7 +103,8 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
         "batch": batch.description, "model": cfg.model, "method": cfg.method,
         "tol": cfg.options.tol, "out": cfg.out, "warm_start_from": cfg.warm_start_from,
         "fallback": getattr(cfg, "fallback", None),
-        "interrupted": interrupted, "stopped": short(stopped), "totals": totals, "tasks": tasks,
+        "interrupted": interrupted, "stopped": short(stopped), "signal_after_last_task": signal_after_last_task,
+        "totals": totals, "tasks": tasks,
     }
 
 
@@ -155,6 +159,9 @@ def to_markdown(s: dict) -> str:
                  f"{t.get('redone', 0)} task(s) with earlier output solved again (why: `redone` in summary.json)")
     if s.get("interrupted"):
         lines.append(f"- INTERRUPTED ({s['interrupted']}): rerun with the same arguments to finish")
+    if s.get("signal_after_last_task"):
+        lines.append(f"- {s['signal_after_last_task']} arrived after the last task had finished: nothing was "
+                     f"interrupted")
     if s.get("stopped"):
         lines.append(f"- STOPPED: {s['stopped']}; finished tasks are kept, rerun with the same arguments "
                      f"once the folder can be written")

@@ -1,0 +1,128 @@
+"""Discrete demand: Poisson (mean m) and negative binomial (mean m, std s, s^2 > m).
+
+The negative binomial is scipy.stats.nbinom(r, p) with r = m^2 / (s^2 - m), p = m / s^2.
+Expected sales are taken piecewise linear between whole seats, S(n) = sum_{k<n} P(D > k),
+which is E[min(D, n)] at every integer and the expected sales of an integer allocation;
+the subproblem is then a concave piecewise-linear maximization, one linear piece per
+seat with slope f P(D > k). Its kinks go into a :class:`~.kinks.KinkTable`
+(:meth:`DiscreteDemand.kinks`), built once per solve by the recurrences of the
+probabilities (Poisson: p(k+1) = p(k) m / (k + 1); negative binomial:
+p(k+1) = p(k) (k + r)(1 - p) / (k + 1)), in logarithms so that large means do not
+underflow, and P(D > k) = 1 - sum_{i<=k} p(i), accurate to about 1e-16 absolute,
+which is what a slope (times the fare) needs. Seats stop at the product's bound u and
+where P(D > k) <= TAIL: the value beyond is below any tolerance.
+
+Exact values for certificates come from the incomplete gamma and beta functions:
+P(D > n) = P(n + 1, m) (Poisson) and I_{1-p}(n + 1, r) (negative binomial).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import special
+
+from .kinks import KinkTable
+
+#: Seats whose marginal sales P(D > k) are at or below this leave the table.
+TAIL = 1e-12
+
+
+def negbin_params(mean, std):
+    """(r, p) of scipy.stats.nbinom with this mean and std (std^2 > mean)."""
+    mean = np.asarray(mean, dtype=np.float64)
+    var = np.asarray(std, dtype=np.float64) ** 2
+    return mean * mean / (var - mean), mean / var
+
+
+class DiscreteDemand:
+    """Poisson (``negbin`` False) or negative-binomial products (arrays over them)."""
+
+    def __init__(self, fare, mean, std, negbin):
+        self.fare = np.asarray(fare, dtype=np.float64)
+        self.mean = m = np.asarray(mean, dtype=np.float64)
+        self.std = np.asarray(std, dtype=np.float64)
+        self.negbin = nb = np.asarray(negbin, dtype=bool)
+        self.n = len(m)
+        self.r, self.p = negbin_params(np.where(nb, m, 1.0), np.where(nb, self.std, 2.0))
+
+    def _params(self, idx):
+        if idx is None:
+            return self.mean, self.negbin, self.r, self.p
+        return self.mean[idx], self.negbin[idx], self.r[idx], self.p[idx]
+
+    # -- exact probabilities -----------------------------------------------------------------
+    def sf(self, n, idx=None):
+        """P(D > n) for whole n (>= 0; 1 for n < 0)."""
+        m, nb, r, p = self._params(idx)
+        n = np.asarray(n, dtype=np.float64)
+        out = np.ones(np.broadcast(n, m).shape)
+        n, m, nb, r, p = np.broadcast_arrays(n, m, nb, r, p)
+        pos = n >= 0
+        po = pos & ~nb
+        out[po] = special.gammainc(n[po] + 1.0, m[po])
+        q = pos & nb
+        out[q] = special.betainc(n[q] + 1.0, r[q], 1.0 - p[q])
+        return out
+
+    def sales(self, x, idx=None):
+        """S(x), piecewise linear between whole seats: S(n) = m (1 - P(D* >= n)) + n P(D > n)
+        with D* = D (Poisson) or NB(r + 1, p) (from k p_r(k) = m p_{r+1}(k - 1))."""
+        m, nb, r, p = self._params(idx)
+        x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
+        n = np.floor(x)
+        sf_n = self.sf(n, idx)
+        n, m, nb, r, p = np.broadcast_arrays(n, m, nb, r, p)
+        tail = np.ones(n.shape)                  # P(D* > n - 1)
+        pos = n >= 1
+        po = pos & ~nb
+        tail[po] = special.gammainc(n[po], m[po])
+        q = pos & nb
+        tail[q] = special.betainc(n[q], r[q] + 1.0, 1.0 - p[q])
+        return m * (1.0 - tail) + n * sf_n + (x - n) * sf_n
+
+    def slopes(self, x, idx=None):
+        """(right, left) derivatives of S at x: P(D > floor x), and P(D > x - 1) at whole x."""
+        x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
+        fl = np.floor(x)
+        right = self.sf(fl, idx)
+        left = np.where(x == fl, self.sf(fl - 1.0, idx), right)
+        return right, left
+
+    def closing(self):
+        """a at and above which x = 0: f P(D > 0)."""
+        return self.fare * self.sf(np.zeros(self.n))
+
+    # -- the kink table -----------------------------------------------------------------------
+    def kinks(self, upper, owner):
+        """The seats' kinks (slope f P(D > k), width 1) up to the bound ``upper`` (whole seats)
+        and the tail, as a :class:`KinkTable` for the owner products ``owner``."""
+        m, nb = self.mean, self.negbin
+        upper = np.asarray(upper, dtype=np.float64)
+        umax = np.floor(np.where(np.isfinite(upper), np.minimum(upper, 2.0 ** 52), 2.0 ** 52)).astype(np.int64)
+        log_m = np.log(np.maximum(m, 1e-300))
+        log_q = np.where(nb, np.log1p(-np.where(nb, self.p, 0.5)), 0.0)
+        log_p0 = np.where(nb, self.r * np.log(np.where(nb, self.p, 1.0)), -m)
+        count = np.zeros(self.n, dtype=np.int64)
+        steps = []
+        active = np.flatnonzero(umax > 0)
+        logp = log_p0.copy()
+        cdf = np.zeros(self.n)
+        k = 0
+        while len(active):                      # a loop over seats, vectorized over products
+            cdf[active] += np.exp(logp[active])
+            sf = np.maximum(1.0 - cdf[active], 0.0)
+            steps.append((active, self.fare[active] * sf))
+            count[active] += 1
+            more = (sf > TAIL) & (k + 1 < umax[active])
+            a = active[more]
+            grow = np.where(nb[a], np.log(k + self.r[a]) + log_q[a], log_m[a])
+            logp[a] += grow - np.log(k + 1.0)
+            active = a
+            k += 1
+        ptr = np.zeros(self.n + 1, dtype=np.int64)
+        np.cumsum(count, out=ptr[1:])
+        slope = np.empty(int(ptr[-1]))
+        for seat, (act, s) in enumerate(steps):
+            slope[ptr[act] + seat] = s
+        keep = count > 0
+        return KinkTable(np.asarray(owner)[keep], count[keep], slope, np.ones(len(slope)))

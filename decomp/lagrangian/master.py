@@ -1,0 +1,114 @@
+"""The restricted problem near the optimum, and the pricing that keeps it exact.
+
+Near the dual optimum most kinks are clearly full (slope r_k well above the product's
+bid-price sum a_j) or clearly empty (well below); only kinks near a_j can change. The
+restricted problem ("master") fixes the others at their bounds and keeps as variables:
+
+- the kinks with |log(r_k / a_j)| <= MARGIN at the bid prices it is built from;
+- the smooth part of every normal and gamma product (beyond its jump, if any), except
+  products whose jump is fixed empty (they are closed: x = 0);
+
+with the capacities reduced by the fixed kinks' seats. It is a smaller PNLP, solved by
+the interior-point method (:mod:`.interior`). Fixing a kink at a bound is exact when
+the bid prices the master ends with still put it there: a full kink must have
+r_k >= a_j, an empty one r_k <= a_j (the complementary slackness of its bound). So
+:func:`price` checks every fixed kink at the master's bid prices with one binary search
+per product (:meth:`decomp.distributions.KinkTable.above`); if none is violated, the
+master's optimality conditions are the whole problem's (the certified gap confirms it),
+else the violated products' windows grow and the master is solved again (column
+generation: finite, as every round frees kinks and none is fixed again).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+#: Kinks within this distance of a_j in log(a) are free in the first master.
+MARGIN = 0.05
+#: A fixed kink's slope may be on the wrong side of a_j by this relative amount (rounding).
+PRICE_TOL = 1e-12
+#: A leg's capacity left by the fixed kinks must be at least this fraction of it (else the
+#: full kinks of its products are freed): the master needs room for its interior.
+ROOM = 1e-6
+
+
+@dataclasses.dataclass(eq=False)
+class Master:
+    """Which kinks are fixed or free, and the master's variables."""
+
+    lo: np.ndarray          # per kink owner: kinks [0, lo) fixed full
+    hi: np.ndarray          # per kink owner: kinks [hi, K) fixed empty
+    fixed_x: np.ndarray     # per product: seats of its fixed-full kinks
+    capacity: np.ndarray    # per leg: capacity minus the fixed seats
+    kink: np.ndarray        # flat indices of the free kinks in the kink table
+    kink_owner: np.ndarray  # their products
+    smooth: np.ndarray      # products whose smooth part is a variable
+    offset: np.ndarray      # their jump (the smooth part starts there)
+
+    @property
+    def size(self) -> int:
+        return len(self.kink) + len(self.smooth)
+
+
+def first_windows(net, pi):
+    """(lo, hi) per kink owner: the kinks within MARGIN of a_j in log(a) free."""
+    k = net.products.kinks
+    a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
+    lo = k.above(a * np.exp(MARGIN))
+    hi = k.above(a * np.exp(-MARGIN), lo=lo)
+    return lo, hi
+
+
+def build(net, lo, hi) -> Master:
+    """The master with the given windows (grown where the fixed seats leave a leg no room)."""
+    k = net.products.kinks
+    lo = lo.copy()
+    while True:
+        fixed_x = np.zeros(net.n_products)
+        if len(k.owner):
+            fixed_x[k.owner] = k.cum_w[k.pp + lo]
+        capacity = net.cap - net.load(fixed_x)
+        tight = capacity <= ROOM * np.maximum(net.cap, 1.0)
+        if not np.any(tight):
+            break
+        on_tight = net.to_products(net.AT_g @ tight.astype(np.float64)) > 0
+        grow = on_tight[k.owner] & (lo > 0)
+        if not np.any(grow):
+            break                            # the fixed seats are not what fills it
+        lo[grow] = 0
+    size = hi - lo
+    row = np.repeat(np.arange(k.n_owners), size)
+    kink = np.arange(int(size.sum())) - np.repeat(np.cumsum(size) - size, size) + np.repeat(k.ptr[:-1] + lo, size)
+    products = net.products
+    smooth = products.i_smooth
+    # a smooth part with no room beyond its jump (the jump reaches the bound) is no variable
+    smooth = smooth[net.upper[smooth] - products.jump[smooth] > 1e-9 * np.maximum(net.upper[smooth], 1.0)]
+    jump = products.jump[smooth]
+    if np.any(jump > 0):
+        # a jump fixed empty closes the product (its smooth part lies beyond the jump)
+        owner_row = products._kink_row(smooth)
+        closed = (jump > 0) & (owner_row >= 0)
+        closed[closed] = hi[owner_row[closed]] == 0
+        smooth, jump = smooth[~closed], jump[~closed]
+    return Master(lo=lo, hi=hi, fixed_x=fixed_x, capacity=capacity, kink=kink, kink_owner=k.owner[row],
+                  smooth=np.sort(smooth) if len(smooth) else smooth, offset=products.jump[np.sort(smooth)])
+
+
+def price(net, master, pi):
+    """Windows that make every fixed kink consistent with bid prices ``pi``, or None when all
+    already are (each product's count of kinks with r_k > a_j lies within its window)."""
+    k = net.products.kinks
+    if not len(k.owner):
+        return None
+    a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
+    above = k.above(a * (1.0 - PRICE_TOL))        # kinks surely profitable
+    below = k.above(a * (1.0 + PRICE_TOL))        # kinks surely not
+    low_bad = below < master.lo                  # a fixed-full kink is unprofitable
+    high_bad = above > master.hi                 # a fixed-empty kink is profitable
+    if not (np.any(low_bad) or np.any(high_bad)):
+        return None
+    lo = np.where(low_bad, np.maximum(below - 1, 0), master.lo)
+    hi = np.where(high_bad, np.minimum(above + 1, k.count), master.hi)
+    return lo, hi
