@@ -227,7 +227,11 @@ def warm_up():
             return
         if "inst" not in tiny:
             tiny["inst"], _ = bcases.load_instance("tiny")
-        decomp.solve(tiny["inst"], model=model, method=method, options=options)
+        if model == "sblp" and "choice" not in tiny:     # customer choice: a small network with markets
+            from decomp.choice.generate import generate_choice
+
+            tiny["choice"] = generate_choice(200, seed=bcases.CHOICE_SEED)
+        decomp.solve(tiny["choice" if model == "sblp" else "inst"], model=model, method=method, options=options)
         done.add((model, method))
 
     return run

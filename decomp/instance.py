@@ -41,6 +41,10 @@ class Instance:
     :data:`DISTRIBUTIONS`. ``leg_extra`` and ``product_extra`` keep any further
     columns of the input tables (fare class, origin, destination, ...), as
     arrays of their original text or numbers, so that writing gives them back.
+
+    ``markets`` is None (independent demand only) or a
+    :class:`decomp.choice.data.Markets`: the markets customers choose in under
+    the multinomial logit (read from ``markets.csv``; see :mod:`decomp.choice.data`).
     """
 
     leg_ids: np.ndarray
@@ -57,6 +61,7 @@ class Instance:
     leg_extra: Mapping[str, np.ndarray] = dataclasses.field(default_factory=dict)
     product_extra: Mapping[str, np.ndarray] = dataclasses.field(default_factory=dict)
     meta: Mapping[str, Any] = dataclasses.field(default_factory=dict)
+    markets: Any = None          # decomp.choice.data.Markets (customer choice), or None
 
     def __post_init__(self):
         set_ = object.__setattr__

@@ -7,6 +7,8 @@ An instance is a folder with two tables and an optional ``meta.json``:
   where ``legs`` holds the product's leg ids in travel order, separated by
   single spaces;
 * ``meta.json``: a JSON object (name, generator, seed, parameters, ...);
+* ``markets.csv`` (or ``markets.parquet``), optional: the markets customers choose in, with the
+  product columns ``market`` and ``preference_weight`` (:mod:`decomp.choice.data`);
 * ``.decomp``: the marker decomp writes into every folder it writes (:mod:`decomp.paths`);
   an existing folder is replaced only when it carries one.
 
@@ -63,7 +65,8 @@ log = logging.getLogger(__name__)
 
 META_FILE = "meta.json"
 FORMATS = ("csv", "parquet")
-INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE}
+INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet", META_FILE,
+                  "markets.csv", "markets.parquet"}      # markets: decomp.choice.data
 
 
 # ---------------------------------------------------------------------------
@@ -261,7 +264,9 @@ def read_instance(path) -> Instance:
     meta.setdefault("name", printable(folder.resolve().name))   # a folder's name is not the file's to police
     fields = fields_from_tables(legs, prods, meta=meta, where=Where(legs_path, prod_path, meta_path),
                                 typed=(legs_typed, prods_typed))
-    return Instance(**fields)
+    from .choice.data import read_markets       # customer choice: markets.csv, when there is one
+
+    return read_markets(folder, Instance(**fields), products_name=prod_path)
 
 
 def _read_meta(folder: pathlib.Path) -> tuple:
@@ -381,6 +386,9 @@ def write_instance(inst: Instance, path, format: str = "csv", *, option: str = "
                 for name, table in (("legs", legs), ("products", products)):
                     pq.write_table(table, tmp / f"{name}.parquet", compression="zstd")
             _write_meta(inst, tmp / META_FILE)
+            from .choice.data import write_markets   # customer choice: markets.csv, when there are markets
+
+            write_markets(inst, tmp, format)
             paths.write_marker(tmp, "instance")
             _replace_dir(tmp, target)
         except BaseException:

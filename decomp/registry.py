@@ -1,8 +1,11 @@
-"""Method registry: name -> class, filled by the :func:`register` decorator.
+"""Method registry: (model, name) -> class, filled by the :func:`register` decorator.
 
 A method class has ``name``, the ``models`` it solves, ``available()``
 returning (bool, reason) checked lazily, and ``solve(instance, model,
 options, warm_start)`` returning a :class:`~decomp.result.SolveResult`.
+One name may serve several models through different classes (``highs``
+solves the DLP and PWL in :mod:`decomp.methods.highs` and the choice-based
+``sblp`` in :mod:`decomp.choice.methods`); a (model, name) pair has one class.
 """
 
 from __future__ import annotations
@@ -11,13 +14,15 @@ import importlib
 
 from .errors import SolverUnavailableError, UnknownMethodError
 
-MODELS = ("dlp", "pnlp", "pwl")
+#: Models of independent demand (every network) and the choice-based sales LP (networks with markets).
+INDEPENDENT_MODELS = ("dlp", "pnlp", "pwl")
+MODELS = INDEPENDENT_MODELS + ("sblp",)
 
 #: The method a model is solved with when none is named, in the library and in every command
 #: (the fastest that certifies its answer on the instance ladder; see the README's benchmark).
-DEFAULT_METHOD = {"pnlp": "lagrangian", "dlp": "highs", "pwl": "highs"}
+DEFAULT_METHOD = {"pnlp": "lagrangian", "dlp": "highs", "pwl": "highs", "sblp": "lagrangian"}
 
-_METHODS: dict = {}
+_METHODS: dict = {}          # (model, name) -> class
 
 # The module whose import registers each built-in method (imported on first use:
 # one solve imports only its own method's solver libraries).
@@ -28,52 +33,59 @@ _BUILTIN_MODULES = {
     "pyomo-ipopt": "decomp.methods.pyomo_ipopt",
     "lagrangian": "decomp.methods.lagrangian",
 }
+# The module registering every method of a model that has its own (imported when the model is asked for).
+_MODEL_MODULES = {"sblp": "decomp.choice.methods"}
 
 
 def register(cls):
-    """Class decorator: add a method class to the registry under ``cls.name``."""
-    if cls.name in _METHODS and _METHODS[cls.name] is not cls:
-        raise ValueError(f"method name {cls.name!r} registered twice")
-    _METHODS[cls.name] = cls
+    """Class decorator: add a method class to the registry under (model, ``cls.name``) for its models."""
+    for model in cls.models:
+        old = _METHODS.get((model, cls.name))
+        if old is not None and old is not cls:
+            raise ValueError(f"method name {cls.name!r} registered twice for model {model!r}")
+        _METHODS[(model, cls.name)] = cls
     return cls
 
 
-def _load_builtins(name: str | None = None):
+def _load_builtins(name: str | None = None, model: str | None = None):
     """Import the module registering built-in method ``name`` (every one if None or unknown)."""
+    if model in _MODEL_MODULES:
+        importlib.import_module(_MODEL_MODULES[model])
     if name in _BUILTIN_MODULES:
         importlib.import_module(_BUILTIN_MODULES[name])
         return
-    for mod in _BUILTIN_MODULES.values():
+    for mod in (*_BUILTIN_MODULES.values(), *_MODEL_MODULES.values()):
         importlib.import_module(mod)
 
 
 def method_names() -> list:
     _load_builtins()
-    return sorted(_METHODS)
+    return sorted({name for _, name in _METHODS})
 
 
-def pairs() -> list:
-    """Every valid (model, method) pair."""
+def pairs(models=None) -> list:
+    """Every valid (model, method) pair (of the given ``models`` only, when given)."""
     _load_builtins()
-    return sorted((m, name) for name, cls in _METHODS.items() for m in cls.models)
+    return sorted(p for p in _METHODS if models is None or p[0] in models)
 
 
 def get_method(name: str, model: str):
     """The method class for ``name``, checked against ``model``."""
-    _load_builtins(name)
     if model not in MODELS:
         raise UnknownMethodError(f"unknown model {model!r}; valid models: {', '.join(MODELS)}")
-    if name not in _METHODS:
+    _load_builtins(name, model)
+    if (model, name) not in _METHODS:
         _load_builtins()
-    if name not in _METHODS:
-        raise UnknownMethodError(f"unknown method {name!r}; valid methods: {', '.join(sorted(_METHODS))}")
-    cls = _METHODS[name]
-    if model not in cls.models:
-        ok = [n for n, c in sorted(_METHODS.items()) if model in c.models]
+    if (model, name) not in _METHODS:
+        names = sorted({n for _, n in _METHODS})
+        if name not in names:
+            raise UnknownMethodError(f"unknown method {name!r}; valid methods: {', '.join(names)}")
+        solves = sorted(m for m, n in _METHODS if n == name)
+        ok = sorted(n for m, n in _METHODS if m == model)
         raise UnknownMethodError(
-            f"method {name!r} does not solve model {model!r} (it solves {', '.join(cls.models)}); "
+            f"method {name!r} does not solve model {model!r} (it solves {', '.join(solves)}); "
             f"methods for {model!r}: {', '.join(ok)}")
-    return cls
+    return _METHODS[(model, name)]
 
 
 def solve(instance, model: str = "pnlp", method: str | None = None, options=None, warm_start=None,

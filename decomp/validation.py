@@ -37,7 +37,22 @@ number columns             in a CSV file, text that reads as a number; in a Parq
                            DataFrame or a list, numbers (text there is refused, not parsed)
 meta (meta.json, meta=)    a JSON object; its text (keys and values, at any depth) holds none
                            of the characters refused in ids; ``distribution`` a known name
+arrivals (markets)         0 <= arrivals <= :data:`MAX_ARRIVALS` = 1e8 customers per market
+no_purchase_weight         0 < weight <= :data:`MAX_WEIGHT` = 1e12 (a market where nobody can
+(markets)                  leave has no logit sales LP)
+market ids (markets)       as leg and product ids
+market (products)          a market of the markets table, or empty (outside every market)
+preference_weight          0 < weight <= :data:`MAX_WEIGHT` where the product has a market,
+(products)                 empty where it has none; at most :data:`MAX_WEIGHT_RATIO` = 1e6
+                           times its market's no-purchase weight (the sales LP carries that
+                           ratio as a coefficient, and HiGHS' tolerances do not resolve much
+                           larger ones); an extra column, so text that reads as a number is
+                           one in any source
 =========================  ============================================================
+
+The markets (:mod:`decomp.choice.data`) come with a third table: :func:`market_fields` checks it
+with the products' ``market`` and ``preference_weight`` columns, :func:`check_instance` an
+in-memory instance's markets.
 
 Nothing here loops over products in Python: the checks are pyarrow compute and
 numpy over whole columns, and a refusal finds its row by ``argmax``.
@@ -68,6 +83,12 @@ MAX_CAPACITY = 1e12            # seats per leg
 MAX_FARE = 1e12                # fare units per seat
 MAX_DEMAND = 1e6               # mean and std of a product's demand, passengers
 MAX_LEGS_PER_ITINERARY = 16    # legs of one product
+MAX_ARRIVALS = 1e8             # customers per market over the horizon
+MAX_WEIGHT = 1e12              # preference and no-purchase weights
+MAX_WEIGHT_RATIO = 1e6         # a product's weight over its market's no-purchase weight
+
+MARKET_COLUMNS = ("market", "arrivals", "no_purchase_weight")
+PRODUCT_MARKET_COLUMNS = ("market", "preference_weight")
 SMALLEST_NONZERO = float(np.finfo(np.float64).tiny)
 
 
@@ -90,6 +111,14 @@ NUMBER_RULES = {
     "fare": NumberRule("products", "fare", True, MAX_FARE, "fare units", "fare must be > 0"),
     "mean": NumberRule("products", "mean", False, MAX_DEMAND, "passengers per product", "demand mean must be >= 0"),
     "std": NumberRule("products", "std", False, MAX_DEMAND, "passengers per product", "demand std must be >= 0"),
+    "arrivals": NumberRule("markets", "arrivals", False, MAX_ARRIVALS, "customers per market",
+                           "arrivals must be >= 0 (expected customers)"),
+    "no_purchase_weight": NumberRule("markets", "no_purchase_weight", True, MAX_WEIGHT, "(a weight)",
+                                     "the no-purchase weight must be > 0 (a market where nobody can leave has "
+                                     "no logit sales LP)"),
+    "preference_weight": NumberRule("products", "preference_weight", True, MAX_WEIGHT, "(a weight)",
+                                    "the preference weight must be > 0 (leave a product out of its market's "
+                                    "table to never sell it)"),
 }
 
 #: Characters no id, station code or meta text may hold (RE2 syntax for pyarrow, Python's for meta).
@@ -105,16 +134,21 @@ class UnusedLegWarning(UserWarning):
     """A leg that no product uses (allowed, but often a data mistake)."""
 
 
+class UnusedMarketWarning(UserWarning):
+    """A market that no product is sold in (allowed: its customers all leave)."""
+
+
 @dataclasses.dataclass(frozen=True)
 class Where:
-    """The names errors give the two tables and the meta data (file paths, or 'legs' / 'products')."""
+    """The names errors give the tables and the meta data (file paths, or 'legs' / 'products' / 'markets')."""
 
     legs: object = "legs"
     products: object = "products"
     meta: object = "meta"
+    markets: object = "markets"
 
     def of(self, table: str):
-        return self.legs if table == "legs" else self.products
+        return {"legs": self.legs, "markets": self.markets}.get(table, self.products)
 
 
 # ---------------------------------------------------------------------------
@@ -569,6 +603,121 @@ def check_instance(inst, where: Where = Where()) -> None:
         distribution = check_distribution(text(as_arrow(np.asarray(inst.distribution).astype(str)), pp,
                                                "distribution"), pp)
     check_negbin(distribution, inst.meta.get("distribution", "normal"), inst.mean, inst.std, pp)
+    check_instance_markets(inst, where)
+
+
+# ---------------------------------------------------------------------------
+# markets (customer choice): a third table and two product columns
+# ---------------------------------------------------------------------------
+
+def market_fields(markets: pa.Table, product_market, product_weight, *, where: Where = Where(),
+                  typed=True) -> dict:
+    """Check a markets table (Arrow) with the products' ``market`` and ``preference_weight`` columns
+    and return the :class:`decomp.choice.data.Markets` fields they hold.
+
+    ``product_market`` and ``product_weight``: those columns as ``Instance.product_extra`` keeps
+    them (text or numbers; None or empty for a product outside every market). ``typed``: the
+    markets table carries types (Parquet, a DataFrame), so its number columns must hold numbers.
+    A market no product is sold in is an :class:`UnusedMarketWarning`.
+    """
+    mp, pp = where.markets, where.products
+    check_names(markets.column_names, MARKET_COLUMNS, mp)
+    if markets.num_rows == 0:
+        raise InstanceError("the table has no rows", file=mp)
+    ids = check_ids(text(_col(markets, "market"), mp, "market"), mp, "market", "market")
+    values = {}
+    for col in ("arrivals", "no_purchase_weight"):
+        values[col] = numbers(_col(markets, col), mp, col, typed=typed)
+        check_numbers(values[col], NUMBER_RULES[col], mp)
+    w0 = values["no_purchase_weight"]
+
+    label = pc.utf8_trim_whitespace(pc.fill_null(_as_text(as_arrow(product_market), pp, "market"), ""))
+    has = pc.greater(pc.utf8_length(label), 0).to_numpy(zero_copy_only=False)
+    index = pc.index_in(label, value_set=ids)
+    unknown = has & ~index.is_valid().to_numpy(zero_copy_only=False)
+    if unknown.any():
+        i = _first(unknown)
+        raise InstanceError(f"unknown market '{label[i].as_py()}' (not in the markets table {mp}); add it "
+                            "there or leave the field empty for a product outside every market",
+                            file=pp, row=i + 1, column="market", value=label[i].as_py())
+    product_m = np.where(has, pc.fill_null(index, -1).to_numpy(zero_copy_only=False), -1).astype(np.int64)
+    weight = _preference_weights(as_arrow(product_weight), has, pp)
+    ratio = np.zeros(len(weight))
+    ratio[has] = weight[has] / w0[product_m[has]]
+    if (ratio > MAX_WEIGHT_RATIO).any():
+        i = _first(ratio > MAX_WEIGHT_RATIO)
+        raise InstanceError(f"the weight is more than {MAX_WEIGHT_RATIO:g} times its market's no_purchase_weight; "
+                            "scale the market's weights together", file=pp, row=i + 1, column="preference_weight",
+                            value=float(weight[i]))
+    used = np.zeros(len(w0), dtype=bool)
+    used[product_m[has]] = True
+    if not used.all():
+        k = _first(~used)
+        warnings.warn(f"{mp}: {int((~used).sum())} market(s) with no product, e.g. row {k + 1} "
+                      f"'{ids[k].as_py()}' (its customers all leave)", UnusedMarketWarning, stacklevel=4)
+    extra = {c: _extra(_col(markets, c), mp, c) for c in markets.column_names if c not in MARKET_COLUMNS}
+    return dict(market_ids=_objects(ids), arrivals=values["arrivals"], no_purchase_weight=w0,
+                product_market=product_m, weight=weight, extra=extra)
+
+
+def _as_text(arr: pa.Array, file, column) -> pa.Array:
+    """A column of ids that may have been read as numbers (an extra column), as text; nulls kept."""
+    if _is_text(arr.type):
+        return arr.cast(pa.string())
+    try:
+        return pc.cast(arr, pa.string())
+    except pa.ArrowException as exc:
+        raise InstanceError(f"the column has type {arr.type}, expected text", file=file, column=column) from exc
+
+
+def _preference_weights(arr: pa.Array, has: np.ndarray, file) -> np.ndarray:
+    """The preference weights as float64: given where the product has a market, empty elsewhere (0 there)."""
+    if _is_text(arr.type):
+        txt = pc.utf8_trim_whitespace(arr)
+        blank = pc.fill_null(pc.equal(pc.utf8_length(txt), 0), True).to_numpy(zero_copy_only=False)
+        filled = pc.if_else(pa.array(blank), "0", pc.fill_null(txt, "0"))
+        num = numbers(filled, file, "preference_weight", typed=False)
+    elif pa.types.is_null(arr.type):
+        blank, num = np.ones(len(arr), dtype=bool), np.zeros(len(arr))
+    else:
+        blank = ~arr.is_valid().to_numpy(zero_copy_only=False)
+        num = numbers(pc.fill_null(arr, 0), file, "preference_weight", typed=True) if len(arr) else np.zeros(0)
+        blank |= np.isnan(num)                 # a DataFrame's missing value
+    missing = has & blank
+    if missing.any():
+        raise InstanceError("a product sold in a market needs a preference weight", file=file,
+                            row=_first(missing) + 1, column="preference_weight")
+    stray = ~has & ~blank
+    if stray.any():
+        i = _first(stray)
+        raise InstanceError("a preference weight without a market: give the product's market, or leave the weight "
+                            "empty", file=file, row=i + 1, column="preference_weight", value=float(num[i]))
+    check_numbers(np.where(has, num, 1.0), NUMBER_RULES["preference_weight"], file)   # 1.0: no market, no rule
+    return np.where(has, num, 0.0)
+
+
+def check_instance_markets(inst, where: Where = Where()) -> None:
+    """The rules of :func:`market_fields` on an in-memory instance's markets (nothing without markets),
+    and its products' ``market`` and ``preference_weight`` columns saying the same as its markets."""
+    m = getattr(inst, "markets", None)
+    if m is None:
+        return
+    if m.n_products != inst.n_products:
+        raise InstanceError(f"the markets describe {m.n_products} products, the network has {inst.n_products}",
+                            file=where.markets)
+    for col in PRODUCT_MARKET_COLUMNS:
+        if col not in inst.product_extra:
+            raise InstanceError(f"missing product column '{col}' (the markets are written from it)",
+                                file=where.products, column=col)
+    table = pa.table({"market": as_arrow(m.market_ids), "arrivals": pa.array(m.arrivals, pa.float64()),
+                      "no_purchase_weight": pa.array(m.no_purchase_weight, pa.float64())})
+    with warnings.catch_warnings():          # a market without products was said when the markets were made
+        warnings.simplefilter("ignore", UnusedMarketWarning)
+        again = market_fields(table, inst.product_extra["market"], inst.product_extra["preference_weight"],
+                              where=where)
+    if not (np.array_equal(again["product_market"], m.product_market) and np.array_equal(again["weight"], m.weight)):
+        raise InstanceError("the markets' product assignment differs from the product columns market and "
+                            "preference_weight; build them with decomp.choice.with_markets", file=where.products)
 
 
 # ---------------------------------------------------------------------------

@@ -120,7 +120,7 @@ def _available_pairs() -> list:
     from .. import registry
 
     out = []
-    for model, method in registry.pairs():
+    for model, method in registry.pairs(registry.INDEPENDENT_MODELS):   # baselines: networks without markets
         ok, reason = registry.get_method(method, model).available()
         if ok:
             out.append((model, method))

@@ -184,14 +184,19 @@ def price_bid_prices(instance, bid_prices, paths: int, seed: int) -> dict | None
     """Mean revenue (and its 95 % interval) of fixed bid-price control on ``paths`` sample paths.
 
     None when there are no finite bid prices to price. Uses
-    :func:`decomp.simulation.run.revenue_for_bid_prices` (same seed, same paths).
+    :func:`decomp.simulation.run.revenue_for_bid_prices` (same seed, same paths), or on a
+    network with markets :func:`decomp.choice.simulation.path_revenues_for_bid_prices`
+    (customers choosing among the open products; each offered the best revenue-ordered set).
     """
     if bid_prices is None:
         return None
     bp = np.asarray(bid_prices, dtype=np.float64)
     if bp.shape != (instance.n_legs,) or not np.all(np.isfinite(bp)):
         return None
-    from decomp.simulation.run import path_revenues_for_bid_prices
+    if getattr(instance, "markets", None) is not None:     # customers choose (decomp.choice.simulation)
+        from decomp.choice.simulation import path_revenues_for_bid_prices
+    else:
+        from decomp.simulation.run import path_revenues_for_bid_prices
     from decomp.simulation.statistics import mean_ci
 
     per_path = path_revenues_for_bid_prices(instance, bp, int(paths), int(seed))

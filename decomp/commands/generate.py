@@ -33,6 +33,17 @@ def register(sub):
     p.add_argument("--two-stop", action=argparse.BooleanOptionalAction, default=None,
                    help="sell spoke-hub-hub-spoke itineraries (default: when there are 2+ hubs)")
     p.add_argument("--demand", type=demand_mix, metavar="MIX", help=DEMAND_HELP)
+    c = p.add_argument_group("customer choice (decomp.choice.generate)")
+    c.add_argument("--markets", action="store_true",
+                   help="sell the products in markets (origin, destination, first bank) where customers choose "
+                        "by logit: writes markets.csv and the product columns market, preference_weight "
+                        "(default: off, independent demand)")
+    c.add_argument("--weight-slope", type=number(0.0), metavar="G",
+                   help="preference weights fall with the fare as (top fare / fare)^G, G >= 0 (with --markets; "
+                        "default: 2)")
+    c.add_argument("--strong-buy-down-share", type=number(0.0, maximum=1.0), metavar="S",
+                   help="share of markets, in [0, 1], whose no-purchase weight is small, so customers buy the "
+                        "cheapest open fare (with --markets; default: 0.5)")
     p.set_defaults(func=run)
 
 
@@ -45,6 +56,7 @@ DEMAND_HELP = ("demand model: each product's family drawn with these shares, e.g
 
 
 def run(args) -> int:
+    from ..errors import ConfigError
     from ..generator import generate
     from ..io import check_instance_folder, write_instance
 
@@ -53,19 +65,33 @@ def run(args) -> int:
     check_instance_folder(args.out, "--out")
     for option, pair in (("--demand-factor", args.demand_factor), ("--cv", args.cv)):
         if pair is not None and pair[0] > pair[1]:
-            from ..errors import ConfigError
-
             raise ConfigError(f"{option} {pair[0]:g} {pair[1]:g}: LO must not exceed HI")
+    if not args.markets and (args.weight_slope is not None or args.strong_buy_down_share is not None):
+        raise ConfigError("--weight-slope and --strong-buy-down-share need --markets")
+    if args.markets and args.demand is not None:
+        raise ConfigError(f"--demand {args.demand!r} with --markets: a market's products take their mean from the "
+                          "logit and a Poisson spread; leave one of them out")
     overrides = {k: getattr(args, k) for k in ("hubs", "spokes", "banks", "fare_classes", "fare_ratio",
                                                "demand_factor", "cv", "two_stop", "demand")
                  if getattr(args, k) is not None}
     t0 = time.perf_counter()
-    inst = generate(args.products, seed=args.seed, **overrides)
+    inst = _generate(args, overrides) if args.markets else generate(args.products, seed=args.seed, **overrides)
     t1 = time.perf_counter()
     out = write_instance(inst, args.out, format=args.format, option="--out")   # full disk: exit 1, path named
     t2 = time.perf_counter()
     p = inst.meta["params"]
     print(f"wrote {out} ({args.format}): {inst.n_legs} legs, {inst.n_products} products; "
           f"{p['hubs']} hubs, {p['spokes']} spokes, {p['banks']} banks, {p['fare_classes']} fare classes, "
-          f"two-stop {'on' if p['two_stop'] else 'off'}; generated in {t1 - t0:.2f} s, written in {t2 - t1:.2f} s")
+          f"two-stop {'on' if p['two_stop'] else 'off'}"
+          + (f"; {inst.markets.n_markets} markets" if inst.markets is not None else "")
+          + f"; generated in {t1 - t0:.2f} s, written in {t2 - t1:.2f} s")
     return 0
+
+
+def _generate(args, overrides):
+    """A network with markets (decomp.choice.generate); --weight-slope and --strong-buy-down-share only here."""
+    from ..choice.generate import ChoiceParams, generate_choice
+
+    choice = {k: v for k, v in (("weight_slope", args.weight_slope),
+                                ("strong_share", args.strong_buy_down_share)) if v is not None}
+    return generate_choice(args.products, seed=args.seed, choice=ChoiceParams(**choice), **overrides)

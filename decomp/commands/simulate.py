@@ -27,6 +27,18 @@ counts its re-optimizations, those that ended non-optimal, those the fallback
 rescued and those that still priced with a non-optimal answer
 (``reoptimizations`` in simulation.json); the last are a WARNING in the report
 and on stderr.
+
+On a network with markets (customers choosing by logit; see decomp.choice) customers
+arrive by market and choose among what is open, the same customers for every policy;
+the policies are ``sblp[:METHOD]`` (bid prices of the sales-based LP, each customer
+offered the available set that maximizes expected fare net of displacement),
+``dlp[:METHOD]`` and ``pnlp[:METHOD]`` (bid prices from an independent-demand forecast
+made from sales with everything open) and ``fcfs``; the report gives each policy's
+revenue, its paired difference against the first policy and its share of the sales-based
+LP's value, an upper bound on any policy's expected revenue. ``--reestimate N`` adds N
+cycles of re-estimating each independent-demand forecast from its own sales (spiral-down).
+Options of the independent-demand simulation only (forecast errors, periods, target
+half-width, the cluster) are refused there.
 """
 
 from __future__ import annotations
@@ -36,6 +48,11 @@ import sys
 
 from . import _progress
 from ._options import count, number, positive, positive_number
+
+
+#: Default policies of a network without markets, and of one with markets (customer choice).
+INDEPENDENT_POLICIES = "pnlp:lagrangian:1e-9,dlp:highs,fcfs"
+CHOICE_POLICIES = "sblp:lagrangian,dlp:highs,pnlp:lagrangian,fcfs"
 
 
 def _floats(text: str, what: str, low: float, above: bool = False) -> list:
@@ -64,8 +81,12 @@ def register(sub):
     # numbers starting with a negative one is a value here (no option of this command looks like one)
     p._negative_number_matcher = re.compile(r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?(,[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)*$")
     p.add_argument("instance", help="instance folder, or a ladder rung name (p1k, p10k, ...)")
-    p.add_argument("--policies", default="pnlp:lagrangian:1e-9,dlp:highs,fcfs",
-                   help="comma-separated policy specifications (default: %(default)s)")
+    p.add_argument("--policies", default=None,
+                   help=f"comma-separated policy specifications (default: {INDEPENDENT_POLICIES}; on networks with "
+                        f"markets {CHOICE_POLICIES})")
+    p.add_argument("--reestimate", type=count, default=0, metavar="CYCLES",
+                   help="networks with markets: re-estimate each independent-demand forecast from its own sales "
+                        "for CYCLES seasons (spiral-down; default: 0, off)")
     p.add_argument("--paths", type=positive, default=200,
                    help="sample paths (the maximum with --target-halfwidth; default: %(default)s)")
     p.add_argument("--target-halfwidth", type=positive_number, default=None,
@@ -99,8 +120,16 @@ def run(args) -> int:
     from ..paths import refusing
     from ..simulation import report, simulate
     from ..simulation.cluster import open_client
+    from ..simulation.errors import SimulationConfigError
+    from ._options import load_instance
 
-    instance, cfg = _checked_simulation(args)
+    every, errors, fb = _checked_options(args)
+    instance = load_instance(args.instance)
+    if instance.markets is not None:
+        return _choice(args, instance, every, errors, fb)
+    if args.reestimate:
+        raise SimulationConfigError("--reestimate needs a network with markets (customer choice)")
+    cfg = _checked_config(args, instance, every, errors, fb)
     if args.workers == 0 and args.scheduler is None:
         print("decomp simulate: --workers 0: the paths run in this process (no Dask cluster)", file=sys.stderr)
     else:
@@ -126,15 +155,14 @@ def run(args) -> int:
     return 0
 
 
-def _checked_simulation(args) -> tuple:
-    """(instance, SimulationConfig) from the arguments, every one checked before anything is
-    simulated (exit 2, the option named)."""
+def _checked_options(args) -> tuple:
+    """(reoptimize-every days, forecast errors, fallback) from the arguments, checked before
+    anything is loaded or simulated (exit 2, the option named)."""
     from ..errors import UnknownMethodError
     from ..paths import output_folder
     from ..production import fallback
-    from ..simulation import ForecastError, SimulationConfig, parse_policies
-    from ..simulation.errors import SimulationConfigError
-    from ._options import check_method, check_scheduler, load_instance
+    from ..simulation import ForecastError
+    from ._options import check_method
 
     output_folder(args.out, "--out")
     every = _floats(args.reoptimize_every, "--reoptimize-every", 0.0, above=True)
@@ -150,21 +178,32 @@ def _checked_simulation(args) -> tuple:
             except UnknownMethodError:
                 if model == "pnlp":
                     raise
+    return every, errors, fb
+
+
+def _checked_config(args, instance, every, errors, fb):
+    """The SimulationConfig of a network without markets, its policies checked against the
+    instance (exit 2, the option named)."""
+    from ..errors import UnknownMethodError
+    from ..simulation import SimulationConfig, parse_policies
+    from ..simulation.errors import SimulationConfigError
+    from ._options import check_scheduler
+
+    text = args.policies if args.policies is not None else INDEPENDENT_POLICIES
     try:
-        policies = parse_policies(args.policies, periods=args.periods, fallback=fb)
+        policies = parse_policies(text, periods=args.periods, fallback=fb)
     except (SimulationConfigError, UnknownMethodError) as exc:
-        raise SimulationConfigError(f"--policies {args.policies!r}: {exc}") from None
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
     cfg = SimulationConfig(policies=policies, paths=args.paths, horizon=args.horizon, reoptimize_every=every,
                            forecast_errors=errors, seed=args.seed, target_halfwidth=args.target_halfwidth,
                            chunk=args.chunk)
-    instance = load_instance(args.instance)
     try:
         cfg.check(instance)
     except (SimulationConfigError, UnknownMethodError) as exc:
-        raise SimulationConfigError(f"--policies {args.policies!r}: {exc}") from None
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
     if args.scheduler is not None:
         check_scheduler(args.scheduler)
-    return instance, cfg
+    return cfg
 
 
 def _path_progress(show_bar: bool) -> tuple:
@@ -189,3 +228,50 @@ def _path_progress(show_bar: bool) -> tuple:
             bar["b"].close()
 
     return on_progress, close
+
+
+def _choice(args, instance, every, errors, fb) -> int:
+    """The simulation with customer choice (decomp.choice.simulation) and, with --reestimate, the spiral loop."""
+    from ..choice import report, simulation, spiral
+    from ..errors import UnknownMethodError
+    from ..paths import refusing
+    from ..registry import get_method
+    from ..simulation.errors import SimulationConfigError
+
+    unused = [flag for flag, given in (
+        ("--forecast-bias/--sigma-factor/--bias-spread", any(not e.exact for e in errors)),
+        ("--target-halfwidth", args.target_halfwidth is not None),
+        ("--scheduler/--workers", args.scheduler is not None or args.workers not in (None, 0)),
+        ("--periods", args.periods != 200),
+        ("a list of --reoptimize-every", len(every) > 1)) if given]
+    if unused:
+        raise SimulationConfigError(f"{', '.join(unused)}: not used on a network with markets (customer choice); "
+                                    "leave them out")
+    if args.paths < 2:
+        raise SimulationConfigError(f"--paths {args.paths}: the choice simulation needs at least 2 paths (for its "
+                                    "paired intervals)")
+    text = args.policies if args.policies is not None else CHOICE_POLICIES
+    try:
+        policies = simulation.parse_policies(text, fb)
+        for pol in policies:
+            if pol.model is not None:                 # priced by a solve: the method must solve its model
+                get_method(pol.method, pol.model)
+    except (SimulationConfigError, UnknownMethodError) as exc:
+        raise SimulationConfigError(f"--policies {text!r}: {exc}") from None
+    every_days = every[0] if every[0] < args.horizon else None
+    cfg = simulation.ChoiceSimConfig(policies=policies, paths=args.paths, seed=args.seed, horizon=args.horizon,
+                                     reoptimize_every=every_days, chunk=args.chunk, fallback=fb)
+    result = simulation.simulate(instance, cfg)
+    summary = result.summary()
+    spirals = {}
+    for pol in cfg.policies:
+        if args.reestimate and isinstance(pol, simulation.IndependentBidPrices):
+            cycles = spiral.run(instance, pol, args.reestimate, args.paths, seed=args.seed,
+                                reoptimize_every=every_days, horizon=args.horizon, bound=result.bound)
+            spirals[pol.label] = [c.to_dict() for c in cycles]
+    with refusing(args.out):
+        files = report.write(args.out, summary, spirals)
+    print(report.text(summary, spirals))
+    for f in files:
+        print(f"wrote {f}")
+    return 0

@@ -39,9 +39,11 @@ def register(sub):
     p = sub.add_parser("solve", help="solve an instance (dlp, pnlp or pwl) with a named method",
                        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("instance", metavar="INSTANCE", help="instance folder, or a ladder rung name")
-    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl"), help="the model (default: %(default)s)")
+    p.add_argument("--model", default="pnlp", choices=("dlp", "pnlp", "pwl", "sblp"),
+                   help="the model; sblp: the sales-based LP of customer choice, for networks with markets "
+                        "(default: %(default)s)")
     p.add_argument("--method", default=None, metavar="NAME",
-                   help="highs, pyomo-highs (dlp, pwl); ipopt, pyomo-ipopt, lagrangian (pnlp) "
+                   help="highs, pyomo-highs (dlp, pwl, sblp); ipopt, pyomo-ipopt (pnlp); lagrangian (pnlp, sblp) "
                         f"(default: {_defaults_text()})")
     p.add_argument("--tol", type=positive_number, metavar="T", help="solver tolerance (default: 1e-9)")
     p.add_argument("--time-limit", type=positive_number, metavar="S",

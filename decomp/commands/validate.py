@@ -43,10 +43,12 @@ def run(args) -> int:
     if args.json:
         print(json.dumps({"valid": True, "path": str(args.instance), "n_legs": inst.n_legs,
                           "n_products": inst.n_products, "n_product_legs": int(len(inst.leg_index)),
+                          "n_markets": None if inst.markets is None else inst.markets.n_markets,
                           "seconds": seconds, "warnings": [str(w.message) for w in caught]}, indent=2))
         return 0
     for w in caught:
         print(f"warning: {w.message}")
-    print(f"valid: {args.instance}: {inst.n_legs} legs, {inst.n_products} products, "
+    markets = "" if inst.markets is None else f", {inst.markets.n_markets} markets"
+    print(f"valid: {args.instance}: {inst.n_legs} legs, {inst.n_products} products{markets}, "
           f"{len(inst.leg_index)} product-leg pairs (read and checked in {seconds:.2f} s)")
     return 0

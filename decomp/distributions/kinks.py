@@ -64,8 +64,7 @@ class KinkTable:
         self._last = {}
 
     # The prefix sums and widths below are computed on first use: a family's own table is
-    # only concatenated into the products' table, and building them twice was half the
-    # table's build time (negative binomial at 100,000 products).
+    # only concatenated into the products' table, which needs its own.
     @functools.cached_property
     def pp(self):
         """Where each owner's prefix sums start: they have K + 1 entries per owner, entry
@@ -96,10 +95,10 @@ class KinkTable:
     def _prefix(self, values):
         """Per owner, the K + 1 prefix sums of its kinks' ``values`` (0 first), in one
         cumulative sum: each owner's leading entry holds minus the previous owner's total,
-        so the running sum starts again near 0 there. (Summing across all owners and then
-        subtracting each owner's base, as before, lost digits to the base: about 1e-6 of a
-        fare per entry in a table of 40 million kinks. The residual at each start here is
-        the rounding of one owner's total.)"""
+        so the running sum starts again near 0 there, and an owner's sums keep their digits
+        however large the table (subtracting each owner's base from one sum over all owners
+        would lose them to the base); the residual at each start is the rounding of one
+        owner's total."""
         n_own = len(self.count)
         out = np.zeros(len(values) + n_own)
         if not len(values):

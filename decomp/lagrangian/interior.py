@@ -185,6 +185,23 @@ class _Iterate:
             out += float(self._terms(v)[0].sum())
         return out
 
+    def move(self, direction, ap, ad):
+        """Take the primal step ap and the dual step ad along ``direction``."""
+        dv, ds, dl, dz, dt = direction
+        self.v, self.up = self.v + ap * dv, self.up - ap * dv
+        # a slack at the rounding of its leg's load is as good as none: keep it there
+        self.s = np.maximum(self.s + ap * ds, 1e-15 * np.maximum(self.capacity, 1.0))
+        self.z, self.t, self.lam = self.z + ad * dz, self.t + ad * dt, self.lam + ad * dl
+
+    def residuals(self, g):
+        """(dual residual per variable, primal residual per leg) at slopes ``g``; their
+        largest sizes kept as ``residual`` and ``infeasibility`` (relative to capacity)."""
+        rd = g - self.prices(self.lam) + self.z - self.t
+        rp = self.primal_residual()
+        self.residual = float(np.abs(rd).max(initial=0.0))
+        self.infeasibility = float((np.abs(rp) / np.maximum(self.capacity, 1.0)).max(initial=0.0))
+        return rd, rp
+
     def primal_residual(self):
         return self.capacity - self.net.A_g @ self.per_group(self.v) - self.s
 
@@ -256,10 +273,7 @@ def _barrier_step(net, system, cur, mu):
     (Fiacco-McCormick); (taken, the barrier problem's optimality error before it)."""
     var = cur.var
     g, h = cur.slopes(cur.v)
-    rd = g - cur.prices(cur.lam) + cur.z - cur.t
-    rp = cur.primal_residual()
-    cur.residual = float(np.abs(rd).max(initial=0.0))
-    cur.infeasibility = float((np.abs(rp) / np.maximum(cur.capacity, 1.0)).max(initial=0.0))
+    rd, rp = cur.residuals(g)
     v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
     err = max(cur.residual, cur.infeasibility, float(np.abs(v * z - mu).max(initial=0.0)),
               float(np.abs(up * t - mu).max(initial=0.0)), float(np.abs(s * lam - mu).max(initial=0.0)))
@@ -276,12 +290,7 @@ def _barrier_step(net, system, cur, mu):
         if ap <= 0.0:
             return False, err
     log.debug("barrier mu %.3g err %.3g steps %.3g %.3g", mu, err, ap, ad)
-    cur.v = v + ap * dv
-    cur.up = up - ap * dv
-    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
-    cur.z = z + ad * dz
-    cur.t = t + ad * dt
-    cur.lam = lam + ad * dl
+    cur.move(direction, ap, ad)
     return True, err
 
 
@@ -290,10 +299,7 @@ def _step(net, system, cur, mu, mu_min) -> bool:
     could be taken."""
     var = cur.var
     g, h = cur.slopes(cur.v)
-    rd = g - cur.prices(cur.lam) + cur.z - cur.t                 # dual residual per variable
-    rp = cur.primal_residual()
-    cur.residual = float(np.abs(rd).max(initial=0.0))
-    cur.infeasibility = float((np.abs(rp) / np.maximum(cur.capacity, 1.0)).max(initial=0.0))
+    rd, rp = cur.residuals(g)
     v, up, s, lam, z, t = cur.v, cur.up, cur.s, cur.lam, cur.z, cur.t
     solve = _Solver(net, system, cur, h, rp)
     if solve.failed:
@@ -326,13 +332,7 @@ def _step(net, system, cur, mu, mu_min) -> bool:
             return False
     log.debug("ipm mu %.3g sigma %.3g steps %.3g %.3g", mu, sigma, ap, ad)
     cur.last_steps = (ap, ad)
-    cur.v = v + ap * dv
-    cur.up = up - ap * dv
-    # a slack at the rounding of its leg's load is as good as none: keep it there
-    cur.s = np.maximum(s + ap * ds, 1e-15 * np.maximum(cur.capacity, 1.0))
-    cur.z = z + ad * dz
-    cur.t = t + ad * dt
-    cur.lam = lam + ad * dl
+    cur.move(direction, ap, ad)
     return True
 
 

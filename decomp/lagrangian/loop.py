@@ -55,11 +55,12 @@ SETTLE_CHECK = 8
 #: demand near closing), where the decrement may also cycle. At most NEWTON_ALONE
 #: iterations in any case.
 STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 50
-#: It has also stalled when, in SHORT_WINDOW iterations, SHORT_COUNT arc searches ended
-#: at a step of at most SHORT_STEP: near a minimizer with a Lipschitz Hessian the full
-#: step is accepted (the local theory of projected Newton), so repeated halving means
-#: the quadratic model fails at this scale (an allocation's steep fall to 0 near closing).
-SHORT_WINDOW, SHORT_COUNT, SHORT_STEP = 3, 2, 1.0 / 16.0
+#: It has also stalled when an arc search ended at a step of at most SHORT_STEP: near a
+#: minimizer with a Lipschitz Hessian the full step is accepted (the local theory of
+#: projected Newton), so four halvings mean the quadratic model fails at this scale (an
+#: allocation's steep fall to 0 near closing), and the interior-point method, whose
+#: convergence does not rest on that model, goes on from there.
+SHORT_STEP = 1.0 / 16.0
 #: Rounds of master and pricing at most.
 MASTER_ROUNDS = 8
 #: The master phase's iteration limit (or the caller's, if larger).
@@ -195,9 +196,7 @@ def newton_phase(state, pi0, theta_start=None):
                                or cont.stage_too_long()):
             if cont.lower() is None:
                 return "identified", pt.pi
-            lam = newton.LAM_START
-            pt = net.evaluate(pt.pi, cont.theta)
-            bounds.offer_dual(pt)
+            lam, pt = newton.LAM_START, _smoothed_again(net, pt, cont, bounds)
             continue
         decrements.append(dirn.decrement)
         gaps.append(bounds.gap)
@@ -210,9 +209,7 @@ def newton_phase(state, pi0, theta_start=None):
             if cont.theta > 0:
                 if cont.lower() is None:
                     return "identified", pt.pi
-                lam = newton.LAM_START
-                pt = net.evaluate(pt.pi, cont.theta)
-                bounds.offer_dual(pt)
+                lam, pt = newton.LAM_START, _smoothed_again(net, pt, cont, bounds)
                 continue
             bounds.offer_primal(*recover(net, pt))
             return ("optimal" if bounds.gap <= state.tol else "no_decrease"), bounds.pi
@@ -220,6 +217,13 @@ def newton_phase(state, pi0, theta_start=None):
         pt, _, step_len, lam = taken
         steps.append(step_len)
         bounds.offer_dual(pt)
+
+
+def _smoothed_again(net, pt, cont, bounds):
+    """The dual at ``pt``'s bid prices at the continuation's new (lower) smoothing level."""
+    pt = net.evaluate(pt.pi, cont.theta)
+    bounds.offer_dual(pt)
+    return pt
 
 
 def _stalled(values) -> bool:
@@ -232,8 +236,8 @@ def _stalled(values) -> bool:
 
 
 def _halving(steps) -> bool:
-    """SHORT_COUNT of the last SHORT_WINDOW arc searches ended at a step <= SHORT_STEP."""
-    return sum(t <= SHORT_STEP for t in steps[-SHORT_WINDOW:]) >= SHORT_COUNT
+    """The last arc search ended at a step <= SHORT_STEP."""
+    return bool(steps) and steps[-1] <= SHORT_STEP
 
 
 def _worth_recovering(pt, dirn, bounds, state, settle, fare_max) -> bool:

@@ -10,7 +10,7 @@ each attempt ended with; the summary counts the tasks that needed it.
 ``auto`` picks, per task:
 
 * DLP and PWL: ``highs`` (the LP by HiGHS' simplex/IPM, solved every DLP of the
-  issue-12 family);
+  issue-12 family); the same for the sales-based LP of customer choice (``sblp``);
 * PNLP with every product normal: ``ipopt`` (an interior-point method on the
   primal, solved all 206 normal-demand instances of that family);
 * PNLP with gamma, Poisson or negative-binomial products (which ``ipopt``
@@ -65,7 +65,7 @@ def choose(model: str, setting, instance) -> Fallback | None:
     """The fallback for this task's instance (None: no fallback)."""
     if setting is None or isinstance(setting, Fallback):
         return setting
-    if model in ("dlp", "pwl"):
+    if model in ("dlp", "pwl", "sblp"):         # sblp: the sales LP of customer choice (decomp.choice)
         return Fallback("highs")
     if bool((instance.distributions() == "normal").all()):
         return Fallback("ipopt")

@@ -82,6 +82,22 @@ def test_case_table_is_skip_free_and_ordered():
     assert max(c.n_products for c in full) == 1_000_000
 
 
+def test_choice_cases_quick_to_c100k_full_to_c1m_not_micro():
+    pairs = {("sblp", "lagrangian"), ("sblp", "highs"), ("sblp", "pyomo-highs"), ("dlp", "highs")}
+    ids = {s: {c.id for c in bcases.suite_cases(s, pairs, lambda m: True) if c.model == "sblp"}
+           for s in ("micro", "quick", "full")}
+    assert ids["micro"] == set()                          # the tiny rung has no markets
+    assert {"c100k-sblp-lagrangian-tol1e-09", "c100k-sblp-highs", "c1k-sblp-pyomo-highs"} <= ids["quick"]
+    assert not any(i.startswith("c1m") for i in ids["quick"])
+    assert {"c1m-sblp-lagrangian-tol1e-09", "c1m-sblp-highs", "c10k-sblp-pyomo-highs"} <= ids["full"]
+    case = next(c for c in bcases.suite_cases("full", pairs, lambda m: True) if c.id == "c1m-sblp-lagrangian-tol1e-09")
+    assert bcases.thresholds(case)["gap"] == 1e-9           # the target: certified gap <= 1e-9
+    # independent-demand cases keep their rungs and ids
+    quick = bcases.suite_cases("quick", pairs, lambda m: True)
+    dlp = {c.id for c in quick if c.model == "dlp" and c.kind == "solve"}
+    assert dlp == {f"{r}-dlp-highs" for r in ("p100", "p1k", "p10k", "p100k")}
+
+
 def test_threshold_parsing():
     assert parse_threshold("10%") == pytest.approx(0.10)
     assert parse_threshold("0.25") == pytest.approx(0.25)

@@ -16,10 +16,10 @@ import tempfile
 
 import pytest
 
-from support.tiny import write_benchmark, write_tiny
+from support.tiny import write_benchmark, write_tiny, write_tiny_markets
 
 #: (command line with placeholders, the word the message must hold). Placeholders: {inst} a valid
-#: instance folder, {res} a result of it, {bench} a benchmark.json, {base} a baseline folder, {file}
+#: instance folder, {mkt} one with markets (customer choice), {res} a result of it, {bench} a benchmark.json, {base} a baseline folder, {file}
 #: a regular file, {own} a folder of someone's own files, {out} where an output would go (must stay
 #: absent), {huge} a result JSON holding a 5,000-digit integer.
 SOLVE = ["solve", "{inst}", "--model", "dlp", "--method", "highs", "--out", "{out}/r.json"]
@@ -31,6 +31,8 @@ DECIDE = ["decide", "{res}", "--legs", "L1", "--fare", "100"]
 GEN = ["generate", "--products", "20", "--out", "{out}/g"]
 RECORD = ["baseline", "record", "--suite", "micro", "--out", "{out}/b"]
 CHECK = ["baseline", "check", "{base}"]
+SIM_MKT = ["simulate", "{mkt}", "--paths", "2", "--workers", "0", "--no-progress", "--out", "{out}/sim"]
+GEN_MKT = GEN + ["--markets"]
 SIZE = ["size", "--bench", "{bench}", "--products", "100000", "--window", "1h", "--out", "{out}/sz"]
 
 
@@ -66,6 +68,8 @@ CASES = [
     (_with(SOLVE, "--warm-start", "{res}"), "--warm-start"),
     (_with(SOLVE, "--model", "pnlp", "--method", "lagrangian", "--warm-start", "{huge}",
            drop=("--model", "--method")), "huge.json"),
+    (_with(SOLVE, "--model", "sblp", drop=("--model",)), "sblp"),       # a network without markets
+    (["solve", "{mkt}", "--model", "sblp", "--method", "ipopt", "--out", "{out}/r.json"], "--method"),
     *_values(SOLVE, "--out", ["", "{dir}", "{file}/x.json", "/dev/null"]),
     *_values(SOLVE, "--leg-table", ["{out}/t.txt", "{dir}", "{out}/r.json"]),
     *_values(SOLVE, "--product-table", ["{out}/p.xlsx", "{file}/p.csv"]),
@@ -111,6 +115,21 @@ CASES = [
     *_values(SIM, "--target-halfwidth", ["0", "-1"]),
     *_values(SIM, "--out", ["", "{file}", "/dev/null"]),
     (_with(SIM, "--scheduler", "tls://127.0.0.1:1", drop=("--workers",)), "--scheduler"),
+    *_values(SIM, "--reestimate", ["-1", "x", "2"]),                # 2: only on a network with markets
+    # simulate, a network with markets (customer choice)
+    *_values(SIM_MKT, "--policies", ["nosuch", "", "sblp:nosuch", "dlp:ipopt", "emsrb", "dynamic:dlp"]),
+    *_values(SIM_MKT, "--reestimate", ["-1", "x"]),
+    *_values(SIM_MKT, "--paths", ["1", "0"]),
+    *_values(SIM_MKT, "--forecast-bias", ["0.2", "-2"]),
+    *_values(SIM_MKT, "--sigma-factor", ["1.5"]),
+    *_values(SIM_MKT, "--periods", ["5"]),
+    *_values(SIM_MKT, "--target-halfwidth", ["10"]),
+    *_values(SIM_MKT, "--workers", ["2"]),
+    *_values(SIM_MKT, "--reoptimize-every", ["7,14", "0"]),
+    *_values(SIM_MKT, "--fallback", ["nosuch"]),
+    *_values(SIM_MKT, "--horizon", ["0"]),
+    *_values(SIM_MKT, "--out", ["", "{file}", "/dev/null"]),
+    (_with(SIM_MKT, "--scheduler", "tls://127.0.0.1:1", drop=("--workers",)), "--scheduler"),
     # tables
     *_values(TABLES, "--periods", ["0", "-1"]),
     *_values(TABLES, "--threads", ["0"]),
@@ -137,6 +156,12 @@ CASES = [
     *_values(GEN, "--format", ["xlsx"]),
     *_values(GEN, "--demand", ["poisson 0.7", "nosuch 1", ""]),
     *_values(GEN, "--out", ["", "{file}", "{own}"]),
+    *_values(GEN_MKT, "--weight-slope", ["-1", "nan", "x"]),
+    *_values(GEN_MKT, "--strong-buy-down-share", ["-0.1", "1.5", "inf"]),
+    (_with(GEN, "--weight-slope", "1"), "--markets"),
+    (_with(GEN, "--strong-buy-down-share", "0.5"), "--markets"),
+    (_with(GEN_MKT, "--demand", "gamma"), "--demand"),
+    *_values(GEN_MKT, "--out", ["{file}", "{own}"]),
     # baseline record
     *_values(RECORD, "--repeat", ["0", "-1"]),
     *_values(RECORD, "--suite", ["nosuch"]),
@@ -204,6 +229,7 @@ def _fixtures(root: pathlib.Path) -> dict:
     from decomp.instance import Instance
 
     inst = write_tiny(root / "inst")
+    mkt = write_tiny_markets(root / "mkt")
     res = root / "res.json"
     with contextlib.redirect_stdout(io.StringIO()):
         assert main(["solve", str(inst), "--model", "dlp", "--method", "highs", "--out", str(res)]) == 0
@@ -220,7 +246,7 @@ def _fixtures(root: pathlib.Path) -> dict:
     own = root / "own"
     own.mkdir()
     (own / "notes.txt").write_text("mine\n")
-    return {"inst": inst, "res": res, "huge": huge, "bench": bench, "base": base, "file": f, "own": own}
+    return {"inst": inst, "mkt": mkt, "res": res, "huge": huge, "bench": bench, "base": base, "file": f, "own": own}
 
 
 def classify(argv, fx: dict, work: pathlib.Path) -> tuple:

@@ -14,7 +14,7 @@ import pytest
 
 from decomp.cli import main
 
-from support.tiny import write_benchmark, write_tiny
+from support.tiny import write_benchmark, write_tiny, write_tiny_markets
 
 # HiGHS solves the inputs; `decomp bench` runs pytest in a subprocess and `decomp run` a Dask cluster.
 pytestmark = [pytest.mark.solver, pytest.mark.integration]
@@ -28,6 +28,7 @@ def _tree(root: pathlib.Path) -> dict:
 def inputs(tmp_path_factory):
     root = tmp_path_factory.mktemp("inputs")
     inst = write_tiny(root / "inst")
+    write_tiny_markets(root / "mkt")
     assert main(["solve", str(inst), "--model", "dlp", "--method", "highs", "--out", str(root / "r.json")]) == 0
     write_benchmark(root / "benchmark.json")
     return root
@@ -60,10 +61,15 @@ COMMANDS = {
                "--leg-table", "{dest}/legs.csv", "--product-table", "{dest}/products.parquet"],
               ["r.json", "legs.csv", "products.parquet"]),
     "generate": (["generate", "--products", "20", "--out", "{dest}/g"], ["g/legs.csv", "g/products.csv", "g/meta.json"]),
+    "generate --markets": (["generate", "--products", "50", "--markets", "--out", "{dest}/g"],
+                           ["g/legs.csv", "g/products.csv", "g/markets.csv", "g/meta.json"]),
     "tables": (["tables", "{inst}", "--static", "{res}", "--periods", "5", "--out", "{dest}/t.parquet"],
                ["t.parquet"]),
     "simulate": (["simulate", "{inst}", "--policies", "dlp:highs,fcfs", "--paths", "4", "--workers", "0",
                   "--no-progress", "--out", "{dest}/sim"], ["sim/simulation.json", "sim/simulation.md"]),
+    "simulate, markets": (["simulate", "{mkt}", "--policies", "sblp:highs,dlp:highs,fcfs", "--paths", "4",
+                           "--reestimate", "1", "--no-progress", "--out", "{dest}/sim"],
+                          ["sim/simulation.json", "sim/simulation.md"]),
     "run": (["run", "{inst}", "--out", "{dest}/run", "--workers", "1", "--no-progress"],
             ["run/summary.json", "run/summary.md", "run/run.json"]),
     "size": (["size", "--bench", "{bench}", "--products", "100000", "--window", "1h", "--out", "{dest}/sz"],
@@ -82,7 +88,7 @@ def test_a_command_writes_only_where_it_was_pointed(name, inputs, bench_run, tmp
     monkeypatch.chdir(work)
     before, before_run = _tree(inputs), _tree(bench_run.parent)
     argv, expected = COMMANDS[name]
-    words = {"inst": inputs / "inst", "res": inputs / "r.json", "bench": inputs / "benchmark.json", "dest": dest,
+    words = {"inst": inputs / "inst", "mkt": inputs / "mkt", "res": inputs / "r.json", "bench": inputs / "benchmark.json", "dest": dest,
              "run": bench_run}
     rc = main([a.format(**words) for a in argv])
     assert rc in (0, 1), rc                  # 1: a size that does not fit the window is still written

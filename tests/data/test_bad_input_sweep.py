@@ -4,7 +4,9 @@ traceback and never "valid". The inputs are variations of the hand-written table
 tests/support/tables.py: the hand-picked cases (``CASES``, ``SPECIAL``) and the
 generated families (``GENERATED``: every number column against every kind of bad number, in CSV
 and in Parquet; every id and station column against every refused character; itineraries; the
-files themselves; meta.json), made programmatically from the same small base.
+files themselves; meta.json), made programmatically from the same small base, and the same
+families for the markets of issue 27 (markets.csv and the product columns market and
+preference_weight).
 
 ``sweep()`` is also what the counts in the issue notes come from (run this file with
 ``PYTHONPATH=tests python tests/data/test_bad_input_sweep.py`` to print them: kinds, tracebacks, silently accepted).
@@ -332,7 +334,92 @@ for _k in ("a symlink loop", "a folder", "a FIFO", "a link to nothing", "Parquet
            "Parquet without column capacity", "Parquet naming a column twice", "not Parquet at all"):
     GENERATED_SPECIAL[f"legs {_k}"] = (_special_legs(_k), "legs.", None)
 
-GENERATED = {**_generated(), **GENERATED_SPECIAL}
+
+# ---------------------------------------------------------------------------- issue 27: markets (customer choice)
+#: The base tables with markets: products.csv with a market and a preference weight (P4 outside every
+#: market), and markets.csv.
+MARKET_PRODUCTS = [PRODUCTS[0] + ",market,preference_weight", PRODUCTS[1] + ",MA,1", PRODUCTS[2] + ",MA,2",
+                   PRODUCTS[3] + ",MB,1", PRODUCTS[4] + ",,"]
+MARKETS = ["market,arrivals,no_purchase_weight", "MA,30,1.5", "MB,20,0.8"]
+#: Number columns of the markets: (file, column, the row the bad value goes to).
+MARKET_NUMBER_COLUMNS = [("markets.csv", "arrivals", 2), ("markets.csv", "no_purchase_weight", 1),
+                         ("products.csv", "preference_weight", 2)]
+
+
+def _with_markets(products=None, markets=None, markets_table=None, markets_file="markets.csv"):
+    """A builder of a folder with markets: the base tables, or the given lines (None: no such file)."""
+    def build(d):
+        _write(d, products=MARKET_PRODUCTS if products is None else products)
+        if markets_table is not None:
+            pq.write_table(markets_table, d / "markets.parquet")
+        elif markets is not False:
+            (d / markets_file).write_text("\n".join(MARKETS if markets is None else markets) + "\n")
+    return build
+
+
+def _market_field(file, row, column, value):
+    quoted = '"' + value.replace('"', '""') + '"' if ("," in value or '"' in value) else value
+    if file == "markets.csv":
+        return _with_markets(markets=with_field(MARKETS, row, column, quoted))
+    return _with_markets(products=with_field(MARKET_PRODUCTS, row, column, quoted))
+
+
+def _market_parquet(column, row, make):
+    cols = {"market": pa.array(["MA", "MB"]), "arrivals": pa.array([30.0, 20.0]),
+            "no_purchase_weight": pa.array([1.5, 0.8])}
+    cols[column] = make(2, row - 1)
+    return _with_markets(markets_table=pa.table(cols))
+
+
+def _markets_generated() -> dict:
+    """name -> (builder, file named, row named): the markets table and the product columns market and
+    preference_weight, checked by decomp.validation as the other tables are."""
+    out = {}
+    for file, column, row in MARKET_NUMBER_COLUMNS:
+        for value in BAD_NUMBER_TEXTS + ["0"] * (column != "arrivals"):
+            shown = value if len(value) < 20 else f"{value[:8]}... ({len(value)} characters)"
+            out[f"{file} {column} = {shown!r}"] = (_market_field(file, row, column, value), file, row)
+        if file == "markets.csv":
+            for kind, make in BAD_NUMBER_ARRAYS.items():
+                row_named = row if kind not in ("text that reads as a number", "text", "boolean", "timestamp",
+                                                "binary", "list") else 1
+                out[f"markets.parquet {column} as {kind}"] = (_market_parquet(column, row, make), "markets.parquet",
+                                                              row_named)
+    for what, ch in REFUSED_CHARS.items():
+        out[f"markets.csv market with {what}"] = (_market_field("markets.csv", 2, "market", "M" + ch + "B"),
+                                                  "markets.csv", 2)
+        out[f"products.csv market with {what}"] = (_market_field("products.csv", 3, "market", "M" + ch + "B"),
+                                                   "products.csv", 3)
+    out["markets.csv market empty"] = (_market_field("markets.csv", 1, "market", ""), "markets.csv", 1)
+    out["markets.csv market twice"] = (_market_field("markets.csv", 2, "market", "MA"), "markets.csv", 2)
+    out["products.csv unknown market"] = (_market_field("products.csv", 3, "market", "MZ"), "products.csv", 3)
+    out["products.csv weight without a market"] = (_market_field("products.csv", 4, "preference_weight", "2"),
+                                                   "products.csv", 4)
+    out["products.csv weight 1e7 times the no-purchase weight"] = (
+        _market_field("products.csv", 2, "preference_weight", "1.5e7"), "products.csv", 2)
+    out["products.csv market column, no markets.csv"] = (_with_markets(markets=False), "products.csv", None)
+    out["markets.csv, products without the market columns"] = (_with_markets(products=PRODUCTS), "products.csv",
+                                                               None)
+    out["markets.csv header only"] = (_with_markets(markets=MARKETS[:1]), "markets.csv", None)
+    for col in ("market", "arrivals", "no_purchase_weight"):
+        k = MARKETS[0].split(",").index(col)
+        out[f"markets.csv without column {col}"] = (
+            _with_markets(markets=[",".join(f for i, f in enumerate(ln.split(",")) if i != k) for ln in MARKETS]),
+            "markets.csv", None)
+    out["markets.csv separated by ;"] = (_with_markets(markets=[ln.replace(",", ";") for ln in MARKETS]),
+                                         "markets.csv", None)
+    out["markets.csv and markets.parquet both"] = (
+        lambda d: (_with_markets()(d), pq.write_table(pa.table({"market": ["MA"], "arrivals": [1.0],
+                                                                "no_purchase_weight": [1.0]}),
+                                                      d / "markets.parquet")), "markets.", None)
+    for kind in ("a symlink loop", "a link to nothing", "a folder", "a FIFO"):
+        out[f"markets.csv {kind}"] = (
+            lambda d, kind=kind: (_with_markets(markets=False)(d), _not_a_table(d / "markets.csv", kind)),
+            "markets.csv", None)
+    return out
+
+
+GENERATED = {**_generated(), **GENERATED_SPECIAL, **_markets_generated()}
 
 
 def classify(d: pathlib.Path, file: str, row) -> tuple:

@@ -19,16 +19,17 @@ from support.networks import CANNED
 
 #: The methods of each model. A method added to the registry must be added here (the first test).
 METHODS = {"dlp": ("highs", "pyomo-highs"), "pnlp": ("ipopt", "pyomo-ipopt", "lagrangian"),
-           "pwl": ("highs", "pyomo-highs")}
-#: Methods that need neither HiGHS nor Ipopt.
-NO_SOLVER = ("lagrangian",)
+           "pwl": ("highs", "pyomo-highs"), "sblp": ("highs", "pyomo-highs", "lagrangian")}
+#: (model, method) pairs that need neither HiGHS nor Ipopt (the sales LP's decomposition solves its
+#: restricted master with HiGHS).
+NO_SOLVER = {("pnlp", "lagrangian")}
 
 
 def _cases():
     for net in CANNED:
         for model in net.models:
             for method in METHODS[model]:
-                marks = () if method in NO_SOLVER else (pytest.mark.solver,)
+                marks = () if (model, method) in NO_SOLVER else (pytest.mark.solver,)
                 yield pytest.param(net, model, method, id=f"{net.name}-{model}-{method}", marks=marks)
 
 

@@ -3,7 +3,7 @@
 - ``LEGS``, ``PRODUCTS``: the worked example, four legs and five products as DataFrames, whose DLP
   is solved by hand below (``HAND_REVENUE``, ``HAND_ALLOCATION``);
 - :func:`series`: two legs in series and one product, whose DLP duals are worked out by hand;
-- ``CANNED``: networks with their optimum worked out by hand (objective, allocation, the bid prices
+- ``CANNED``: networks (one with markets: customer choice) with their optimum worked out by hand (objective, allocation, the bid prices
   where the optimum fixes them), each for the models it answers; tests/methods/test_canned_networks.py
   checks every method on every one of its models.
 """
@@ -73,6 +73,18 @@ def _two_newsvendors() -> Instance:
                                [("pa", ["A"], 100.0, 15.0, 5.0), ("pb", ["B"], 80.0, 10.0, 4.0)])
 
 
+def _two_markets() -> Instance:
+    from decomp.choice import with_markets
+
+    legs = pd.DataFrame({"leg": ["A", "B"], "origin": ["AAA", "HUB"], "destination": ["HUB", "BBB"],
+                         "capacity": [30.0, 100.0]})
+    products = pd.DataFrame({"product": ["H", "L", "C"], "legs": ["A", "A", "B"], "fare": [200.0, 100.0, 80.0],
+                             "mean": [100 * 0.5 / 3, 100 * 1.5 / 3, 20.0], "std": [4.0, 7.0, 4.0],
+                             "market": ["M1", "M1", "M2"], "preference_weight": [0.5, 1.5, 1.0]})
+    markets = pd.DataFrame({"market": ["M1", "M2"], "arrivals": [100.0, 40.0], "no_purchase_weight": [1.0, 1.0]})
+    return with_markets(Instance.from_frames(legs, products), markets)
+
+
 def _expected_sales(x: float, mean: float, std: float) -> float:
     """E[min(max(D, 0), x)] for D ~ N(mean, std) as the integral of P(D > t) over [0, x] (a fact of
     nonnegative random variables), by scipy.integrate.quad on scipy.stats.norm.sf."""
@@ -102,4 +114,13 @@ CANNED = (
            HAND_REVENUE, HAND_ALLOCATION, {"A4": 0.0}, {("A1", "A2"): 300.0}),
     # series(): one product over both legs, 10 seats each: revenue 100 * 10, pi1 + pi2 = 100.
     Canned("series", ("dlp",), series, 1000.0, {"QAAQHXQAB-Y": 10.0}, {}, {("QAAQHX", "QHXQAB"): 100.0}),
+    # By hand, the sales LP under the multinomial logit (decomp.choice.lp): market M1 (100 arrivals,
+    # no-purchase weight 1) buys H (fare 200, weight 0.5) or L (fare 100, weight 1.5) on leg A (30
+    # seats); market M2 (40 arrivals, weight 1) buys C (fare 80, weight 1) on leg B (100 seats). M2:
+    # x_C <= y_2 and x_C + y_2 = 40 give x_C = 20 < 100 seats, so pi_B = 0 (complementary slackness).
+    # M1: leg A is worth 200 a seat for H against 100 for L; x_H <= 0.5 y_1 = 0.5 (100 - x_H) allows
+    # 33.3 > 30, so x_H = 30, x_L = 0, y_1 = 70. With H's ratio row slack, its balance row's dual is
+    # 0 (y_1 is basic at cost 0), so pi_A = 200 (x_H basic: LP duality); revenue 6000 + 1600 = 7600.
+    Canned("two markets", ("sblp",), _two_markets, 7600.0, {"H": 30.0, "L": 0.0, "C": 20.0},
+           {"A": 200.0, "B": 0.0}),
 )

@@ -24,6 +24,20 @@ def write_tiny(folder: pathlib.Path, legs: str | None = None, products: str | No
     return folder
 
 
+#: The same network with customer choice (issue 27): P1 and P2 sold in market MA, P3 in MB; means are
+#: the sales with everything open (arrivals x w / (w0 + sum w)).
+MARKET_PRODUCTS_CSV = ("product,legs,fare,mean,std,market,preference_weight\n"
+                       "P1,L1,100,40,6.325,MA,2\nP2,L1 L2,150,20,4.472,MA,1\nP3,L2,90,40,6.325,MB,1\n")
+MARKETS_CSV = "market,arrivals,no_purchase_weight\nMA,80,1\nMB,60,0.5\n"
+
+
+def write_tiny_markets(folder: pathlib.Path) -> pathlib.Path:
+    """The two-leg network of :func:`write_tiny` with its products sold in two markets."""
+    write_tiny(folder, products=MARKET_PRODUCTS_CSV)
+    (folder / "markets.csv").write_text(MARKETS_CSV)
+    return folder
+
+
 def write_benchmark(path: pathlib.Path) -> pathlib.Path:
     """A benchmark.json of three sizes timed t = 2e-6 n (what ``decomp size`` fits), tol 1e-9."""
     path.parent.mkdir(parents=True, exist_ok=True)
