@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..certify import relative_gap
 from ..result import Certificate
 from . import mnl
 from .data import require
@@ -48,7 +49,7 @@ def certify(instance, x, pi) -> Certificate:
     mean_out = np.maximum(instance.mean[outside], 0.0)
     dual = (float(instance.capacity @ pi_plus) + float(mp.arrivals @ R)
             + float(mean_out @ np.maximum(net[outside], 0.0)))
-    gap = (dual - primal) / max(1.0, abs(primal))
+    gap = relative_gap(dual, primal)
     return Certificate(max_violation=viol, max_violation_rel=viol_rel,
                        kkt_residual=_kkt(instance, mk, mp, x, net, R), dual_value=dual, primal_value=primal,
                        gap=float(gap), min_bid_price=float(pi.min()) if pi.size else 0.0)

@@ -40,6 +40,7 @@ import time
 
 import numpy as np
 
+from ..certify import relative_gap
 from .alternatives import run_lbfgsb, run_subgradient
 from .hessian import LegSystem
 from .loop import Outcome, run
@@ -65,7 +66,7 @@ def _reported_prices(net, out, x_live, fare_max, floor, tol):
         pi = snap_zeros(out.pi, fare_max) if resolution is None else np.where(out.pi <= resolution, 0.0, out.pi)
         if np.array_equal(pi, out.pi):
             return pi
-        gap = (net.evaluate(pi).exact - primal) / max(1.0, abs(primal))
+        gap = relative_gap(net.evaluate(pi).exact, primal)
         if gap <= limit:
             return pi
     return out.pi

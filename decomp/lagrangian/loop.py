@@ -29,6 +29,7 @@ import time
 
 import numpy as np
 
+from ..certify import relative_gap
 from ..result import IterationRecord, Termination
 from . import interior, master, newton
 from .continuation import Continuation
@@ -115,7 +116,7 @@ class Bounds:
     def gap(self) -> float:
         if self.x is None:
             return np.inf
-        return (self.dual - self.primal) / max(1.0, abs(self.primal))
+        return relative_gap(self.dual, self.primal)
 
 
 @dataclasses.dataclass

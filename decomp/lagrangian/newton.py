@@ -10,8 +10,10 @@ legs in the epsilon-active set
 (falling by at most a factor KAPPA per step, see :func:`step_floor`);
 the others (the free legs) take the Newton step of the reduced Hessian
 H_FF (+ lam I, Levenberg-Marquardt, after diagonal scaling). The trial point
-follows the projection arc pi(t) = [pi + t d]^+ and is accepted by Armijo's
-rule on that arc, q(pi) - q(pi(t)) >= sigma g.(pi - pi(t)), halving t. Every
+follows the projection arc pi(t) = max(pi + t d, l), l the step's lower bounds
+(the floor r below, and a fall by at most a factor KAPPA: :func:`step_floor`;
+the paper's arc is the case l = 0), and is accepted by Armijo's rule on that
+arc, q(pi) - q(pi(t)) >= sigma g.(pi - pi(t)), halving t. Every
 limit point is stationary, hence optimal for the convex dual (Proposition 2
 of the paper, for scalings with eigenvalues bounded away from 0 and
 infinity, which lam provides); near a solution at which the free legs are
