@@ -22,55 +22,20 @@ import dataclasses
 
 import numpy as np
 
-from ..errors import InstanceError
 from .discrete import DiscreteDemand, negbin_params
-from .gamma import GammaDemand
+from .gamma import RATIO_MIN, GammaDemand, GammaSubset
 from .kinks import KinkTable
 from .known import KnownDemand
 from .normal import MIN_RATIO, NormalDemand
-from .products import GAMMA, NEGBIN, NORMAL, POISSON, Products, Response
+from .products import FAMILIES, GAMMA, NEGBIN, NORMAL, POISSON, Products, Response, family_codes
 
 #: Family names, in the order of their codes (and of :data:`decomp.instance.DISTRIBUTIONS`).
-FAMILIES = ("normal", "gamma", "poisson", "negbin")
 
 __all__ = ["NORMAL", "GAMMA", "POISSON", "NEGBIN", "FAMILIES", "MIN_RATIO", "Products", "Response",
            "KinkTable", "NormalDemand", "GammaDemand", "DiscreteDemand", "KnownDemand", "family_codes",
            "gamma_params", "gamma_expected_sales", "gamma_fractile", "negbin_params", "discrete_sf",
            "discrete_expected_sales", "discrete_fractile", "Subproblems", "subproblems", "expected_sales",
            "marginal_sales", "marginal_sales_bounds"]
-
-
-def family_codes(instance) -> np.ndarray | None:
-    """Per-product family code (int8), or None when every product is normal.
-
-    Raises InstanceError naming the first row with an unknown name.
-    """
-    names = instance.distribution
-    if names is None:
-        default = str(instance.meta.get("distribution", "normal")).strip().lower()
-        if default not in FAMILIES:
-            raise InstanceError(f"unknown demand distribution in meta; use one of {', '.join(FAMILIES)}",
-                                column="distribution", value=default)
-        code = FAMILIES.index(default)
-        return None if code == NORMAL else np.full(instance.n_products, code, dtype=np.int8)
-    names = np.asarray(names, dtype=object)
-    codes = np.full(len(names), -1, dtype=np.int8)
-    for code, fam in enumerate(FAMILIES):          # a loop over 4 names, not over products
-        codes[names == fam] = code
-    left = np.nonzero(codes < 0)[0]
-    if len(left):                                  # other spellings ("Normal ", "GAMMA")
-        uniq, inv = np.unique(np.asarray(names[left], dtype=str), return_inverse=True)
-        inv = inv.reshape(-1)
-        fixed = np.empty(len(uniq), dtype=np.int8)
-        for i, name in enumerate(uniq):
-            key = name.strip().lower()
-            if key not in FAMILIES:
-                j = int(left[np.nonzero(inv == i)[0][0]])
-                raise InstanceError(f"unknown demand distribution; use one of {', '.join(FAMILIES)}",
-                                    row=j + 1, column="distribution", value=name)
-            fixed[i] = FAMILIES.index(key)
-        codes[left] = fixed[inv]
-    return None if not np.any(codes != NORMAL) else codes
 
 
 # ---------------------------------------------------------------------------
@@ -107,9 +72,7 @@ def gamma_fractile(ratio, mean, std):
     y = np.zeros(len(r))
     if np.any(inside):
         i = np.flatnonzero(inside)
-        from .gamma import _RATIO_MIN, _Sub
-
-        y[i] = _Sub(g, i).quantile(np.maximum(r[i], _RATIO_MIN), 1.0 - r[i])
+        y[i] = GammaSubset(g, i).quantile(np.maximum(r[i], RATIO_MIN), 1.0 - r[i])
     x = g.theta * y
     dens = g.density(x)
     with np.errstate(divide="ignore"):

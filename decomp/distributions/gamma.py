@@ -27,7 +27,7 @@ _ACCEPT = 1e-7
 _MAX_STEPS = 60
 #: Fractiles further out than this upper tail are taken at it (x is then about 460 stds
 #: out: a seat count with no material sales left).
-_RATIO_MIN = 1e-200
+RATIO_MIN = 1e-200
 
 
 class GammaDemand:
@@ -132,13 +132,13 @@ class GammaDemand:
         At the fractile Q = a/f and P = 1 - a/f, so f S(x) - a x = m (f - a) - f x g(y):
         the value needs no further incomplete gamma function."""
         f = self.fare
-        ratio = np.clip(a / f, _RATIO_MIN, 1.0)
+        ratio = np.clip(a / f, RATIO_MIN, 1.0)
         inside = ratio < 1.0
         y = np.zeros(self.n)
         if np.any(inside):
             i = np.flatnonzero(inside)
             complement = (f[i] - a[i]) / f[i]
-            y[i] = _Sub(self, i).quantile(ratio[i], complement)
+            y[i] = GammaSubset(self, i).quantile(ratio[i], complement)
         x = self.theta * y
         g = np.where(inside, self._g(y), 0.0)
         with np.errstate(divide="ignore", over="ignore"):
@@ -215,7 +215,7 @@ def _smaller_tail(k, y, low):
     return out
 
 
-class _Sub:
+class GammaSubset:
     """The parameters of a subset of a GammaDemand's products (for the quantile)."""
 
     def __init__(self, parent, idx):

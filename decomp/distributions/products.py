@@ -30,6 +30,8 @@ from .known import KnownDemand
 from .normal import NormalDemand
 
 NORMAL, GAMMA, POISSON, NEGBIN = 0, 1, 2, 3
+#: The family names, indexed by their codes.
+FAMILIES = ("normal", "gamma", "poisson", "negbin")
 #: A normal or gamma product's leading linear piece (its jump) becomes a kink when it is
 #: wider than this fraction of its mean (normal demand with CV below about 0.11); narrower
 #: ones stay with the smooth part, exact to 2^-53 of the fare times the piece (the
@@ -101,8 +103,6 @@ class Products:
 
     @classmethod
     def from_instance(cls, instance, products=None, upper=None):
-        from . import family_codes
-
         codes = family_codes(instance)
         idx = slice(None) if products is None else products
         return cls(instance.fare[idx], instance.mean[idx], instance.std[idx],
@@ -303,3 +303,36 @@ class SmoothPart:
             slope[pos] = fam.fare * sl
             curv[pos] = fam.fare * dens
         return value, slope, curv
+
+
+def family_codes(instance) -> np.ndarray | None:
+    """Per-product family code (int8), or None when every product is normal.
+
+    Raises InstanceError naming the first row with an unknown name.
+    """
+    names = instance.distribution
+    if names is None:
+        default = str(instance.meta.get("distribution", "normal")).strip().lower()
+        if default not in FAMILIES:
+            raise InstanceError(f"unknown demand distribution in meta; use one of {', '.join(FAMILIES)}",
+                                column="distribution", value=default)
+        code = FAMILIES.index(default)
+        return None if code == NORMAL else np.full(instance.n_products, code, dtype=np.int8)
+    names = np.asarray(names, dtype=object)
+    codes = np.full(len(names), -1, dtype=np.int8)
+    for code, fam in enumerate(FAMILIES):          # a loop over 4 names, not over products
+        codes[names == fam] = code
+    left = np.nonzero(codes < 0)[0]
+    if len(left):                                  # other spellings ("Normal ", "GAMMA")
+        uniq, inv = np.unique(np.asarray(names[left], dtype=str), return_inverse=True)
+        inv = inv.reshape(-1)
+        fixed = np.empty(len(uniq), dtype=np.int8)
+        for i, name in enumerate(uniq):
+            key = name.strip().lower()
+            if key not in FAMILIES:
+                j = int(left[np.nonzero(inv == i)[0][0]])
+                raise InstanceError(f"unknown demand distribution; use one of {', '.join(FAMILIES)}",
+                                    row=j + 1, column="distribution", value=name)
+            fixed[i] = FAMILIES.index(key)
+        codes[left] = fixed[inv]
+    return None if not np.any(codes != NORMAL) else codes

@@ -14,7 +14,8 @@ import time
 import numpy as np
 
 from ..result import Termination
-from .loop import Bounds, Outcome, record
+from .bounds import Bounds, record
+from .loop import Outcome
 from .recovery import recover
 
 log = logging.getLogger(__name__)

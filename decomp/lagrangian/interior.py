@@ -48,6 +48,9 @@ import time
 
 import numpy as np
 
+from . import newton
+from .bounds import record
+from .prices import FLOOR
 from .recovery import recover, smallest_over_legs, within_capacity
 
 log = logging.getLogger(__name__)
@@ -221,8 +224,6 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     """The interior-point method on ``master`` from bid prices ``pi0``; every certified
     iterate is offered to ``bounds``. Returns (termination word, iterations, pi, final
     iterate)."""
-    from .loop import record
-
     fmax = float(net.fare.max(initial=1.0))
     if not master.size:
         _certify(net, master, None, pi0, bounds)
@@ -479,9 +480,6 @@ def _certify(net, master, cur, pi, bounds, final=False, system=None):
     if final:
         bounds.offer_primal(*recover(net, pt))
         if system is not None:
-            from . import newton
-            from .prices import FLOOR
-
             fmax = float(net.fare.max(initial=1.0))
             floor = FLOOR * fmax
             pt = net.evaluate(np.maximum(pi, floor))

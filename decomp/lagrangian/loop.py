@@ -29,9 +29,9 @@ import time
 
 import numpy as np
 
-from ..certify import relative_gap
-from ..result import IterationRecord, Termination
+from ..result import Termination
 from . import interior, master, newton
+from .bounds import Bounds, record
 from .continuation import Continuation
 from .prices import ZERO_RESOLUTION
 from .recovery import recover
@@ -95,30 +95,6 @@ class Outcome:
     history: tuple
 
 
-class Bounds:
-    """The best upper bound (exact dual) and best lower bound (a feasible allocation)."""
-
-    def __init__(self):
-        self.dual = np.inf
-        self.pi = None
-        self.primal = -np.inf
-        self.x = None
-
-    def offer_dual(self, pt):
-        if pt.exact < self.dual:
-            self.dual, self.pi = pt.exact, pt.pi
-
-    def offer_primal(self, y, value):
-        if value > self.primal:
-            self.primal, self.x = value, y
-
-    @property
-    def gap(self) -> float:
-        if self.x is None:
-            return np.inf
-        return relative_gap(self.dual, self.primal)
-
-
 @dataclasses.dataclass
 class LoopState:
     """What both phases share: the problem, the limits, the bounds and the history."""
@@ -138,13 +114,6 @@ class LoopState:
 
     def out_of_time(self) -> bool:
         return self.deadline is not None and time.perf_counter() > self.deadline
-
-
-def record(it, bounds, pi, step, t0):
-    return IterationRecord(iteration=it, dual_value=float(bounds.dual) if np.isfinite(bounds.dual) else None,
-                           primal_value=None if bounds.x is None else float(bounds.primal),
-                           gap=float(bounds.gap) if np.isfinite(bounds.gap) else None, step=float(step),
-                           pi_norm=float(np.linalg.norm(pi)), seconds=time.perf_counter() - t0)
 
 
 def run(net, system, pi0, tol, limit, deadline, t0, floor, theta_start=None) -> Outcome:

@@ -35,8 +35,9 @@ def fare_start(net):
 
 def warm_prices(instance, warm_start, default):
     """Bid prices aligned with the instance's legs from a dict (by leg id) or an array;
-    missing or non-finite entries keep ``default``. Values above every fare on the leg
-    are clamped to the largest fare (any higher price closes the same products)."""
+    missing or non-finite entries keep ``default``. The range is not checked here:
+    ``decomp.solve`` clamps a warm start once, to [0, the largest fare on each leg]
+    (:mod:`decomp.warmstart`), and the loop starts from it no lower than its floor."""
     L = instance.n_legs
     if isinstance(warm_start, dict) or hasattr(warm_start, "keys"):
         pos = instance.leg_position()
@@ -54,8 +55,7 @@ def warm_prices(instance, warm_start, default):
             raise ConfigError(f"warm start has shape {arr.shape}; expected ({L},), one bid price per leg "
                               "in instance.leg_ids order (or pass a dict by leg id)")
         out = np.where(np.isfinite(arr), arr, default)
-    top = float(instance.fare.max(initial=0.0))
-    return np.clip(out, 0.0, top)
+    return out
 
 
 def snap_zeros(pi, fare_max):

@@ -19,7 +19,7 @@ from decomp import SolverOptions, Termination, solve
 from decomp.generator import generate
 from decomp.lagrangian import interior, master
 from decomp.lagrangian.hessian import LegSystem
-from decomp.lagrangian.loop import Bounds
+from decomp.lagrangian.bounds import Bounds
 from decomp.lagrangian.network import Network
 from decomp.lagrangian.prices import fare_start, price_closed_legs
 
