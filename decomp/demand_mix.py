@@ -161,7 +161,7 @@ NAMED = {
 }
 
 
-def _round_sig(x, digits=4):
+def round_sig(x, digits=4):
     x = np.asarray(x, dtype=np.float64)
     out = np.zeros_like(x)
     nz = x > 0
@@ -193,17 +193,17 @@ def apply(instance, mix: DemandMix, seed: int):
         if part.family in ("normal", "gamma"):
             names[sel] = part.family
             if spread is not None:
-                std[sel] = _round_sig(m * spread)
+                std[sel] = round_sig(m * spread)
         elif part.family == "poisson":
             names[sel] = "poisson"
-            std[sel] = _round_sig(np.sqrt(m))
+            std[sel] = round_sig(np.sqrt(m))
         elif part.family == "negbin":
             names[sel] = "negbin"
             vmr = np.full(len(m), NEGBIN_DEFAULT_VMR) if spread is None else spread
-            s = _round_sig(np.sqrt(vmr * m))
+            s = round_sig(np.sqrt(vmr * m))
             # rounding must keep std^2 > mean (the family's condition)
             low = s * s <= m * (1.0 + 1e-9)
-            s[low] = _round_sig(np.sqrt(m[low] * (1.0 + 1e-3)) * 1.001)
+            s[low] = round_sig(np.sqrt(m[low] * (1.0 + 1e-3)) * 1.001)
             std[sel] = s
         else:                                         # known demand
             names[sel] = "normal"

@@ -150,7 +150,7 @@ def _auto_shape(n: int, p: GeneratorParams):
     return int(hubs), int(banks), int(classes), bool(two_stop), leg_target
 
 
-def _round_sig(x: np.ndarray, digits: int) -> np.ndarray:
+def round_sig(x: np.ndarray, digits: int) -> np.ndarray:
     """Round to ``digits`` significant digits, as the nearest float to a short decimal."""
     x = np.asarray(x, dtype=np.float64)
     out = np.zeros_like(x)
@@ -418,9 +418,9 @@ def _demand(dist, size, its, net, it_of, cls, nleg, leg_index, banks: int, p: Ge
     raw_load = np.bincount(leg_index, weights=np.repeat(raw, nleg), minlength=net.n_legs)
     used = raw_load > 0
     scale = p.seats / np.median(raw_load[used]) if used.any() else 1.0
-    mean = _round_sig(np.maximum(raw * scale, 1e-6), 4)
+    mean = round_sig(np.maximum(raw * scale, 1e-6), 4)
     cv = rng.uniform(p.cv[0], p.cv[1], len(it_of))
-    std = _round_sig(mean * cv, 4)
+    std = round_sig(mean * cv, 4)
     load = np.bincount(leg_index, weights=np.repeat(mean, nleg), minlength=net.n_legs)
     target_df = rng.uniform(p.demand_factor[0], p.demand_factor[1], net.n_legs)
     return mean, std, np.maximum(1.0, np.round(load / target_df))

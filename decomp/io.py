@@ -73,7 +73,7 @@ INSTANCE_FILES = {"legs.csv", "products.csv", "legs.parquet", "products.parquet"
 # reading tables
 # ---------------------------------------------------------------------------
 
-def _not_a_file(path: pathlib.Path) -> str | None:
+def not_a_file(path: pathlib.Path) -> str | None:
     """Why ``path`` exists but cannot be read as a table file, or None (a file, or nothing there)."""
     try:
         st = os.stat(path)
@@ -90,10 +90,10 @@ def _not_a_file(path: pathlib.Path) -> str | None:
     return None
 
 
-def _find_table(folder: pathlib.Path, stem: str) -> tuple[pathlib.Path, str]:
+def find_table(folder: pathlib.Path, stem: str) -> tuple[pathlib.Path, str]:
     csv_path, pq_path = folder / f"{stem}.csv", folder / f"{stem}.parquet"
     for p in (csv_path, pq_path):
-        why = _not_a_file(p)
+        why = not_a_file(p)
         if why is not None:
             raise InstanceError(f"{p.name} is {why}", file=p)
     if csv_path.is_file() and pq_path.is_file():
@@ -122,7 +122,7 @@ def _csv_header(path: pathlib.Path) -> list[str]:
     return names
 
 
-def _read_csv(path: pathlib.Path, required) -> pa.Table:
+def read_csv_table(path: pathlib.Path, required) -> pa.Table:
     names = _csv_header(path)
     _check_delimiter(names, required, path)
     check_names(names, required, path)
@@ -220,7 +220,7 @@ def _parse_csv(path, names, threads):
     return table, (bad_rows[0] if bad_rows else None)
 
 
-def _read_parquet(path: pathlib.Path, required) -> pa.Table:
+def read_parquet_table(path: pathlib.Path, required) -> pa.Table:
     try:
         with pq.ParquetFile(path) as parquet:   # not pq.read_table: that imports pyarrow.dataset, a slow import
             table = parquet.read()
@@ -237,8 +237,8 @@ def _read_parquet(path: pathlib.Path, required) -> pa.Table:
 
 def _read_table(folder, stem, required):
     """(path, Arrow table, whether its columns carry types: Parquet yes, CSV no)."""
-    path, fmt = _find_table(folder, stem)
-    table = _read_csv(path, required) if fmt == "csv" else _read_parquet(path, required)
+    path, fmt = find_table(folder, stem)
+    table = read_csv_table(path, required) if fmt == "csv" else read_parquet_table(path, required)
     if table.num_rows == 0:
         raise InstanceError("the table has no rows", file=path)
     return path, table, fmt == "parquet"
@@ -273,7 +273,7 @@ def _read_meta(folder: pathlib.Path) -> tuple:
     """(path, the meta data) of ``folder/meta.json``; ({} when there is none). A link that leads
     nowhere, a folder, a device: refused, as for the tables."""
     path = folder / META_FILE
-    why = _not_a_file(path)
+    why = not_a_file(path)
     if why is not None:
         raise InstanceError(f"{META_FILE} is {why}", file=path)
     if not path.exists():
@@ -327,7 +327,7 @@ def _csv_field(arr: pa.Array) -> pa.Array:
     return pc.fill_null(pc.cast(arr, pa.string()), "")   # floats: shortest text that reads back exactly
 
 
-def _csv_bytes(table: pa.Table) -> bytes:
+def csv_bytes(table: pa.Table) -> bytes:
     header = ",".join(f'"{n}"' if any(c in n for c in ',"\r\n') else n for n in table.column_names)
     cols = [_csv_field(table.column(i).combine_chunks()) for i in range(table.num_columns)]
     lines = pc.binary_join_element_wise(*cols, ",") if len(cols) > 1 else cols[0]
@@ -380,8 +380,8 @@ def write_instance(inst: Instance, path, format: str = "csv", *, option: str = "
         try:
             os.chmod(tmp, 0o755)               # mkdtemp makes it private; an instance folder is not
             if format == "csv":
-                (tmp / "legs.csv").write_bytes(_csv_bytes(legs))
-                (tmp / "products.csv").write_bytes(_csv_bytes(products))
+                (tmp / "legs.csv").write_bytes(csv_bytes(legs))
+                (tmp / "products.csv").write_bytes(csv_bytes(products))
             else:
                 for name, table in (("legs", legs), ("products", products)):
                     pq.write_table(table, tmp / f"{name}.parquet", compression="zstd")

@@ -183,18 +183,18 @@ def read_markets(folder, instance, products_name="products"):
     A ``market`` product column without a markets file, or a markets file without
     the product columns, is an InstanceError naming what is missing.
     """
-    from ..io import _find_table, _not_a_file, _read_csv, _read_parquet
+    from ..io import find_table, not_a_file, read_csv_table, read_parquet_table
 
     folder = pathlib.Path(folder)
-    present = [folder / f for f in MARKET_FILES if (folder / f).exists() or _not_a_file(folder / f)]
+    present = [folder / f for f in MARKET_FILES if (folder / f).exists() or not_a_file(folder / f)]
     has_column = "market" in instance.product_extra
     if not present:
         if has_column:
             raise InstanceError("the products name markets but there is no markets.csv (or markets.parquet); "
                                 "add it, or drop the market column", file=products_name, column="market")
         return instance
-    path, fmt = _find_table(folder, "markets")
-    table = _read_csv(path, MARKET_COLUMNS) if fmt == "csv" else _read_parquet(path, MARKET_COLUMNS)
+    path, fmt = find_table(folder, "markets")
+    table = read_csv_table(path, MARKET_COLUMNS) if fmt == "csv" else read_parquet_table(path, MARKET_COLUMNS)
     return with_markets(instance, table, markets_name=path, products_name=products_name, typed=fmt == "parquet")
 
 
@@ -206,9 +206,9 @@ def write_markets(instance, folder, format: str) -> None:
     table = m.table()
     folder = pathlib.Path(folder)
     if format == "csv":
-        from ..io import _csv_bytes
+        from ..io import csv_bytes
 
-        (folder / "markets.csv").write_bytes(_csv_bytes(table))
+        (folder / "markets.csv").write_bytes(csv_bytes(table))
     else:
         import pyarrow.parquet as pq
 

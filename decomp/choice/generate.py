@@ -95,7 +95,7 @@ def generate_choice(n_products: int, seed: int = 0, params=None, choice: ChoiceP
     ``params`` and ``overrides``: the network generator's (:func:`decomp.generator.generate`);
     ``choice``: a :class:`ChoiceParams`.
     """
-    from ..generator import _round_sig, generate
+    from ..generator import round_sig, generate
 
     c = (choice or ChoiceParams()).validated()
     if overrides.get("demand") is not None:
@@ -108,15 +108,15 @@ def generate_choice(n_products: int, seed: int = 0, params=None, choice: ChoiceP
     fare = base.fare
     top = np.zeros(M)
     np.maximum.at(top, market, fare)
-    weight = _round_sig((top[market] / fare) ** c.weight_slope * rng.uniform(0.9, 1.1, len(fare)), 4)
+    weight = round_sig((top[market] / fare) ** c.weight_slope * rng.uniform(0.9, 1.1, len(fare)), 4)
     total = np.bincount(market, weights=weight, minlength=M)
     strong = rng.random(M) < c.strong_share
     ratio = np.where(strong, rng.uniform(*c.strong_no_purchase, M), rng.uniform(*c.weak_no_purchase, M))
-    w0 = _round_sig(ratio * total, 4)
+    w0 = round_sig(ratio * total, 4)
     base_demand = np.bincount(market, weights=base.mean, minlength=M)
-    arrivals = _round_sig(np.maximum(base_demand * (w0 + total) / total, 1e-3), 4)
-    mean = _round_sig(np.maximum(arrivals[market] * weight / (w0 + total)[market], 1e-6), 4)
-    std = _round_sig(np.sqrt(mean), 4)
+    arrivals = round_sig(np.maximum(base_demand * (w0 + total) / total, 1e-3), 4)
+    mean = round_sig(np.maximum(arrivals[market] * weight / (w0 + total)[market], 1e-6), 4)
+    std = round_sig(np.sqrt(mean), 4)
     load = np.bincount(base.leg_index, weights=np.repeat(mean, base.legs_per_product), minlength=base.n_legs)
     lo, hi = base.meta["params"]["demand_factor"]
     capacity = np.maximum(1.0, np.round(load / rng.uniform(lo, hi, base.n_legs)))

@@ -333,31 +333,15 @@ def run_policy(instance, tables, policy, customers: Customers, *, every: float |
         act = np.flatnonzero(pos < end)
         if len(act) == 0:
             break
-        now = customers.time[act, pos[act]]
         if policy.model is not None:
-            for p in act[now >= upcoming[step[act]]]:
-                while step[p] < len(times) and customers.time[p, pos[p]] >= times[step[p]]:
-                    step[p] += 1
-                new = policy.prices(instance, cap[p, :L], float(times[step[p] - 1]), forecast, bid[p, :L].copy(),
-                                    counts)
-                if new is not None:
-                    bid[p, :L] = new
+            _reoptimize_due(instance, policy, customers, act, pos, times, upcoming, step, cap, bid, forecast, counts)
         # every market's offer, per active path
         a = len(act)
         avail = (tables.products < P)[None] & np.all(cap[act][:, legs_m] >= 1, axis=3)          # (a, M, kmax)
         disp = bid[act][:, legs_m].sum(axis=3)
         offer = policy.offer(tables, np.tile(np.arange(M), a), np.tile(tables.products, (a, 1)),
                              avail.reshape(a * M, kmax), disp.reshape(a * M, kmax)).reshape(a, M, kmax) & avail
-        # the customers of this epoch (up to the window, the end, or the next re-optimization)
-        nxt = upcoming[step[act]]
-        stop = np.minimum(end[act], pos[act] + window)
-        length = stop - pos[act]
-        owner = np.repeat(np.arange(a), length)
-        idx = pos[act][owner] + (np.arange(int(length.sum())) - np.repeat(np.cumsum(length) - length, length))
-        row = act[owner]
-        t = customers.time[row, idx]
-        keep = (t < nxt[owner]) | (idx == pos[act][owner])       # re-optimize before the next epoch
-        owner, idx, row = owner[keep], idx[keep], row[keep]
+        owner, idx, row = _epoch(customers, act, pos, end, window, upcoming[step[act]])
         mk = customers.market[row, idx]
         off = offer[owner, mk]                                                           # (E, kmax)
         pr = tables.products[mk]
@@ -383,6 +367,33 @@ def run_policy(instance, tables, policy, customers: Customers, *, every: float |
         np.maximum.at(new_pos, owner[done], idx[done])
         pos[act] = new_pos + 1
     return Outcome(revenue=revenue, seats=seats, sales=sales[:, :P], offered=offered_n[:, :P])
+
+
+def _reoptimize_due(instance, policy, customers, act, pos, times, upcoming, step, cap, bid, forecast, counts):
+    """New bid prices (in ``bid``) for the active paths whose next customer comes after their
+    next re-optimization time; ``step`` counts each path's re-optimizations done."""
+    L = cap.shape[1] - 1
+    now = customers.time[act, pos[act]]
+    for p in act[now >= upcoming[step[act]]]:
+        while step[p] < len(times) and customers.time[p, pos[p]] >= times[step[p]]:
+            step[p] += 1
+        new = policy.prices(instance, cap[p, :L], float(times[step[p] - 1]), forecast, bid[p, :L].copy(), counts)
+        if new is not None:
+            bid[p, :L] = new
+
+
+def _epoch(customers, act, pos, end, window, nxt):
+    """(owner, idx, row) of the customers of this epoch: per active path (``owner``, its
+    position in ``act``; ``row``, the path), its customers ``idx`` from the next one up to
+    the window, the path's end or its next re-optimization time ``nxt`` (the first
+    customer always: a re-optimization is done before the epoch starts)."""
+    a = len(act)
+    length = np.minimum(end[act], pos[act] + window) - pos[act]
+    owner = np.repeat(np.arange(a), length)
+    idx = pos[act][owner] + (np.arange(int(length.sum())) - np.repeat(np.cumsum(length) - length, length))
+    row = act[owner]
+    keep = (customers.time[row, idx] < nxt[owner]) | (idx == pos[act][owner])
+    return owner[keep], idx[keep], row[keep]
 
 
 def _sellout(owner, idx, legs, cap, L, a) -> np.ndarray:

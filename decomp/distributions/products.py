@@ -262,7 +262,7 @@ class Products:
             out[pos] = fam.fare[loc] * fam.slope(x[pos], loc)
         k = self.kinks
         if len(k.owner):
-            row = self._kink_row(products)
+            row = self.kink_row(products)
             has = np.flatnonzero(row >= 0)
             if len(has):
                 right = k.right_slope(row[has], x[has])
@@ -274,14 +274,12 @@ class Products:
                 out[has[below]] = self.fare[products[has][below]]
         return out
 
-    def _kink_row(self, products):
+    def kink_row(self, products):
         """Per product of ``products``: its owner row in the kink table, or -1."""
         if getattr(self, "_row", None) is None:
             self._row = np.full(self.n, -1, dtype=np.int64)
             self._row[self.kinks.owner] = np.arange(self.kinks.n_owners)
         return self._row[np.asarray(products, dtype=np.int64)]
-
-
 
 
 class SmoothPart:

@@ -88,7 +88,7 @@ def build(net, lo, hi) -> Master:
     jump = products.jump[smooth]
     if np.any(jump > 0):
         # a jump fixed empty closes the product (its smooth part lies beyond the jump)
-        owner_row = products._kink_row(smooth)
+        owner_row = products.kink_row(smooth)
         closed = (jump > 0) & (owner_row >= 0)
         closed[closed] = hi[owner_row[closed]] == 0
         smooth, jump = smooth[~closed], jump[~closed]

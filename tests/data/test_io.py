@@ -97,7 +97,7 @@ def test_replaces_an_existing_instance_atomically(tmp_path, monkeypatch):
     out = io.write_instance(generate(50, seed=1), tmp_path / "inst")
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     # fail halfway through writing the replacement: the old folder must be untouched
-    real = io._csv_bytes
+    real = io.csv_bytes
     calls = []
 
     def failing(table):
@@ -106,12 +106,12 @@ def test_replaces_an_existing_instance_atomically(tmp_path, monkeypatch):
             raise OSError("disk full (simulated)")
         return real(table)
 
-    monkeypatch.setattr(io, "_csv_bytes", failing)
+    monkeypatch.setattr(io, "csv_bytes", failing)
     with pytest.raises(OSError, match="simulated"):
         io.write_instance(generate(60, seed=2), out)
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
     assert [p.name for p in tmp_path.iterdir()] == ["inst"]        # no temporary left behind
-    monkeypatch.setattr(io, "_csv_bytes", real)
+    monkeypatch.setattr(io, "csv_bytes", real)
     io.write_instance(generate(60, seed=2), out, format="parquet")
     assert sorted(p.name for p in out.iterdir()) == [".decomp", "legs.parquet", "meta.json", "products.parquet"]
     assert io.read_instance(out).n_products == 60
