@@ -269,6 +269,18 @@ _known_terms.select = lambda c, m, s: ~(((c == 0) & (s > 0)) | ((c == 1) & (s > 
                                         | (((c == 2) | (c == 3)) & (m > 0)))
 
 
+def checked_point(instance, x, pi):
+    """(x, pi) as float arrays, one allocation per product and one bid price per leg (a
+    ValueError naming the shape otherwise)."""
+    x = np.asarray(x, dtype=np.float64)
+    pi = np.asarray(pi, dtype=np.float64)
+    if x.shape != (instance.n_products,):
+        raise ValueError(f"certify: x has shape {x.shape}, expected ({instance.n_products},)")
+    if pi.shape != (instance.n_legs,):
+        raise ValueError(f"certify: pi has shape {pi.shape}, expected ({instance.n_legs},)")
+    return x, pi
+
+
 def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16,
             threads: int | None = None) -> Certificate:
     """The certificate of allocation ``x`` (per product) and bid prices ``pi`` (per leg).
@@ -280,12 +292,7 @@ def certify(instance, model: str, x, pi, *, dual_value=None, segments: int = 16,
     products on this many threads (:mod:`decomp.threads`; default all CPUs,
     from 200,000 products on).
     """
-    x = np.asarray(x, dtype=np.float64)
-    pi = np.asarray(pi, dtype=np.float64)
-    if x.shape != (instance.n_products,):
-        raise ValueError(f"certify: x has shape {x.shape}, expected ({instance.n_products},)")
-    if pi.shape != (instance.n_legs,):
-        raise ValueError(f"certify: pi has shape {pi.shape}, expected ({instance.n_legs},)")
+    x, pi = checked_point(instance, x, pi)
     if model not in ("dlp", "pnlp", "pwl"):
         raise ValueError(f"certify: unknown model {model!r}; valid models: dlp, pnlp, pwl")
     pi_plus = np.maximum(np.nan_to_num(pi, nan=0.0), 0.0)

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..certify import relative_gap
+from ..certify import checked_point, relative_gap
 from ..result import Certificate
 from . import mnl
 from .data import require
@@ -32,12 +32,7 @@ from .data import require
 def certify(instance, x, pi) -> Certificate:
     """The :class:`~decomp.result.Certificate` of sales ``x`` and bid prices ``pi`` on ``instance``."""
     mk = require(instance)
-    x = np.asarray(x, dtype=np.float64)
-    pi = np.asarray(pi, dtype=np.float64)
-    if x.shape != (instance.n_products,):
-        raise ValueError(f"certify: x has shape {x.shape}, expected ({instance.n_products},)")
-    if pi.shape != (instance.n_legs,):
-        raise ValueError(f"certify: pi has shape {pi.shape}, expected ({instance.n_legs},)")
+    x, pi = checked_point(instance, x, pi)
     mp = mnl.MarketProducts.of(mk)
     pi_plus = np.maximum(np.nan_to_num(pi, nan=0.0), 0.0)
     net = instance.fare - instance.leg_sum(pi_plus)

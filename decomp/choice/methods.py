@@ -67,7 +67,7 @@ class SalesLPHighs:
 
     def solve(self, instance, model, options, warm_start=None):
         from ..methods.common import import_solver
-        from ..methods.highs import apply_options, highs_version, new_highs, status_words, termination
+        from ..methods.highs import highs_version, iteration_count, run_lp, termination
         from .lp import lp_arrays
 
         highspy = import_solver("highspy", "pip install highspy")
@@ -91,25 +91,13 @@ class SalesLPHighs:
         h_lp.sense_ = highspy.ObjSense.kMaximize
         if "solver" not in options.solver_options:
             options = options.replace(solver_options={"solver": "ipm", **options.solver_options})
-        h = new_highs(options.verbose)
-        apply_options(h, options)
-        status = h.passModel(h_lp)
-        if status == highspy.HighsStatus.kError:
-            raise ConfigError(f"HiGHS rejected the sales LP of {instance.name} (HiGHS status: {status_words(status)})")
-        t1 = time.perf_counter()
-        if options.threads is not None:
-            # as in decomp.methods.highs: HiGHS keeps one thread scheduler per process, and a run asking
-            # for another thread count than the first fails unless it is reset
-            h.resetGlobalScheduler(True)
-        h.run()
-        t2 = time.perf_counter()
+        h, t1, t2 = run_lp(highspy, h_lp, options, f"the sales LP of {instance.name}")
         ms = h.getModelStatus()
-        info = h.getInfo()
         sol = h.getSolution()
         L, P = instance.n_legs, instance.n_products
         x = np.asarray(sol.col_value[:P], dtype=np.float64) if sol.value_valid else None
         pi = np.asarray(sol.row_dual[:L], dtype=np.float64) if sol.dual_valid else None
-        iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
+        iters = iteration_count(h.getInfo())
         return choice_result(instance, self.name, options, termination=termination(ms), x=x, pi=pi,
                              marks=(t0, t1, t2), iterations=iters, solver="highspy", solver_version=highs_version(),
                              raw_status=ms.name, message=h.modelStatusToString(ms))
@@ -129,49 +117,17 @@ class SalesLPPyomoHighs:
         return PyomoHighs.available()
 
     def solve(self, instance, model, options, warm_start=None):
-        from ..errors import SolverUnavailableError
-        from ..methods.highs import highs_option_values, highs_version
-        from ..methods.pyomo_highs import termination
-
-        try:
-            from pyomo.contrib.appsi.solvers import Highs
-        except ImportError as exc:
-            raise SolverUnavailableError("Pyomo's APPSI HiGHS interface is missing; pip install pyomo highspy") from exc
-        from models import dlp, sblp
-        from models.common import paused_gc
+        from ..methods.highs import highs_version
+        from ..methods.pyomo_highs import solve_appsi, termination
+        from models import sblp
 
         _check_model(self.name, model)
         t0 = time.perf_counter()
         require(instance)
         m = sblp.build(instance)
-        opt = Highs()
-        opt.config.load_solution = False
-        opt.config.stream_solver = bool(options.verbose)
-        if options.time_limit is not None:
-            opt.config.time_limit = float(options.time_limit)
-        opt.highs_options = highs_option_values(options)
         t1 = time.perf_counter()
-        with paused_gc():
-            res = opt.solve(m)
-        x = pi = None
-        iters = None
-        raw = getattr(opt, "_solver_model", None)
-        if raw is not None:
-            info = raw.getInfo()
-            iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
-        try:
-            for v, val in opt.get_primals().items():
-                v.set_value(val, skip_validation=True)
-            x = sblp.allocation(m, instance)
-        except RuntimeError:
-            x = None
-        try:
-            pi = dlp.bid_prices(m, instance, opt.get_duals())
-        except RuntimeError:
-            pi = None
+        res, x, pi, iters = solve_appsi(m, instance, options, sblp.allocation)
         t2 = time.perf_counter()
-        if x is not None and not np.all(np.isfinite(x)):
-            x = None
         return choice_result(instance, self.name, options, termination=termination(res.termination_condition),
                              x=x, pi=pi, marks=(t0, t1, t2), iterations=iters, solver="pyomo appsi_highs",
                              solver_version=highs_version(), raw_status=res.termination_condition.name, message=None)

@@ -162,6 +162,29 @@ def apply_options(h, options):
         _set(h, k, v)
 
 
+def run_lp(highspy, lp, options, what: str):
+    """A new Highs with ``options``, ``lp`` passed to it and run: (h, t1, t2), t1 when the
+    model is passed, t2 when the run ends. A model HiGHS rejects is a ConfigError naming
+    ``what``."""
+    h = new_highs(options.verbose)
+    apply_options(h, options)
+    status = h.passModel(lp)
+    if status == highspy.HighsStatus.kError:
+        raise ConfigError(f"HiGHS rejected {what} (HiGHS status: {status_words(status)})")
+    t1 = time.perf_counter()
+    if options.threads is not None:
+        # HiGHS keeps one thread scheduler per process; a run asking for a
+        # different thread count than the first one fails unless it is reset.
+        h.resetGlobalScheduler(True)
+    h.run()
+    return h, t1, time.perf_counter()
+
+
+def iteration_count(info) -> int:
+    """Simplex and interior-point iterations of a HiGHS run (its info; -1 means none)."""
+    return int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
+
+
 @register
 class HighsArrays:
     """DLP or PWL from the sparse arrays, one ``passModel``, duals from ``row_dual``."""
@@ -193,23 +216,10 @@ class HighsArrays:
         lp.a_matrix_.index_ = M.indices.astype(np.int32)
         lp.a_matrix_.value_ = M.data.astype(np.float64)
         lp.sense_ = highspy.ObjSense.kMaximize
-        h = new_highs(options.verbose)
-        apply_options(h, options)
-        status = h.passModel(lp)
-        if status == highspy.HighsStatus.kError:
-            raise ConfigError(f"HiGHS rejected the {model} LP of {instance.name} (HiGHS status: "
-                              f"{status_words(status)})")
-        t1 = time.perf_counter()
-        if options.threads is not None:
-            # HiGHS keeps one thread scheduler per process; a run asking for a
-            # different thread count than the first one fails unless it is reset.
-            h.resetGlobalScheduler(True)
-        h.run()
-        t2 = time.perf_counter()
+        h, t1, t2 = run_lp(highspy, lp, options, f"the {model} LP of {instance.name}")
         ms = h.getModelStatus()
         term = termination(ms)
-        info = h.getInfo()
-        iters = int(info.simplex_iteration_count) + max(0, int(info.ipm_iteration_count))
+        iters = iteration_count(h.getInfo())
         sol = h.getSolution()
         x = pi = None
         if sol.value_valid and n == len(sol.col_value):
