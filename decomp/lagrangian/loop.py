@@ -54,8 +54,10 @@ SETTLE_CHECK = 8
 #: nor the certified gap has fallen by a factor STALL_FACTOR in STALL_WINDOW iterations
 #: (quadratic convergence does far better): nearly kinked smooth terms (low-CV or gamma
 #: demand near closing), where the decrement may also cycle. At most NEWTON_ALONE
-#: iterations in any case.
-STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 50
+#: iterations in any case: Newton on a smooth dual that has not converged by then is
+#: outside the region where its quadratic model holds, and the interior-point method,
+#: whose convergence does not depend on that model, goes on.
+STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 16
 #: It has also stalled when an arc search ended at a step of at most SHORT_STEP: near a
 #: minimizer with a Lipschitz Hessian the full step is accepted (the local theory of
 #: projected Newton), so four halvings mean the quadratic model fails at this scale (an
