@@ -155,28 +155,12 @@ class GammaDemand:
 
     def sales(self, x, idx=None):
         """S(x) = m P(k, y) + x (Q(k, y) - g(y)), one incomplete gamma function per product."""
-        m, k, th, lgk = self._params(idx)
-        x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
-        y = x / th
-        low = y < k
-        small = _smaller_tail(k, y, low)              # P where y < k, Q beyond
-        p = np.where(low, small, 1.0 - small)
-        q = np.where(low, 1.0 - small, small)
-        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-            g = np.where(y > 0, np.exp(special.xlogy(k - 1.0, y) - y - lgk), 0.0)
-        return m * p + x * (q - g)
+        return _sales_and_slope(*self._params(idx), x)[0]
 
     def terms(self, x):
         """(S(x), S'(x), -S''(x)) of every product: one incomplete gamma function each."""
-        x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
-        y = x / self.theta
-        low = y < self.k
-        small = _smaller_tail(self.k, y, low)
-        p = np.where(low, small, 1.0 - small)
-        q = np.where(low, 1.0 - small, small)
-        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-            g = np.where(y > 0, np.exp(special.xlogy(self.k - 1.0, y) - y - self._lgk), 0.0)
-        return self.mean * p + x * (q - g), q, self.density(x)
+        s, q = _sales_and_slope(self.mean, self.k, self.theta, self._lgk, x)
+        return s, q, self.density(x)
 
     def subset(self, idx):
         """The products ``idx`` alone (parameters sliced, nothing computed again)."""
@@ -204,6 +188,20 @@ class GammaDemand:
     def closing(self):
         """a at and above which x = 0: f Q(k, 0) = f."""
         return self.fare.copy()
+
+
+def _sales_and_slope(m, k, th, lgk, x):
+    """(S(x), S'(x) = Q(k, y)) at y = x / theta, from one incomplete gamma function per
+    product (the smaller tail; the other is its complement)."""
+    x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
+    y = x / th
+    low = y < k
+    small = _smaller_tail(k, y, low)              # P where y < k, Q beyond
+    p = np.where(low, small, 1.0 - small)
+    q = np.where(low, 1.0 - small, small)
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        g = np.where(y > 0, np.exp(special.xlogy(k - 1.0, y) - y - lgk), 0.0)
+    return m * p + x * (q - g), q
 
 
 def _smaller_tail(k, y, low):

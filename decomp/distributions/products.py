@@ -19,6 +19,7 @@ level ``theta`` (:meth:`~.kinks.KinkTable.smoothed`), the smooth parts always ex
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 
@@ -276,10 +277,13 @@ class Products:
 
     def kink_row(self, products):
         """Per product of ``products``: its owner row in the kink table, or -1."""
-        if getattr(self, "_row", None) is None:
-            self._row = np.full(self.n, -1, dtype=np.int64)
-            self._row[self.kinks.owner] = np.arange(self.kinks.n_owners)
-        return self._row[np.asarray(products, dtype=np.int64)]
+        return self._owner_row[np.asarray(products, dtype=np.int64)]
+
+    @functools.cached_property
+    def _owner_row(self):
+        row = np.full(self.n, -1, dtype=np.int64)
+        row[self.kinks.owner] = np.arange(self.kinks.n_owners)
+        return row
 
 
 class SmoothPart:
