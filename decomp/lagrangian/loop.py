@@ -37,7 +37,9 @@ from .prices import ZERO_RESOLUTION
 from .recovery import recover
 
 #: Below this many products the recovery runs at every Newton iteration; above, only
-#: once the decrement (about twice q(pi) - q*) allows a gap within tol.
+#: once the decrement (about twice q(pi) - q*) allows a gap within tol, and where the
+#: phase stops at a limit (so that every stop has a certificate; the history shows no
+#: gap before the first recovery).
 RECOVER_ALWAYS_BELOW = 50_000
 #: With only smooth products (unique bid prices) and tol <= 1e-7, Newton also waits until
 #: its next step moves no bid price by more than this fraction of itself,
@@ -151,16 +153,15 @@ def newton_phase(state, pi0, theta_start=None):
         dirn = newton.direction(net, system, pt, lam, eps_bar, state.floor, previous, chords)
         near = dirn.decrement <= 10.0 * state.tol * max(1.0, abs(pt.exact))
         it = state.iterations + 1
-        if always or it == 1 or (near and _worth_recovering(pt, dirn, bounds, state, settle, fare_max)):
+        limit = "iteration_limit" if it >= state.limit else "time_limit" if state.out_of_time() else None
+        if always or limit or (near and _worth_recovering(pt, dirn, bounds, state, settle, fare_max)):
             bounds.offer_primal(*recover(net, pt, dirn, system, both=always))
         state.history.append(record(it, bounds, pt.pi, step_len, state.t0))
         state.iterations = it
         if bounds.gap <= state.tol and _may_stop(net, pt, dirn, bounds, settle, fare_max):
             return "optimal", bounds.pi
-        if it >= state.limit:
-            return "iteration_limit", pt.pi
-        if state.out_of_time():
-            return "time_limit", pt.pi
+        if limit:
+            return limit, pt.pi
         previous = None
         if cont.theta > 0 and len(decrements) >= NEWTON_ALONE:
             return "identified", pt.pi
