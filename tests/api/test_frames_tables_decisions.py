@@ -12,6 +12,7 @@ import pyarrow as pa
 import pytest
 
 import decomp
+import decomp.tables
 from decomp import Instance, InstanceError, SolveResult
 from decomp.errors import ConfigError
 from decomp.io import read_instance, write_instance
