@@ -442,10 +442,8 @@ def _neighbourhood(cur, direction, ap, ad):
 
 def _longest(value, change):
     """The largest t <= 1 with value + t change >= 0 (value > 0)."""
-    neg = change < 0
-    if not np.any(neg):
-        return 1.0
-    return float(min(1.0, np.min(-value[neg] / change[neg])))
+    ratio = np.divide(value, change, out=np.full(len(value), -np.inf), where=change < 0)
+    return float(min(1.0, -ratio.max(initial=-np.inf)))
 
 
 def _armijo(cur, g, dv, ds, alpha, mu):
