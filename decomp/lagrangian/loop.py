@@ -50,8 +50,6 @@ BID_TOL = 1e-6
 #: about C times the step's square (C measured up to 160 on the ladder's warm starts: a
 #: step of at most 3e-5 leaves an error of at most about 1.5e-7).
 FINAL_STEP = 3e-5
-#: While they settle, the recovery runs every this many iterations (:func:`_worth_recovering`).
-SETTLE_CHECK = 8
 #: Newton without kinks has stalled when neither its decrement (an estimate of q(pi) - q*)
 #: nor the certified gap has fallen by a factor STALL_FACTOR in STALL_WINDOW iterations
 #: (quadratic convergence does far better): nearly kinked smooth terms (low-CV or gamma
@@ -154,7 +152,7 @@ def newton_phase(state, pi0, theta_start=None):
         near = dirn.decrement <= 10.0 * state.tol * max(1.0, abs(pt.exact))
         it = state.iterations + 1
         limit = "iteration_limit" if it >= state.limit else "time_limit" if state.out_of_time() else None
-        if always or limit or (near and _worth_recovering(pt, dirn, bounds, state, settle, fare_max)):
+        if always or limit or (near and _worth_recovering(pt, dirn, bounds, state.tol, settle, fare_max)):
             bounds.offer_primal(*recover(net, pt, dirn, system, both=always))
         state.history.append(record(it, bounds, pt.pi, step_len, state.t0))
         state.iterations = it
@@ -213,17 +211,15 @@ def _halving(steps) -> bool:
     return bool(steps) and steps[-1] <= SHORT_STEP
 
 
-def _worth_recovering(pt, dirn, bounds, state, settle, fare_max) -> bool:
+def _worth_recovering(pt, dirn, bounds, tol, settle, fare_max) -> bool:
     """Near the optimum, a recovery (a pass over the products) is of use only where Newton
     could stop: not once the gap is certified (the dual bound still falls, so it stays
     within tol), nor while the bid prices must still settle and the next step moves one by
-    more than FINAL_STEP (see _may_stop), except every SETTLE_CHECK-th iteration, so that a
-    run ending at a limit while settling has a recent certificate."""
-    if bounds.gap <= state.tol:
+    more than FINAL_STEP (see _may_stop): there the allocation it predicts is still off by
+    about that step, far more than the dual value. (A stop at a limit recovers anyway.)"""
+    if bounds.gap <= tol:
         return False
-    if settle is None or state.iterations % SETTLE_CHECK == SETTLE_CHECK - 1:
-        return True
-    return _settled(pt, np.maximum(pt.pi + dirn.d, dirn.lower), FINAL_STEP, fare_max)
+    return settle is None or _settled(pt, np.maximum(pt.pi + dirn.d, dirn.lower), FINAL_STEP, fare_max)
 
 
 def _may_stop(net, pt, dirn, bounds, settle, fare_max) -> bool:
