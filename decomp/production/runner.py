@@ -230,6 +230,7 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
         "error": None if result.ok else (result.message or result.termination.value),
         "seconds": {"load": t1 - t0, "solve": t2 - t1,
                     "solver": {k: float(v) for k, v in result.seconds.items()}},
+        "worker_peak_rss_mib": worker_peak_rss_mib(),
     }
     del inst
     try:
@@ -242,6 +243,16 @@ def run_task(spec: TaskSpec, cfg: RunConfig, fingerprint: str) -> dict:
                          f"[Errno {exc.errno}]",
                 "seconds": {"load": t1 - t0, "solve": t2 - t1, "total": time.perf_counter() - t0}}
     return record
+
+
+def worker_peak_rss_mib() -> float | None:
+    """The peak resident set of this process since it started, in MiB (getrusage's
+    ru_maxrss, KiB on Linux): in a worker, what it needed for its largest task so far."""
+    try:
+        import resource
+    except ImportError:                       # not on every platform
+        return None
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def _write_task(out, spec, fingerprint, record, result, t0, t2) -> None:

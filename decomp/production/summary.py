@@ -63,7 +63,8 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
             "seconds_total": _f(sec.get("total")), "seconds_solve": _f(sec.get("solve")),
             "seconds_load": _f(sec.get("load")), "error": short(rec.get("error")),
             "method": rec.get("method"), "fallback_used": bool(rec.get("fallback_used")),
-            "redone": rec.get("redone"),
+            "redone": rec.get("redone"), "worker": rec.get("pid"),
+            "worker_peak_rss_mib": _f(rec.get("worker_peak_rss_mib")),
         })
     count = lambda st: sum(1 for t in tasks if t["task_status"] == st)  # noqa: E731
     ran = [t for t in tasks if not t["skipped"] and t["task_status"] in ("ok", "not_optimal", "failed")]
@@ -78,6 +79,7 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
         "wall_seconds": wall_seconds, "cluster_start_seconds": cluster_seconds,
         "workers": workers, "task_seconds_sum": task_sum, "solve_seconds_sum": solve_sum,
         "max_gap": max((t["gap"] for t in tasks if isinstance(t.get("gap"), (int, float))), default=None),
+        "worker_peak_rss_mib": _worker_peaks(ran),
     }
     # Everything a task costs beyond its solve (instance build, warm-start read,
     # writing, scheduling, idle at the end), per task, on these workers.
@@ -106,6 +108,17 @@ def build_summary(batch, cfg, records: dict, *, wall_seconds: float, cluster_sec
         "interrupted": interrupted, "stopped": short(stopped), "signal_after_last_task": signal_after_last_task,
         "totals": totals, "tasks": tasks,
     }
+
+
+def _worker_peaks(ran) -> dict:
+    """Per worker process (its pid) that ran tasks here: its peak resident set in MiB, the
+    largest its tasks recorded (each records the peak of its process so far)."""
+    peaks = {}
+    for t in ran:
+        pid, peak = t.get("worker"), t.get("worker_peak_rss_mib")
+        if pid is not None and peak is not None:
+            peaks[str(pid)] = max(peaks.get(str(pid), 0.0), peak)
+    return peaks
 
 
 def _same_run(earlier, cfg) -> bool:
@@ -150,6 +163,9 @@ def to_markdown(s: dict) -> str:
     if t.get("overhead_per_task_seconds") is not None:
         lines.append(f"- overhead per task beyond the solve: {t['overhead_per_task_seconds']:.3f} s; "
                      f"throughput {t['throughput_tasks_per_minute']:.1f} tasks/min")
+    if t.get("worker_peak_rss_mib"):
+        peaks = ", ".join(f"{v:.0f}" for v in sorted(t["worker_peak_rss_mib"].values(), reverse=True))
+        lines.append(f"- peak memory per worker (resident set, MiB): {peaks}")
     m = s.get("measurements") or {}
     if not t.get("run") and m.get("tasks_run"):
         lines.append(f"- nothing solved in this run; the measurements for sizing (overhead per task "

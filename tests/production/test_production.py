@@ -142,6 +142,13 @@ def test_clean_run(clean):
     t = s["totals"]
     assert t["ok"] == t["n_tasks"] == len(b) and t["failed"] == 0 and t["skipped"] == 0
     assert (out / "summary.json").is_file() and "| 2027-03-01 | ok |" in (out / "summary.md").read_text()
+    # Peak memory per worker: every worker process that ran a task is listed with the largest
+    # peak its tasks recorded (getrusage); a Python process that has imported numpy and scipy
+    # holds well over 30 MiB (common practice, from memory: about 60-100 MiB).
+    pids = {str(t["worker"]) for t in s["tasks"]}
+    assert set(t["worker_peak_rss_mib"]) == pids
+    assert all(30.0 < v < 1e5 for v in t["worker_peak_rss_mib"].values())
+    assert "peak memory per worker" in (out / "summary.md").read_text()
     # Each task's answer is the one an in-process solve of the same instance gives.
     from decomp import solve
 
