@@ -55,7 +55,7 @@ class Response:
 class Products:
     """The subproblems of a set of products: families, kink table, bounds."""
 
-    def __init__(self, fare, mean, std, codes=None, upper=None):
+    def __init__(self, fare, mean, std, codes=None, upper=None, threads=1):
         fare = np.asarray(fare, dtype=np.float64)
         mean = np.asarray(mean, dtype=np.float64)
         std = np.asarray(std, dtype=np.float64)
@@ -81,7 +81,8 @@ class Products:
         self.i_dis = np.flatnonzero(disc & ~known)
         self.i_known = np.flatnonzero(known)
         self.normal = NormalDemand(fare[self.i_norm], mean[self.i_norm], std[self.i_norm])
-        self.gamma = GammaDemand(fare[self.i_gam], mean[self.i_gam], std[self.i_gam])
+        self.threads = threads
+        self.gamma = GammaDemand(fare[self.i_gam], mean[self.i_gam], std[self.i_gam], threads)
         self.discrete = DiscreteDemand(fare[self.i_dis], mean[self.i_dis], std[self.i_dis],
                                        (c[self.i_dis] == NEGBIN))
         self.known = KnownDemand(fare[self.i_known], mean[self.i_known])
@@ -103,15 +104,16 @@ class Products:
         return KinkTable.concatenate(tables)
 
     @classmethod
-    def from_instance(cls, instance, products=None, upper=None):
+    def from_instance(cls, instance, products=None, upper=None, threads=1):
         codes = family_codes(instance)
         idx = slice(None) if products is None else products
         return cls(instance.fare[idx], instance.mean[idx], instance.std[idx],
-                   None if codes is None else codes[idx], upper)
+                   None if codes is None else codes[idx], upper, threads)
 
     def subset(self, idx):
         """The subproblems of the products ``idx`` (same bounds)."""
-        return Products(self.fare[idx], self.mean[idx], self.std[idx], self.codes[idx], self.upper[idx])
+        return Products(self.fare[idx], self.mean[idx], self.std[idx], self.codes[idx], self.upper[idx],
+                        self.threads)
 
     @property
     def has_kinks(self) -> bool:

@@ -80,7 +80,7 @@ class Network:
         # the allocation bound u_j = 2 min(capacity of its legs) + 1 (whole seats), per group
         self.upper_g = np.ceil(2.0 * self._min_capacity_g()) + 1.0
         self.upper = self.to_products(self.upper_g)
-        self.products = distributions.Products.from_instance(instance, self.prods, self.upper)
+        self.products = distributions.Products.from_instance(instance, self.prods, self.upper, threads)
         self._setup_threads(threads)
         #: per leg: the largest fare of its products (a price scale)
         self.fare_scale = np.zeros(self.n)

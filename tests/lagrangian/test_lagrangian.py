@@ -218,6 +218,26 @@ def test_tiny_bid_price_leg_does_not_stall_the_gap():
     assert res.bid_price_array.min() < 1e-60     # the tiny-bid-price leg is there
 
 
+def test_threaded_gamma_functions_match_one_thread(monkeypatch):
+    # Gamma demand's incomplete gamma functions run in slices on threads: elementwise, so
+    # the dual's terms are bitwise those of one thread, and the whole solve the same.
+    from decomp.distributions import gamma as _gamma
+    monkeypatch.setattr(_gamma, "THREADS_FROM", 0)
+    inst = demand_mix.apply(generate(3000, seed=4), demand_mix.NAMED["gamma"], seed=2)
+    one = m_lagr.Network(inst, threads=1)
+    two = m_lagr.Network(inst, threads=3)
+    pi = m_lagr.fare_start(one)
+    p1, p2 = one.evaluate(pi), two.evaluate(pi)
+    for name in ("x", "w", "x_g", "load"):
+        assert np.array_equal(getattr(p1, name), getattr(p2, name)), name
+    y = np.linspace(0.0, 2.0, one.n_products) * one.upper
+    assert np.array_equal(one.products.revenue(y), two.products.revenue(y))
+    a = solve(inst, "pnlp", "lagrangian", SolverOptions(threads=1))
+    b = solve(inst, "pnlp", "lagrangian", SolverOptions(threads=3))
+    assert a.ok and b.ok and a.iterations == b.iterations
+    assert b.objective == pytest.approx(a.objective, rel=1e-13)
+
+
 def test_threaded_subproblems_match_one_thread(monkeypatch):
     # The product slices are independent: splitting them over threads must give
     # the very same numbers (bitwise for x, w, the per-group sums; the slice sums of
