@@ -450,7 +450,9 @@ def _armijo(cur, g, dv, ds, alpha, mu):
     """Backtrack the primal step until the barrier function at level mu decreases enough."""
 
     def phi(v, up, s):
-        return -cur.revenue(v) - mu * (np.log(v).sum() + np.log(up).sum() + np.log(s).sum())
+        # log v + log(u - v) as one log of the product: v + (u - v) = u, so one factor is at
+        # least u/2 and the product cannot underflow where v does not
+        return -cur.revenue(v) - mu * (np.log(v * up).sum() + np.log(s).sum())
 
     slope = float(-(g + mu / cur.v - mu / cur.up) @ dv - (mu / cur.s) @ ds)
     if slope >= 0:
