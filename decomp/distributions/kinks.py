@@ -137,13 +137,44 @@ class KinkTable:
         """Per owner: how many of its slopes are > ``level`` (per owner), within [lo, hi]
         (default [0, count]). With ``purpose``, the last answer for it is checked first
         (two slopes per owner) and only the owners whose count moved are searched."""
+        guess = self._last.get(purpose)
+        if guess is not None and hi is None:
+            n = self._from_guess(level, guess, lo)
+        else:
+            n = self._search(level, lo, hi, guess)
+        if purpose is not None:
+            self._last[purpose] = n
+        return n
+
+    def _from_guess(self, level, g, lo=None):
+        """above() over the windows [lo, count] (lo: 0 when None) from the last count g: it
+        stands where the last slope it counts is > level and the next is not; the others are
+        searched on the side the check points to (one pass of gathers where few counts
+        move)."""
+        slope, last = self.slope, max(len(self.slope) - 1, 0)
+        floor = 0 if lo is None else lo
+        if lo is not None:
+            g = np.maximum(g, lo)
+        at = self.ptr[:-1] + g
+        counted_ok = (g <= floor) | (slope[np.maximum(at - 1, 0)] > level)
+        rest_ok = (g == self.count) | (slope[np.minimum(at, last)] <= level)
+        n = g.copy()
+        moved = np.flatnonzero(~(counted_ok & rest_ok))
+        if len(moved):
+            gm, down = g[moved], ~counted_ok[moved]
+            start = 0 if lo is None else lo[moved]
+            lo = np.where(down, start, gm + 1)
+            hi = np.where(down, np.maximum(gm - 1, start), self.count[moved])
+            n[moved] = self._bisect(self.ptr[:-1][moved], lo, hi, level[moved])
+        return n
+
+    def _search(self, level, lo, hi, guess):
         lo = np.zeros(self.n_owners, dtype=np.int64) if lo is None else lo.copy()
         hi = self.count.copy() if hi is None else hi.copy()
         if not len(lo):
             return lo
         base = self.ptr[:-1]
         last = max(len(self.slope) - 1, 0)
-        guess = self._last.get(purpose)
         if guess is not None:
             g = np.clip(guess, lo, hi)
             left = (g <= lo) | (self.slope[np.clip(base + g - 1, 0, last)] > level)
@@ -156,17 +187,22 @@ class KinkTable:
         else:
             idx = np.arange(len(lo))
         if len(idx):
-            lo_i, hi_i, base_i, level_i = lo[idx], hi[idx], base[idx], level[idx]
-            # branch-free bisection over the owners left: ceil(log2(K + 1)) rounds
-            for _ in range(int(np.max(hi_i - lo_i)).bit_length()):
-                mid = (lo_i + hi_i) >> 1
-                k = np.minimum(base_i + mid, last)
-                up = (self.slope[k] > level_i) & (mid < hi_i)
-                np.copyto(lo_i, mid + 1, where=up)
-                np.copyto(hi_i, mid, where=~up & (mid < hi_i))
-            lo[idx] = lo_i
-        if purpose is not None:
-            self._last[purpose] = lo
+            lo[idx] = self._bisect(base[idx], lo[idx], hi[idx], level[idx])
+        return lo
+
+    def _bisect(self, base, lo, hi, level):
+        """Per owner (its first slope at ``base``): the count of slopes > level within
+        [lo, hi], slopes nonincreasing; branch-free, ceil(log2(K + 1)) rounds."""
+        lo, hi = lo.astype(np.int64), hi.astype(np.int64)
+        last = max(len(self.slope) - 1, 0)
+        if not len(lo):
+            return lo
+        for _ in range(int(np.max(hi - lo)).bit_length()):
+            mid = (lo + hi) >> 1
+            k = np.minimum(base + mid, last)
+            up = (self.slope[k] > level) & (mid < hi)
+            np.copyto(lo, mid + 1, where=up)
+            np.copyto(hi, mid, where=~up & (mid < hi))
         return lo
 
     # -- the terms -------------------------------------------------------------------------

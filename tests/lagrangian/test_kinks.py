@@ -92,3 +92,32 @@ def test_poisson_kinks_are_every_seat_above_the_tail():
         assert len(mine) == int(np.sum(sf > 1e-12)) + 1 or len(mine) == int(np.sum(sf > 1e-12))
         want = net.products.fare[j] * sf[sf > 1e-12]
         assert np.all(np.abs(mine[:len(want)] - want) <= 1e-13 * net.products.fare[j] + 1e-9 * want)
+
+
+def test_counts_from_the_last_answer_equal_a_direct_count():
+    # KinkTable.above counts, per owner, the slopes > a level within a window; with a
+    # purpose it starts from its last answer for that purpose and searches only the owners
+    # whose count moved. Reference: the count by plain comparison over each owner's slopes
+    # (sorted nonincreasing, a fact of expected sales: P(D > k) falls with k).
+    from decomp.distributions import Products
+    from decomp.distributions.products import NEGBIN, POISSON
+
+    rng = np.random.default_rng(8)
+    n = 400
+    codes = np.where(rng.random(n) < 0.5, POISSON, NEGBIN).astype(np.int8)
+    mean = rng.lognormal(-0.5, 1.2, n)
+    std = np.where(codes == NEGBIN, 1.6 * np.sqrt(mean), 0.0)
+    k = Products(rng.uniform(50, 400, n), mean, std, codes, upper=np.full(n, 60.0)).kinks
+    owner_of = np.repeat(np.arange(k.n_owners), k.count)
+
+    def direct(level, lo):
+        above = np.bincount(owner_of, weights=k.slope > level[owner_of], minlength=k.n_owners).astype(np.int64)
+        return np.maximum(above, lo)
+
+    base = k.slope[k.ptr[:-1]] * rng.uniform(0.01, 1.2, k.n_owners)
+    for step in range(6):                   # levels moving by up to 50%, some owners not at all
+        level = base * np.where(rng.random(k.n_owners) < 0.5, 1.0, rng.uniform(0.5, 1.5, k.n_owners))
+        lo = np.where(rng.random(k.n_owners) < 0.3, rng.integers(0, 3, k.n_owners), 0)
+        lo = np.minimum(lo, direct(level, np.zeros(k.n_owners, np.int64)))
+        assert np.array_equal(k.above(level, purpose="all"), direct(level, 0)), step
+        assert np.array_equal(k.above(level, lo=lo, purpose="from"), direct(level, lo)), step
