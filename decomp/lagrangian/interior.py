@@ -50,6 +50,7 @@ import numpy as np
 
 from . import newton
 from .bounds import record
+from .master import price
 from .prices import FLOOR
 from .recovery import recover, smallest_over_legs, within_capacity
 
@@ -220,10 +221,13 @@ class _Iterate:
         return master.fixed_x + np.bincount(self.var.owner, weights=self.v, minlength=len(master.fixed_x))
 
 
-def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration):
+def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration,
+                 early_pricing=False):
     """The interior-point method on ``master`` from bid prices ``pi0``; every certified
-    iterate is offered to ``bounds``. Returns (termination word, iterations, pi, final
-    iterate)."""
+    iterate is offered to ``bounds``; with ``early_pricing`` its fixed kinks are priced
+    there too ("reprice" when one is violated: the master is left before its end, as in
+    primal-dual column generation, which prices at well-centred points of an inexactly
+    solved master). Returns (termination word, iterations, pi, final iterate)."""
     fmax = float(net.fare.max(initial=1.0))
     if not master.size:
         _certify(net, master, None, pi0, bounds)
@@ -234,12 +238,19 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     level, next_level = None, np.inf
     for it in range(1, limit + 1):
         comp = cur.complementarity()
+        violated = False
         if it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= RECERTIFY * certified):
             _certify(net, master, cur, cur.lam * fmax, bounds)
             certified = comp
+            # the fixed kinks priced at this near-optimal point of the master: if one is on
+            # the wrong side of its bid-price sum, the windows must grow in any case, and the
+            # rest of this master's solve is spent on the wrong problem
+            violated = early_pricing and it > 1 and price(net, master, cur.lam * fmax) is not None
         history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
         if bounds.gap <= tol:
             return "optimal", it, cur.lam * fmax, cur
+        if violated:
+            return "reprice", it, cur.lam * fmax, cur
         # the master is solved (its own duality gap far below tol, its residuals met): back
         # to pricing
         if (comp * fmax <= 2 * MU_FLOOR * tol * _size(bounds) and cur.residual <= RESIDUAL

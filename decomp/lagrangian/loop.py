@@ -19,7 +19,8 @@ and reports every stop through one table (:data:`STATUS`).
 2. **Master** (:func:`master_phase`): the restricted problem that fixes the kinks far
    from the current bid-price sums (:mod:`.master`), solved by the primal-dual
    interior-point method (:mod:`.interior`); its bid prices are checked against every
-   fixed kink and the windows grow until none is violated (column generation).
+   fixed kink when it is solved (the first master also at each of its certificates), and
+   the windows grow until none is violated (column generation).
 """
 
 from __future__ import annotations
@@ -66,6 +67,11 @@ STALL_WINDOW, STALL_FACTOR, NEWTON_ALONE = 8, 10.0, 16
 SHORT_STEP = 1.0 / 16.0
 #: Rounds of master and pricing at most.
 MASTER_ROUNDS = 8
+#: The first this many rounds price the fixed kinks at every certificate of the master and
+#: leave it at the first violation (the first master's windows are a guess from the Newton
+#: phase, and the end of its solve is mostly spent on the wrong problem); later rounds solve
+#: their master to the end before pricing, so that the rounds stay few.
+EARLY_PRICED_ROUNDS = 1
 #: The master phase's iteration limit (or the caller's, if larger).
 MASTER_LIMIT = 300
 
@@ -255,11 +261,12 @@ def master_phase(state, pi):
     lo, hi = master.first_windows(net, pi)
     limit = max(state.limit, MASTER_LIMIT)
     word = "master_rounds"
-    for _ in range(MASTER_ROUNDS):
+    for round_ in range(MASTER_ROUNDS):
         m = master.build(net, lo, hi)
         state.master_rounds += 1
         word, its, pi, _ = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
-                                                 state.t0, state.bounds, state.history, state.iterations)
+                                                 state.t0, state.bounds, state.history, state.iterations,
+                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS)
         state.iterations += its
         if word in ("optimal", "time_limit", "iteration_limit", "numerical_error"):
             return word
