@@ -129,8 +129,14 @@ def run(net, system, pi0, tol, limit, deadline, t0, floor, theta_start=None) -> 
     state = LoopState(net, system, tol, limit, deadline, t0, floor)
     word, pi = newton_phase(state, pi0, theta_start)
     state.newton_iterations = state.iterations
-    if word in ("identified", "stalled", "no_decrease") and not state.out_of_time():
-        word = master_phase(state, pi)
+    if word in ("identified", "stalled", "no_decrease"):
+        if not state.out_of_time():
+            word = master_phase(state, pi)
+        else:
+            # out of time at the hand-over: the certificate of this stop needs an allocation
+            # (large networks recover only near the optimum)
+            state.bounds.offer_primal(*recover(net, net.evaluate(pi)))
+            word = "time_limit" if word != "no_decrease" else word
     return _outcome(state, word)
 
 
