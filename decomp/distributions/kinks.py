@@ -169,6 +169,8 @@ class KinkTable:
         return n
 
     def _search(self, level, lo, hi, guess):
+        """above() within explicit windows [lo, hi] (defaults 0 and count), the last count
+        ``guess`` (if any) clipped into them and checked first."""
         lo = np.zeros(self.n_owners, dtype=np.int64) if lo is None else lo.copy()
         hi = self.count.copy() if hi is None else hi.copy()
         if not len(lo):
