@@ -34,6 +34,7 @@ import math
 import numpy as np
 
 from .errors import ConfigError
+from .generator import round_sig
 
 FAMILIES = ("normal", "gamma", "poisson", "negbin", "known")
 #: Families whose spread is a range the user may give, and what it means.
@@ -161,16 +162,6 @@ NAMED = {
 }
 
 
-def round_sig(x, digits=4):
-    x = np.asarray(x, dtype=np.float64)
-    out = np.zeros_like(x)
-    nz = x > 0
-    m = digits - 1 - np.floor(np.log10(x[nz])).astype(np.int64)
-    scaled = np.round(x[nz] * 10.0 ** m)
-    out[nz] = np.where(m >= 0, scaled / 10.0 ** np.maximum(m, 0), scaled * 10.0 ** np.maximum(-m, 0))
-    return out
-
-
 def apply(instance, mix: DemandMix, seed: int):
     """The instance with each product's demand family and std drawn from ``mix``.
 
@@ -193,17 +184,17 @@ def apply(instance, mix: DemandMix, seed: int):
         if part.family in ("normal", "gamma"):
             names[sel] = part.family
             if spread is not None:
-                std[sel] = round_sig(m * spread)
+                std[sel] = round_sig(m * spread, 4)
         elif part.family == "poisson":
             names[sel] = "poisson"
-            std[sel] = round_sig(np.sqrt(m))
+            std[sel] = round_sig(np.sqrt(m), 4)
         elif part.family == "negbin":
             names[sel] = "negbin"
             vmr = np.full(len(m), NEGBIN_DEFAULT_VMR) if spread is None else spread
-            s = round_sig(np.sqrt(vmr * m))
+            s = round_sig(np.sqrt(vmr * m), 4)
             # rounding must keep std^2 > mean (the family's condition)
             low = s * s <= m * (1.0 + 1e-9)
-            s[low] = round_sig(np.sqrt(m[low] * (1.0 + 1e-3)) * 1.001)
+            s[low] = round_sig(np.sqrt(m[low] * (1.0 + 1e-3)) * 1.001, 4)
             std[sel] = s
         else:                                         # known demand
             names[sel] = "normal"

@@ -29,8 +29,6 @@ from .known import KnownDemand
 from .normal import MIN_RATIO, NormalDemand
 from .products import FAMILIES, GAMMA, NEGBIN, NORMAL, POISSON, Products, Response, family_codes
 
-#: Family names, in the order of their codes (and of :data:`decomp.instance.DISTRIBUTIONS`).
-
 __all__ = ["NORMAL", "GAMMA", "POISSON", "NEGBIN", "FAMILIES", "MIN_RATIO", "Products", "Response",
            "KinkTable", "NormalDemand", "GammaDemand", "DiscreteDemand", "KnownDemand", "family_codes",
            "gamma_params", "gamma_expected_sales", "gamma_fractile", "negbin_params", "discrete_sf",
