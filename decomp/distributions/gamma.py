@@ -21,6 +21,7 @@ import numpy as np
 from scipy import special
 
 from .. import threads as _threads
+from .normal import NormalDemand
 
 #: The fractile's relative accuracy in y.
 _YTOL = 4e-16
@@ -30,6 +31,8 @@ _MAX_STEPS = 60
 #: Fractiles further out than this upper tail are taken at it (x is then about 460 stds
 #: out: a seat count with no material sales left).
 RATIO_MIN = 1e-200
+#: :meth:`GammaDemand.flat_from` stops when log of its spill is within this of the target's.
+FLAT_LOG_TOL = 1e-3
 #: From this many entries on, the incomplete gamma functions run in slices on threads
 #: (each costs about 150 ns, seven times a normal tail probability).
 THREADS_FROM = 20_000
@@ -195,6 +198,37 @@ class GammaDemand:
     def closing(self):
         """a at and above which x = 0: f Q(k, 0) = f."""
         return self.fare.copy()
+
+    @property
+    def most_sales(self):
+        """S(inf) = m: the expected sales with unlimited seats."""
+        return self.mean
+
+    def flat_from(self, share):
+        """x where the expected spill E[(D - x)^+] falls to ``share`` of the mean (the most
+        sales S(inf)). In y = x/theta
+        the spill is m r(y), r(y) = Q(k, y) (1 - y/k) + y^k e^-y / Gamma(k + 1), with
+        r'(y) = -Q(k, y) / k: Newton on log r = log(share), from Wilson and Hilferty's map of
+        the normal answer, safeguarded by bisection on a bracket."""
+        k = self.k
+        z = (NormalDemand(np.ones(self.n), np.sqrt(k), np.ones(self.n)).flat_from(share) - np.sqrt(k))
+        c = 1.0 / (9.0 * k)
+        y = k * np.maximum(1.0 - c + z * np.sqrt(c), 1.0) ** 3
+        lo, hi = np.zeros(self.n), np.full(self.n, np.inf)
+        target = np.log(share)
+        lgk1 = special.gammaln(k + 1.0)
+        for _ in range(_MAX_STEPS):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
+                q = special.gammaincc(k, y)
+                r = q * (1.0 - y / k) + np.exp(special.xlogy(k, y) - y - lgk1)
+                h = np.log(np.maximum(r, 1e-320)) - target
+                lo, hi = np.where(h > 0, y, lo), np.where(h > 0, hi, y)
+                new = y + h * k * r / q
+            if np.all(np.abs(h) <= FLAT_LOG_TOL):
+                break
+            fallback = np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * y)
+            y = np.where(np.isfinite(new) & (new > lo) & (new < hi), new, fallback)
+        return self.theta * y
 
 
 def _sales_and_slope(m, k, th, lgk, x, threads=1):

@@ -24,6 +24,9 @@ _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 JUMP_Z = float(special.ndtri(2.0 ** -53))
 #: Smallest ratio a/f used in a fractile (a = 0 would mean an unbounded allocation).
 MIN_RATIO = _normal.MIN_RATIO
+#: Newton steps of :meth:`NormalDemand.flat_from` (from its start, log G is nearly linear
+#: in z^2: four steps leave a relative error in the spill far below 1e-3).
+FLAT_STEPS = 6
 
 
 class NormalDemand:
@@ -126,6 +129,26 @@ class NormalDemand:
     def closing(self):
         """a at and above which x = 0: f P(D > 0)."""
         return self.fare * special.ndtr(self.mean / self.std)
+
+    @property
+    def most_sales(self):
+        """S(inf) = E[max(D, 0)] = s G(-m/s): the expected sales with unlimited seats."""
+        return self._sG0
+
+    def flat_from(self, share):
+        """x where the expected spill E[(D - x)^+] = s G(z) falls to ``share`` of the most
+        sales S(inf) (positive even where the mean is not): Newton on
+        log G(z) = log(share S(inf) / s), from G(z) ~ phi(z) / z^2, with
+        d log G / dz = -Phibar(z) / G(z) (both written with erfcx, so that the factor
+        exp(-z^2/2) they share cancels)."""
+        target = np.log(share * self._sG0 / self.std)
+        z = np.sqrt(np.maximum(-2.0 * (target + np.log(np.sqrt(2.0 * np.pi))), 1.0))
+        for _ in range(FLAT_STEPS):
+            tail = 0.5 * special.erfcx(z * np.sqrt(0.5))         # Phibar(z) exp(z^2/2)
+            scaled = _INV_SQRT_2PI - z * tail                    # G(z) exp(z^2/2)
+            log_g = np.log(np.maximum(scaled, 1e-300)) - 0.5 * z * z
+            z = np.maximum(z + (log_g - target) * scaled / tail, 0.0)
+        return self.mean + self.std * z
 
 
 def _loss_at_minus(t):

@@ -233,6 +233,23 @@ class Products:
         out[self.i_known] = self.known.closing()
         return out
 
+    def smooth_worth(self):
+        """sum f S(inf) over the smooth products: their revenue with unlimited seats."""
+        return float(self.normal.fare @ self.normal.most_sales + self.gamma.fare @ self.gamma.most_sales)
+
+    def flat_from(self, share):
+        """Per product: the allocation beyond which its expected spill E[(D - x)^+] is at most
+        ``share`` of its most sales S(inf) (the seats beyond add at most f share S(inf) to its
+        revenue); the bound u for products without a smooth part. Computed once per share."""
+        cache = self.__dict__.setdefault("_flat", {})
+        if share not in cache:
+            out = self.upper.copy()
+            for i, fam in ((self.i_norm, self.normal), (self.i_gam, self.gamma)):
+                flat = fam.flat_from(share)
+                out[i] = np.where(flat < out[i], flat, out[i])      # (never a NaN)
+            cache[share] = out
+        return cache[share]
+
     # -- smooth parts of chosen products (the interior-point method's variables) --------------
     def _by_family(self, products):
         """[(family, positions in ``products``, indices in the family)] for smooth products."""

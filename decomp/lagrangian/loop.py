@@ -263,12 +263,17 @@ def _settled(pt, new, bid_tol, fare_max):
 # ---------------------------------------------------------------------------------------
 def master_phase(state, pi):
     """Masters and pricing rounds from bid prices ``pi`` until certified or a limit."""
-    net = state.net
+    net, bounds = state.net, state.bounds
+    if not np.isfinite(bounds.primal):
+        pt = net.evaluate(pi)                                     # flat_share needs a revenue
+        bounds.offer_dual(pt)
+        bounds.offer_primal(*recover(net, pt))
+    share = master.flat_share(net, state.tol, bounds.primal)
     lo, hi = master.first_windows(net, pi)
     limit = max(state.limit, MASTER_LIMIT)
     word = "master_rounds"
     for round_ in range(MASTER_ROUNDS):
-        m = master.build(net, lo, hi)
+        m = master.build(net, lo, hi, share)
         state.master_rounds += 1
         word, its, pi, _ = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
                                                  state.t0, state.bounds, state.history, state.iterations,

@@ -6,7 +6,8 @@ restricted problem ("master") fixes the others at their bounds and keeps as vari
 
 - the kinks with |log(r_k / a_j)| <= MARGIN at the bid prices it is built from;
 - the smooth part of every normal and gamma product (beyond its jump, if any), except
-  products whose jump is fixed empty (they are closed: x = 0);
+  products whose jump is fixed empty (they are closed: x = 0), bounded where its
+  expected spill falls to a share FLAT_SHARE tol of its most sales (:func:`flat_share`);
 
 with the capacities reduced by the fixed kinks' seats. It is a smaller PNLP, solved by
 the interior-point method (:mod:`.interior`). Fixing a kink at a bound is exact when
@@ -29,6 +30,16 @@ import numpy as np
 MARGIN = 0.05
 #: A fixed kink's slope may be on the wrong side of a_j by this relative amount (rounding).
 PRICE_TOL = 1e-12
+#: A smooth part's seats count in the master only up to where the product's expected spill
+#: is FLAT_SHARE tol of its most sales S(inf) (scaled down where the revenue is below the
+#: demand's worth, :func:`flat_share`): the seats beyond add at most FLAT_SHARE tol of the revenue
+#: together, so the master's optimum is that close to the whole problem's (the certificate
+#: is the whole problem's in any case). Without the bound a product whose legs all have
+#: room drifts out into its demand's upper tail as the barrier level falls (its bid-price
+#: sum falls with the level, and the fractile moves about 1/z standard deviations per
+#: Newton step there), which took the interior-point method about half its iterations on
+#: low-CV normal demand.
+FLAT_SHARE = 1e-3
 #: A leg's capacity left by the fixed kinks must be at least this fraction of it (else the
 #: full kinks of its products are freed): the master needs room for its interior.
 ROOM = 1e-6
@@ -46,6 +57,7 @@ class Master:
     kink_owner: np.ndarray  # their products
     smooth: np.ndarray      # products whose smooth part is a variable
     offset: np.ndarray      # their jump (the smooth part starts there)
+    room: np.ndarray        # their variable's upper bound (from the offset to the flat tail)
 
     @property
     def size(self) -> int:
@@ -61,8 +73,19 @@ def first_windows(net, pi):
     return lo, hi
 
 
-def build(net, lo, hi) -> Master:
-    """The master with the given windows (grown where the fixed seats leave a leg no room)."""
+def flat_share(net, tol, revenue):
+    """The share of its most sales S(inf) a smooth part's expected spill may keep in the
+    master: FLAT_SHARE tol, times ``revenue`` (a feasible allocation's) over the smooth
+    products' worth sum f S(inf) where that is larger, so that the seats left out are worth
+    at most FLAT_SHARE tol of the revenue."""
+    worth = net.products.smooth_worth()
+    scale = min(1.0, max(revenue, 0.0) / worth) if worth > 0 else 1.0
+    return FLAT_SHARE * tol * scale
+
+
+def build(net, lo, hi, share=None) -> Master:
+    """The master with the given windows (grown where the fixed seats leave a leg no room),
+    its smooth parts bounded where their spill is ``share`` of their most sales (None: not)."""
     k = net.products.kinks
     lo = lo.copy()
     while True:
@@ -83,8 +106,9 @@ def build(net, lo, hi) -> Master:
     kink = np.arange(int(size.sum())) - np.repeat(np.cumsum(size) - size, size) + np.repeat(k.ptr[:-1] + lo, size)
     products = net.products
     smooth = products.i_smooth
+    top = net.upper if share is None else products.flat_from(share)
     # a smooth part with no room beyond its jump (the jump reaches the bound) is no variable
-    smooth = smooth[net.upper[smooth] - products.jump[smooth] > 1e-9 * np.maximum(net.upper[smooth], 1.0)]
+    smooth = smooth[top[smooth] - products.jump[smooth] > 1e-9 * np.maximum(top[smooth], 1.0)]
     jump = products.jump[smooth]
     if np.any(jump > 0):
         # a jump fixed empty closes the product (its smooth part lies beyond the jump)
@@ -92,8 +116,10 @@ def build(net, lo, hi) -> Master:
         closed = (jump > 0) & (owner_row >= 0)
         closed[closed] = hi[owner_row[closed]] == 0
         smooth, jump = smooth[~closed], jump[~closed]
+    smooth = np.sort(smooth)
+    offset = products.jump[smooth]
     return Master(lo=lo, hi=hi, fixed_x=fixed_x, capacity=capacity, kink=kink, kink_owner=k.owner[row],
-                  smooth=np.sort(smooth) if len(smooth) else smooth, offset=products.jump[np.sort(smooth)])
+                  smooth=smooth, offset=offset, room=top[smooth] - offset)
 
 
 def price(net, master, pi):

@@ -248,3 +248,31 @@ def test_kink_prefix_sums_keep_their_digits_in_a_large_table():
         worst = max(worst, max(abs(g - r) for g, r in zip(got, ref)))
     assert worst <= 1e-7          # a fare of up to 1000 per seat: 1e-10 of it
     assert np.array_equal(table.cum_w[table.pp + table.count], table.count.astype(float))
+
+
+@pytest.mark.parametrize("family", ["normal", "gamma"])
+def test_flat_tail_leaves_the_asked_share_of_the_mean(family):
+    # The restricted problem bounds a smooth part where its expected spill E[(D - x)^+] is a
+    # given share of its most sales E[max(D, 0)] (decomp.lagrangian.master.FLAT_SHARE).
+    # Checked against scipy.stats: E[(D - x)^+] = int_x^inf P(D > t) dt and
+    # E[max(D, 0)] = int_0^inf P(D > t) dt (the tail identity), by adaptive quadrature of sf.
+    # Means 0.02 to 200 (and 0 for normal demand), CVs 0.01 to 3, shares 1e-6 to 1e-15.
+    from decomp.distributions.gamma import GammaDemand
+    from decomp.distributions.normal import NormalDemand
+    rng = np.random.default_rng(11)
+    n = 24
+    m = np.exp(rng.uniform(np.log(0.02), np.log(200.0), n))
+    s = m * np.exp(rng.uniform(np.log(0.01), np.log(3.0), n))
+    f = rng.uniform(50, 500, n)
+    if family == "normal":
+        m[0] = 0.0
+        fam, refs = NormalDemand(f, m, s), [stats.norm(mj, sj) for mj, sj in zip(m, s)]
+    else:
+        fam, refs = GammaDemand(f, m, s), [stats.gamma((mj / sj) ** 2, scale=sj * sj / mj) for mj, sj in zip(m, s)]
+    for share in (1e-6, 1e-12, 1e-15):
+        x = fam.flat_from(share)
+        assert np.all(x > m)
+        for j, ref in enumerate(refs):
+            most = integrate.quad(ref.sf, 0.0, np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
+            spill = integrate.quad(ref.sf, x[j], np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
+            assert spill == pytest.approx(share * most, rel=1e-2), (family, share, m[j], s[j])
