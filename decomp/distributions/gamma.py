@@ -31,6 +31,9 @@ _MAX_STEPS = 60
 #: Fractiles further out than this upper tail are taken at it (x is then about 460 stds
 #: out: a seat count with no material sales left).
 RATIO_MIN = 1e-200
+#: A fractile starts from the last one (to first order) where its ratio a/f moved by at most
+#: this share of the smaller of a/f and 1 - a/f.
+WARM = 1e-2
 #: :meth:`GammaDemand.flat_from` stops when log of its spill is within this of the target's.
 FLAT_LOG_TOL = 1e-3
 #: From this many entries on, the incomplete gamma functions run in slices on threads
@@ -77,10 +80,13 @@ class GammaDemand:
             return np.exp(special.xlogy(self.k - 1.0, y) - y - self._lgk)
 
     # -- the subproblem ---------------------------------------------------------------------
-    def quantile(self, ratio, complement):
-        """y with Q(k, y) = ratio (complement = 1 - ratio, passed to avoid cancellation)."""
+    def quantile(self, ratio, complement, start=None):
+        """y with Q(k, y) = ratio (complement = 1 - ratio, passed to avoid cancellation),
+        from ``start`` where it is finite and positive (else Wilson and Hilferty's)."""
         k = self.k
         y = self._start(ratio, complement)
+        if start is not None:
+            y = np.where(np.isfinite(start) & (start > 0), start, y)
         log_ratio = np.log(np.maximum(ratio, 1e-320))
         log_complement = np.log(np.maximum(complement, 1e-320))
         lo = np.zeros(len(y))
@@ -147,14 +153,30 @@ class GammaDemand:
         if np.any(inside):
             i = np.flatnonzero(inside)
             complement = (f[i] - a[i]) / f[i]
-            y[i] = GammaSubset(self, i).quantile(ratio[i], complement)
+            y[i] = GammaSubset(self, i).quantile(ratio[i], complement, self._warm(ratio, complement, i))
         x = self.theta * y
         g = np.where(inside, self._g(y), 0.0)
+        self._last = (ratio, y, g)
         with np.errstate(divide="ignore", over="ignore"):
             w = np.where(inside & (g > 0), self.theta / (f * g), 0.0)
         w = np.minimum(w, 1e300)
         gain = np.where(inside, self.mean * (f - a) - f * x * g, 0.0)
         return x, w, float(np.sum(gain))
+
+    def _warm(self, ratio, complement, i):
+        """Starts for the fractiles of products ``i`` from the last call's, to first order
+        (dy/d ratio = -1/g(y)), where their ratio moved by at most WARM of the smaller of
+        ratio and complement (near a solution the bid prices settle, and a start within
+        _ACCEPT of the answer needs one incomplete gamma function instead of two); NaN
+        elsewhere."""
+        last = getattr(self, "_last", None)
+        if last is None or len(last[0]) != self.n:
+            return None
+        r0, y0, g0 = (v[i] for v in last)
+        dr = ratio[i] - r0
+        near = (y0 > 0) & (g0 > 0) & (np.abs(dr) <= WARM * np.minimum(ratio[i], complement))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(near, y0 - dr / g0, np.nan)
 
     # -- sales --------------------------------------------------------------------------------
     def _params(self, idx):

@@ -276,3 +276,25 @@ def test_flat_tail_leaves_the_asked_share_of_the_mean(family):
             most = integrate.quad(ref.sf, 0.0, np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
             spill = integrate.quad(ref.sf, x[j], np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
             assert spill == pytest.approx(share * most, rel=1e-2), (family, share, m[j], s[j])
+
+
+def test_gamma_fractile_from_the_last_one_matches_scipy():
+    # GammaDemand.respond starts each fractile from the last call's (to first order) where
+    # a/f moved little. The answer must not depend on the start: checked against
+    # scipy.stats.gamma.isf (the inverse of the upper tail) after a sequence of nearby and
+    # far moves, and against a fresh object.
+    from decomp.distributions.gamma import GammaDemand
+    rng = np.random.default_rng(8)
+    n = 400
+    m = np.exp(rng.uniform(np.log(0.05), np.log(100.0), n))
+    s = m * rng.uniform(0.05, 2.0, n)
+    f = rng.uniform(50, 500, n)
+    fam = GammaDemand(f, m, s)
+    a = f * rng.uniform(1e-6, 0.999, n)
+    for move in (0.0, 1e-9, 1e-6, 1e-3, 3e-2, 0.5):
+        a = np.minimum(a * (1.0 + move * rng.uniform(-1, 1, n)), 0.9999 * f)
+        x = fam.respond(a)[0]
+        fresh = GammaDemand(f, m, s).respond(a)[0]
+        assert np.allclose(x, fresh, rtol=1e-13, atol=0.0), move
+        want = stats.gamma.isf(a / f, (m / s) ** 2, scale=s * s / m)
+        assert np.allclose(x, want, rtol=1e-9, atol=0.0), move
