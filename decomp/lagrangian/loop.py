@@ -264,11 +264,13 @@ def _settled(pt, new, bid_tol, fare_max):
 def master_phase(state, pi):
     """Masters and pricing rounds from bid prices ``pi`` until certified or a limit."""
     net, bounds = state.net, state.bounds
-    if not np.isfinite(bounds.primal):
-        pt = net.evaluate(pi)                                     # flat_share needs a revenue
-        bounds.offer_dual(pt)
-        bounds.offer_primal(*recover(net, pt))
-    share = master.flat_share(net, state.tol, bounds.primal)
+    share = None
+    if len(net.products.i_smooth):
+        if not np.isfinite(bounds.primal):
+            pt = net.evaluate(pi)                                 # flat_share needs a revenue
+            bounds.offer_dual(pt)
+            bounds.offer_primal(*recover(net, pt))
+        share = master.flat_share(net, state.tol, bounds.primal)
     lo, hi = master.first_windows(net, pi)
     limit = max(state.limit, MASTER_LIMIT)
     word = "master_rounds"

@@ -68,8 +68,9 @@ def first_windows(net, pi):
     """(lo, hi) per kink owner: the kinks within MARGIN of a_j in log(a) free."""
     k = net.products.kinks
     a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
-    lo = k.above(a * np.exp(MARGIN))
-    hi = k.above(a * np.exp(-MARGIN), lo=lo)
+    # counts near the exact ones at a: checked first (see KinkTable.above), few owners move
+    lo = k.above(a * np.exp(MARGIN), purpose="exact")
+    hi = k.above(a * np.exp(-MARGIN), lo=lo, purpose="exact")
     return lo, hi
 
 
@@ -129,8 +130,9 @@ def price(net, master, pi):
     if not len(k.owner):
         return None
     a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
-    above = k.above(a * (1.0 - PRICE_TOL))        # kinks surely profitable
-    below = k.above(a * (1.0 + PRICE_TOL))        # kinks surely not
+    # (the certificate has just counted the exact kinks at a: that count is checked first)
+    above = k.above(a * (1.0 - PRICE_TOL), purpose="exact")        # kinks surely profitable
+    below = k.above(a * (1.0 + PRICE_TOL), purpose="exact")        # kinks surely not
     low_bad = below < master.lo                  # a fixed-full kink is unprofitable
     high_bad = above > master.hi                 # a fixed-empty kink is profitable
     if not (np.any(low_bad) or np.any(high_bad)):
