@@ -136,7 +136,9 @@ class _Iterate:
             # the offset): where the curvature is steep the barrier's centre is far from there
             # in the part's own scale, and the method would crawl back; closed ones (no
             # response beyond the offset) are centred like the kinks
-            x = net.products.subset(self.smooth).respond(a[:n] * fmax).x - var.offset
+            # (the whole products' response: its families keep their last answers as starts,
+            # and the bid prices are the last evaluation's)
+            x = net.products.respond(net.to_products(net.AT_g @ lam) * fmax).x[self.smooth] - var.offset
             v[:n] = x
             closed = np.flatnonzero(~(x > 0))
             if len(closed):

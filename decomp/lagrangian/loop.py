@@ -35,7 +35,7 @@ from . import interior, master, newton
 from .bounds import Bounds, record
 from .continuation import Continuation
 from .prices import ZERO_RESOLUTION
-from .recovery import recover
+from .recovery import recover, within_capacity
 
 #: Below this many products the recovery runs at every Newton iteration; above, only
 #: once the decrement (about twice q(pi) - q*) allows a gap within tol, and where the
@@ -269,9 +269,10 @@ def master_phase(state, pi):
     share = None
     if len(net.products.i_smooth):
         if not np.isfinite(bounds.primal):
-            pt = net.evaluate(pi)                                 # flat_share needs a revenue
+            # flat_share needs a revenue: the response at pi, scaled into the capacities
+            pt = net.evaluate(pi)
             bounds.offer_dual(pt)
-            bounds.offer_primal(*recover(net, pt))
+            bounds.offer_primal(*within_capacity(net, np.minimum(pt.x, net.upper)))
         share = master.flat_share(net, state.tol, bounds.primal)
     lo, hi = master.first_windows(net, pi)
     limit = max(state.limit, MASTER_LIMIT)
