@@ -341,3 +341,19 @@ def test_run_takes_warm_start_like_solve():
 
     args = build_parser().parse_args(["run", "gen:100", "--dates", "1", "--out", "o", "--warm-start", "prev"])
     assert args.warm_start_from == "prev"
+
+
+def test_dates_of_a_generated_network_share_one_base_and_equal_fresh_ones():
+    # The tasks of a gen: batch keep the last generated base network per worker; each date's
+    # instance must equal one built from a fresh generate() (the generator is the source).
+    from decomp.distributions import family_codes
+    from decomp.generator import generate
+    b = build_batch("gen:400:3", dates=[dt.date(2026, 12, 5), dt.date(2026, 12, 6)], demand="mix")
+    for spec in b.tasks:
+        inst = spec.load()
+        fresh = DateVariation().apply(generate(400, seed=3, demand=spec.demand), dt.date.fromisoformat(spec.date),
+                                      name=spec.key)
+        for field in ("capacity", "fare", "mean", "std", "leg_index", "leg_ptr"):
+            assert np.array_equal(getattr(inst, field), getattr(fresh, field)), (spec.key, field)
+        assert np.array_equal(family_codes(inst), family_codes(fresh)), spec.key
+    assert batch_mod._generated.cache_info().hits >= 1
