@@ -228,10 +228,10 @@ class GammaDemand:
 
     def flat_from(self, share):
         """x where the expected spill E[(D - x)^+] falls to ``share`` of the mean (the most
-        sales S(inf)). In y = x/theta
-        the spill is m r(y), r(y) = Q(k, y) (1 - y/k) + y^k e^-y / Gamma(k + 1), with
-        r'(y) = -Q(k, y) / k: Newton on log r = log(share), from Wilson and Hilferty's map of
-        the normal answer, safeguarded by bisection on a bracket."""
+        sales S(inf)). In y = x/theta the spill is m r(y),
+        r(y) = Q(k, y) (1 - y/k) + y^k e^-y / Gamma(k + 1), with r'(y) = -Q(k, y) / k: Newton
+        on log r = log(share), from Wilson and Hilferty's map of the normal answer,
+        safeguarded by bisection on a bracket."""
         k = self.k
         z = (NormalDemand(np.ones(self.n), np.sqrt(k), np.ones(self.n)).flat_from(share) - np.sqrt(k))
         c = 1.0 / (9.0 * k)
