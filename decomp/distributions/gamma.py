@@ -84,16 +84,20 @@ class GammaDemand:
         """y with Q(k, y) = ratio (complement = 1 - ratio, passed to avoid cancellation),
         from ``start`` where it is finite and positive (else Wilson and Hilferty's)."""
         k = self.k
-        y = self._start(ratio, complement)
-        if start is not None:
-            y = np.where(np.isfinite(start) & (start > 0), start, y)
+        if start is None:
+            y = self._start(ratio, complement)
+        else:
+            y = start.copy()
+            cold = np.flatnonzero(~(np.isfinite(start) & (start > 0)))
+            if len(cold):
+                y[cold] = GammaSubset(self, cold)._start(ratio[cold], complement[cold])
         log_ratio = np.log(np.maximum(ratio, 1e-320))
         log_complement = np.log(np.maximum(complement, 1e-320))
         lo = np.zeros(len(y))
         hi = np.full(len(y), np.inf)
-        idx = np.arange(len(y))
+        idx = slice(None)                   # the first pass over every product: views, no gathers
         for _ in range(_MAX_STEPS):
-            if not len(idx):
+            if isinstance(idx, np.ndarray) and not len(idx):
                 break
             yi, ki = y[idx], k[idx]
             use_p = yi < ki
@@ -125,7 +129,8 @@ class GammaDemand:
             new = np.where(bad, fallback, new)
             y[idx] = np.where(np.isfinite(new) & (new > 0), new, yi)
             open_ = np.isinf(hi[idx]) | (hi[idx] - lo[idx] > _YTOL * hi[idx])
-            idx = idx[~done & open_]
+            go_on = np.flatnonzero(~done & open_)
+            idx = go_on if isinstance(idx, slice) else idx[go_on]
         return y
 
     def _start(self, ratio, complement):
