@@ -243,3 +243,19 @@ def test_decomp_bench_adds_its_run_with_the_environment(tmp_path):
     assert r.returncode == 0 and "added run" not in r.stdout
     with history.open_store(store, create=False) as s:
         assert len(s.runs()) == 1
+
+
+def test_demand_table_splits_build_and_solve(tmp_path):
+    # The targets speak of solve time, the whole call adds build and certificate: the
+    # demand-model table shows both phases beside the whole call (numbers made up for the test).
+    from decomp.benchsuite.report import render
+    from decomp.benchsuite.results import load_run
+    poisson = _case(POISSON, 5.0, demand="poisson")
+    poisson["extra_info"]["phase_seconds"] = {"build": 1.25, "solve": 3.5, "certify": 0.25}
+    run = load_run(_bench(tmp_path / "run" / "benchmark.json", [_case(NORMAL, 0.5), poisson], "2026-12-05T09:00:00"))
+    table = render(run).split("## Demand models")[1].split("\n## ")[0]
+    header = next(line for line in table.splitlines() if line.startswith("| demand"))
+    row = next(line for line in table.splitlines() if line.startswith("| poisson"))
+    cells = dict(zip([c.strip() for c in header.split("|")], [c.strip() for c in row.split("|")]))
+    assert (cells["time s"], cells["build s"], cells["solve s"]) == ("5", "1.25", "3.5")
+    assert cells["x normal"] == "10"
