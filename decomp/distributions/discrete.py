@@ -99,25 +99,30 @@ class DiscreteDemand:
         m, nb = self.mean, self.negbin
         upper = np.asarray(upper, dtype=np.float64)
         umax = np.floor(np.where(np.isfinite(upper), np.minimum(upper, 2.0 ** 52), 2.0 ** 52)).astype(np.int64)
-        log_m = np.log(np.maximum(m, 1e-300))
-        log_q = np.where(nb, np.log1p(-np.where(nb, self.p, 0.5)), 0.0)
-        log_p0 = np.where(nb, self.r * np.log(np.where(nb, self.p, 1.0)), -m)
+        # the products still adding seats, in compact arrays (compressed as products leave,
+        # so that every seat's pass reads contiguous memory)
+        idx = np.flatnonzero(umax > 0)
+        nb_a = nb[idx]
+        log_q = np.where(nb_a, np.log1p(-np.where(nb_a, self.p[idx], 0.5)), 0.0)
+        log_m = np.log(np.maximum(m[idx], 1e-300))
+        r_a = np.where(nb_a, self.r[idx], 1.0)
+        logp = np.where(nb_a, self.r[idx] * np.log(np.where(nb_a, self.p[idx], 1.0)), -m[idx])
+        fare, cap = self.fare[idx], umax[idx]
+        cdf = np.zeros(len(idx))
         count = np.zeros(self.n, dtype=np.int64)
         steps = []
-        active = np.flatnonzero(umax > 0)
-        logp = log_p0.copy()
-        cdf = np.zeros(self.n)
         k = 0
-        while len(active):                      # a loop over seats, vectorized over products
-            cdf[active] += np.exp(logp[active])
-            sf = np.maximum(1.0 - cdf[active], 0.0)
-            steps.append((active, self.fare[active] * sf))
-            count[active] += 1
-            more = (sf > TAIL) & (k + 1 < umax[active])
-            a = active[more]
-            grow = np.where(nb[a], np.log(k + self.r[a]) + log_q[a], log_m[a])
-            logp[a] += grow - np.log(k + 1.0)
-            active = a
+        while len(idx):                         # a loop over seats, vectorized over products
+            cdf += np.exp(logp)
+            sf = np.maximum(1.0 - cdf, 0.0)
+            steps.append((idx, fare * sf))
+            more = (sf > TAIL) & (k + 1 < cap)
+            if not more.all():
+                count[idx[~more]] = k + 1
+                idx, nb_a, log_q, log_m, r_a, logp, fare, cap, cdf = (
+                    v[more] for v in (idx, nb_a, log_q, log_m, r_a, logp, fare, cap, cdf))
+            grow = np.where(nb_a, np.log(k + r_a) + log_q, log_m)
+            logp += grow - np.log(k + 1.0)
             k += 1
         ptr = np.zeros(self.n + 1, dtype=np.int64)
         np.cumsum(count, out=ptr[1:])
