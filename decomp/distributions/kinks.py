@@ -118,6 +118,8 @@ class KinkTable:
         tables = [t for t in tables if t is not None and len(t.owner)]
         if not tables:
             return cls(np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), np.zeros(0))
+        if len(tables) == 1:
+            return tables[0]                # (one family's table: no copy of its arrays)
         return cls(np.concatenate([t.owner for t in tables]), np.concatenate([t.count for t in tables]),
                    np.concatenate([t.slope for t in tables]), np.concatenate([t.width for t in tables]))
 
