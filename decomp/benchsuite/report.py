@@ -76,7 +76,8 @@ def demand_tables(run, sp, stat: str = "min") -> list:
         ph = r.get("phase_seconds") or {}
         out.append("| " + " | ".join([
             _demand(r), str(r.get("rung")), str(r.get("label")), _knobs(r), _g(r.time(stat), "{:.4g}"),
-            _g(ph.get("build"), "{:.3g}"), _g(ph.get("solve"), "{:.4g}"), _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
+            _g(ph.get("build"), "{:.3g}"), _g(ph.get("solve"), "{:.4g}"),
+            _g(r.get("iterations"), "{}"), _g(r.get("gap"), "{:.2e}"), _g(r.get("objective_error"), "{:.2e}"),
             _g(r.get("peak_rss_mib"), "{:.0f}"), status, _g(ratio, "{:.3g}"),
             _g(sp.get(r.case, {}).get("ipopt"), "{:.3g}")]) + " |")
     out.append("")

@@ -21,7 +21,7 @@ import numpy as np
 from scipy import special
 
 from .. import threads as _threads
-from .normal import NormalDemand
+from .normal import loss_at_minus, loss_inverse
 
 #: The fractile's relative accuracy in y.
 _YTOL = 4e-16
@@ -238,7 +238,8 @@ class GammaDemand:
         on log r = log(share), from Wilson and Hilferty's map of the normal answer,
         safeguarded by bisection on a bracket."""
         k = self.k
-        z = (NormalDemand(np.ones(self.n), np.sqrt(k), np.ones(self.n)).flat_from(share) - np.sqrt(k))
+        # the normal answer for mean sqrt(k), std 1 (its most sales G(-sqrt(k)))
+        z = loss_inverse(np.log(share * loss_at_minus(np.sqrt(k))))
         c = 1.0 / (9.0 * k)
         y = k * np.maximum(1.0 - c + z * np.sqrt(c), 1.0) ** 3
         lo, hi = np.zeros(self.n), np.full(self.n, np.inf)

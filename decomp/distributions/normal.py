@@ -43,7 +43,7 @@ class NormalDemand:
         fs = f * s
         self._invf = 1.0 / f
         self._fs_pdf = fs * _INV_SQRT_2PI                       # f s / sqrt(2 pi)
-        self._sG0 = s * _loss_at_minus(m / s)                   # s G(-m/s) = S(inf)
+        self._sG0 = s * loss_at_minus(m / s)                   # s G(-m/s) = S(inf)
         self._fsG0 = f * self._sG0                              # f S(inf)
         self._sof = (s / f) * np.sqrt(2.0 * np.pi)              # w = this / exp(-z^2/2)
         self._cap_w = bool(len(f) and self._sof.max() > 1.0)
@@ -137,21 +137,24 @@ class NormalDemand:
 
     def flat_from(self, share):
         """x where the expected spill E[(D - x)^+] = s G(z) falls to ``share`` of the most
-        sales S(inf) (positive even where the mean is not): Newton on
-        log G(z) = log(share S(inf) / s), from G(z) ~ phi(z) / z^2, with
-        d log G / dz = -Phibar(z) / G(z) (both written with erfcx, so that the factor
-        exp(-z^2/2) they share cancels)."""
-        target = np.log(share * self._sG0 / self.std)
-        z = np.sqrt(np.maximum(-2.0 * (target + np.log(np.sqrt(2.0 * np.pi))), 1.0))
-        for _ in range(FLAT_STEPS):
-            tail = 0.5 * special.erfcx(z * np.sqrt(0.5))         # Phibar(z) exp(z^2/2)
-            scaled = _INV_SQRT_2PI - z * tail                    # G(z) exp(z^2/2)
-            log_g = np.log(np.maximum(scaled, 1e-300)) - 0.5 * z * z
-            z = np.maximum(z + (log_g - target) * scaled / tail, 0.0)
-        return self.mean + self.std * z
+        sales S(inf) (positive even where the mean is not): G(z) = share S(inf) / s."""
+        return self.mean + self.std * loss_inverse(np.log(share * self._sG0 / self.std))
 
 
-def _loss_at_minus(t):
+def loss_inverse(target):
+    """z >= 0 with log G(z) = ``target`` (G the standard normal loss): Newton on log G from
+    G(z) ~ phi(z) / z^2, with d log G / dz = -Phibar(z) / G(z) (both written with erfcx, so
+    that the factor exp(-z^2/2) they share cancels)."""
+    z = np.sqrt(np.maximum(-2.0 * (target + np.log(np.sqrt(2.0 * np.pi))), 1.0))
+    for _ in range(FLAT_STEPS):
+        tail = 0.5 * special.erfcx(z * np.sqrt(0.5))             # Phibar(z) exp(z^2/2)
+        scaled = _INV_SQRT_2PI - z * tail                        # G(z) exp(z^2/2)
+        log_g = np.log(np.maximum(scaled, 1e-300)) - 0.5 * z * z
+        z = np.maximum(z + (log_g - target) * scaled / tail, 0.0)
+    return z
+
+
+def loss_at_minus(t):
     """G(-t) = pdf(t) + t Phi(t) (normal loss); direct where t >= 0 (no cancellation)."""
     t = np.asarray(t, dtype=np.float64)
     out = np.exp(-0.5 * t * t)

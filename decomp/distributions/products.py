@@ -94,6 +94,7 @@ class Products:
         self.jump[self.i_gam] = np.minimum(self.gamma.jump, self.upper[self.i_gam])
         self.jump[self.jump <= JUMP_MIN * np.maximum(mean, 0.0)] = 0.0
         self.kinks = self._kink_table()
+        self._flat = {}                     # flat_from's answers, per share
 
     def _kink_table(self):
         """Every piecewise-linear part in one table (jumps, discrete seats, known demand)."""
@@ -241,14 +242,13 @@ class Products:
         """Per product: the allocation beyond which its expected spill E[(D - x)^+] is at most
         ``share`` of its most sales S(inf) (the seats beyond add at most f share S(inf) to its
         revenue); the bound u for products without a smooth part. Computed once per share."""
-        cache = self.__dict__.setdefault("_flat", {})
-        if share not in cache:
+        if share not in self._flat:
             out = self.upper.copy()
             for i, fam in ((self.i_norm, self.normal), (self.i_gam, self.gamma)):
                 flat = fam.flat_from(share)
                 out[i] = np.where(flat < out[i], flat, out[i])      # (never a NaN)
-            cache[share] = out
-        return cache[share]
+            self._flat[share] = out
+        return self._flat[share]
 
     # -- smooth parts of chosen products (the interior-point method's variables) --------------
     def _by_family(self, products):
