@@ -245,17 +245,26 @@ class GammaDemand:
         lo, hi = np.zeros(self.n), np.full(self.n, np.inf)
         target = np.log(share)
         lgk1 = special.gammaln(k + 1.0)
+        idx = np.arange(self.n)             # the products not yet within FLAT_LOG_TOL
         for _ in range(_MAX_STEPS):
-            with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
-                q = special.gammaincc(k, y)
-                r = q * (1.0 - y / k) + np.exp(special.xlogy(k, y) - y - lgk1)
-                h = np.log(np.maximum(r, 1e-320)) - target
-                lo, hi = np.where(h > 0, y, lo), np.where(h > 0, hi, y)
-                new = y + h * k * r / q
-            if np.all(np.abs(h) <= FLAT_LOG_TOL):
+            if not len(idx):
                 break
-            fallback = np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * y)
-            y = np.where(np.isfinite(new) & (new > lo) & (new < hi), new, fallback)
+            yi, ki = y[idx], k[idx]
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
+                low = yi < ki
+                small = _smaller_tail(ki, yi, low, self.threads)
+                q = np.where(low, 1.0 - small, small)
+                r = q * (1.0 - yi / ki) + np.exp(special.xlogy(ki, yi) - yi - lgk1[idx])
+                h = np.log(np.maximum(r, 1e-320)) - target
+                lo[idx] = np.where(h > 0, yi, lo[idx])
+                hi[idx] = np.where(h > 0, hi[idx], yi)
+                new = yi + h * ki * r / q
+            open_ = np.abs(h) > FLAT_LOG_TOL
+            li, hi_ = lo[idx], hi[idx]
+            fallback = np.where(np.isfinite(hi_), 0.5 * (li + hi_), 2.0 * yi)
+            y[idx] = np.where(open_ & ~(np.isfinite(new) & (new > li) & (new < hi_)), fallback,
+                              np.where(open_, new, yi))
+            idx = idx[open_]
         return self.theta * y
 
 
