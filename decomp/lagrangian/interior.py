@@ -95,6 +95,8 @@ RESIDUAL = 1e-11
 #: ... beyond ROUNDING machine epsilons of the allocation times the curvature (the slope's
 #: own rounding).
 ROUNDING = 8 * np.finfo(float).eps
+#: The start's centring (:func:`_centre`) stops at Newton steps within this share of the bound.
+CENTRE_TOL = 1e-12
 
 
 @dataclasses.dataclass
@@ -130,7 +132,7 @@ class _Iterate:
         self._cache = None
         v = np.empty(len(var.ub))
         # kinks: centred at (lambda, mu), slope - a + mu/v - mu/(u - v) = 0
-        v[n:] = _centre(lambda _, k=var.slope: k, a[n:], var.ub[n:], mu)
+        v[n:] = _centre(lambda _, k=var.slope: (k, 0.0), a[n:], var.ub[n:], mu)
         if n:
             # smooth parts start at their own responses to the bid prices (the fractile beyond
             # the offset): where the curvature is steep the barrier's centre is far from there
@@ -144,7 +146,8 @@ class _Iterate:
             if len(closed):
                 part = net.products.smooth_part(self.smooth[closed])
                 off = var.offset[closed]
-                v[closed] = _centre(lambda w: part.terms(off + w)[1] / fmax, a[closed], var.ub[closed], mu)
+                v[closed] = _centre(lambda w: tuple(t / fmax for t in part.terms(off + w)[1:]), a[closed],
+                                    var.ub[closed], mu)
         v = np.clip(v, 1e-9 * var.ub, (1.0 - 1e-9) * var.ub)
         # primal feasible: scaled into the capacities
         load = net.A_g @ self.per_group(v)
@@ -363,15 +366,23 @@ def _step(net, system, cur, mu, mu_min) -> bool:
 
 
 def _centre(slope, a, ub, mu, rounds=60):
-    """v in (0, ub) with slope(v) - a + mu/v - mu/(ub - v) = 0, by bisection (the left
-    side decreases in v: slope is a concave revenue's)."""
+    """v in (0, ub) with F(v) = g(v) - a + mu/v - mu/(ub - v) = 0, where ``slope(v)`` gives
+    (g, h), the revenue's slope and -curvature (F falls in v: the revenue is concave).
+    Newton on F, safeguarded by bisection on a bracket, until every step is within
+    CENTRE_TOL of ub."""
     lo, hi = np.zeros(len(ub)), ub.copy()
     v = 0.5 * ub
     for _ in range(rounds):
-        F = slope(v) - a + mu / v - mu / (ub - v)
+        g, h = slope(v)
+        F = g - a + mu / v - mu / (ub - v)
         lo = np.where(F > 0, v, lo)
         hi = np.where(F > 0, hi, v)
-        v = 0.5 * (lo + hi)
+        new = v + F / (h + mu / v ** 2 + mu / (ub - v) ** 2)
+        new = np.where((new > lo) & (new < hi), new, 0.5 * (lo + hi))
+        done = bool(np.all(np.abs(new - v) <= CENTRE_TOL * ub))
+        v = new
+        if done:
+            break
     return v
 
 
@@ -463,9 +474,12 @@ def _neighbourhood(cur, direction, ap, ad):
 
 
 def _longest(value, change):
-    """The largest t <= 1 with value + t change >= 0 (value > 0)."""
-    ratio = np.divide(value, change, out=np.full(len(value), -np.inf), where=change < 0)
-    return float(min(1.0, -ratio.max(initial=-np.inf)))
+    """The largest t <= 1 with value + t change >= 0 (value > 0): only the entries that a
+    full step would take below 0 can block it."""
+    block = value < -change
+    if not block.any():
+        return 1.0
+    return float(min(1.0, (value[block] / -change[block]).min()))
 
 
 def _armijo(cur, g, dv, ds, alpha, mu):
