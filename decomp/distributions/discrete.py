@@ -130,4 +130,4 @@ class DiscreteDemand:
         for seat, (act, s) in enumerate(steps):
             slope[ptr[act] + seat] = s
         keep = count > 0
-        return KinkTable(np.asarray(owner)[keep], count[keep], slope, np.ones(len(slope)))
+        return KinkTable(np.asarray(owner)[keep], count[keep], slope, unit=np.ones(int(keep.sum())))

@@ -35,6 +35,8 @@ from scipy import special
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 #: Kinks with |d2| > WINDOW are full or empty to double precision (Phi(-8.5) ~ 1e-17).
 WINDOW = 8.5
+#: A smoothed evaluation takes the kinks inside the windows in blocks of about this many.
+CHUNK = 1 << 20
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -51,14 +53,20 @@ class KinkResponse:
 class KinkTable:
     """Kinks of a set of owner products, slopes decreasing per owner."""
 
-    def __init__(self, owner, count, slope, width):
+    def __init__(self, owner, count, slope, width=None, unit=None):
+        """``width`` per kink, or ``unit`` per owner when all of an owner's kinks share one
+        width (whole seats; single kinks): then no array of the table's length is kept for
+        the widths, nor for their prefix sums."""
         self.owner = np.asarray(owner, dtype=np.int64)
         count = np.asarray(count, dtype=np.int64)
         self.count = count
         self.ptr = np.zeros(len(count) + 1, dtype=np.int64)
         np.cumsum(count, out=self.ptr[1:])
         self.slope = np.asarray(slope, dtype=np.float64)
-        self.width = np.asarray(width, dtype=np.float64)
+        if (width is None) == (unit is None):
+            raise ValueError("give the widths per kink or per owner, not both")
+        self._width = None if width is None else np.asarray(width, dtype=np.float64)
+        self._unit = None if unit is None else np.asarray(unit, dtype=np.float64)
         #: the last counts found per purpose (a guess the next search checks first: between
         #: iterations most products keep their position among their kinks)
         self._last = {}
@@ -71,26 +79,50 @@ class KinkTable:
         pp[o] + n the sum over its first n kinks."""
         return self.ptr[:-1] + np.arange(len(self.count))
 
+    @property
+    def width(self):
+        """Per kink: its width (built from the owners' widths where those are kept)."""
+        return np.repeat(self._unit, self.count) if self._width is None else self._width
+
+    def widths(self, kinks):
+        """The widths of the kinks ``kinks`` (indices into the table)."""
+        if self._width is not None:
+            return self._width[kinks]
+        return self._unit[np.searchsorted(self.ptr, kinks, side="right") - 1]
+
     @functools.cached_property
     def cum_w(self):
         return self._prefix(self.width)
 
     @functools.cached_property
     def cum_rw(self):
-        return self._prefix(self.slope * self.width)
+        if self._width is not None:
+            return self._prefix(self.slope * self._width)
+        out = self._prefix(self.slope)
+        if not np.all(self._unit == 1.0):
+            out *= np.repeat(self._unit, self.count + 1)
+        return out
 
     @functools.cached_property
     def unit(self):
         """Each owner's first width: when all its kinks share it (seats of discrete demand; a
         single kink), counting the kinks an allocation fills is a division."""
-        if not len(self.width):
+        if self._width is None:
+            return np.where(self.count > 0, self._unit, 1.0)
+        if not len(self._width):
             return np.ones(len(self.count))
-        first = self.width[np.minimum(self.ptr[:-1], len(self.width) - 1)]
+        first = self._width[np.minimum(self.ptr[:-1], len(self._width) - 1)]
         return np.where(self.count > 0, first, 1.0)
 
     @functools.cached_property
     def uniform(self):
-        return bool(np.all(self.width == np.repeat(self.unit, self.count)))
+        return self._width is None or bool(np.all(self._width == np.repeat(self.unit, self.count)))
+
+    def filled(self, n, rows=None):
+        """Per owner (or per owner row of ``rows``): the widths of its first ``n`` kinks, summed."""
+        if self._width is None:
+            return n * (self._unit if rows is None else self._unit[rows])
+        return self.cum_w[(self.pp if rows is None else self.pp[rows]) + n]
 
     def _prefix(self, values):
         """Per owner, the K + 1 prefix sums of its kinks' ``values`` (0 first), in one
@@ -120,8 +152,10 @@ class KinkTable:
             return cls(np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0), np.zeros(0))
         if len(tables) == 1:
             return tables[0]                # (one family's table: no copy of its arrays)
-        return cls(np.concatenate([t.owner for t in tables]), np.concatenate([t.count for t in tables]),
-                   np.concatenate([t.slope for t in tables]), np.concatenate([t.width for t in tables]))
+        owner, count, slope = (np.concatenate([getattr(t, a) for t in tables]) for a in ("owner", "count", "slope"))
+        if all(t._width is None for t in tables):
+            return cls(owner, count, slope, unit=np.concatenate([t._unit for t in tables]))
+        return cls(owner, count, slope, width=np.concatenate([t.width for t in tables]))
 
     def __len__(self):
         return len(self.slope)
@@ -214,7 +248,7 @@ class KinkTable:
         """The exact terms at bid-price sums ``a`` (per owner)."""
         n = self.above(a, purpose="exact")
         at = self.pp + n
-        x = self.cum_w[at]
+        x = self.filled(n)
         value = self.cum_rw[at] - a * x
         return KinkResponse(x=x, w=np.zeros(len(x)), value=value, excess=0.0)
 
@@ -224,32 +258,40 @@ class KinkTable:
         lo = self.above(a * spread, purpose="full")             # kinks before lo: full
         hi = self.above(a / spread, lo=lo, purpose="empty")     # kinks from hi on: empty
         at = self.pp + lo
-        x = self.cum_w[at].copy()
+        x = self.filled(lo)
         value = self.cum_rw[at] - a * x
         w = np.zeros(len(a))
         size = hi - lo
-        total = int(size.sum())
         excess = 0.0
-        if total:
-            own = np.repeat(np.arange(self.n_owners), size)
-            k = np.arange(total) - np.repeat(np.cumsum(size) - size, size) + np.repeat(self.ptr[:-1] + lo, size)
-            r, wd, ak = self.slope[k], self.width[k], a[own]
+        # the kinks inside the windows, in blocks of owners of about CHUNK kinks each (the
+        # windows of a wide smoothing hold most of a large table: ten arrays of its size)
+        ends = np.cumsum(size)
+        cuts = np.searchsorted(ends, np.arange(CHUNK, int(ends[-1]) if len(ends) else 0, CHUNK), side="right")
+        bounds = np.unique(np.concatenate([[0], cuts, [self.n_owners]]))
+        for o0, o1 in zip(bounds[:-1], bounds[1:]):
+            sz = size[o0:o1]
+            total = int(sz.sum())
+            if not total:
+                continue
+            own = np.repeat(np.arange(o1 - o0), sz)
+            k = np.arange(total) - np.repeat(np.cumsum(sz) - sz, sz) + np.repeat(self.ptr[o0:o1] + lo[o0:o1], sz)
+            r, ak = self.slope[k], a[o0:o1][own]
+            wd = self._width[k] if self._width is not None else self._unit[o0:o1][own]
             d2 = (np.log(r / ak) - 0.5 * theta * theta) / theta
             p2 = special.ndtr(d2)
-            y = wd * p2
             term = wd * (r * special.ndtr(d2 + theta) - ak * p2)
             curv = wd * _INV_SQRT_2PI * np.exp(-0.5 * d2 * d2) / (ak * theta)
-            x += np.bincount(own, weights=y, minlength=self.n_owners)
-            value += np.bincount(own, weights=term, minlength=self.n_owners)
-            w = np.bincount(own, weights=curv, minlength=self.n_owners)
-            excess = float(np.sum(term - wd * np.maximum(r - ak, 0.0)))
+            x[o0:o1] += np.bincount(own, weights=wd * p2, minlength=o1 - o0)
+            value[o0:o1] += np.bincount(own, weights=term, minlength=o1 - o0)
+            w[o0:o1] = np.bincount(own, weights=curv, minlength=o1 - o0)
+            excess += float(np.sum(term - wd * np.maximum(r - ak, 0.0)))
         return KinkResponse(x=x, w=w, value=value, excess=excess)
 
     def revenue(self, x):
         """Per owner: sum_k r_k w_k filled in order up to the allocation ``x`` (per owner)."""
         n = self.above_width(x)
         at = self.pp + n
-        rest = x - self.cum_w[at]
+        rest = x - self.filled(n)
         k = self.ptr[:-1] + np.minimum(n, np.maximum(self.count - 1, 0))
         nxt = np.where(n < self.count, self.slope[k] if len(self.slope) else 0.0, 0.0)
         return self.cum_rw[at] + np.maximum(rest, 0.0) * nxt
@@ -287,8 +329,7 @@ class KinkTable:
         filled in order): the slope of the kink x is in, or at a breakpoint the next and the
         previous kink's (0 past the last, +inf before the first)."""
         n = self.above_width(x)
-        at = self.pp + n
-        on_break = np.abs(x - self.cum_w[at]) <= 1e-12 * np.maximum(1.0, x)
+        on_break = np.abs(x - self.filled(n)) <= 1e-12 * np.maximum(1.0, x)
         k_next = self.ptr[:-1] + np.minimum(n, np.maximum(self.count - 1, 0))
         has_next = n < self.count
         right = np.where(has_next, self.slope[k_next] if len(self.slope) else 0.0, 0.0)

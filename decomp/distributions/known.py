@@ -38,4 +38,4 @@ class KnownDemand:
         width = np.minimum(self.mean, np.asarray(upper, dtype=np.float64))
         keep = width > 0
         return KinkTable(np.asarray(owner)[keep], np.ones(int(keep.sum()), dtype=np.int64),
-                         self.fare[keep], width[keep])
+                         self.fare[keep], unit=width[keep])

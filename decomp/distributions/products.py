@@ -99,7 +99,7 @@ class Products:
     def _kink_table(self):
         """Every piecewise-linear part in one table (jumps, discrete seats, known demand)."""
         jumped = np.flatnonzero(self.jump > 0)
-        jumps = KinkTable(jumped, np.ones(len(jumped), np.int64), self.fare[jumped], self.jump[jumped])
+        jumps = KinkTable(jumped, np.ones(len(jumped), np.int64), self.fare[jumped], unit=self.jump[jumped])
         tables = [jumps, self.discrete.kinks(self.upper[self.i_dis], self.i_dis),
                   self.known.kinks(self.upper[self.i_known], self.i_known)]
         return KinkTable.concatenate(tables)

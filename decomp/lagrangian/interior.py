@@ -120,7 +120,7 @@ class _Iterate:
         self.capacity = master.capacity
         k = net.products.kinks
         owner = np.concatenate([master.smooth, master.kink_owner]).astype(np.int64)
-        ub = np.concatenate([master.room, k.width[master.kink]])
+        ub = np.concatenate([master.room, k.widths(master.kink)])
         self.var = var = Variables(owner=owner, group=net.group_of(owner), ub=np.maximum(ub, 1e-12),
                                    n_smooth=len(master.smooth), offset=master.offset,
                                    slope=k.slope[master.kink] / fmax)

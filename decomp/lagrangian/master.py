@@ -92,7 +92,7 @@ def build(net, lo, hi, share=None) -> Master:
     while True:
         fixed_x = np.zeros(net.n_products)
         if len(k.owner):
-            fixed_x[k.owner] = k.cum_w[k.pp + lo]
+            fixed_x[k.owner] = k.filled(lo)
         capacity = net.cap - net.load(fixed_x)
         tight = capacity <= ROOM * np.maximum(net.cap, 1.0)
         if not np.any(tight):

@@ -121,3 +121,40 @@ def test_counts_from_the_last_answer_equal_a_direct_count():
         lo = np.minimum(lo, direct(level, np.zeros(k.n_owners, np.int64)))
         assert np.array_equal(k.above(level, purpose="all"), direct(level, 0)), step
         assert np.array_equal(k.above(level, lo=lo, purpose="from"), direct(level, lo)), step
+
+
+def test_widths_per_owner_answer_as_widths_per_kink():
+    # A table whose owners each have one width (whole seats, single kinks) keeps it per
+    # owner, not per kink. Reference: the same kinks with their widths given one by one
+    # (a plain repetition of each owner's width), through every query of the table, and
+    # joined with a table of unequal widths.
+    from decomp.distributions.kinks import KinkTable
+
+    rng = np.random.default_rng(11)
+    n = 300
+    count = rng.integers(0, 9, n)
+    slope = np.concatenate([np.sort(rng.uniform(1, 100, c))[::-1] for c in count])
+    unit = rng.choice([1.0, 0.37, 2.5], n)
+    per_owner = KinkTable(np.arange(n), count, slope, unit=unit)
+    per_kink = KinkTable(np.arange(n), count, slope, width=np.repeat(unit, count))
+    a = rng.uniform(1, 100, n)
+    x = rng.uniform(0, 12, n)
+    assert per_owner.uniform and per_kink.uniform
+    assert np.array_equal(per_owner.width, per_kink.width)
+    kinks = rng.integers(0, len(slope), 50)
+    assert np.array_equal(per_owner.widths(kinks), per_kink.width[kinks])
+    p, q = per_owner.exact(a), per_kink.exact(a)
+    np.testing.assert_allclose(p.x, q.x, rtol=1e-15)
+    np.testing.assert_allclose(p.value, q.value, rtol=1e-12, atol=1e-12)
+    p, q = per_owner.smoothed(a, 0.05), per_kink.smoothed(a, 0.05)
+    for u, v in ((p.x, q.x), (p.w, q.w), (p.value, q.value)):
+        np.testing.assert_allclose(u, v, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(per_owner.revenue(x), per_kink.revenue(x), rtol=1e-12, atol=1e-12)
+    for u, v in zip(per_owner.slopes_at(x), per_kink.slopes_at(x)):
+        assert np.array_equal(u, v)
+    # joined with a table of unequal widths: the widths are kept per kink again
+    odd = KinkTable(np.array([n]), np.array([2]), np.array([9.0, 3.0]), width=np.array([0.5, 1.5]))
+    joined = KinkTable.concatenate([per_owner, odd])
+    assert not joined.uniform
+    assert np.array_equal(joined.width, np.concatenate([per_kink.width, [0.5, 1.5]]))
+    assert joined.filled(np.append(count, 2))[-1] == 2.0
