@@ -136,13 +136,16 @@ class _Iterate:
         if n:
             # smooth parts start at their own responses to the bid prices (the fractile beyond
             # the offset): where the curvature is steep the barrier's centre is far from there
-            # in the part's own scale, and the method would crawl back; closed ones (no
-            # response beyond the offset) are centred like the kinks
+            # in the part's own scale, and the method would crawl back. Those whose response
+            # lies outside their box are centred like the kinks: closed ones (no response
+            # beyond the offset), and those whose response is beyond their bound (a flat tail:
+            # clipped to the bound, the multiplier of the bound would be mu / (u - v), huge,
+            # and its dual residual with it; the method took some ten short steps to undo it)
             # (the whole products' response: its families keep their last answers as starts,
             # and the bid prices are the last evaluation's)
             x = net.products.respond(net.to_products(net.AT_g @ lam) * fmax).x[self.smooth] - var.offset
             v[:n] = x
-            closed = np.flatnonzero(~(x > 0))
+            closed = np.flatnonzero(~((x > 0) & (x < var.ub[:n])))
             if len(closed):
                 part = net.products.smooth_part(self.smooth[closed])
                 off = var.offset[closed]
