@@ -95,11 +95,13 @@ class GammaDemand:
         log_complement = np.log(np.maximum(complement, 1e-320))
         lo = np.zeros(len(y))
         hi = np.full(len(y), np.inf)
-        idx = slice(None)                   # the first pass over every product: views, no gathers
+        idx = np.arange(len(y))
+        first = True                        # the first pass over every product: views, no gathers
         for _ in range(_MAX_STEPS):
-            if isinstance(idx, np.ndarray) and not len(idx):
+            if not len(idx):
                 break
-            yi, ki = y[idx], k[idx]
+            at = slice(None) if first else idx
+            yi, ki = y[at], k[at]
             use_p = yi < ki
             with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 tail = _smaller_tail(ki, yi, use_p, self.threads)
@@ -109,11 +111,9 @@ class GammaDemand:
                 log_tail = np.log(np.maximum(tail, 1e-320))
                 # h(y) = log Q(k, y) - log(ratio), or log(1 - ratio) - log P(k, y): the smaller
                 # of P and Q, both decreasing in y, h' = -g / tail
-                resid = np.where(use_p, log_complement[idx] - log_tail, log_tail - log_ratio[idx])
+                resid = np.where(use_p, log_complement[at] - log_tail, log_tail - log_ratio[at])
                 resid[lost] = -1.0
-                lo[idx] = np.where(resid > 0, yi, lo[idx])
-                hi[idx] = np.where(resid > 0, hi[idx], yi)
-                ratio_g = np.exp((ki - 1.0) * np.log(yi) - yi - self._lgk[idx] - log_tail)
+                ratio_g = np.exp((ki - 1.0) * np.log(yi) - yi - self._lgk[at] - log_tail)
                 newton = resid / ratio_g
                 # Halley: h'' / h' = (k - 1) / y - 1 + g / Q (Q branch) or - g / P (P branch)
                 bend = (ki - 1.0) / yi - 1.0 + np.where(use_p, -ratio_g, ratio_g)
@@ -123,14 +123,20 @@ class GammaDemand:
             # Halley's error is cubic in the step: after a step below _ACCEPT y the fractile
             # is exact to double precision, and no evaluation is spent to confirm it
             done = ~lost & ((np.abs(step) <= _ACCEPT * yi) | (resid == 0))
-            grow = np.where(np.isfinite(hi[idx]), hi[idx], 4.0 * np.maximum(yi, 1e-300))
-            bad = lost | ~done & (~np.isfinite(new) | (new <= lo[idx]) | (new >= grow))
-            fallback = np.where(np.isfinite(hi[idx]), 0.5 * (lo[idx] + hi[idx]), grow)
-            new = np.where(bad, fallback, new)
-            y[idx] = np.where(np.isfinite(new) & (new > 0), new, yi)
-            open_ = np.isinf(hi[idx]) | (hi[idx] - lo[idx] > _YTOL * hi[idx])
-            go_on = np.flatnonzero(~done & open_)
-            idx = go_on if isinstance(idx, slice) else idx[go_on]
+            # the others: a bracket from the sign of h, and bisection where Halley leaves it
+            rest = np.flatnonzero(~done)
+            j = idx[rest]
+            yr, rr, nr = yi[rest], resid[rest], new[rest]
+            y[at] = np.where(np.isfinite(new) & (new > 0), new, yi)     # (yi may be a view of y)
+            lo[j] = np.where(rr > 0, yr, lo[j])
+            hi[j] = np.where(rr > 0, hi[j], yr)
+            lr, hr = lo[j], hi[j]
+            grow = np.where(np.isfinite(hr), hr, 4.0 * np.maximum(yr, 1e-300))
+            bad = lost[rest] | ~np.isfinite(nr) | (nr <= lr) | (nr >= grow)
+            nr = np.where(bad, np.where(np.isfinite(hr), 0.5 * (lr + hr), grow), nr)
+            y[j] = np.where(np.isfinite(nr) & (nr > 0), nr, yr)
+            idx = j[np.isinf(hr) | (hr - lr > _YTOL * hr)]
+            first = False
         return y
 
     def _start(self, ratio, complement):
