@@ -65,12 +65,8 @@ TO_BOUNDARY = 0.995
 #: kept only if the step grows by GROWTH of the trial step.
 CORRECTORS, STRETCH, BETA_LOW, BETA_HIGH, GROWTH = 2, 2.0, 0.1, 10.0, 0.1
 #: Steps keep every complementarity product above NEIGHBOURHOOD times their average,
-#: ending at NEIGHBOURHOOD_MARGIN of the longest such step (or, from outside the
-#: neighbourhood, shrinking both by NEIGHBOURHOOD_SHRINK at most NEIGHBOURHOOD_TRIES times).
-#: (Linear programs are usually given 1e-3; with the exact longest step that let gamma
-#: masters run off-centre and into the monotone mode: p1m gamma 34 iterations against 26
-#: with 0.1, 29 with 1e-3 and steps shrunk by 0.8 until inside.)
-NEIGHBOURHOOD, NEIGHBOURHOOD_MARGIN, NEIGHBOURHOOD_SHRINK, NEIGHBOURHOOD_TRIES = 0.1, 0.99, 0.8, 30
+#: shrinking both by NEIGHBOURHOOD_SHRINK at most NEIGHBOURHOOD_TRIES times.
+NEIGHBOURHOOD, NEIGHBOURHOOD_SHRINK, NEIGHBOURHOOD_TRIES = 1e-3, 0.8, 30
 #: Armijo's sufficient-decrease fraction and the backtracking factor (all-primal masters).
 ARMIJO, BACKTRACK = 1e-4, 0.5
 #: The start is scaled so that no leg is fuller than this (all-primal masters).
@@ -464,37 +460,9 @@ def _centrality(cur, solve, direction, target):
 
 
 def _neighbourhood(cur, direction, ap, ad):
-    """The longest common step, at most min(ap, ad), that keeps every complementarity
-    product at least NEIGHBOURHOOD times their average (the wide neighbourhood of the
-    central path of long-step path-following methods: a product far below the others
-    blocks later steps). Along the step each product, and so their average, is a quadratic
-    in the step length; the step ends just before the first positive root of some product
-    minus NEIGHBOURHOOD times the average. (Where the iterate is outside the neighbourhood
-    already, both steps are shrunk by NEIGHBOURHOOD_SHRINK until it is inside.)"""
-    dv, ds, dl, dz, dt = direction
-    alpha = min(ap, ad)
-    x = np.concatenate([cur.v, cur.up, cur.s])
-    dx = np.concatenate([dv, -dv, ds])
-    z = np.concatenate([cur.z, cur.t, cur.lam])
-    dw = np.concatenate([dz, dt, dl])
-    # product_i(a) - NEIGHBOURHOOD mean(a) = A a^2 + B a + C, per product
-    A, B, C = dx * dw, x * dw + z * dx, x * z
-    A -= NEIGHBOURHOOD * A.mean()
-    B -= NEIGHBOURHOOD * B.mean()
-    C -= NEIGHBOURHOOD * C.mean()
-    if not np.all(C >= 0):
-        return _shrunk_into_neighbourhood(cur, direction, ap, ad)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        disc = B * B - 4.0 * A * C
-        q = -0.5 * (B + np.copysign(np.sqrt(np.maximum(disc, 0.0)), B))
-        roots = np.concatenate([q / A, C / q])
-    real = np.concatenate([disc >= 0, disc >= 0])
-    first = roots[real & (roots > 0) & np.isfinite(roots)].min(initial=np.inf)
-    alpha = min(alpha, NEIGHBOURHOOD_MARGIN * first)
-    return alpha, alpha
-
-
-def _shrunk_into_neighbourhood(cur, direction, ap, ad):
+    """Shorten both steps until every complementarity product is at least NEIGHBOURHOOD
+    times their average (the wide neighbourhood of the central path of long-step
+    path-following methods): a product far below the others blocks later steps."""
     dv, ds, dl, dz, dt = direction
     for _ in range(NEIGHBOURHOOD_TRIES):
         products = ((cur.v + ap * dv) * (cur.z + ad * dz), (cur.up - ap * dv) * (cur.t + ad * dt),

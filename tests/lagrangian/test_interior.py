@@ -147,34 +147,3 @@ def test_fixed_seats_never_overfill_a_leg():
     lo = k.count.copy()                  # everything fixed full: far more than the legs hold
     m = master.build(net, lo, k.count.copy())
     assert np.all(m.capacity > 0)
-
-
-def test_the_step_ends_at_the_edge_of_the_wide_neighbourhood():
-    # interior._neighbourhood: the longest common step keeping every complementarity product
-    # at least NEIGHBOURHOOD times their average. Reference: the products evaluated directly
-    # along the step on a fine grid (the definition of the neighbourhood, no quadratics).
-    import types
-
-    rng = np.random.default_rng(4)
-    n, legs = 400, 30
-    g = interior.NEIGHBOURHOOD
-    for trial in range(20):
-        v, up, s = rng.uniform(0.1, 2, n), rng.uniform(0.1, 2, n), rng.uniform(0.1, 2, legs)
-        mu = 0.3
-        z, t, lam = mu / v * rng.uniform(0.5, 2, n), mu / up * rng.uniform(0.5, 2, n), mu / s * rng.uniform(0.5, 2, legs)
-        cur = types.SimpleNamespace(v=v, up=up, s=s, z=z, t=t, lam=lam)
-        d = tuple(rng.normal(0, scale, size) for scale, size in ((1.5, n), (1.5, legs), (1.0, legs), (1.0, n), (1.0, n)))
-        dv, ds, dl, dz, dt = d
-        ap, ad = interior._steps(cur, d)
-        alpha, same = interior._neighbourhood(cur, d, ap, ad)
-        assert alpha == same and 0 < alpha <= min(ap, ad)
-
-        def inside(a):
-            p = np.concatenate([(v + a * dv) * (z + a * dz), (up - a * dv) * (t + a * dt), (s + a * ds) * (lam + a * dl)])
-            return p.min() >= g * p.mean()
-
-        grid = np.linspace(0.0, alpha, 400)[1:]
-        assert all(inside(a) for a in grid), trial
-        if alpha < interior.NEIGHBOURHOOD_MARGIN * min(ap, ad):
-            # not capped by the boundary: just past the margin the neighbourhood is left
-            assert not inside(alpha / interior.NEIGHBOURHOOD_MARGIN * 1.001), trial
