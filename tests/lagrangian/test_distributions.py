@@ -278,6 +278,28 @@ def test_flat_tail_leaves_the_asked_share_of_the_mean(family):
             assert spill == pytest.approx(share * most, rel=1e-2), (family, share, m[j], s[j])
 
 
+def test_gamma_flat_point_on_threads_matches_quadrature():
+    # GammaDemand.flat_from over many products runs its incomplete gamma functions in slices
+    # on threads and iterates only on the products not yet converged. Reference: the same
+    # products one thread at a time (the answer may not depend on the split), and
+    # scipy.stats.gamma's sf integrated by adaptive quadrature (the tail identity, as above)
+    # for a sample of them.
+    from decomp.distributions.gamma import THREADS_FROM, GammaDemand
+    rng = np.random.default_rng(12)
+    n = 2 * THREADS_FROM + 7
+    m = np.exp(rng.uniform(np.log(0.02), np.log(200.0), n))
+    s = m * np.exp(rng.uniform(np.log(0.01), np.log(3.0), n))
+    f = rng.uniform(50, 500, n)
+    x2 = GammaDemand(f, m, s, threads=2).flat_from(1e-12)
+    x1 = GammaDemand(f, m, s, threads=1).flat_from(1e-12)
+    assert np.array_equal(x1, x2)
+    for j in rng.choice(n, 12, replace=False):
+        ref = stats.gamma((m[j] / s[j]) ** 2, scale=s[j] ** 2 / m[j])
+        most = integrate.quad(ref.sf, 0.0, np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
+        spill = integrate.quad(ref.sf, x2[j], np.inf, epsabs=0.0, epsrel=1e-10, limit=400)[0]
+        assert spill == pytest.approx(1e-12 * most, rel=1e-2), (m[j], s[j])
+
+
 def test_gamma_fractile_from_the_last_one_matches_scipy():
     # GammaDemand.respond starts each fractile from the last call's (to first order) where
     # a/f moved little. The answer must not depend on the start: checked against
