@@ -309,12 +309,16 @@ def master_phase(state, pi):
     lo, hi = master.first_windows(net, pi)
     limit = max(state.limit, MASTER_LIMIT)
     word = "master_rounds"
+    warm = None
     for round_ in range(MASTER_ROUNDS):
         m = master.build(net, lo, hi, share)
         state.master_rounds += 1
-        word, its, pi, _ = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
-                                                 state.t0, state.bounds, state.history, state.iterations,
-                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS)
+        word, its, pi, cur = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
+                                                   state.t0, state.bounds, state.history, state.iterations,
+                                                   early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=warm)
+        warm = getattr(cur, "snapshot", None)
+        if warm is not None and not warm.n_smooth:
+            warm = None                      # a master of kinks only (a linear program) starts cold
         state.iterations += its
         if word in ("optimal", "time_limit", "iteration_limit", "numerical_error"):
             return word
