@@ -265,12 +265,13 @@ class GammaDemand:
                 lo[idx] = np.where(h > 0, yi, lo[idx])
                 hi[idx] = np.where(h > 0, hi[idx], yi)
                 new = yi + h * ki * r / q
+            # the products still open take Newton's step, or bisect where it leaves the bracket
             open_ = np.abs(h) > FLAT_LOG_TOL
             li, hi_ = lo[idx], hi[idx]
-            fallback = np.where(np.isfinite(hi_), 0.5 * (li + hi_), 2.0 * yi)
-            y[idx] = np.where(open_ & ~(np.isfinite(new) & (new > li) & (new < hi_)), fallback,
-                              np.where(open_, new, yi))
+            inside = np.isfinite(new) & (new > li) & (new < hi_)
+            step_to = np.where(inside, new, np.where(np.isfinite(hi_), 0.5 * (li + hi_), 2.0 * yi))
             idx = idx[open_]
+            y[idx] = step_to[open_]
         return self.theta * y
 
 

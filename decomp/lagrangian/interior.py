@@ -153,22 +153,28 @@ class _Iterate:
                 off = var.offset[closed]
                 v[closed] = _centre(lambda w: tuple(t / fmax for t in part.terms(off + w)[1:]), a[closed],
                                     var.ub[closed], mu)
-        v = np.clip(v, 1e-9 * var.ub, (1.0 - 1e-9) * var.ub)
-        # primal feasible: scaled into the capacities
-        load = net.A_g @ self.per_group(v)
-        fill = np.minimum(1.0, FILL * self.capacity / np.maximum(load, 1e-300))
-        v = v * smallest_over_legs(net, fill, np.ones(net.n, dtype=bool))[var.group]
-        self.v = v
-        # the distances to the upper bounds and to the capacities are carried, not computed
-        # as u - v and c' - A X: near a bound those differences lose every digit
-        self.up = var.ub - v
-        self.s = self.capacity - net.A_g @ self.per_group(v)
+        self._place(v)
         self.lam = np.maximum(lam, mu / self.s)
-        self.z = mu / v
+        self.z = mu / self.v
         self.t = mu / self.up
         self.residual = np.inf
         self.infeasibility = np.inf
         self.last_steps = (1.0, 1.0)
+        #: the iterate kept for the next master's start (:class:`Snapshot`), once there is one
+        self.snapshot = None
+
+    def _place(self, v):
+        """Start at ``v`` (kept inside its bounds), primal feasible: scaled into the
+        capacities so that no leg is fuller than FILL. The distances to the upper bounds and
+        to the capacities are carried from here on, not computed as u - v and c' - A X: near
+        a bound those differences lose every digit."""
+        ub = self.var.ub
+        v = np.clip(v, 1e-9 * ub, (1.0 - 1e-9) * ub)
+        load = self.net.A_g @ self.per_group(v)
+        fill = np.minimum(1.0, FILL * self.capacity / np.maximum(load, 1e-300))
+        self.v = v * smallest_over_legs(self.net, fill, np.ones(self.net.n, dtype=bool))[self.var.group]
+        self.up = ub - self.v
+        self.s = self.capacity - self.net.A_g @ self.per_group(self.v)
 
     def per_group(self, values):
         return np.bincount(self.var.group, weights=values, minlength=self.net.G)
@@ -191,13 +197,7 @@ class _Iterate:
             v[off_mine + found] = snap.v[off_theirs + pos[found]]
             z[off_mine + found] = snap.z[off_theirs + pos[found]]
             t[off_mine + found] = snap.t[off_theirs + pos[found]]
-        ub = self.var.ub
-        v = np.clip(v, 1e-9 * ub, (1.0 - 1e-9) * ub)
-        load = self.net.A_g @ self.per_group(v)
-        fill = np.where(load > FILL * self.capacity, np.minimum(1.0, FILL * self.capacity / np.maximum(load, 1e-300)), 1.0)
-        v = v * smallest_over_legs(self.net, fill, np.ones(self.net.n, dtype=bool))[self.var.group]
-        self.v, self.up = v, ub - v
-        self.s = self.capacity - self.net.A_g @ self.per_group(v)
+        self._place(v)
         self.z, self.t = z, t
         self.lam = np.maximum(snap.lam, snap.mu / self.s)
 
@@ -282,7 +282,6 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     cur = _Iterate(net, master, pi0, fmax, MU_START if warm is None else warm.mu)
     if warm is not None:
         cur.adopt(warm, master)
-    cur.snapshot = None
     pairs = 2 * len(cur.v) + net.n
     certified = np.inf
     level, next_level = None, np.inf
