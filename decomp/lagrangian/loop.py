@@ -18,7 +18,8 @@ and reports every stop through one table (:data:`STATUS`).
    smooth terms: low-CV or gamma demand near closing) the loop goes on to phase 2.
 2. **Master** (:func:`master_phase`): the restricted problem that fixes the kinks far
    from the current bid-price sums (:mod:`.master`), solved by the primal-dual
-   interior-point method (:mod:`.interior`); its bid prices are checked against every
+   interior-point method (:mod:`.interior`), or where it has kinks only, a linear
+   program, by HiGHS's dual simplex (:mod:`.lpmaster`); its bid prices are checked against every
    fixed kink when it is solved (the first master also at each of its certificates), and
    the windows grow until none is violated (column generation).
 """
@@ -31,7 +32,7 @@ import time
 import numpy as np
 
 from ..result import Termination
-from . import interior, master, newton
+from . import interior, lpmaster, master, newton
 from .bounds import Bounds, record
 from .continuation import Continuation
 from .prices import ZERO_RESOLUTION
@@ -123,6 +124,8 @@ class LoopState:
     iterations: int = 0
     newton_iterations: int = 0
     master_rounds: int = 0
+    lp_masters: int = 0            # masters solved as linear programs by HiGHS (lpmaster)
+    simplex_iterations: int = 0
 
     def out_of_time(self) -> bool:
         return self.deadline is not None and time.perf_counter() > self.deadline
@@ -313,9 +316,14 @@ def master_phase(state, pi):
     for round_ in range(MASTER_ROUNDS):
         m = master.build(net, lo, hi, share)
         state.master_rounds += 1
-        word, its, pi, cur = interior.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
-                                                   state.t0, state.bounds, state.history, state.iterations,
-                                                   early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=warm)
+        # a master of kinks only is a linear program (:mod:`.lpmaster`)
+        method = lpmaster if m.size and not len(m.smooth) else interior
+        word, its, pi, cur = method.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
+                                                 state.t0, state.bounds, state.history, state.iterations,
+                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=warm)
+        if isinstance(cur, lpmaster.Vertex):
+            state.lp_masters += 1
+            state.simplex_iterations += cur.simplex_iterations
         warm = getattr(cur, "snapshot", None)
         if warm is not None and not warm.n_smooth:
             warm = None                      # a master of kinks only (a linear program) starts cold
@@ -337,8 +345,11 @@ def _outcome(state, word) -> Outcome:
         term, word, meaning = Termination.OPTIMAL, "optimal", STATUS["optimal"][1]
     msg = f"{meaning} after {state.iterations} iterations"
     if state.master_rounds:
-        msg += (f" (projected Newton {state.newton_iterations}, then {state.master_rounds} round(s) of the "
-                f"restricted problem by the interior-point method)")
+        rounds, lp = state.master_rounds, state.lp_masters
+        simplex = f"HiGHS's dual simplex, {state.simplex_iterations} simplex iterations"
+        by = (" by the interior-point method" if not lp else f" as linear programs by {simplex}" if lp == rounds
+              else f": {lp} as linear programs by {simplex}, {rounds - lp} by the interior-point method")
+        msg += f" (projected Newton {state.newton_iterations}, then {rounds} round(s) of the restricted problem{by})"
     pi = bounds.pi if bounds.pi is not None else np.zeros(state.net.n)
     x = bounds.x if bounds.x is not None else np.zeros(state.net.n_products)
     return Outcome(pi=pi, x=x, gap=bounds.gap, termination=term, raw_status=word, message=msg,

@@ -73,6 +73,28 @@ def test_discrete_expected_sales_and_fractile_match_scipy(family, mean, std):
         assert n == 0 or ref.sf(n - 1) > r
 
 
+@pytest.mark.parametrize("negbin", [False, True])
+def test_kink_slopes_match_scipy_at_small_and_large_means(negbin):
+    # Reference: scipy.stats.poisson / nbinom sf. Every seat's slope is f P(D > k) to 5e-14
+    # of the fare (scipy's nbinom.sf and betainc themselves differ by 1.1e-14 at mean
+    # 12,339, measured), and the table stops at the first seat with P(D > k) <= 1e-12 (TAIL): at
+    # large means the recurrences' rounding once kept P(D > k) near 1e-11 and the table ran
+    # on to the bound (a product of mean 12,339 had 75,241 seats).
+    from decomp.distributions.discrete import TAIL, DiscreteDemand
+
+    mean = np.array([0.1, 5.0, 20.0, 21.0, 300.0, 12339.0])
+    std = np.sqrt(mean) * (1.5 if negbin else 1.0)
+    fare = np.linspace(50.0, 300.0, len(mean))
+    table = DiscreteDemand(fare, mean, std, np.full(len(mean), negbin)).kinks(np.full(len(mean), 1e6),
+                                                                             np.arange(len(mean)))
+    for j in range(len(mean)):
+        ref = _poisson_nb(mean[j], std[j]) if negbin else stats.poisson(mean[j])
+        seats = np.arange(table.count[j])
+        got = table.slope[table.ptr[j]:table.ptr[j + 1]]
+        assert np.max(np.abs(got - fare[j] * ref.sf(seats))) <= 5e-14 * fare[j], mean[j]
+        assert ref.sf(seats[-1]) <= TAIL and (len(seats) == 1 or ref.sf(seats[-2]) > TAIL), mean[j]
+
+
 def test_discrete_subproblem_is_solved_at_that_integer():
     # max_x f S(x) - a x over a fine grid (brute force) is attained at the fractile
     f, mean, std = 100.0, 3.0, 2.5

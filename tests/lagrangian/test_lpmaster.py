@@ -1,0 +1,92 @@
+"""A restricted problem of kinks only, solved as a linear program by HiGHS's dual simplex
+(decomp.lagrangian.lpmaster), in the loop.
+
+References outside the method's code: the seat-by-seat linear program of a discrete-demand
+network built here from scipy.stats alone and solved by HiGHS through
+scipy.optimize.linprog; the independent certificate of tests/support/family.py (scipy.stats;
+weak duality, a mathematical fact).
+"""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+from scipy import optimize, stats
+
+from decomp import Termination, demand_mix, solve
+from decomp.generator import generate
+
+from support import family
+
+
+def _large_means(products, seed, scale):
+    """A generated network of Poisson demand with means and capacities ``scale`` times the
+    generator's (a product of mean 30 has some 20 seats near its bid-price sum: many kinks
+    per product)."""
+    inst = generate(products, seed=seed)
+    inst = inst.with_forecast(mean=inst.mean * scale, capacity=np.round(inst.capacity * scale))
+    return demand_mix.apply(inst, demand_mix.DemandMix.parse("poisson 1"), seed=0)
+
+
+def _seat_lp_optimum(inst):
+    """The network's optimum as the linear program of its seats: seat k of product j has
+    revenue f_j P(D_j > k) (scipy.stats.poisson.sf) and width 1, up to the smallest capacity
+    of the product's legs (no product can sell more), where P(D > k) > 1e-13 (the seats
+    beyond add less than 1e-13 f each)."""
+    owner = np.repeat(np.arange(inst.n_products), np.diff(inst.leg_ptr))
+    bound = np.full(inst.n_products, np.inf)
+    np.minimum.at(bound, owner, inst.capacity[inst.leg_index])
+    cols, cost = [], []
+    for j in range(inst.n_products):
+        seats = np.arange(int(bound[j]))
+        sf = stats.poisson.sf(seats, inst.mean[j])
+        seats = seats[sf > 1e-13]
+        cols.append(np.full(len(seats), j))
+        cost.append(inst.fare[j] * sf[seats])
+    col_owner = np.concatenate(cols)
+    A = sp.csr_matrix(inst.A)[:, col_owner]
+    lp = optimize.linprog(-np.concatenate(cost), A_ub=A, b_ub=inst.capacity, bounds=(0.0, 1.0), method="highs")
+    assert lp.status == 0, lp.message
+    return -lp.fun
+
+
+@pytest.mark.solver
+def test_large_poisson_means_solve_as_linear_programs_to_the_seat_lp_optimum():
+    # means 10 times the generator's (up to some 4,000): the masters are linear programs of
+    # many kinks per product, which the interior-point method took 100 to 500 iterations on
+    inst = _large_means(300, seed=5, scale=10)
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "as linear programs by HiGHS's dual simplex" in r.message, r.message
+    assert r.objective == pytest.approx(_seat_lp_optimum(inst), rel=1e-9)
+    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    assert viol <= 1e-9
+    assert family.relative_gap(dual, primal) <= 1e-8
+
+
+@pytest.mark.solver
+def test_a_linear_program_highs_cannot_finish_goes_to_the_interior_point_method(monkeypatch, caplog):
+    # HiGHS stopped by an iteration limit of one simplex iteration (a failure as numerical
+    # trouble would be): the master is solved by the interior-point method instead, the log
+    # says so, and the answer is still certified
+    from decomp.methods import highs
+
+    made = highs.new_highs
+
+    def limited():
+        h = made()
+        h.setOptionValue("simplex_iteration_limit", 1)
+        return h
+
+    monkeypatch.setattr(highs, "new_highs", limited)
+    inst = _large_means(120, seed=2, scale=3)
+    with caplog.at_level(logging.WARNING, logger="decomp.lagrangian.lpmaster"):
+        r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "by the interior-point method" in r.message, r.message
+    assert any("the interior-point method solves it instead" in rec.getMessage() for rec in caplog.records)
+    monkeypatch.undo()
+    assert r.objective == pytest.approx(solve(inst, "pnlp", "lagrangian").objective, rel=1e-8)
