@@ -100,7 +100,7 @@ def solve_dual(instance, tol, dual_method="newton", iteration_limit=None, time_l
     deadline = None if time_limit is None else t0 + time_limit
     if dual_method == "newton":
         theta = WARM_THETA if warm_start is not None else None
-        out = run(net, system, pi0, tol, limit, deadline, t1, floor, theta)
+        out = run(net, system, pi0, tol, limit, deadline, t1, floor, theta, warm=warm_start is not None)
     elif dual_method == "lbfgsb":
         out = run_lbfgsb(net, pi0, tol, limit, deadline, t1, floor)
     else:

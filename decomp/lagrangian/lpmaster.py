@@ -40,52 +40,81 @@ FEASIBILITY = 1e-10
 
 @dataclasses.dataclass
 class Vertex:
-    """The master's optimal vertex: its free kinks' seats."""
+    """The master's optimal vertex: its free kinks' seats (in the model's column order), and
+    the model, kept for the next round (:class:`Model`)."""
 
     owner: np.ndarray
     y: np.ndarray
     simplex_iterations: int
-    snapshot = None            # (the interior-point method's restart point; a vertex has none)
+    snapshot: "Model"
 
     def allocation(self, master):
         return master.fixed_x + np.bincount(self.owner, weights=self.y, minlength=len(master.fixed_x))
 
 
+class Model:
+    """The HiGHS model of a master and the kinks of its columns. Pricing only frees kinks
+    (the windows grow, none is fixed again) and the capacities left by the fixed seats only
+    grow with it, so the next round's master is this one with more columns and larger row
+    bounds: HiGHS takes them into the solved model and starts from its optimal basis (each
+    new column enters at its bound 0; the dual simplex repairs the rest), instead of from
+    nothing."""
+
+    def __init__(self, net, fmax):
+        import highspy
+
+        from ..methods.highs import new_highs
+
+        self.net, self.fmax, self.highspy = net, fmax, highspy
+        self.h = new_highs()
+        for name, value in (("solver", "simplex"), ("primal_feasibility_tolerance", FEASIBILITY),
+                            ("dual_feasibility_tolerance", FEASIBILITY)):
+            self.h.setOptionValue(name, value)
+        self.h.changeObjectiveSense(highspy.ObjSense.kMaximize)
+        n = net.n
+        self.h.addRows(n, np.full(n, -highspy.kHighsInf), np.zeros(n), 0, np.zeros(0, dtype=np.int32),
+                       np.zeros(0, dtype=np.int32), np.zeros(0))
+        self.kink = np.zeros(0, dtype=np.int64)      # the columns' kinks, in column order
+        self.owner = np.zeros(0, dtype=np.int64)
+
+    def holds(self, master) -> bool:
+        """Whether every column of this model is a free kink of ``master``."""
+        return bool(np.all(np.isin(self.kink, master.kink, assume_unique=True)))
+
+    def take(self, master):
+        """Add the master's free kinks this model lacks as columns; its capacities as row bounds."""
+        net, highspy = self.net, self.highspy
+        k = net.products.kinks
+        new = ~np.isin(master.kink, self.kink, assume_unique=True)
+        kink, owner = master.kink[new], master.kink_owner[new]
+        if len(kink):
+            cols = net.A_g[:, net.group_of(owner)].tocsc()
+            self.h.addCols(len(kink), k.slope[kink] / self.fmax, np.zeros(len(kink)), k.widths(kink),
+                           int(cols.nnz), cols.indptr[:-1].astype(np.int32), cols.indices.astype(np.int32),
+                           cols.data.astype(np.float64))
+            self.kink = np.concatenate([self.kink, kink])
+            self.owner = np.concatenate([self.owner, owner])
+        rows = np.arange(net.n, dtype=np.int32)
+        self.h.changeRowsBounds(net.n, rows, np.full(net.n, -highspy.kHighsInf), np.maximum(master.capacity, 0.0))
+
+
 def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration,
                  early_pricing=False, warm=None):
     """The master's linear program by HiGHS (one iteration of the loop), certified over the
-    whole problem; the same words and returns as :func:`.interior.solve_master`. Without
-    highspy installed, the interior-point method solves it."""
+    whole problem; the same words and returns as :func:`.interior.solve_master`. ``warm``:
+    the last round's :class:`Model`, extended where it still fits. Without highspy installed,
+    the interior-point method solves it."""
     try:
         import highspy
     except ImportError:
         return interior_solve(net, system, master, pi0, tol, limit, deadline, t0, bounds, history,
-                              first_iteration, early_pricing=early_pricing, warm=warm)
-    from ..methods.highs import new_highs
-
+                              first_iteration, early_pricing=early_pricing)
     fmax = float(net.fare.max(initial=1.0))
-    k = net.products.kinks
-    cols = net.A_g[:, net.group_of(master.kink_owner)].tocsc()
-    width = k.widths(master.kink)
-    lp = highspy.HighsLp()
-    lp.num_col_, lp.num_row_ = int(cols.shape[1]), int(cols.shape[0])
-    lp.col_cost_ = k.slope[master.kink] / fmax
-    lp.col_lower_ = np.zeros(len(width))
-    lp.col_upper_ = width
-    lp.row_lower_ = np.full(net.n, -highspy.kHighsInf)
-    lp.row_upper_ = np.maximum(master.capacity, 0.0)
-    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
-    lp.a_matrix_.start_ = cols.indptr.astype(np.int32)
-    lp.a_matrix_.index_ = cols.indices.astype(np.int32)
-    lp.a_matrix_.value_ = cols.data.astype(np.float64)
-    lp.sense_ = highspy.ObjSense.kMaximize
-    h = new_highs()
-    for name, value in (("solver", "simplex"), ("primal_feasibility_tolerance", FEASIBILITY),
-                        ("dual_feasibility_tolerance", FEASIBILITY)):
-        h.setOptionValue(name, value)
+    model = warm if isinstance(warm, Model) and warm.holds(master) else Model(net, fmax)
+    model.take(master)
+    h = model.h
     if deadline is not None:
         h.setOptionValue("time_limit", max(deadline - time.perf_counter(), 1e-3))
-    h.passModel(lp)
     h.run()
     status = h.getModelStatus()
     sol = h.getSolution()
@@ -96,9 +125,10 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         log.warning("HiGHS ended the restricted problem (%d kinks) with status %s; the interior-point "
                     "method solves it instead", len(master.kink), h.modelStatusToString(status))
         return interior_solve(net, system, master, pi0, tol, limit, deadline, t0, bounds, history,
-                              first_iteration, early_pricing=early_pricing, warm=warm)
-    vertex = Vertex(owner=master.kink_owner, y=np.clip(np.asarray(sol.col_value), 0.0, width),
-                    simplex_iterations=int(h.getInfo().simplex_iteration_count))
+                              first_iteration, early_pricing=early_pricing)
+    width = net.products.kinks.widths(model.kink)
+    vertex = Vertex(owner=model.owner, y=np.clip(np.asarray(sol.col_value), 0.0, width),
+                    simplex_iterations=int(h.getInfo().simplex_iteration_count), snapshot=model)
     pi = np.maximum(np.asarray(sol.row_dual, dtype=np.float64), 0.0) * fmax
     _certify(net, master, vertex, pi, bounds)
     history.append(record(first_iteration + 1, bounds, pi, 0.0, t0))

@@ -90,3 +90,30 @@ def test_a_linear_program_highs_cannot_finish_goes_to_the_interior_point_method(
     assert any("the interior-point method solves it instead" in rec.getMessage() for rec in caplog.records)
     monkeypatch.undo()
     assert r.objective == pytest.approx(solve(inst, "pnlp", "lagrangian").objective, rel=1e-8)
+
+
+@pytest.mark.solver
+def test_a_warm_start_near_the_optimum_goes_straight_to_the_linear_programs():
+    # after a change of the means by up to 5% (the nightly case), the masters start from the
+    # warm bid prices without the Newton phase; the answer is the moved network's seat LP's
+    inst = _large_means(300, seed=4, scale=3)
+    cold = solve(inst, "pnlp", "lagrangian")
+    rng = np.random.default_rng(5)
+    moved = inst.with_forecast(mean=inst.mean * rng.uniform(0.95, 1.05, inst.n_products))
+    r = solve(moved, "pnlp", "lagrangian", warm_start=cold)
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "projected Newton 0," in r.message, r.message
+    assert r.objective == pytest.approx(_seat_lp_optimum(moved), rel=1e-9)
+
+
+@pytest.mark.solver
+def test_a_warm_start_far_from_the_optimum_gives_way_to_newton():
+    # bid prices five times the optimal ones: the first master's pricing frees far more
+    # kinks than a near start would (more than WARM_GROWTH times the first windows), and the
+    # loop goes on with the Newton phase; the answer is still the seat LP's
+    inst = _large_means(300, seed=4, scale=3)
+    cold = solve(inst, "pnlp", "lagrangian")
+    r = solve(inst, "pnlp", "lagrangian", warm_start=cold.bid_price_array * 5.0)
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "projected Newton 0," not in r.message, r.message
+    assert r.objective == pytest.approx(_seat_lp_optimum(inst), rel=1e-9)
