@@ -333,9 +333,12 @@ def master_phase(state, pi, max_growth=None):
         state.master_rounds += 1
         # a master of kinks only is a linear program (:mod:`.lpmaster`)
         method = lpmaster if m.size and not len(m.smooth) else interior
+        # each method restarts only from its own kind of kept state (a later master may have
+        # smooth parts where the one before had none: pricing opens a jump fixed empty)
+        start = warm if isinstance(warm, lpmaster.Model if method is lpmaster else interior.Snapshot) else None
         word, its, pi, cur = method.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
                                                  state.t0, state.bounds, state.history, state.iterations,
-                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=warm)
+                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=start)
         if isinstance(cur, lpmaster.Vertex):
             state.lp_masters += 1
             state.simplex_iterations += cur.simplex_iterations

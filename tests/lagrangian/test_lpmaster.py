@@ -117,3 +117,19 @@ def test_a_warm_start_far_from_the_optimum_gives_way_to_newton():
     assert r.termination is Termination.OPTIMAL, r.message
     assert "projected Newton 0," not in r.message, r.message
     assert r.objective == pytest.approx(_seat_lp_optimum(inst), rel=1e-9)
+
+
+@pytest.mark.solver
+def test_a_linear_program_master_followed_by_one_with_smooth_parts():
+    # Pricing can open a jump fixed empty, so that a master of kinks only (a linear program,
+    # its HiGHS model kept for the next round) is followed by one with smooth parts (the
+    # interior-point method, which must start cold then: it once took the HiGHS model for its
+    # own restart point and failed). Family draw 1619 (mixed demand, 12 products; found by a
+    # held-out sweep); reference: the independent certificate (scipy.stats; weak duality).
+    inst, desc = family.draw(1619, max_products=3000)
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, (desc, r.message)
+    assert "as linear program" in r.message and "by the interior-point method" in r.message, r.message
+    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    assert viol <= 1e-9, desc
+    assert family.relative_gap(dual, primal) <= 1e-8, desc
