@@ -32,7 +32,7 @@ import time
 import numpy as np
 
 from ..result import Termination
-from . import interior, lpmaster, master, newton
+from . import continuation, interior, lpmaster, master, newton
 from .bounds import Bounds, record
 from .continuation import Continuation
 from .prices import ZERO_RESOLUTION
@@ -166,7 +166,9 @@ def newton_phase(state, pi0, theta_start=None):
     """(word, bid prices to go on from): "optimal", a limit, "identified" (the smoothing is
     down to its end level), "stalled" or "no_decrease"."""
     net, system, bounds = state.net, state.system, state.bounds
-    cont = Continuation(net.products.has_kinks, theta_start)
+    # where every master will be a linear program (kinks only), a coarser last level
+    linear = not len(net.products.i_smooth) and lpmaster.available()
+    cont = Continuation(net.products.has_kinks, theta_start, continuation.END_LINEAR if linear else continuation.END)
     pt = net.evaluate(np.maximum(pi0, state.floor), cont.theta)
     fare_max = float(net.fare.max(initial=1.0))
     eps_bar = 1e-3 * fare_max

@@ -22,6 +22,7 @@ says so; without highspy it solves them all.
 from __future__ import annotations
 
 import dataclasses
+import importlib.util
 import logging
 import time
 
@@ -96,6 +97,11 @@ class Model:
             self.owner = np.concatenate([self.owner, owner])
         rows = np.arange(net.n, dtype=np.int32)
         self.h.changeRowsBounds(net.n, rows, np.full(net.n, -highspy.kHighsInf), np.maximum(master.capacity, 0.0))
+
+
+def available() -> bool:
+    """Whether highspy is installed (else the interior-point method solves every master)."""
+    return importlib.util.find_spec("highspy") is not None
 
 
 def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration,
