@@ -30,6 +30,7 @@ import numpy as np
 
 from .bounds import record
 from .interior import _certify, solve_master as interior_solve
+from .recovery import recover
 
 log = logging.getLogger(__name__)
 
@@ -125,6 +126,11 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     status = h.getModelStatus()
     sol = h.getSolution()
     if status == highspy.HighsModelStatus.kTimeLimit:
+        # the stop still needs a certificate: the dual at the bid prices the master started
+        # from, and the allocation recovered there (large networks recover only near the end)
+        pt = net.evaluate(np.maximum(pi0, 0.0))
+        bounds.offer_dual(pt)
+        bounds.offer_primal(*recover(net, pt))
         history.append(record(first_iteration + 1, bounds, pi0, 0.0, t0))
         return "time_limit", 1, pi0, None
     if status != highspy.HighsModelStatus.kOptimal or not (sol.value_valid and sol.dual_valid):

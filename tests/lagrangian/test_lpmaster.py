@@ -133,3 +133,30 @@ def test_a_linear_program_master_followed_by_one_with_smooth_parts():
     primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
     assert viol <= 1e-9, desc
     assert family.relative_gap(dual, primal) <= 1e-8, desc
+
+
+@pytest.mark.solver
+def test_a_time_limit_inside_the_linear_program_is_a_time_limit_with_an_allocation(monkeypatch):
+    # HiGHS stopped by its time limit in the first master (given here through its own option,
+    # so that the Newton phase before it is not cut short): the loop stops as time_limit, with
+    # a feasible allocation and its certified gap (weak duality: >= 0 and finite). Newton
+    # recovers allocations only near its end here, as on large networks.
+    from decomp import SolutionStatus
+    from decomp.lagrangian import loop
+    from decomp.methods import highs
+
+    monkeypatch.setattr(loop, "RECOVER_ALWAYS_BELOW", 0)
+
+    made = highs.new_highs
+
+    def out_of_time():
+        h = made()
+        h.setOptionValue("time_limit", 1e-9)
+        return h
+
+    monkeypatch.setattr(highs, "new_highs", out_of_time)
+    inst = _large_means(200, seed=6, scale=3)
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.TIME_LIMIT, r.message
+    assert r.solution_status is SolutionStatus.FEASIBLE and r.certificate.max_violation_rel <= 1e-9
+    assert 0.0 <= r.gap < 1.0 and r.objective > 0
