@@ -7,7 +7,10 @@ c.pi + sum_j mean_j (f_j - a_j)^+ equal to the recorded optimum; when both
 hold, the case is reported as ``alternative_duals`` (legs named), not as a
 regression (LP duality: a dual-feasible point whose dual objective equals the
 primal optimum is an optimal dual). The PWL model, an LP too, is treated the
-same way with its own dual objective (both from :mod:`decomp.certify`).
+same way with its own dual objective (both from :mod:`decomp.certify`), and so is a
+PNLP whose every product has discrete or known demand (piecewise linear: an LP), with
+the Lagrangian dual q(pi) (weak duality makes any pi >= 0 with q(pi) equal to the
+optimum an optimal dual).
 """
 
 from __future__ import annotations
@@ -76,8 +79,10 @@ class Thresholds:
         if self.time_ratio < 1:
             raise ConfigError(f"time_ratio must be >= 1, got {self.time_ratio!r}")
 
-    def for_case(self, model: str, tol: float) -> dict:
-        lp = model in LP_MODELS
+    def for_case(self, model: str, tol: float, linear: bool = False) -> dict:
+        """The thresholds of one case; ``linear``: a PNLP that is an LP (:func:`piecewise_linear_pnlp`),
+        whose bid prices and allocation are as little unique as an LP model's."""
+        lp = model in LP_MODELS or linear
         obj = self.objective_rtol if self.objective_rtol is not None else max(10 * tol, 1e-9)
         bid = self.bid_rtol if self.bid_rtol is not None else (1e-7 if lp else max(1e-6, 1e3 * tol))
         alloc = self.allocation_rtol if self.allocation_rtol is not None else (None if lp else max(1e-5, 1e3 * tol))
@@ -176,7 +181,7 @@ def check(path, *, thresholds: Thresholds | None = None, options_override: Mappi
             continue
         try:
             _check_case(base, rec, rep, instances, override, solve_fn, clock, repeat, warm if warmup else None,
-                        confirm_runs)
+                        confirm_runs, thresholds)
         except Exception as exc:  # noqa: BLE001 - a failing case is reported, the others still run
             log.debug("case %s failed", rec["case"], exc_info=True)
             rep.add("regression", "error", f"the check could not re-solve this case: {type(exc).__name__}: {exc}")
@@ -217,7 +222,7 @@ def _missing_cases(base, unavailable, progress, solve_fn_given) -> list:
 
 
 def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock, repeat, warm,
-                confirm_runs) -> None:
+                confirm_runs, thresholds) -> None:
     """Solve one recorded case again and add its findings to ``rep``: status, objective, bid prices,
     certificate, allocation, iterations and time, each against the record."""
     key = rec["instance_dir"]
@@ -229,6 +234,8 @@ def _check_case(base, rec, rep: CaseReport, instances, override, solve_fn, clock
                 f"the instance in {key} reads back differently now (fingerprint changed): decomp.io or the "
                 f"instance files changed, so the answers cannot be compared")
         return
+    if piecewise_linear_pnlp(inst, rec["model"]):
+        rep.thresholds = thresholds.for_case(rec["model"], float(rec["options"]["tol"]), linear=True)
     options = _options_for(rec, override)
     if options.to_dict() != rec["options"]:
         changed = {k: (rec["options"].get(k), v) for k, v in options.to_dict().items()
@@ -283,7 +290,8 @@ def _compare_objective(rep: CaseReport, rec, result) -> tuple:
 
 def _compare_bid_prices(rep: CaseReport, rec, result, inst, options, obj_old, objective_same) -> None:
     """Bid prices moved beyond bid_rtol (relative) + bid_atol are a regression, unless the model is an
-    LP whose objective did not change and the new ones are optimal duals too."""
+    LP (or a piecewise-linear PNLP) whose objective did not change and the new ones are optimal duals
+    too."""
     th, m = rep.thresholds, rep.metrics
     legs_old, pi_old = rec["bid_prices"]
     legs_now = [str(x) for x in np.asarray(result.leg_ids).tolist()]
@@ -316,7 +324,7 @@ def _compare_bid_prices(rep: CaseReport, rec, result, inst, options, obj_old, ob
     detail = (f"{len(moved_legs)} leg(s) beyond {th['bid_rtol']:.3g} rel + {atol:.3g} abs: "
               f"{_legs_text(moved_legs)}; largest {legs_old[i_abs]} {float(pi_old[i_abs])!r} -> "
               f"{float(pi_new[i_abs])!r}")
-    if rec["model"] in LP_MODELS and objective_same:
+    if (rec["model"] in LP_MODELS or piecewise_linear_pnlp(inst, rec["model"])) and objective_same:
         _alternative_duals(rep, inst, rec["model"], options.segments, pi_new, obj_old, th, moved_legs, detail)
     else:
         rep.add("regression", "bid_prices", "bid prices moved: " + detail)
@@ -420,7 +428,8 @@ def load_text(load: Mapping) -> str:
 
 
 def _alternative_duals(rep, inst, model, segments, pi_new, obj_old, th, moved_legs, detail) -> None:
-    """An LP (DLP, PWL) with the same objective and moved bid prices: optimal duals again, or a regression."""
+    """An LP (DLP, PWL, a piecewise-linear PNLP) with the same objective and moved bid prices: optimal
+    duals again, or a regression."""
     m = rep.metrics
     min_pi = float(pi_new.min()) if len(pi_new) else 0.0
     dual_obj = lp_dual_objective(inst, model, np.maximum(pi_new, 0.0), segments)
@@ -446,8 +455,21 @@ def _alternative_duals(rep, inst, model, segments, pi_new, obj_old, th, moved_le
                 + "): " + detail)
 
 
+def piecewise_linear_pnlp(inst: Instance, model: str) -> bool:
+    """A PNLP whose every product has Poisson, negative-binomial or known demand (std 0): its
+    expected sales are piecewise linear, so it is an LP too, with duals as little unique as
+    the DLP's (the Lagrangian method solves its restricted problems by HiGHS's simplex, whose
+    choice among optimal vertices may change with HiGHS). Its moved bid prices are checked as
+    the LP models' are, with the Lagrangian dual q(pi) as the dual objective."""
+    if model != "pnlp":
+        return False
+    names = np.asarray(inst.distributions(), dtype=object).astype(str)
+    return bool(np.all(np.isin(names, ("poisson", "negbin")) | (np.asarray(inst.std, dtype=np.float64) == 0.0)))
+
+
 def lp_dual_objective(inst: Instance, model: str, pi, segments: int = 16) -> float:
-    """LP dual objective of the DLP or PWL model at bid prices ``pi`` (from :mod:`decomp.certify`).
+    """LP dual objective of the DLP or PWL model (or a piecewise-linear PNLP: the Lagrangian dual
+    q(pi)) at bid prices ``pi`` (from :mod:`decomp.certify`).
 
     DLP: max f.x s.t. A x <= c, 0 <= x <= mean has the dual min c.pi + mean.s
     s.t. A^T pi + s >= f, pi, s >= 0, whose best s at given pi is (f - A^T pi)^+,

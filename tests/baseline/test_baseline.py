@@ -169,6 +169,34 @@ def test_alternative_optimal_duals_with_canned_solver(tmp_path):
     assert any("negative" in f["message"] for f in rep.cases[0].findings)
 
 
+def test_alternative_optimal_duals_of_a_piecewise_linear_pnlp(tmp_path):
+    # The series network with Poisson demand (mean 20) is an LP: expected sales are piecewise
+    # linear between whole seats. Both legs have capacity 10, so the optimum sells 10 seats,
+    # 100 E[min(D, 10)] (from scipy.stats.poisson: sum of P(D > k), k < 10), and its bid prices
+    # are any split of a sum s with 100 P(D > 10) <= s <= 100 P(D > 9) (the subgradient at the
+    # kink; the dual depends on pi1 + pi2 only, c1 = c2: a mathematical fact). The Lagrangian
+    # method's restricted problems are HiGHS vertices, so a HiGHS upgrade may move them: moved
+    # bid prices that remain optimal duals are alternative_duals, and a changed allocation a
+    # note, as for the LP models; a sum outside the interval is still a regression.
+    from scipy import stats
+
+    from decomp import demand_mix
+
+    inst = demand_mix.apply(series(), demand_mix.DemandMix.parse("poisson 1"), seed=0)
+    d = stats.poisson(20.0)
+    optimum = 100.0 * float(np.sum(d.sf(np.arange(10))))
+    s = 50.0 * float(d.sf(9) + d.sf(10))
+    out = tmp_path / "base"
+    bl.record(out, cases=[bl.Case(inst, "pnlp", "lagrangian")], solve_fn=canned_solver([s, 0.0], objective=optimum))
+    rep = bl.check(out, solve_fn=canned_solver([0.0, s], objective=optimum))
+    (case,) = rep.cases
+    assert case.verdict == bl.ALTERNATIVE_DUALS and not rep.regression, rep.to_markdown()
+    assert case.metrics["alt_dual_rel_gap"] == pytest.approx(0.0, abs=1e-12)
+    rep = bl.check(out, solve_fn=canned_solver([s + 40.0, 0.0], objective=optimum))
+    assert rep.cases[0].verdict == bl.REGRESSION
+    assert any("not optimal duals" in f["message"] for f in rep.cases[0].findings)
+
+
 def test_status_change_is_a_regression(tmp_path):
     out = tmp_path / "base"
     bl.record(out, cases=[bl.Case(series(), "dlp", "highs")], solve_fn=canned_solver([100, 0]))
