@@ -109,15 +109,13 @@ class DiscreteDemand:
         small = np.flatnonzero((umax > 0) & (self.mean <= RECURRENCE_MAX_MEAN))
         large = np.flatnonzero((umax > 0) & (self.mean > RECURRENCE_MAX_MEAN))
         steps = self._by_recurrence(small, umax, count)
-        large_slopes = self._by_exact_tail(large, umax, count)
+        owner_l, seat_l, slope_l = self._by_exact_tail(large, umax, count)
         ptr = np.zeros(self.n + 1, dtype=np.int64)
         np.cumsum(count, out=ptr[1:])
         slope = np.empty(int(ptr[-1]))
         for seat, (act, s) in enumerate(steps):
             slope[ptr[act] + seat] = s
-        if len(large):
-            n = count[large]
-            slope[np.repeat(ptr[large] - np.cumsum(n) + n, n) + np.arange(int(n.sum()))] = large_slopes
+        slope[ptr[owner_l] + seat_l] = slope_l
         keep = count > 0
         return KinkTable(np.asarray(owner)[keep], count[keep], slope, unit=np.ones(int(keep.sum())))
 
@@ -152,15 +150,15 @@ class DiscreteDemand:
         return steps
 
     def _by_exact_tail(self, idx, umax, count):
-        """Slopes of products ``idx`` (seat by seat, product by product) from the incomplete
-        gamma and beta functions; their counts (the first seat whose P(D > k) is at most
+        """(owner, seat, slope) of every seat of products ``idx`` from the incomplete gamma and
+        beta functions; their counts (the first seat whose P(D > k) is at most
         TAIL, by bisection, or the bound) written into ``count``. The recurrences sum
         P(D <= k) over as many seats as the mean: beyond a mean of some thousands the
         rounding of that sum (about 1e-11) stays above TAIL, and the table ran on to the
         bound with every slope there f 1e-11 instead of 0 (a product of mean 12,339 took
         75,241 seats instead of 13,113)."""
         if not len(idx):
-            return np.zeros(0)
+            return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), np.zeros(0)
         cap = umax[idx]
         lo = np.full(len(idx), -1, dtype=np.int64)     # P(D > lo) > TAIL
         hi = cap - 1                                   # P(D > hi) <= TAIL, unless none is
@@ -176,4 +174,4 @@ class DiscreteDemand:
         count[idx] = n
         owner = np.repeat(idx, n)
         seat = np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n)
-        return self.fare[owner] * self.sf(seat.astype(np.float64), owner)
+        return owner, seat, self.fare[owner] * self.sf(seat.astype(np.float64), owner)

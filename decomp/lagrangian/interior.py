@@ -318,7 +318,7 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         if deadline is not None and time.perf_counter() > deadline:
             return "time_limit", it, cur.lam * fmax, cur
         mu = comp / pairs
-        if cur.snapshot is None and mu <= SNAPSHOT_MU:
+        if cur.snapshot is None and mu <= SNAPSHOT_MU and cur.var.n_smooth:
             cur.snapshot = Snapshot.of(cur, master, mu)
         # the barrier level need not fall below what tol asks of the complementarity: below
         # that the slacks would sink to the rounding of the loads and block the steps
@@ -348,10 +348,10 @@ class Snapshot:
     """A master's iterate kept for the next master's start. As in primal-dual column
     generation, the next master starts from a well-centred iterate of the last one (the
     first at or below SNAPSHOT_MU), not from its end, where the variables sit at their
-    bounds and a changed problem blocks the steps. Only masters with smooth parts use it
-    (loop.master_phase): their parts' positions cost the cold start most of its
-    iterations; a master of kinks only, a linear program, started warm took more (p10k
-    Poisson 66 -> 80, negative binomial 41 -> 50)."""
+    bounds and a changed problem blocks the steps. Only masters with smooth parts keep one:
+    their parts' positions cost the cold start most of its iterations; a master of kinks
+    only, a linear program, started warm took more (p10k Poisson 66 -> 80, negative
+    binomial 41 -> 50)."""
 
     mu: float
     smooth: np.ndarray

@@ -138,7 +138,7 @@ def run(net, system, pi0, tol, limit, deadline, t0, floor, theta_start=None, war
     """Newton, then where it hands over, the master phase. From a warm start on a network of
     kinks only, the master phase first (:func:`warm_master_phase`)."""
     state = LoopState(net, system, tol, limit, deadline, t0, floor)
-    if warm and not len(net.products.i_smooth) and len(net.products.kinks.owner):
+    if warm and _linear_masters(net):
         word = warm_master_phase(state, pi0)
         if word is not None:
             return _outcome(state, word)
@@ -167,8 +167,8 @@ def newton_phase(state, pi0, theta_start=None):
     down to its end level), "stalled" or "no_decrease"."""
     net, system, bounds = state.net, state.system, state.bounds
     # where every master will be a linear program (kinks only), a coarser last level
-    linear = not len(net.products.i_smooth) and lpmaster.available()
-    cont = Continuation(net.products.has_kinks, theta_start, continuation.END_LINEAR if linear else continuation.END)
+    end = continuation.END_LINEAR if _linear_masters(net) else continuation.END
+    cont = Continuation(net.products.has_kinks, theta_start, end)
     pt = net.evaluate(np.maximum(pi0, state.floor), cont.theta)
     fare_max = float(net.fare.max(initial=1.0))
     eps_bar = 1e-3 * fare_max
@@ -345,8 +345,6 @@ def master_phase(state, pi, max_growth=None):
             state.lp_masters += 1
             state.simplex_iterations += cur.simplex_iterations
         warm = getattr(cur, "snapshot", None)
-        if isinstance(warm, interior.Snapshot) and not warm.n_smooth:
-            warm = None                      # (an interior-point iterate of kinks only: an LP's starts cold)
         state.iterations += its
         if word in ("optimal", "time_limit", "iteration_limit", "numerical_error"):
             return word
@@ -356,6 +354,12 @@ def master_phase(state, pi, max_growth=None):
         lo, hi = windows
         word = "master_rounds"
     return word
+
+
+def _linear_masters(net) -> bool:
+    """Whether every master is a linear program solved by HiGHS (:mod:`.lpmaster`): products
+    with kinks only, and highspy installed."""
+    return not len(net.products.i_smooth) and net.products.has_kinks and lpmaster.available()
 
 
 def warm_master_phase(state, pi):

@@ -111,11 +111,11 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     whole problem; the same words and returns as :func:`.interior.solve_master`. ``warm``:
     the last round's :class:`Model`, extended where it still fits. Without highspy installed,
     the interior-point method solves it."""
-    try:
-        import highspy
-    except ImportError:
+    if not available():
         return interior_solve(net, system, master, pi0, tol, limit, deadline, t0, bounds, history,
                               first_iteration, early_pricing=early_pricing)
+    import highspy
+
     fmax = float(net.fare.max(initial=1.0))
     model = warm if isinstance(warm, Model) and warm.holds(master) else Model(net, fmax)
     model.take(master)
