@@ -74,15 +74,27 @@ class GammaDemand:
         x = np.maximum(y, 0.0) * self.theta
         return np.where(x > 1e-9 * self.mean, x, 0.0)
 
-    def _g(self, y):
-        """The standard gamma density in y."""
-        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-            return np.exp(special.xlogy(self.k - 1.0, y) - y - self._lgk)
-
     # -- the subproblem ---------------------------------------------------------------------
     def quantile(self, ratio, complement, start=None):
         """y with Q(k, y) = ratio (complement = 1 - ratio, passed to avoid cancellation),
-        from ``start`` where it is finite and positive (else Wilson and Hilferty's)."""
+        from ``start`` where it is finite and positive (else Wilson and Hilferty's). From
+        THREADS_FROM products on, the whole search runs in slices of products on threads
+        (each product's search is its own: the answer is the same however it is split)."""
+        n = len(ratio)
+        parts = _threads.slices(n, self.threads, THREADS_FROM)
+        if len(parts) == 1:
+            return self._quantile(ratio, complement, start)
+        out = np.empty(n)
+
+        def part(lo, hi):
+            sub = GammaSubset(self, slice(lo, hi), threads=1)
+            out[lo:hi] = sub._quantile(ratio[lo:hi], complement[lo:hi], None if start is None else start[lo:hi])
+
+        _threads.map_slices(part, n, self.threads, THREADS_FROM)
+        return out
+
+    def _quantile(self, ratio, complement, start=None):
+        """:meth:`quantile` on one thread."""
         k = self.k
         if start is None:
             y = self._start(ratio, complement)
@@ -90,7 +102,7 @@ class GammaDemand:
             y = start.copy()
             cold = np.flatnonzero(~(np.isfinite(start) & (start > 0)))
             if len(cold):
-                y[cold] = GammaSubset(self, cold)._start(ratio[cold], complement[cold])
+                y[cold] = GammaSubset(self, cold, threads=1)._start(ratio[cold], complement[cold])
         log_ratio = np.log(np.maximum(ratio, 1e-320))
         log_complement = np.log(np.maximum(complement, 1e-320))
         lo = np.zeros(len(y))
@@ -156,38 +168,36 @@ class GammaDemand:
         """(x, w, value): the fractile, -dx/da and f S(x) - a x at bid-price sums ``a``.
 
         At the fractile Q = a/f and P = 1 - a/f, so f S(x) - a x = m (f - a) - f x g(y):
-        the value needs no further incomplete gamma function."""
-        f = self.fare
-        ratio = np.clip(a / f, RATIO_MIN, 1.0)
-        inside = ratio < 1.0
-        y = np.zeros(self.n)
-        if np.any(inside):
-            i = np.flatnonzero(inside)
-            complement = (f[i] - a[i]) / f[i]
-            y[i] = GammaSubset(self, i).quantile(ratio[i], complement, self._warm(ratio, complement, i))
-        x = self.theta * y
-        g = np.where(inside, self._g(y), 0.0)
-        self._last = (ratio, y, g)
-        with np.errstate(divide="ignore", over="ignore"):
-            w = np.where(inside & (g > 0), self.theta / (f * g), 0.0)
-        w = np.minimum(w, 1e300)
-        gain = np.where(inside, self.mean * (f - a) - f * x * g, 0.0)
-        return x, w, float(np.sum(gain))
-
-    def _warm(self, ratio, complement, i):
-        """Starts for the fractiles of products ``i`` from the last call's, to first order
-        (dy/d ratio = -1/g(y)), where their ratio moved by at most WARM of the smaller of
-        ratio and complement (near a solution the bid prices settle, and a start within
-        _ACCEPT of the answer needs one incomplete gamma function instead of two); NaN
-        elsewhere."""
+        the value needs no further incomplete gamma function. From THREADS_FROM products
+        on, in slices of products on threads (each product's answer is its own)."""
+        n = self.n
         last = getattr(self, "_last", None)
-        if last is None or len(last[0]) != self.n:
-            return None
-        r0, y0, g0 = (v[i] for v in last)
-        dr = ratio[i] - r0
-        near = (y0 > 0) & (g0 > 0) & (np.abs(dr) <= WARM * np.minimum(ratio[i], complement))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(near, y0 - dr / g0, np.nan)
+        if last is not None and len(last[0]) != n:
+            last = None
+        ratio, y, g = np.empty(n), np.empty(n), np.empty(n)
+        x, w, gain = np.empty(n), np.empty(n), np.empty(n)
+
+        def part(lo, hi):
+            at = slice(lo, hi)
+            f, aa, k, lgk, th = self.fare[at], a[at], self.k[at], self._lgk[at], self.theta[at]
+            r = ratio[at] = np.clip(aa / f, RATIO_MIN, 1.0)
+            inside = r < 1.0
+            yy = np.zeros(hi - lo)
+            if np.any(inside):
+                i = np.flatnonzero(inside)
+                complement = (f[i] - aa[i]) / f[i]
+                start = None if last is None else _warm(r[i], complement, *(v[at][i] for v in last))
+                yy[i] = GammaSubset(self, lo + i, threads=1)._quantile(r[i], complement, start)
+            y[at] = yy
+            gg = g[at] = np.where(inside, _density(k, lgk, yy), 0.0)
+            xx = x[at] = th * yy
+            with np.errstate(divide="ignore", over="ignore"):
+                w[at] = np.minimum(np.where(inside & (gg > 0), th / (f * gg), 0.0), 1e300)
+            gain[at] = np.where(inside, self.mean[at] * (f - aa) - f * xx * gg, 0.0)
+
+        _threads.map_slices(part, n, self.threads, THREADS_FROM)
+        self._last = (ratio, y, g)
+        return x, w, float(np.sum(gain))
 
     # -- sales --------------------------------------------------------------------------------
     def _params(self, idx):
@@ -197,12 +207,12 @@ class GammaDemand:
 
     def sales(self, x, idx=None):
         """S(x) = m P(k, y) + x (Q(k, y) - g(y)), one incomplete gamma function per product."""
-        return _sales_and_slope(*self._params(idx), x, self.threads)[0]
+        return _sales_slope_density(*self._params(idx), x, self.threads)[0]
 
     def terms(self, x):
         """(S(x), S'(x), -S''(x)) of every product: one incomplete gamma function each."""
-        s, q = _sales_and_slope(self.mean, self.k, self.theta, self._lgk, x, self.threads)
-        return s, q, self.density(x)
+        s, q, g = _sales_slope_density(self.mean, self.k, self.theta, self._lgk, x, self.threads)
+        return s, q, g / self.theta
 
     def subset(self, idx):
         """The products ``idx`` alone (parameters sliced, nothing computed again)."""
@@ -221,9 +231,7 @@ class GammaDemand:
     def density(self, x, idx=None):
         """-S''(x) = g(y) / theta."""
         _, k, th, lgk = self._params(idx)
-        y = np.maximum(np.asarray(x, dtype=np.float64), 1e-300) / th
-        with np.errstate(over="ignore"):
-            return np.exp(special.xlogy(k - 1.0, y) - y - lgk) / th
+        return _density(k, lgk, np.maximum(np.asarray(x, dtype=np.float64), 1e-300) / th) / th
 
     def revenue(self, x):
         return float(self.fare @ self.sales(x))
@@ -275,18 +283,56 @@ class GammaDemand:
         return self.theta * y
 
 
-def _sales_and_slope(m, k, th, lgk, x, threads=1):
-    """(S(x), S'(x) = Q(k, y)) at y = x / theta, from one incomplete gamma function per
-    product (the smaller tail; the other is its complement)."""
+def _warm(ratio, complement, r0, y0, g0):
+    """Starts for fractiles from the last call's (ratios ``r0``, answers ``y0``, densities
+    ``g0``), to first order (dy/d ratio = -1/g(y)), where the ratio moved by at most WARM of
+    the smaller of ratio and complement (near a solution the bid prices settle, and a start
+    within _ACCEPT of the answer needs one incomplete gamma function instead of two); NaN
+    elsewhere."""
+    dr = ratio - r0
+    near = (y0 > 0) & (g0 > 0) & (np.abs(dr) <= WARM * np.minimum(ratio, complement))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(near, y0 - dr / g0, np.nan)
+
+
+def _density(k, lgk, y):
+    """The standard gamma density of shape k (log Gamma(k) = ``lgk``) at y."""
+    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+        return np.exp(special.xlogy(k - 1.0, y) - y - lgk)
+
+
+def _sales_slope_density(m, k, th, lgk, x, threads=1):
+    """(S(x), S'(x) = Q(k, y), g(y)) at y = x / theta (y at least 1e-300 / theta in g), from
+    one incomplete gamma function per product (the smaller tail; the other is its
+    complement); in slices of products on threads from THREADS_FROM products on."""
     x = np.maximum(np.asarray(x, dtype=np.float64), 0.0)
+    n = len(x)
+    if len(_threads.slices(n, threads, THREADS_FROM)) == 1:
+        return _sales_slope_density_one(m, k, th, lgk, x)
+    out = np.empty((3, n))
+
+    def part(lo, hi):
+        at = slice(lo, hi)
+        out[:, at] = _sales_slope_density_one(m[at], k[at], th[at], lgk[at], x[at])
+
+    _threads.map_slices(part, n, threads, THREADS_FROM)
+    return out[0], out[1], out[2]
+
+
+def _sales_slope_density_one(m, k, th, lgk, x):
+    """:func:`_sales_slope_density` on one thread."""
     y = x / th
     low = y < k
-    small = _smaller_tail(k, y, low, threads)     # P where y < k, Q beyond
+    small = _smaller_tail(k, y, low)     # P where y < k, Q beyond
     p = np.where(low, small, 1.0 - small)
     q = np.where(low, 1.0 - small, small)
-    with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
-        g = np.where(y > 0, np.exp(special.xlogy(k - 1.0, y) - y - lgk), 0.0)
-    return m * p + x * (q - g), q
+    g = np.where(y > 0, _density(k, lgk, y), 0.0)
+    # the curvature's density as :meth:`GammaDemand.density` takes it: at 1e-300 below that
+    d = g.copy()
+    tiny = np.flatnonzero(x < 1e-300)
+    if len(tiny):
+        d[tiny] = _density(k[tiny], lgk[tiny], 1e-300 / th[tiny])
+    return m * p + x * (q - g), q, d
 
 
 def _smaller_tail(k, y, low, threads=1):
@@ -308,10 +354,11 @@ def _smaller_tail(k, y, low, threads=1):
 class GammaSubset:
     """The parameters of a subset of a GammaDemand's products (for the quantile)."""
 
-    def __init__(self, parent, idx):
+    def __init__(self, parent, idx, threads=None):
         self.k = parent.k[idx]
         self._lgk = parent._lgk[idx]
-        self.threads = parent.threads
+        self.threads = parent.threads if threads is None else threads
 
     quantile = GammaDemand.quantile
+    _quantile = GammaDemand._quantile
     _start = GammaDemand._start

@@ -96,15 +96,15 @@ class NormalDemand:
         m, s = (self.mean, self.std) if idx is None else (self.mean[idx], self.std[idx])
         return _normal.pdf((np.asarray(x, dtype=np.float64) - m) / s) / s
 
-    def terms(self, x):
-        """(S(x), S'(x), -S''(x)) of every product, from one density and one tail
-        probability each: with z = (x - m)/s, S'(x) = Phibar(z), -S''(x) = phi(z)/s and
+    def terms(self, x, at=slice(None)):
+        """(S(x), S'(x), -S''(x)) of every product (or of the slice ``at``; ``x`` is then
+        the slice's), from one density and one tail probability each: with z = (x - m)/s, S'(x) = Phibar(z), -S''(x) = phi(z)/s and
         S(x) = s (G(-m/s) - G(z)), G(z) = phi(z) - z Phibar(z) (the interior-point method
         asks for all three at every trial point). For z >> 0 that difference cancels, but
         its absolute error, about 1e-16 phi(z), is far below a fare's rounding; at x = 0
         it repeats G(-m/s)'s own operations, so S(0) = 0 exactly."""
-        s = self.std
-        z = np.subtract(x, self.mean)
+        s = self.std[at]
+        z = np.subtract(x, self.mean[at])
         z /= s
         tail = special.ndtr(-z)
         dens = np.multiply(z, z)
@@ -113,7 +113,7 @@ class NormalDemand:
         dens *= _INV_SQRT_2PI
         loss = np.multiply(z, tail)
         np.subtract(dens, loss, out=loss)
-        sales = self._sG0 - s * np.maximum(loss, 0.0)
+        sales = self._sG0[at] - s * np.maximum(loss, 0.0)
         dens /= s
         return sales, tail, dens
 

@@ -342,3 +342,52 @@ def test_gamma_fractile_from_the_last_one_matches_scipy():
         assert np.allclose(x, fresh, rtol=1e-13, atol=0.0), move
         want = stats.gamma.isf(a / f, (m / s) ** 2, scale=s * s / m)
         assert np.allclose(x, want, rtol=1e-9, atol=0.0), move
+
+
+def test_gamma_and_normal_in_slices_on_threads_match_one_thread_and_scipy():
+    # From THREADS_FROM gamma products (decomp.threads.FROM_PRODUCTS normal ones) on, the
+    # fractiles (warm and cold), the terms the interior-point method asks for and the dual
+    # terms run in slices of products on threads. Each product's answer is its own, so the
+    # split may not change any: the same arrays as on one thread (value sums to rounding),
+    # and a sample against scipy.stats (gamma.isf, sf, pdf; norm.isf).
+    from decomp import threads
+    from decomp.distributions import Products
+    from decomp.distributions.gamma import THREADS_FROM, GammaDemand
+    rng = np.random.default_rng(21)
+    n = 2 * THREADS_FROM + 5
+    m = np.exp(rng.uniform(np.log(0.02), np.log(200.0), n))
+    s = m * np.exp(rng.uniform(np.log(0.05), np.log(2.0), n))
+    f = rng.uniform(50, 500, n)
+    one, two = GammaDemand(f, m, s, threads=1), GammaDemand(f, m, s, threads=2)
+    a = f * rng.uniform(1e-6, 1.2, n)
+    for move in (0.0, 1e-3):                   # the second call starts from the first's fractiles
+        a = a * (1.0 + move * rng.uniform(-1, 1, n))
+        r1, r2 = one.respond(a), two.respond(a)
+        assert np.array_equal(r1[0], r2[0]) and np.array_equal(r1[1], r2[1])
+        assert r2[2] == pytest.approx(r1[2], rel=1e-13)
+    x = r2[0]
+    t1, t2 = one.terms(x), two.terms(x)
+    assert all(np.array_equal(u, v) for u, v in zip(t1, t2))
+    k, sc = (m / s) ** 2, s * s / m
+    pick = rng.choice(np.flatnonzero(a < f), 200, replace=False)
+    assert np.allclose(x[pick], stats.gamma.isf(a[pick] / f[pick], k[pick], scale=sc[pick]), rtol=1e-9, atol=0)
+    assert np.allclose(t2[1][pick], stats.gamma.sf(x[pick], k[pick], scale=sc[pick]), rtol=1e-10, atol=1e-300)
+    assert np.allclose(t2[2][pick], stats.gamma.pdf(x[pick], k[pick], scale=sc[pick]), rtol=1e-9, atol=1e-300)
+
+    # normal products beside a kink table (known demand), as in a mixed network
+    nn = threads.FROM_PRODUCTS + 11
+    mn = np.exp(rng.uniform(np.log(0.05), np.log(50.0), nn))
+    sn = mn * rng.uniform(0.15, 0.6, nn)
+    sn[:10] = 0.0                              # known demand: kinks
+    fn = rng.uniform(50, 500, nn)
+    an = fn * rng.uniform(0.01, 0.99, nn)
+    p1, p2 = Products(fn, mn, sn, threads=1), Products(fn, mn, sn, threads=2)
+    q1, q2 = p1.respond(an), p2.respond(an)
+    assert np.array_equal(q1.x, q2.x) and np.array_equal(q1.w, q2.w)
+    assert q2.value == pytest.approx(q1.value, rel=1e-13)
+    smooth = np.arange(10, nn)
+    u1, u2 = p1.smooth_part(smooth).terms(q1.x[smooth]), p2.smooth_part(smooth).terms(q1.x[smooth])
+    assert all(np.array_equal(u, v) for u, v in zip(u1, u2))
+    pick = rng.choice(smooth, 200, replace=False)
+    assert np.allclose(q2.x[pick], np.maximum(stats.norm.isf(an[pick] / fn[pick], mn[pick], sn[pick]), 0.0),
+                       rtol=1e-9, atol=1e-12)
