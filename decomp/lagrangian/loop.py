@@ -128,6 +128,7 @@ class LoopState:
     newton_iterations: int = 0
     master_rounds: int = 0
     lp_masters: int = 0            # masters solved as linear programs by HiGHS (lpmaster)
+    empty_masters: int = 0         # masters without variables (every kink fixed)
     simplex_iterations: int = 0
 
     def out_of_time(self) -> bool:
@@ -344,6 +345,8 @@ def master_phase(state, pi, max_growth=None):
         if isinstance(cur, lpmaster.Vertex):
             state.lp_masters += 1
             state.simplex_iterations += cur.simplex_iterations
+        elif not m.size:
+            state.empty_masters += 1
         warm = getattr(cur, "snapshot", None)
         state.iterations += its
         if word in ("optimal", "time_limit", "iteration_limit", "numerical_error"):
@@ -387,10 +390,12 @@ def _outcome(state, word) -> Outcome:
         term, word, meaning = Termination.OPTIMAL, "optimal", STATUS["optimal"][1]
     msg = f"{meaning} after {state.iterations} iterations"
     if state.master_rounds:
-        rounds, lp = state.master_rounds, state.lp_masters
-        simplex = f"HiGHS's dual simplex, {state.simplex_iterations} simplex iterations"
-        by = (" by the interior-point method" if not lp else f" as linear programs by {simplex}" if lp == rounds
-              else f": {lp} as linear programs by {simplex}, {rounds - lp} by the interior-point method")
+        rounds, lp, empty = state.master_rounds, state.lp_masters, state.empty_masters
+        kinds = [(lp, f"as linear programs by HiGHS's dual simplex ({state.simplex_iterations} simplex iterations)"),
+                 (rounds - lp - empty, "by the interior-point method"),
+                 (empty, "without variables (every kink fixed)")]
+        kinds = [(n, how) for n, how in kinds if n]
+        by = f" {kinds[0][1]}" if len(kinds) == 1 else ": " + ", ".join(f"{n} {how}" for n, how in kinds)
         msg += f" (projected Newton {state.newton_iterations}, then {rounds} round(s) of the restricted problem{by})"
     pi = bounds.pi if bounds.pi is not None else np.zeros(state.net.n)
     x = bounds.x if bounds.x is not None else np.zeros(state.net.n_products)
