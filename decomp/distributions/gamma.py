@@ -130,8 +130,9 @@ class GammaDemand:
                 # Halley: h'' / h' = (k - 1) / y - 1 + g / Q (Q branch) or - g / P (P branch)
                 bend = (ki - 1.0) / yi - 1.0 + np.where(use_p, -ratio_g, ratio_g)
                 step = newton / (1.0 + 0.5 * newton * bend)
-            step = np.where(np.isfinite(step) & (np.abs(step) < np.abs(2.0 * newton)), step, newton)
-            new = yi + step
+                # (a Newton step beyond the float range is an overshoot: the bracket catches it)
+                step = np.where(np.isfinite(step) & (np.abs(step) < np.abs(2.0 * newton)), step, newton)
+                new = yi + step
             # Halley's error is cubic in the step: after a step below _ACCEPT y the fractile
             # is exact to double precision, and no evaluation is spent to confirm it
             done = ~lost & ((np.abs(step) <= _ACCEPT * yi) | (resid == 0))

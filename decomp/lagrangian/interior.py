@@ -303,7 +303,7 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
             # the fixed kinks priced at this near-optimal point of the master: if one is on
             # the wrong side of its bid-price sum, the windows must grow in any case, and the
             # rest of this master's solve is spent on the wrong problem
-            violated = early_pricing and it > 1 and price(net, master, cur.lam * fmax) is not None
+            violated = early_pricing and it > 1 and price(net, master, cur.lam * fmax, caps=False) is not None
         history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
         if bounds.gap <= tol:
             return "optimal", it, cur.lam * fmax, cur

@@ -325,12 +325,13 @@ def master_phase(state, pi, max_growth=None):
             bounds.offer_primal(*within_capacity(net, np.minimum(pt.x, net.upper)))
         share = master.flat_share(net, state.tol, bounds.primal)
     lo, hi = master.first_windows(net, pi)
+    caps = master.first_caps(net, pi)
     max_free = None if max_growth is None else max_growth * max(int((hi - lo).sum()), net.n)
     limit = max(state.limit, MASTER_LIMIT)
     word = "master_rounds"
     warm = None
     for round_ in range(MASTER_ROUNDS):
-        m = master.build(net, lo, hi, share)
+        m = master.build(net, lo, hi, share, caps)
         if max_free is not None and len(m.kink) > max_free:
             return "too_large"
         state.master_rounds += 1
@@ -354,7 +355,7 @@ def master_phase(state, pi, max_growth=None):
         windows = master.price(net, m, pi)
         if windows is None:
             return "optimal" if state.bounds.gap <= state.tol else "master_solved"
-        lo, hi = windows
+        lo, hi, caps = windows
         word = "master_rounds"
     return word
 

@@ -9,7 +9,9 @@ restricted problem ("master") fixes the others at their bounds and keeps as vari
   products whose jump is fixed empty (they are closed: x = 0), bounded where its
   expected spill falls to a share FLAT_SHARE tol of its most sales (:func:`flat_share`);
 
-with the capacities reduced by the fixed kinks' seats. It is a smaller PNLP, solved by
+with the capacities reduced by the fixed kinks' seats, and each smooth part capped at its
+allocation a little below its bid-price sum (:data:`SMOOTH_MARGIN`, :func:`first_caps`).
+It is a smaller PNLP, solved by
 the interior-point method (:mod:`.interior`). Fixing a kink at a bound is exact when
 the bid prices the master ends with still put it there: a full kink must have
 r_k >= a_j, an empty one r_k <= a_j (the complementary slackness of its bound). So
@@ -17,7 +19,10 @@ r_k >= a_j, an empty one r_k <= a_j (the complementary slackness of its bound). 
 per product (:meth:`decomp.distributions.KinkTable.above`); if none is violated, the
 master's optimality conditions are the whole problem's (the certified gap confirms it),
 else the violated products' windows grow and the master is solved again (column
-generation: finite, as every round frees kinks and none is fixed again).
+generation: finite, as every round frees kinks and none is fixed again). A smooth part's cap
+is exact in the same way: where the product's own response at the master's bid prices stays
+below it, the cap is not binding; where it reaches the cap, pricing lifts it (the cap
+becomes the flat tail's) and the master is solved again.
 """
 
 from __future__ import annotations
@@ -43,6 +48,19 @@ FLAT_SHARE = 1e-3
 #: A leg's capacity left by the fixed kinks must be at least this fraction of it (else the
 #: full kinks of its products are freed): the master needs room for its interior.
 ROOM = 1e-6
+#: A smooth part's seats count in the master only up to the product's response to its
+#: bid-price sum SMOOTH_MARGIN lower in log(a) (a e^-0.5, 61 % of it) at the bid prices the
+#: first master is built from. Beyond that the revenue of low-CV and gamma demand is nearly
+#: flat: a part that strays there (its slope ~0 against a bid-price sum a) has a Newton step
+#: of a / curvature, thousands of seats, which blocked the interior-point method's steps
+#: (p100k low-CV seed 14: 52 of its 71 iterations in the master, 20 with the caps). A
+#: margin of 0.25 bound more often (more rounds), 1.0 helped less.
+SMOOTH_MARGIN = 0.5
+#: ... and CAP_FLOOR of its fare lower still: a product whose legs are nearly free (a near
+#: 0) sits far out in its flat tail, where its response moves far for a small change of a.
+CAP_FLOOR = 0.01
+#: A cap counts as reached where the product's response is within this share of it.
+CAP_TOL = 1e-9
 
 
 @dataclasses.dataclass(eq=False)
@@ -57,7 +75,8 @@ class Master:
     kink_owner: np.ndarray  # their products
     smooth: np.ndarray      # products whose smooth part is a variable
     offset: np.ndarray      # their jump (the smooth part starts there)
-    room: np.ndarray        # their variable's upper bound (from the offset to the flat tail)
+    room: np.ndarray        # their variable's upper bound (from the offset to the cap or flat tail)
+    caps: np.ndarray | None = None   # per product: the cap on its allocation (inf: none)
 
     @property
     def size(self) -> int:
@@ -74,6 +93,23 @@ def first_windows(net, pi):
     return lo, hi
 
 
+def first_caps(net, pi):
+    """Per product: the most seats (its whole allocation) the first master gives it, its
+    response to a e^-SMOOTH_MARGIN at bid prices ``pi`` for smooth products, inf for the
+    others; None without smooth products."""
+    products = net.products
+    if not len(products.i_smooth):
+        return None
+    a = net.to_products(net.AT_g @ pi)
+    lower = a * np.exp(-SMOOTH_MARGIN) - CAP_FLOOR * net.fare
+    x = products.respond(np.maximum(lower, 0.0)).x
+    caps = np.full(net.n_products, np.inf)
+    # (no cap where the lower sum is 0: the response there is the most the product takes)
+    capped = products.i_smooth[lower[products.i_smooth] > 0]
+    caps[capped] = x[capped]
+    return caps
+
+
 def flat_share(net, tol, revenue):
     """The share of its most sales S(inf) a smooth part's expected spill may keep in the
     master: FLAT_SHARE tol, times ``revenue`` (a feasible allocation's) over the smooth
@@ -84,9 +120,10 @@ def flat_share(net, tol, revenue):
     return FLAT_SHARE * tol * scale
 
 
-def build(net, lo, hi, share=None) -> Master:
+def build(net, lo, hi, share=None, caps=None) -> Master:
     """The master with the given windows (grown where the fixed seats leave a leg no room),
-    its smooth parts bounded where their spill is ``share`` of their most sales (None: not)."""
+    its smooth parts bounded where their spill is ``share`` of their most sales (None: not)
+    and at ``caps`` (per product, its whole allocation; None: none)."""
     k = net.products.kinks
     lo = lo.copy()
     while True:
@@ -108,6 +145,8 @@ def build(net, lo, hi, share=None) -> Master:
     products = net.products
     smooth = products.i_smooth
     top = net.upper if share is None else products.flat_from(share)
+    if caps is not None:
+        top = np.minimum(top, caps)
     # a smooth part with no room beyond its jump (the jump reaches the bound) is no variable
     smooth = smooth[top[smooth] - products.jump[smooth] > 1e-9 * np.maximum(top[smooth], 1.0)]
     jump = products.jump[smooth]
@@ -120,23 +159,35 @@ def build(net, lo, hi, share=None) -> Master:
     smooth = np.sort(smooth)
     offset = products.jump[smooth]
     return Master(lo=lo, hi=hi, fixed_x=fixed_x, capacity=capacity, kink=kink, kink_owner=k.owner[row],
-                  smooth=smooth, offset=offset, room=top[smooth] - offset)
+                  smooth=smooth, offset=offset, room=top[smooth] - offset, caps=caps)
 
 
-def price(net, master, pi):
-    """Windows that make every fixed kink consistent with bid prices ``pi``, or None when all
-    already are (each product's count of kinks with r_k > a_j lies within its window)."""
+def price(net, master, pi, caps=True):
+    """(lo, hi, caps) that make every fixed kink consistent with bid prices ``pi`` and lift
+    every cap the products' responses reach, or None when all already are (each product's
+    count of kinks with r_k > a_j lies within its window, its response below its cap).
+    ``caps=False``: the kinks only."""
     k = net.products.kinks
-    if not len(k.owner):
+    lo, hi = master.lo, master.hi
+    kinks_bad = False
+    if len(k.owner):
+        a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
+        # (the certificate has just counted the exact kinks at a: that count is checked first)
+        above = k.above(a * (1.0 - PRICE_TOL), purpose="exact")        # kinks surely profitable
+        below = k.above(a * (1.0 + PRICE_TOL), purpose="exact")        # kinks surely not
+        low_bad = below < master.lo                  # a fixed-full kink is unprofitable
+        high_bad = above > master.hi                 # a fixed-empty kink is profitable
+        kinks_bad = bool(np.any(low_bad) or np.any(high_bad))
+        if kinks_bad:
+            lo = np.where(low_bad, np.maximum(below - 1, 0), master.lo)
+            hi = np.where(high_bad, np.minimum(above + 1, k.count), master.hi)
+    new_caps = master.caps
+    if caps and master.caps is not None:
+        x = net.response(pi)          # (the certificate has just evaluated the dual at pi)
+        reached = np.isfinite(master.caps) & (x > 0) & (x >= master.caps * (1.0 - CAP_TOL))
+        if np.any(reached):
+            new_caps = master.caps.copy()
+            new_caps[reached] = np.inf
+    if not kinks_bad and new_caps is master.caps:
         return None
-    a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
-    # (the certificate has just counted the exact kinks at a: that count is checked first)
-    above = k.above(a * (1.0 - PRICE_TOL), purpose="exact")        # kinks surely profitable
-    below = k.above(a * (1.0 + PRICE_TOL), purpose="exact")        # kinks surely not
-    low_bad = below < master.lo                  # a fixed-full kink is unprofitable
-    high_bad = above > master.hi                 # a fixed-empty kink is profitable
-    if not (np.any(low_bad) or np.any(high_bad)):
-        return None
-    lo = np.where(low_bad, np.maximum(below - 1, 0), master.lo)
-    hi = np.where(high_bad, np.minimum(above + 1, k.count), master.hi)
-    return lo, hi
+    return lo, hi, new_caps

@@ -148,12 +148,58 @@ def test_pricing_frees_exactly_the_kinks_on_the_wrong_side():
     assert master.price(net, m, pi) is None              # consistent where it was built
     new = master.price(net, m, pi * 3.0)                 # dearer legs: full kinks now unprofitable
     assert new is not None
-    nlo, nhi = new
+    nlo, nhi, caps = new
+    assert caps is None                                  # kinks only: no smooth part to cap
     a = net.to_products(net.AT_g @ (pi * 3.0))[k.owner]
     above = k.above(a)
     moved = (nlo != m.lo) | (nhi != m.hi)
     assert np.all(nlo[moved] <= above[moved]) and np.all(above[moved] <= nhi[moved])
     assert np.array_equal(nlo[~moved], m.lo[~moved]) and np.array_equal(nhi[~moved], m.hi[~moved])
+
+
+def test_smooth_caps_are_lifted_where_a_response_reaches_them():
+    # A smooth part's seats are capped at its response to a lower bid-price sum; pricing at
+    # other bid prices lifts exactly the caps the products' own responses reach. Reference
+    # for the responses: scipy.stats.norm.isf (normal demand: the fractile, floored at 0).
+    from scipy import stats
+    inst = generate(400, seed=4, cv=(0.05, 0.3))
+    net = Network(inst)
+    pi = fare_start(net) * 0.5
+    lo, hi = master.first_windows(net, pi)
+    caps = master.first_caps(net, pi)
+    m = master.build(net, lo, hi, caps=caps)
+    assert master.price(net, m, pi) is None              # consistent where it was built
+    cheaper = pi * 0.3                                   # responses grow: some reach their caps
+    new = master.price(net, m, cheaper)
+    assert new is not None
+    lifted = np.isinf(new[2]) & np.isfinite(caps)
+    a = net.to_products(net.AT_g @ cheaper)
+    order = net.prods if getattr(net, "prods", None) is not None else np.arange(net.n_products)
+    f, mu, sd = inst.fare[order], inst.mean[order], inst.std[order]
+    want = np.maximum(stats.norm.isf(np.minimum(a / f, 1.0), mu, sd), 0.0)
+    finite = np.isfinite(caps)
+    assert lifted.any()
+    assert np.array_equal(lifted[finite], (want >= caps * (1 - 1e-7))[finite] & (want > 0)[finite])
+
+
+@pytest.mark.solver
+def test_caps_that_bind_are_lifted_until_the_answer_is_the_whole_problems(monkeypatch):
+    # With caps hardly above the first bid prices' responses (margin 1e-3, no floor), many
+    # bind at the optimum: pricing must lift them round after round, and the answer must be
+    # the whole problem's. Reference: the independent certificate (scipy.stats; weak
+    # duality) and Ipopt on the same PNLP.
+    monkeypatch.setattr(master, "SMOOTH_MARGIN", 1e-3)
+    monkeypatch.setattr(master, "CAP_FLOOR", 0.0)
+    inst = _low_cv_network()
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "then 1 round(s)" not in r.message, r.message      # the caps did bind
+    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    assert viol <= 1e-9
+    assert family.relative_gap(dual, primal) <= 1e-8
+    ref = solve(inst, "pnlp", "ipopt", SolverOptions(tol=1e-10))
+    assert ref.termination is Termination.OPTIMAL
+    assert primal == pytest.approx(ref.objective, rel=1e-8)
 
 
 def test_fixed_seats_never_overfill_a_leg():
