@@ -479,6 +479,8 @@ class _Solver:
         self.scale = 1.0 / np.sqrt(np.where(diag > 0, diag, 1.0))
         self.held = np.zeros(net.n, dtype=bool)
         self.first = True
+        # reciprocals once for all the solves (each solve divides by v and u - v twice)
+        self.iv, self.iup = 1.0 / cur.v, 1.0 / cur.up
 
     def __call__(self, rd, cz, ct, cs, residuals=True):
         """The direction for dual residual ``rd`` and complementarity right-hand sides
@@ -486,7 +488,7 @@ class _Solver:
         centrality correction (no primal residual either)."""
         cur, net = self.cur, self.net
         rp = self.rp if residuals else 0.0
-        rho = rd + cz / cur.v - ct / cur.up
+        rho = rd + cz * self.iv - ct * self.iup
         rhs = net.A_g @ cur.per_group(rho * self.inv) + cs / cur.lam - rp
         if self.first:
             u = self.system.solve(self.hv, self.scale, self.held, 0.0, self.scale * rhs)
@@ -498,8 +500,8 @@ class _Solver:
         dl = self.scale * u
         dv = (rho - cur.prices(dl)) * self.inv
         ds = rp - net.A_g @ cur.per_group(dv)
-        dz = (cz - cur.z * dv) / cur.v
-        dt = (ct + cur.t * dv) / cur.up
+        dz = (cz - cur.z * dv) * self.iv
+        dt = (ct + cur.t * dv) * self.iup
         return dv, ds, dl, dz, dt
 
 
@@ -516,8 +518,8 @@ def _centrality(cur, solve, direction, target):
         products = [(v + trial_p * dv) * (z + trial_d * dz), (up - trial_p * dv) * (t + trial_d * dt),
                     (s + trial_p * ds) * (lam + trial_d * dl)]
         low, high = BETA_LOW * target, BETA_HIGH * target
-        fixes = [np.where(p < low, low - p, np.where(p > high, np.maximum(high - p, -high), 0.0))
-                 for p in products]
+        # into [low, high]; a product far above high moves down by at most high
+        fixes = [np.maximum(np.clip(p, low, high) - p, -high) for p in products]
         corr = solve(np.zeros(len(v)), fixes[0], fixes[1], fixes[2], residuals=False)
         new = tuple(d + c for d, c in zip(direction, corr))
         ap_new, ad_new = _steps(cur, new)
@@ -546,10 +548,11 @@ def _neighbourhood(cur, direction, ap, ad):
 
 def _longest(value, change):
     """The largest t <= 1 with value + t change >= 0 (value > 0): only the entries that a
-    full step would take below 0 can block it."""
-    block = value < -change
-    if not block.any():
+    full step would take below 0 can block it (one pass and a reduction where none does)."""
+    after = value + change
+    if not after.min(initial=0.0) < 0.0:
         return 1.0
+    block = after < 0.0
     return float(min(1.0, (value[block] / -change[block]).min()))
 
 
