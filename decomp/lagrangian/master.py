@@ -167,27 +167,41 @@ def price(net, master, pi, caps=True):
     every cap the products' responses reach, or None when all already are (each product's
     count of kinks with r_k > a_j lies within its window, its response below its cap).
     ``caps=False``: the kinks only."""
-    k = net.products.kinks
-    lo, hi = master.lo, master.hi
-    kinks_bad = False
-    if len(k.owner):
-        a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
-        # (the certificate has just counted the exact kinks at a: that count is checked first)
-        above = k.above(a * (1.0 - PRICE_TOL), purpose="exact")        # kinks surely profitable
-        below = k.above(a * (1.0 + PRICE_TOL), purpose="exact")        # kinks surely not
-        low_bad = below < master.lo                  # a fixed-full kink is unprofitable
-        high_bad = above > master.hi                 # a fixed-empty kink is profitable
-        kinks_bad = bool(np.any(low_bad) or np.any(high_bad))
-        if kinks_bad:
-            lo = np.where(low_bad, np.maximum(below - 1, 0), master.lo)
-            hi = np.where(high_bad, np.minimum(above + 1, k.count), master.hi)
-    new_caps = master.caps
-    if caps and master.caps is not None:
-        x = net.response(pi)          # (the certificate has just evaluated the dual at pi)
-        reached = np.isfinite(master.caps) & (x > 0) & (x >= master.caps * (1.0 - CAP_TOL))
-        if np.any(reached):
-            new_caps = master.caps.copy()
-            new_caps[reached] = np.inf
-    if not kinks_bad and new_caps is master.caps:
+    windows = _kink_windows(net, master, pi)
+    lifted = _lifted_caps(net, master, pi) if caps else None
+    if windows is None and lifted is None:
         return None
-    return lo, hi, new_caps
+    lo, hi = windows if windows is not None else (master.lo, master.hi)
+    return lo, hi, master.caps if lifted is None else lifted
+
+
+def _kink_windows(net, master, pi):
+    """(lo, hi) with every fixed kink consistent with ``pi``, or None when all already are."""
+    k = net.products.kinks
+    if not len(k.owner):
+        return None
+    a = np.maximum(net.to_products(net.AT_g @ pi)[k.owner], 1e-300)
+    # (the certificate has just counted the exact kinks at a: that count is checked first)
+    above = k.above(a * (1.0 - PRICE_TOL), purpose="exact")        # kinks surely profitable
+    below = k.above(a * (1.0 + PRICE_TOL), purpose="exact")        # kinks surely not
+    low_bad = below < master.lo                  # a fixed-full kink is unprofitable
+    high_bad = above > master.hi                 # a fixed-empty kink is profitable
+    if not (np.any(low_bad) or np.any(high_bad)):
+        return None
+    lo = np.where(low_bad, np.maximum(below - 1, 0), master.lo)
+    hi = np.where(high_bad, np.minimum(above + 1, k.count), master.hi)
+    return lo, hi
+
+
+def _lifted_caps(net, master, pi):
+    """The caps with every one the products' responses at ``pi`` reach lifted (inf), or
+    None when none is reached."""
+    if master.caps is None:
+        return None
+    x = net.response(pi)          # (the certificate has just evaluated the dual at pi)
+    reached = np.isfinite(master.caps) & (x > 0) & (x >= master.caps * (1.0 - CAP_TOL))
+    if not np.any(reached):
+        return None
+    caps = master.caps.copy()
+    caps[reached] = np.inf
+    return caps
