@@ -514,6 +514,8 @@ def _centrality(cur, solve, direction, target):
     ap, ad = _steps(cur, direction)
     for _ in range(CORRECTORS):
         trial_p, trial_d = min(1.0, STRETCH * ap + 0.1), min(1.0, STRETCH * ad + 0.1)
+        if ap + ad + GROWTH * (trial_p + trial_d) > 2.0:
+            break                       # no corrector could pass the test below: steps are <= 1
         dv, ds, dl, dz, dt = direction
         products = [(v + trial_p * dv) * (z + trial_d * dz), (up - trial_p * dv) * (t + trial_d * dt),
                     (s + trial_p * ds) * (lam + trial_d * dl)]
