@@ -98,7 +98,8 @@ class NormalDemand:
 
     def terms(self, x, at=slice(None)):
         """(S(x), S'(x), -S''(x)) of every product (or of the slice ``at``; ``x`` is then
-        the slice's), from one density and one tail probability each: with z = (x - m)/s, S'(x) = Phibar(z), -S''(x) = phi(z)/s and
+        the slice's), from one density and one tail probability each: with z = (x - m)/s,
+        S'(x) = Phibar(z), -S''(x) = phi(z)/s and
         S(x) = s (G(-m/s) - G(z)), G(z) = phi(z) - z Phibar(z) (the interior-point method
         asks for all three at every trial point). For z >> 0 that difference cancels, but
         its absolute error, about 1e-16 phi(z), is far below a fare's rounding; at x = 0
