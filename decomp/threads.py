@@ -30,17 +30,17 @@ def available() -> int:
         return os.cpu_count() or 1
 
 
-def slices(n: int, threads: int | None, from_items: int = FROM_PRODUCTS) -> list[tuple[int, int]]:
+def slices(n: int, threads: int | None, from_items: int | None = None) -> list[tuple[int, int]]:
     """[lo, hi) ranges splitting n products over the threads (one range when
-    n is below ``from_items`` or one thread is asked for)."""
+    n is below ``from_items``, FROM_PRODUCTS when None, or one thread is asked for)."""
     k = available() if threads is None else int(threads)
-    if k < 2 or n < from_items:
+    if k < 2 or n < (FROM_PRODUCTS if from_items is None else from_items):
         return [(0, n)]
     cuts = [n * i // k for i in range(k + 1)]
     return list(zip(cuts[:-1], cuts[1:]))
 
 
-def map_slices(fn, n: int, threads: int | None = None, from_items: int = FROM_PRODUCTS) -> list:
+def map_slices(fn, n: int, threads: int | None = None, from_items: int | None = None) -> list:
     """[fn(lo, hi) for each range of :func:`slices`], on the shared pool when
     there is more than one."""
     parts = slices(n, threads, from_items)

@@ -122,10 +122,8 @@ class Products:
         return len(self.kinks) > 0
 
     # -- the subproblems ----------------------------------------------------------------------
-    def respond(self, a, theta=0.0, normal_part=None) -> Response:
-        """Allocation, curvature and dual terms at bid-price sums ``a`` (per product).
-
-        ``normal_part``: (x, w, value) of the normal products already computed (threads)."""
+    def respond(self, a, theta=0.0) -> Response:
+        """Allocation, curvature and dual terms at bid-price sums ``a`` (per product)."""
         a = np.asarray(a, dtype=np.float64)
         x = np.zeros(self.n)
         w = np.zeros(self.n)
@@ -135,9 +133,7 @@ class Products:
                 continue
             if len(idx) == self.n:
                 idx = slice(None)           # one family: views, not copies of every array
-            if fam is self.normal and normal_part is not None:
-                xs, ws, v = normal_part
-            elif fam is self.normal:
+            if fam is self.normal:
                 xs, ws, v = _normal_response(fam, a[idx], self.threads)
             else:
                 xs, ws, v = fam.respond(a[idx])

@@ -30,7 +30,6 @@ import numpy as np
 import scipy.sparse as sp
 
 from .. import distributions
-from .. import threads as _threads
 
 
 @dataclasses.dataclass(eq=False)
@@ -81,7 +80,6 @@ class Network:
         self.upper_g = np.ceil(2.0 * self._min_capacity_g()) + 1.0
         self.upper = self.to_products(self.upper_g)
         self.products = distributions.Products.from_instance(instance, self.prods, self.upper, threads)
-        self._setup_threads(threads)
         #: per leg: the largest fare of its products (a price scale)
         self.fare_scale = np.zeros(self.n)
         if self.G:
@@ -228,8 +226,7 @@ class Network:
         self.evaluations += 1
         a_g = self.AT_g @ pi
         a = self.to_products(a_g)
-        normal_part = None if self._chunks is None else self._normal_threads(a)
-        r = self.products.respond(a, smoothing, normal_part)
+        r = self.products.respond(a, smoothing)
         if smoothing == 0:
             self._last_exact = (pi.copy(), r.x)
         x_g, w_g = self.to_groups(r.x), self.to_groups(r.w)
@@ -250,30 +247,3 @@ class Network:
         """sum_j f_j S_j(y_j) (piecewise-linear parts from the kink table)."""
         return self.products.revenue(y)
 
-    def _setup_threads(self, threads):
-        """One product slice per thread, split at group boundaries (normal demand without
-        kinks, products in runs of equal legs, from decomp.threads.FROM_PRODUCTS on)."""
-        self._chunks = None
-        P = self.n_products
-        pr = self.products
-        if (threads < 2 or P < _threads.FROM_PRODUCTS or self.g_start is None or not pr.all_normal
-                or pr.has_kinks):
-            return
-        cuts = np.searchsorted(self.g_start, np.arange(1, threads) * P // threads)
-        gb = np.unique(np.concatenate([[0], cuts, [self.G]]))
-        pb = np.append(self.g_start, P)[gb]
-        self._chunks = [(int(pb[i]), int(pb[i + 1])) for i in range(len(gb) - 1)]
-        self._pool = _threads.pool(threads)
-
-    def _normal_threads(self, a):
-        """The normal products' (x, w, value) at bid-price sums ``a``, their slices on the
-        thread pool."""
-        P = self.n_products
-        out = (np.empty(P), np.empty(P), np.empty(P))
-        normal = self.products.normal
-
-        def part(chunk):
-            lo, hi = chunk
-            return normal.respond(a[lo:hi], out, lo, hi)[2]
-
-        return out[0], out[1], sum(self._pool.map(part, self._chunks))

@@ -268,12 +268,23 @@ def test_threaded_subproblems_match_one_thread(monkeypatch):
     # the very same numbers (bitwise for x, w, the per-group sums; the slice sums of
     # the dual value only to rounding, since they are added in another order).
     monkeypatch.setattr(_threads, "FROM_PRODUCTS", 0)
+    split = []
+    map_slices = _threads.map_slices
+
+    def spy(fn, n, threads=None, from_items=None):
+        split.append(len(_threads.slices(n, threads, from_items)))
+        return map_slices(fn, n, threads, from_items)
+
+    monkeypatch.setattr(_threads, "map_slices", spy)
     inst = generate(20_000, seed=4)
     one = m_lagr.Network(inst, threads=1)
     two = m_lagr.Network(inst, threads=3)
-    assert one._chunks is None and two._chunks is not None and len(two._chunks) == 3
     pi = m_lagr.fare_start(one)
-    p1, p2 = one.evaluate(pi), two.evaluate(pi)
+    p1 = one.evaluate(pi)
+    assert set(split) <= {1}                  # one thread: one slice
+    split.clear()
+    p2 = two.evaluate(pi)
+    assert 3 in split                         # three threads: the products in three slices
     for name in ("x", "w", "x_g", "load"):
         assert np.array_equal(getattr(p1, name), getattr(p2, name)), name
     assert p2.exact == pytest.approx(p1.exact, rel=1e-13)
