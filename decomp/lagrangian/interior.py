@@ -86,8 +86,15 @@ KAPPA_MU, THETA_MU = 0.2, 1.5
 #: and the gap falls with it: a smaller factor stops sooner at one more dual evaluation
 #: per certificate).
 CERTIFY_WITHIN, RECERTIFY = 1e2, 0.5
-#: The iterate kept for the next master's start: the first at or below this barrier level.
-SNAPSHOT_MU = 1e-4
+#: The iterate kept for the next master's start: the first at or below this barrier level,
+#: and, in a master started from a kept iterate, at or below SNAPSHOT_PROGRESS times its
+#: level (the next start then carries this master's progress, not the last one's start).
+SNAPSHOT_MU, SNAPSHOT_PROGRESS = 1e-4, 0.1
+#: A later master starts from the kept iterate only where at most this share of its variables
+#: is new (pricing grew it little: a perturbation of the last one); otherwise it starts cold.
+WARM_NEW = 0.25
+#: What enters a warm-started master empty takes at most this share of a leg's slack.
+ENTER_SHARE = 0.5
 #: The barrier level's floor: complementarity MU_FLOOR tol of the objective (summed).
 MU_FLOOR = 1e-2
 #: The master counts as solved when, besides its complementarity, its largest dual
@@ -180,26 +187,87 @@ class _Iterate:
         return np.bincount(self.var.group, weights=values, minlength=self.net.G)
 
     def adopt(self, snap, master):
-        """Take the variables and multipliers of an earlier master's iterate ``snap`` where the
-        same variables exist here (smooth parts by product, kinks by index; the others keep
-        this start's values, centred at the snapshot's level), and its leg multipliers; then
-        scale into the capacities as the cold start does (no leg fuller than FILL: the fixed
-        seats have changed). (Scaling only the legs a full load would overfill was measured
-        too: the slow nightly date's third master 13 -> 57 iterations.)"""
+        """Start from an earlier master's iterate ``snap`` (primal-dual column generation),
+        keeping its primal point: the legs' loads hardly move, so their slacks and
+        multipliers stay as they were.
+
+        - The variables both masters have keep their (v, z, t) (smooth parts by product,
+          kinks by index; a smooth part whose cap pricing lifted keeps its seats).
+        - A kink the last master had fixed full enters full (its seats were in the fixed
+          load; (u - v) t at the snapshot's level), one fixed empty and the smooth part of a
+          product it had closed enter (nearly) empty, together taking at most ENTER_SHARE
+          of each leg's slack.
+        - The entering variables' bound multipliers make their dual residuals 0
+          (z - t = a - slope): the smallest such pair, each at least mu / u, for those that
+          enter empty.
+
+        (Until 2026-12-05 the kept variables were scaled into the capacities like a cold
+        start, no leg fuller than FILL: on binding legs that opened a tenth of the capacity
+        as slack at the snapshot's bid prices, and the start's average complementarity came
+        out at 10 to 15 times the snapshot's level; the master's first step was then short and
+        the monotone mode took 10 to 15 steps.)"""
         n = self.var.n_smooth
-        v, z, t = self.v.copy(), self.z.copy(), self.t.copy()
+        ub = self.var.ub
+        mu = snap.mu
+        lam = np.maximum(snap.lam, 1e-12)
+        a = self.prices(lam)
+        v, z, t = np.full(len(ub), np.nan), np.empty(len(ub)), np.empty(len(ub))
         for mine, theirs, off_mine, off_theirs in ((self.smooth, snap.smooth, 0, 0),
                                                    (master.kink, snap.kink, n, snap.n_smooth)):
             if not len(mine) or not len(theirs):
                 continue
             pos = np.minimum(np.searchsorted(theirs, mine), len(theirs) - 1)
             found = np.flatnonzero(theirs[pos] == mine)
-            v[off_mine + found] = snap.v[off_theirs + pos[found]]
+            v[off_mine + found] = np.minimum(snap.v[off_theirs + pos[found]], (1.0 - 1e-9) * ub[off_mine + found])
             z[off_mine + found] = snap.z[off_theirs + pos[found]]
             t[off_mine + found] = snap.t[off_theirs + pos[found]]
-        self._place(v)
+        new = np.flatnonzero(np.isnan(v))
+        new_kink, new_smooth = new[new >= n], new[new < n]
+        was_full = self._was_full(master.kink[new_kink - n], snap.lo)
+        # entering full: (u - v) t = mu and z - t = a - r, z >= mu / v
+        full = new_kink[was_full]
+        reduced = self.var.slope[full - n] - a[full]
+        t_full = np.maximum(reduced, 0.0) + mu / ub[full]
+        v[full] = ub[full] - np.minimum(mu / t_full, 0.5 * ub[full])
+        z[full] = np.maximum(mu / v[full], t_full - reduced)
+        t[full] = z[full] + reduced
+        # entering empty: kinks where v z = mu with z = max(a - r, 0) + mu / u (at most half
+        # their width), smooth parts at most 1e-3 of their bound; then scaled into the slack
+        empty = new_kink[~was_full]
+        z_empty = np.maximum(a[empty] - self.var.slope[empty - n], 0.0) + mu / ub[empty]
+        v[empty] = np.minimum(mu / z_empty, 0.5 * ub[empty])
+        v[new_smooth] = np.minimum(self.v[new_smooth], 1e-3 * ub[new_smooth])
+        enter = np.concatenate([empty, new_smooth])
+        v[enter] *= self._share_of_slack(v, enter)
+        v[enter] = np.maximum(v[enter], 1e-12 * ub[enter])
+        self.v, self.up = v, ub - v
+        g, _ = self.slopes(v)
+        reduced = g[enter] - a[enter]
+        z[enter] = np.maximum(-reduced, 0.0) + mu / ub[enter]
+        t[enter] = np.maximum(reduced, 0.0) + mu / ub[enter]
         self.z, self.t = z, t
-        self.lam = np.maximum(snap.lam, snap.mu / self.s)
+        self.s = np.maximum(self.capacity - self.net.A_g @ self.per_group(v), 1e-15 * np.maximum(self.capacity, 1.0))
+        self.lam = np.maximum(lam, mu / self.s)
+
+    def _was_full(self, kinks, lo):
+        """Per kink (flat index): whether a master with windows from ``lo`` had it fixed full."""
+        k = self.net.products.kinks
+        row = np.searchsorted(k.ptr, kinks, side="right") - 1
+        return (kinks - k.ptr[row]) < lo[row]
+
+    def _share_of_slack(self, v, enter):
+        """Per entering variable: the factor (<= 1) that keeps the entering load within
+        ENTER_SHARE of each of its legs' slack without it."""
+        others = v.copy()
+        others[enter] = 0.0
+        room = np.maximum(self.capacity - self.net.A_g @ self.per_group(others), 0.0)
+        entering = np.zeros(len(v))
+        entering[enter] = v[enter]
+        ask = self.net.A_g @ self.per_group(entering)
+        allowed = ENTER_SHARE * room
+        fit = np.ones(len(ask))
+        np.divide(allowed, ask, out=fit, where=ask > allowed)
+        return smallest_over_legs(self.net, fit, np.ones(self.net.n, dtype=bool))[self.var.group[enter]]
 
     def prices(self, lam):
         """a per variable: the sum of its product's leg multipliers."""
@@ -288,9 +356,13 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         if bounds.gap <= tol:
             return "optimal", 0, pi0, None
         return "master_solved", 0, np.zeros_like(pi0), None
+    if warm is not None and warm.new_share(master) > WARM_NEW:
+        warm = None
     cur = _Iterate(net, master, pi0, fmax, MU_START if warm is None else warm.mu)
+    keep_at = SNAPSHOT_MU
     if warm is not None:
         cur.adopt(warm, master)
+        keep_at = min(SNAPSHOT_MU, SNAPSHOT_PROGRESS * warm.mu)
     pairs = 2 * len(cur.v) + net.n
     certified = np.inf
     level, next_level = None, np.inf
@@ -318,7 +390,7 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         if deadline is not None and time.perf_counter() > deadline:
             return "time_limit", it, cur.lam * fmax, cur
         mu = comp / pairs
-        if cur.snapshot is None and mu <= SNAPSHOT_MU and cur.var.n_smooth:
+        if cur.snapshot is None and mu <= keep_at and cur.var.n_smooth:
             cur.snapshot = Snapshot.of(cur, master, mu)
         # the barrier level need not fall below what tol asks of the complementarity: below
         # that the slacks would sink to the rounding of the loads and block the steps
@@ -347,8 +419,14 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
 class Snapshot:
     """A master's iterate kept for the next master's start. As in primal-dual column
     generation, the next master starts from a well-centred iterate of the last one (the
-    first at or below SNAPSHOT_MU), not from its end, where the variables sit at their
-    bounds and a changed problem blocks the steps. Only masters with smooth parts keep one:
+    first at or below SNAPSHOT_MU, and for a warm-started master below a tenth of its
+    start's level: a third master from the second's first iterate, which is the first's
+    kept one, took 48 iterations on a nightly date where from the second's own took 8),
+    not from its end, where the variables sit at their bounds and a changed problem blocks
+    the steps; :meth:`_Iterate.adopt` says how. Pricing may have grown the master too much
+    for that (more than WARM_NEW of its variables new): it then starts cold (p100k gamma
+    with means 30 times: 5,548 of 12,008 new, 130 iterations warm, 95 cold). Only masters
+    with smooth parts keep one:
     their parts' positions cost the cold start most of its iterations; a master of kinks
     only, a linear program, started warm took more (p10k Poisson 66 -> 80, negative
     binomial 41 -> 50)."""
@@ -361,11 +439,17 @@ class Snapshot:
     z: np.ndarray
     t: np.ndarray
     lam: np.ndarray
+    lo: np.ndarray          # the master's windows: per kink owner, kinks [0, lo) fixed full
 
     @classmethod
     def of(cls, cur, master, mu):
         return cls(mu=mu, smooth=cur.smooth.copy(), kink=master.kink.copy(), n_smooth=cur.var.n_smooth,
-                   v=cur.v.copy(), z=cur.z.copy(), t=cur.t.copy(), lam=cur.lam.copy())
+                   v=cur.v.copy(), z=cur.z.copy(), t=cur.t.copy(), lam=cur.lam.copy(), lo=master.lo.copy())
+
+    def new_share(self, master) -> float:
+        """The share of ``master``'s variables this iterate does not have."""
+        kept = np.isin(master.smooth, self.smooth).sum() + np.isin(master.kink, self.kink).sum()
+        return 1.0 - float(kept) / max(master.size, 1)
 
 
 def _barrier_step(net, system, cur, mu):

@@ -212,3 +212,66 @@ def test_fixed_seats_never_overfill_a_leg():
     lo = k.count.copy()                  # everything fixed full: far more than the legs hold
     m = master.build(net, lo, k.count.copy())
     assert np.all(m.capacity > 0)
+
+
+def _mixed_network_with_two_rounds():
+    """The p1k ladder network with the named mix (seed 2): its first restricted problem is
+    left at early pricing and a second, grown one follows (measured on 91d87ba)."""
+    from decomp import demand_mix, ladder
+
+    return demand_mix.apply(ladder.load_rung("p1k"), demand_mix.NAMED["mix"], seed=2)
+
+
+@pytest.mark.solver
+def test_a_later_master_starts_from_the_last_ones_primal_point(monkeypatch):
+    # Primal-dual column generation: the variables both masters have keep the kept iterate's
+    # values (so no leg's load moves), what enters empty fits into the slack, and every
+    # entering variable's dual residual is 0. The answer is then checked against the
+    # independent certificate (scipy.stats and weak duality).
+    starts = []
+    adopt = interior._Iterate.adopt
+
+    def spy(self, snap, m):
+        adopt(self, snap, m)
+        starts.append((snap, m, self.v.copy(), self.s.copy(), self.z.copy(), self.t.copy(), self.lam.copy(), self))
+
+    monkeypatch.setattr(interior._Iterate, "adopt", spy)
+    inst = _mixed_network_with_two_rounds()
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert starts, r.message                         # a later master did start warm
+    for snap, m, v, s, z, t, lam, cur in starts:
+        n = len(m.smooth)
+        kept_smooth = np.isin(m.smooth, snap.smooth)
+        pos = np.searchsorted(snap.smooth, m.smooth[kept_smooth])
+        assert np.array_equal(v[:n][kept_smooth], np.minimum(snap.v[pos], (1 - 1e-9) * cur.var.ub[:n][kept_smooth]))
+        kept_kinks = np.isin(m.kink, snap.kink)
+        pos = np.searchsorted(snap.kink, m.kink[kept_kinks]) + snap.n_smooth
+        assert np.array_equal(v[n:][kept_kinks], snap.v[pos])
+        assert np.all(s > 0) and np.all(v > 0) and np.all(v < cur.var.ub)
+        assert np.all(z > 0) and np.all(t > 0)
+        entering = np.flatnonzero(~np.concatenate([kept_smooth, kept_kinks]))
+        g, _ = cur.slopes(v)
+        a = cur.prices(lam)
+        residual = (g - a + z - t)[entering]
+        assert np.all(np.abs(residual) <= 1e-12 * np.maximum(1.0, np.abs(g[entering]))), residual
+    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    assert viol <= 1e-9
+    assert family.relative_gap(dual, primal) <= 1e-8
+
+
+@pytest.mark.solver
+def test_a_master_grown_much_by_pricing_starts_cold(monkeypatch):
+    # With WARM_NEW = 0 every later master counts as grown too much: none starts from the
+    # kept iterate, and the answer is the same optimum (the independent certificate).
+    monkeypatch.setattr(interior, "WARM_NEW", 0.0)
+    calls = []
+    monkeypatch.setattr(interior._Iterate, "adopt", lambda self, snap, m: calls.append(1))
+    inst = _mixed_network_with_two_rounds()
+    r = solve(inst, "pnlp", "lagrangian")
+    assert r.termination is Termination.OPTIMAL, r.message
+    assert "then 2 round(s)" in r.message or "then 3 round(s)" in r.message, r.message
+    assert not calls
+    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    assert viol <= 1e-9
+    assert family.relative_gap(dual, primal) <= 1e-8
