@@ -18,6 +18,7 @@ import numpy as np
 from scipy import special
 
 from .. import normal as _normal
+from .. import threads as _threads
 
 _INV_SQRT_2PI = 1.0 / np.sqrt(2.0 * np.pi)
 #: Phibar^{-1}(1 - 2^-53): how far below the mean the fractile can go before a/f rounds to 1.
@@ -34,7 +35,8 @@ class NormalDemand:
 
     name = "normal"
 
-    def __init__(self, fare, mean, std):
+    def __init__(self, fare, mean, std, threads=1):
+        self.threads = threads
         self.fare = f = np.asarray(fare, dtype=np.float64)
         self.mean = m = np.asarray(mean, dtype=np.float64)
         self.std = s = np.asarray(std, dtype=np.float64)
@@ -49,14 +51,17 @@ class NormalDemand:
         self._cap_w = bool(len(f) and self._sof.max() > 1.0)
 
     # -- the subproblem ---------------------------------------------------------------------
-    def respond(self, a, out=None, lo=0, hi=None):
-        """(x, w, value) of the products lo:hi at bid-price sums ``a`` (of those products):
-        the fractile, -dx/da and f S(x) - a x. With ``out`` = (x, w, e) arrays, written
-        in place at lo:hi (e: exp(-z^2/2), 0 where x = 0); slices are independent, so
-        threads may run several (numpy releases the GIL)."""
-        hi = self.n if hi is None else hi
-        if out is None:
-            out = (np.empty(self.n), np.empty(self.n), np.empty(self.n))
+    def respond(self, a):
+        """(x, w, value) at bid-price sums ``a``: the fractile, -dx/da and f S(x) - a x.
+        From decomp.threads.FROM_PRODUCTS products on, in slices of products on threads
+        (each product's answer is its own; numpy releases the GIL)."""
+        out = (np.empty(self.n), np.empty(self.n), np.empty(self.n))
+        values = _threads.map_slices(lambda lo, hi: self._respond(a[lo:hi], out, lo, hi), self.n, self.threads)
+        return out[0], out[1], float(sum(values))
+
+    def _respond(self, a, out, lo, hi):
+        """:meth:`respond` for the products lo:hi (``a`` theirs), written in place into
+        ``out`` = (x, w, e) at lo:hi (e: exp(-z^2/2), 0 where x = 0); returns the value."""
         sl = slice(lo, hi)
         x, w, e = out[0][sl], out[1][sl], out[2][sl]
         r = np.multiply(a, self._invf[sl], out=e)
@@ -78,7 +83,7 @@ class NormalDemand:
         w *= ins
         if self._cap_w:
             np.minimum(w, 1e300, out=w)
-        return out[0], out[1], value
+        return value
 
     # -- sales --------------------------------------------------------------------------------
     def sales(self, x, idx=None):
@@ -96,9 +101,22 @@ class NormalDemand:
         m, s = (self.mean, self.std) if idx is None else (self.mean[idx], self.std[idx])
         return _normal.pdf((np.asarray(x, dtype=np.float64) - m) / s) / s
 
-    def terms(self, x, at=slice(None)):
-        """(S(x), S'(x), -S''(x)) of every product (or of the slice ``at``; ``x`` is then
-        the slice's), from one density and one tail probability each: with z = (x - m)/s,
+    def terms(self, x):
+        """(S(x), S'(x), -S''(x)) of every product; from decomp.threads.FROM_PRODUCTS
+        products on, in slices of products on threads."""
+        if len(_threads.slices(self.n, self.threads)) == 1:
+            return self._terms(x, slice(None))
+        out = np.empty((3, self.n))
+
+        def part(lo, hi):
+            out[:, lo:hi] = self._terms(x[lo:hi], slice(lo, hi))
+
+        _threads.map_slices(part, self.n, self.threads)
+        return out[0], out[1], out[2]
+
+    def _terms(self, x, at):
+        """:meth:`terms` of the slice ``at`` of the products (``x`` the slice's), from one
+        density and one tail probability each: with z = (x - m)/s,
         S'(x) = Phibar(z), -S''(x) = phi(z)/s and
         S(x) = s (G(-m/s) - G(z)), G(z) = phi(z) - z Phibar(z) (the interior-point method
         asks for all three at every trial point). For z >> 0 that difference cancels, but
@@ -120,7 +138,7 @@ class NormalDemand:
 
     def subset(self, idx):
         """The products ``idx`` alone."""
-        return NormalDemand(self.fare[idx], self.mean[idx], self.std[idx])
+        return NormalDemand(self.fare[idx], self.mean[idx], self.std[idx], self.threads)
 
     def revenue(self, x):
         """sum_j f_j S_j(x_j), as f s (G(-m/s) - G(z))."""

@@ -23,7 +23,6 @@ import functools
 
 import numpy as np
 
-from .. import threads as _threads
 from ..errors import InstanceError
 from .discrete import DiscreteDemand
 from .gamma import GammaDemand
@@ -81,7 +80,7 @@ class Products:
         self.i_gam = np.flatnonzero((c == GAMMA) & ~known)
         self.i_dis = np.flatnonzero(disc & ~known)
         self.i_known = np.flatnonzero(known)
-        self.normal = NormalDemand(fare[self.i_norm], mean[self.i_norm], std[self.i_norm])
+        self.normal = NormalDemand(fare[self.i_norm], mean[self.i_norm], std[self.i_norm], threads)
         self.threads = threads
         self.gamma = GammaDemand(fare[self.i_gam], mean[self.i_gam], std[self.i_gam], threads)
         self.discrete = DiscreteDemand(fare[self.i_dis], mean[self.i_dis], std[self.i_dis],
@@ -133,10 +132,7 @@ class Products:
                 continue
             if len(idx) == self.n:
                 idx = slice(None)           # one family: views, not copies of every array
-            if fam is self.normal:
-                xs, ws, v = _normal_response(fam, a[idx], self.threads)
-            else:
-                xs, ws, v = fam.respond(a[idx])
+            xs, ws, v = fam.respond(a[idx])
             xs, ws, v = self._bounded(idx, fam, a[idx], xs, ws, v)
             # the jump, where there is one, belongs to the kink table
             jump = self.jump[idx]
@@ -269,7 +265,7 @@ class Products:
         and curvature at allocations, evaluated again and again by the interior-point
         method)."""
         return SmoothPart([(fam.subset(loc), pos) for fam, pos, loc in self._by_family(products)],
-                          len(products), self.threads)
+                          len(products))
 
     def marginal_value(self, products, x):
         """f S'(x+) of the products ``products`` at their allocations ``x``: the value of the
@@ -309,51 +305,21 @@ class SmoothPart:
     gathered once: f S(x), f S'(x) and -f S''(x) at their whole allocations x (jump
     included)."""
 
-    def __init__(self, parts, n, threads=1):
+    def __init__(self, parts, n):
         self.parts = parts        # [(family object over the part's products, their positions)]
         self.n = n
-        self.threads = threads
 
     def terms(self, x):
-        """(f S(x), f S'(x), -f S''(x)), from one tail probability per product (normal
-        products in slices on threads from decomp.threads.FROM_PRODUCTS on; the gamma
-        family slices its own)."""
+        """(f S(x), f S'(x), -f S''(x)), from one tail probability per product (each family
+        in slices of products on threads from its own threshold on)."""
         x = np.asarray(x, dtype=np.float64)
         value, slope, curv = np.zeros(self.n), np.zeros(self.n), np.zeros(self.n)
         for fam, pos in self.parts:
-            if isinstance(fam, NormalDemand):
-                sales, sl, dens = _normal_terms(fam, x[pos], self.threads)
-            else:
-                sales, sl, dens = fam.terms(x[pos])
+            sales, sl, dens = fam.terms(x[pos])
             value[pos] = fam.fare * sales
             slope[pos] = fam.fare * sl
             curv[pos] = fam.fare * dens
         return value, slope, curv
-
-
-def _normal_response(normal, a, threads):
-    """NormalDemand.respond at ``a``, in slices of products on threads from
-    decomp.threads.FROM_PRODUCTS products on (each product's answer is its own)."""
-    n = normal.n
-    if len(_threads.slices(n, threads)) == 1:
-        return normal.respond(a)
-    out = (np.empty(n), np.empty(n), np.empty(n))
-    values = _threads.map_slices(lambda lo, hi: normal.respond(a[lo:hi], out, lo, hi)[2], n, threads)
-    return out[0], out[1], float(sum(values))
-
-
-def _normal_terms(normal, x, threads):
-    """NormalDemand.terms at ``x``, in slices of products on threads as above."""
-    n = normal.n
-    if len(_threads.slices(n, threads)) == 1:
-        return normal.terms(x)
-    out = np.empty((3, n))
-
-    def part(lo, hi):
-        out[:, lo:hi] = normal.terms(x[lo:hi], slice(lo, hi))
-
-    _threads.map_slices(part, n, threads)
-    return out[0], out[1], out[2]
 
 
 def family_codes(instance) -> np.ndarray | None:

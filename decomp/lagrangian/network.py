@@ -57,6 +57,8 @@ class Network:
         self.instance = instance
         #: how many times the dual was evaluated (the loop's measure of its own work)
         self.evaluations = 0
+        #: (bid prices, allocation) of the last exact evaluation (:meth:`response`)
+        self._last_exact = None
         cap = instance.capacity
         lpp = instance.legs_per_product
         leg_index = instance.leg_index
@@ -238,9 +240,8 @@ class Network:
     def response(self, pi):
         """Every product's allocation x(pi) (exact), from the last exact evaluation where it
         was at ``pi``."""
-        last = getattr(self, "_last_exact", None)
-        if last is not None and np.array_equal(last[0], pi):
-            return last[1]
+        if self._last_exact is not None and np.array_equal(self._last_exact[0], pi):
+            return self._last_exact[1]
         return self.evaluate(pi).x
 
     def revenue(self, y):
