@@ -275,3 +275,45 @@ def test_a_master_grown_much_by_pricing_starts_cold(monkeypatch):
     primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
     assert viol <= 1e-9
     assert family.relative_gap(dual, primal) <= 1e-8
+
+
+def test_the_common_step_is_the_longest_inside_the_wide_neighbourhood():
+    """Long-step path following (the wide neighbourhood N(gamma) of the central path, a
+    definition: every complementarity product at least gamma times their average) takes the
+    largest step that stays inside; the method's answer is checked against a brute-force scan
+    of the step on a grid of 5,001 fractions, on random iterates and directions."""
+    rng = np.random.default_rng(11)
+    gamma = interior.NEIGHBOURHOOD
+    for _ in range(10):
+        n, legs = 400, 30
+
+        class Cur:
+            v, up = rng.uniform(0.1, 2.0, n), rng.uniform(0.1, 2.0, n)
+            z, t = rng.uniform(1e-4, 1e-2, n), rng.uniform(1e-4, 1e-2, n)
+            s, lam = rng.uniform(0.1, 5.0, legs), rng.uniform(1e-4, 1e-2, legs)
+
+        cur = Cur()
+        # a direction that drives some products towards 0 (as a predictor-corrector's does)
+        direction = (rng.normal(0.0, 0.6, n), rng.normal(0.0, 2.0, legs), rng.normal(0.0, 4e-3, legs),
+                     rng.normal(0.0, 4e-3, n), rng.normal(0.0, 4e-3, n))
+        dv, ds, dl, dz, dt = direction
+        ap, ad = interior._steps(cur, direction)
+        ap, ad = 0.995 * ap, 0.995 * ad
+
+        def inside(f):
+            products = np.concatenate([(cur.v + f * ap * dv) * (cur.z + f * ad * dz),
+                                       (cur.up - f * ap * dv) * (cur.t + f * ad * dt),
+                                       (cur.s + f * ap * ds) * (cur.lam + f * ad * dl)])
+            return products.min() >= gamma * products.mean()
+
+        grid = np.linspace(0.0, 1.0, 5_001)
+        ok = np.array([inside(f) for f in grid])
+        # the longest fraction whose whole segment [0, f] is inside
+        longest = grid[np.argmin(ok)] - grid[1] if not ok.all() else 1.0
+        p, d = interior._neighbourhood(cur, direction, ap, ad)
+        f = p / ap
+        assert d / ad == pytest.approx(f, rel=1e-12)
+        assert inside(f)
+        # within the bisection's resolution of the largest step inside
+        shrink = interior.NEIGHBOURHOOD_SHRINK
+        assert f >= longest * (1.0 - (1.0 - shrink) / shrink / 2 ** interior.NEIGHBOURHOOD_BISECTIONS) - grid[1]
