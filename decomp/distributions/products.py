@@ -148,7 +148,7 @@ class Products:
         k = self.kinks
         if len(k.owner):
             ak = np.maximum(a[k.owner], 1e-300)
-            kr = k.smoothed(ak, theta) if theta > 0 else k.exact(ak)
+            kr = k.smoothed(ak, theta, self.threads) if theta > 0 else k.exact(ak, self.threads)
             x[k.owner] += kr.x
             w[k.owner] += kr.w
             v = float(kr.value.sum())

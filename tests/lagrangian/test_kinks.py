@@ -158,3 +158,38 @@ def test_widths_per_owner_answer_as_widths_per_kink():
     assert not joined.uniform
     assert np.array_equal(joined.width, np.concatenate([per_kink.width, [0.5, 1.5]]))
     assert joined.filled(np.append(count, 2))[-1] == 2.0
+
+
+def test_kink_terms_split_over_threads_are_the_single_threads(monkeypatch):
+    # Each owner's terms are its own (a fact of the separable dual), so the evaluation split
+    # over threads in slices of owners gives every owner the same allocation, curvature and
+    # term bit for bit, and the excess as the same sum in another order. The threshold is
+    # lowered so that this network (Poisson, negative binomial and known demand) splits; the
+    # guesses of the last counts (per purpose) are kept apart per table by evaluating two alike.
+    from decomp import threads
+    from decomp.distributions import Products, kinks
+    from decomp.distributions.products import FAMILIES
+
+    monkeypatch.setattr(kinks, "THREADS_FROM", 500)
+    inst = generate(3000, seed=4)
+    rng = np.random.default_rng(4)
+    fare, mean = np.asarray(inst.fare), np.asarray(inst.mean) * 3.0
+    names = rng.choice(["poisson", "negbin", "normal"], size=len(fare))
+    codes = np.array([FAMILIES.index(n) for n in names], dtype=np.int8)
+    # negative binomial: std 1.5 sqrt(mean); normal with std 0: known demand (one kink each)
+    std = np.where(names == "negbin", 1.5 * np.sqrt(mean), np.where(names == "normal", 0.0, np.sqrt(mean)))
+
+    def table():
+        return Products(fare, mean, std, codes=codes, upper=np.full(len(fare), 50.0)).kinks
+
+    one, two = table(), table()
+    assert len(one) > 1000 and threads.slices(one.n_owners, 2, kinks.THREADS_FROM) != [(0, one.n_owners)]
+    for step in range(4):                       # later evaluations start from the last counts
+        a = fare[one.owner] * rng.uniform(0.2, 1.2, one.n_owners)
+        for theta in (0.3, 0.01):
+            r1, r2 = one.smoothed(a, theta, threads=1), two.smoothed(a, theta, threads=2)
+            for f in ("x", "w", "value"):
+                assert np.array_equal(getattr(r1, f), getattr(r2, f)), (step, theta, f)
+            assert r2.excess == pytest.approx(r1.excess, rel=1e-12)
+        e1, e2 = one.exact(a, threads=1), two.exact(a, threads=2)
+        assert np.array_equal(e1.x, e2.x) and np.array_equal(e1.value, e2.value)
