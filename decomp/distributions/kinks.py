@@ -286,7 +286,8 @@ class KinkTable:
             excess = 0.0
             ends = np.cumsum(size[o0:o1])
             cuts = np.searchsorted(ends, np.arange(CHUNK, int(ends[-1]) if len(ends) else 0, CHUNK), side="right")
-            for b0, b1 in _pairs(np.unique(np.concatenate([[0], cuts, [o1 - o0]])) + o0):
+            bounds = np.unique(np.concatenate([[0], cuts, [o1 - o0]])) + o0
+            for b0, b1 in zip(bounds[:-1], bounds[1:]):
                 excess += self._window_terms(a, theta, lo, size, b0, b1, x, w, value)
             return excess
 
@@ -363,8 +364,3 @@ class KinkTable:
         prev = np.where(n > 0, self.slope[k_prev] if len(self.slope) else np.inf, np.inf)
         left = np.where(on_break, prev, right)
         return right, left
-
-
-def _pairs(bounds):
-    """Consecutive pairs of ``bounds``."""
-    return zip(bounds[:-1], bounds[1:])
