@@ -35,7 +35,7 @@ from ..result import Termination
 from . import continuation, interior, lpmaster, master, newton
 from .bounds import Bounds, record
 from .continuation import Continuation
-from .prices import ZERO_RESOLUTION
+from .prices import settled
 from .recovery import recover, within_capacity
 
 #: Below this many products the recovery runs at every Newton iteration; above, only
@@ -279,7 +279,9 @@ def _must_settle(net, tol) -> bool:
 
 
 def settle(state):
-    """After a certified master phase (smooth products only): Newton steps on the exact dual
+    """After a certified master phase (smooth products only; the master itself has gone on
+    until its last step moved no bid price by more than BID_TOL, see
+    :func:`.interior.solve_master`): Newton steps on the exact dual
     from the best bid prices, at most SETTLE_STEPS, until the next would move none by more
     than BID_TOL; each new point is kept where the dual did not rise (it is a bound like any
     other). The certificate bounds the revenue's gap; the interior-point method's bid prices
@@ -301,11 +303,9 @@ def settle(state):
 
 
 def _settled(pt, new, bid_tol, fare_max):
-    """The step to ``new`` moves every bid price by at most bid_tol of itself (or of 1e-3
-    of the largest, for the smallest ones)."""
-    scale = np.maximum(pt.pi, 1e-3 * float(pt.pi.max(initial=0.0)))
-    zero = np.maximum(pt.pi, new) <= ZERO_RESOLUTION * fare_max
-    return bool(np.all((np.abs(new - pt.pi) <= bid_tol * scale) | zero))
+    """The step from ``pt`` to ``new`` moves every bid price by at most bid_tol of itself
+    (:func:`.prices.settled`)."""
+    return settled(pt.pi, new, bid_tol, fare_max)
 
 
 # ---------------------------------------------------------------------------------------
@@ -342,7 +342,8 @@ def master_phase(state, pi, max_growth=None):
         start = warm if isinstance(warm, lpmaster.Model if method is lpmaster else interior.Snapshot) else None
         word, its, pi, cur = method.solve_master(net, state.system, m, pi, state.tol, limit, state.deadline,
                                                  state.t0, state.bounds, state.history, state.iterations,
-                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=start)
+                                                 early_pricing=round_ < EARLY_PRICED_ROUNDS, warm=start,
+                                                 settle=BID_TOL if _must_settle(net, state.tol) else None)
         if isinstance(cur, lpmaster.Vertex):
             state.lp_masters += 1
             state.simplex_iterations += cur.simplex_iterations

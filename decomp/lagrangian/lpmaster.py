@@ -106,9 +106,10 @@ def available() -> bool:
 
 
 def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, history, first_iteration,
-                 early_pricing=False, warm=None):
+                 early_pricing=False, warm=None, settle=None):
     """The master's linear program by HiGHS (one iteration of the loop), certified over the
-    whole problem; the same words and returns as :func:`.interior.solve_master`. ``warm``:
+    whole problem; the same words and returns as :func:`.interior.solve_master` (``settle``
+    is for networks of smooth products only, whose masters are never linear programs). ``warm``:
     the last round's :class:`Model`, extended where it still fits. Without highspy installed,
     the interior-point method solves it."""
     if not available():

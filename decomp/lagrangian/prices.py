@@ -20,6 +20,15 @@ ZERO_RESOLUTION = 1e-9
 FLOOR = 1e-13
 
 
+def settled(old, new, bid_tol, fare_max) -> bool:
+    """The move from bid prices ``old`` to ``new`` changes every one by at most bid_tol of
+    itself (or of 1e-3 of the largest, for the smallest ones); those at or below the
+    reporting resolution on both sides count as settled."""
+    scale = np.maximum(old, 1e-3 * float(old.max(initial=0.0)))
+    zero = np.maximum(old, new) <= ZERO_RESOLUTION * fare_max
+    return bool(np.all((np.abs(new - old) <= bid_tol * scale) | zero))
+
+
 def fare_start(net):
     """Half the demand-weighted fare per leg of each leg's products (a cold start)."""
     if net.n == 0:
