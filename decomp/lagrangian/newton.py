@@ -60,7 +60,7 @@ SIGMA = 1e-4
 #: cannot fit a model. Against halving alone, on p10k and p100k mix and low-CV networks of
 #: six seeds and gamma: 19% fewer dual evaluations (1,142 -> 930), solve 17.1 -> 15.3 s;
 #: the ladder's normal cases unchanged (p1m 11 iterations; without the rounding guard 12).
-MAX_HALVINGS = 50
+MAX_TRIALS = 50
 SHRINK_LOW, SHRINK_HIGH = 0.1, 0.5
 INTERPOLATE_ABOVE = 1e6
 #: A full step whose decrease is at least this fraction of its first-order prediction
@@ -244,7 +244,7 @@ def arc_search(net, pt, d, smoothing, lower):
     pi, g = pt.pi, pt.grad
     noise = 1e-14 * max(1.0, abs(pt.value))
     t = 1.0
-    for _ in range(MAX_HALVINGS):
+    for _ in range(MAX_TRIALS):
         trial = np.maximum(pi + t * d, lower)
         pred = float(g @ (pi - trial))
         if pred <= 0.0:
