@@ -112,6 +112,9 @@ RESIDUAL = 1e-11
 #: ... beyond ROUNDING machine epsilons of the allocation times the curvature (the slope's
 #: own rounding).
 ROUNDING = 8 * np.finfo(float).eps
+#: A settled iterate's exact dual replaces the best one where it is at most this share above
+#: it (:func:`_report_settled`).
+SAME_DUAL = 1e-13
 #: The start's centring (:func:`_centre`) stops at Newton steps within this share of the bound.
 CENTRE_TOL = 1e-12
 
@@ -405,7 +408,10 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
         if bounds.gap <= tol and (settle is None or before is not None
                                   and settled(before, cur.lam * fmax, settle, fmax)):
-            return "optimal", it, cur.lam * fmax, cur
+            if settle is not None and certified != comp:
+                _report_settled(net, master, cur, cur.lam * fmax, bounds)
+            if bounds.gap <= tol:
+                return "optimal", it, cur.lam * fmax, cur
         before = cur.lam * fmax
         if violated:
             return "reprice", it, cur.lam * fmax, cur
@@ -709,6 +715,17 @@ def _certify(net, master, cur, pi, bounds, final=False, system=None):
             pt = net.evaluate(np.maximum(pi, floor))
             dirn = newton.direction(net, system, pt, newton.LAM_MIN, 1e-3 * fmax, floor)
             bounds.offer_primal(*recover(net, pt, dirn, system, both=False))
+
+
+def _report_settled(net, master, cur, pi, bounds):
+    """Make the settled iterate's bid prices ``pi`` the reported ones (the bounds keep the
+    last certified iterate's, which may be a step or more before): its exact dual becomes the
+    upper bound where it exceeds the best by at most SAME_DUAL of it (rounding: the dual is
+    flat to about that near the optimum), and its allocation is offered too."""
+    pt = net.evaluate(np.maximum(pi, 0.0))
+    if pt.exact <= bounds.dual + SAME_DUAL * max(1.0, abs(bounds.dual)):
+        bounds.dual, bounds.pi = pt.exact, pt.pi
+    bounds.offer_primal(*within_capacity(net, np.minimum(cur.allocation(master), net.upper)))
 
 
 def _size(bounds):
