@@ -126,7 +126,10 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     h.run()
     status = h.getModelStatus()
     sol = h.getSolution()
-    if status == highspy.HighsModelStatus.kTimeLimit:
+    if status == highspy.HighsModelStatus.kTimeLimit or (
+            status != highspy.HighsModelStatus.kOptimal and deadline is not None and time.perf_counter() > deadline):
+        # (past the deadline whatever HiGHS says: the interior-point fallback below would
+        # start after it; a multi-million-column master ran 190 s over a 60 s limit that way)
         # the stop still needs a certificate: the dual at the bid prices the master started
         # from, and the allocation recovered there (large networks recover only near the end)
         pt = net.evaluate(np.maximum(pi0, 0.0))

@@ -160,3 +160,50 @@ def test_a_time_limit_inside_the_linear_program_is_a_time_limit_with_an_allocati
     assert r.termination is Termination.TIME_LIMIT, r.message
     assert r.solution_status is SolutionStatus.FEASIBLE and r.certificate.max_violation_rel <= 1e-9
     assert 0.0 <= r.gap < 1.0 and r.objective > 0
+
+
+@pytest.mark.solver
+def test_past_the_deadline_a_master_highs_did_not_finish_stops_as_time_limit(monkeypatch):
+    # HiGHS ends without an optimum (an iteration limit here; on a 3.9-million-column master
+    # it ended so after its time limit) and the caller's deadline has passed: the loop stops
+    # as time_limit with a certified feasible allocation, and does not start the
+    # interior-point fallback after the deadline (it once ran 190 s over a 60 s limit so).
+    import time as _time
+
+    from decomp import SolutionStatus, SolverOptions
+    from decomp.lagrangian import interior, loop, lpmaster
+    from decomp.methods import highs
+
+    import highspy
+
+    class Late(highspy.Highs):
+        """A HiGHS that ends at one simplex iteration and ignores the time limit it is given
+        (so that it ends without an optimum and without the time-limit status)."""
+
+        def setOptionValue(self, name, value):
+            return None if name == "time_limit" else super().setOptionValue(name, value)
+
+    monkeypatch.setattr(loop, "RECOVER_ALWAYS_BELOW", 0)
+
+    def late():
+        h = Late()
+        h.setOptionValue("output_flag", False)
+        h.setOptionValue("simplex_iteration_limit", 1)
+        return h
+
+    monkeypatch.setattr(highs, "new_highs", late)
+    take = lpmaster.Model.take
+
+    def slow_take(self, master):
+        take(self, master)
+        _time.sleep(0.6)                     # the deadline passes while the master is set up
+
+    monkeypatch.setattr(lpmaster.Model, "take", slow_take)
+    fallback = []
+    monkeypatch.setattr(lpmaster, "interior_solve", lambda *a, **k: fallback.append(1))
+    inst = _large_means(200, seed=6, scale=3)
+    r = solve(inst, "pnlp", "lagrangian", SolverOptions(time_limit=0.5))
+    assert not fallback
+    assert r.termination is Termination.TIME_LIMIT, r.message
+    assert r.solution_status is SolutionStatus.FEASIBLE and r.certificate.max_violation_rel <= 1e-9
+    assert 0.0 <= r.gap < 1.0 and r.objective > 0
