@@ -128,16 +128,23 @@ def _forecast(rng, n, families, cv_kind):
     return mean, std
 
 
-def draw(seed: int, max_products: int = 3000) -> tuple[Instance, dict]:
-    """One instance of the family and a description of what was drawn."""
+def draw(seed: int, max_products: int = 3000, min_products: int = 5,
+         max_classes: int | None = 40) -> tuple[Instance, dict]:
+    """One instance of the family and a description of what was drawn. Its size is drawn
+    log-uniformly in [min_products, max_products], as fare classes per itinerary of the
+    drawn topology, at most ``max_classes`` of them (None: no cap). With the default cap of 40
+    the small topologies keep every draw below about 2,400 products whatever the maximum; the
+    large tier lifts it (many fare classes per itinerary, each with its own fare and demand)."""
     rng = np.random.default_rng(seed)
     topology = TOPOLOGIES[int(rng.integers(len(TOPOLOGIES)))]
     demand = DEMANDS[int(rng.integers(len(DEMANDS)))]
     cv_kind = ("low", "mid", "high")[int(rng.integers(3))]
     legs, its = _network(rng, topology)
     # products per itinerary: fare classes, so that sizes span 5 to max_products
-    target = int(np.exp(rng.uniform(np.log(5), np.log(max_products))))
-    classes = max(1, min(40, target // max(len(its), 1)))
+    target = int(np.exp(rng.uniform(np.log(min_products), np.log(max_products))))
+    classes = max(1, target // max(len(its), 1))
+    if max_classes is not None:
+        classes = min(max_classes, classes)
     it_of = np.repeat(np.arange(len(its)), classes)
     n = len(it_of)
     if demand in ("normal", "normal_mixed"):
