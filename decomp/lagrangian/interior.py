@@ -398,7 +398,8 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     for it in range(1, limit + 1):
         comp = cur.complementarity()
         violated = False
-        if it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= RECERTIFY * certified):
+        fresh = it == 1 or (comp * fmax <= CERTIFY_WITHIN * tol * _size(bounds) and comp <= RECERTIFY * certified)
+        if fresh:
             _certify(net, master, cur, cur.lam * fmax, bounds)
             certified = comp
             # the fixed kinks priced at this near-optimal point of the master: if one is on
@@ -408,7 +409,7 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
         history.append(record(first_iteration + it, bounds, cur.lam * fmax, 0.0, t0))
         if bounds.gap <= tol and (settle is None or before is not None
                                   and settled(before, cur.lam * fmax, settle, fmax)):
-            if settle is not None and certified != comp:
+            if settle is not None and not fresh:
                 _report_settled(net, master, cur, cur.lam * fmax, bounds)
             if bounds.gap <= tol:
                 return "optimal", it, cur.lam * fmax, cur

@@ -253,7 +253,7 @@ def _worth_recovering(pt, dirn, bounds, tol, settle, fare_max) -> bool:
     about that step, far more than the dual value. (A stop at a limit recovers anyway.)"""
     if bounds.gap <= tol:
         return False
-    return settle is None or _settled(pt, np.maximum(pt.pi + dirn.d, dirn.lower), FINAL_STEP, fare_max)
+    return settle is None or settled(pt.pi, np.maximum(pt.pi + dirn.d, dirn.lower), FINAL_STEP, fare_max)
 
 
 def _may_stop(net, pt, dirn, bounds, settle, fare_max) -> bool:
@@ -261,9 +261,9 @@ def _may_stop(net, pt, dirn, bounds, settle, fare_max) -> bool:
     Newton's next step still moves one by more than that; a step of at most FINAL_STEP
     is taken first, its point becoming the reported one if the dual did not rise."""
     new = np.maximum(pt.pi + dirn.d, dirn.lower)
-    if settle is None or _settled(pt, new, settle, fare_max):
+    if settle is None or settled(pt.pi, new, settle, fare_max):
         return True
-    if not _settled(pt, new, FINAL_STEP, fare_max):
+    if not settled(pt.pi, new, FINAL_STEP, fare_max):
         return False
     final = net.evaluate(new)
     if final.exact > bounds.dual:
@@ -294,18 +294,12 @@ def settle(state):
     for _ in range(SETTLE_STEPS):
         dirn = newton.direction(net, state.system, pt, newton.LAM_MIN, 1e-3 * fare_max, state.floor)
         new = np.maximum(pt.pi + dirn.d, dirn.lower)
-        if _settled(pt, new, BID_TOL, fare_max):
+        if settled(pt.pi, new, BID_TOL, fare_max):
             return
         pt = net.evaluate(new)
         if pt.exact > bounds.dual:
             return
         bounds.dual, bounds.pi = pt.exact, pt.pi
-
-
-def _settled(pt, new, bid_tol, fare_max):
-    """The step from ``pt`` to ``new`` moves every bid price by at most bid_tol of itself
-    (:func:`.prices.settled`)."""
-    return settled(pt.pi, new, bid_tol, fare_max)
 
 
 # ---------------------------------------------------------------------------------------
