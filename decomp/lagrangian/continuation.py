@@ -48,7 +48,8 @@ class Continuation:
         return self.iterations >= STAGE_ITERATIONS
 
     def stage_done(self, decrement, excess) -> bool:
-        return decrement <= STAGE * excess
+        # (a negative decrement is no estimate: the projection turned the step uphill)
+        return 0.0 <= decrement <= STAGE * excess
 
     def lower(self):
         """The next level, or None when it would be below the last (the phase is done)."""

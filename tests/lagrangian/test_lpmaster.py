@@ -124,13 +124,29 @@ def test_a_linear_program_master_followed_by_one_with_smooth_parts():
     # Pricing can open a jump fixed empty, so that a master of kinks only (a linear program,
     # its HiGHS model kept for the next round) is followed by one with smooth parts (the
     # interior-point method, which must start cold then: it once took the HiGHS model for its
-    # own restart point and failed). Family draw 1619 (mixed demand, 12 products; found by a
-    # held-out sweep); reference: the independent certificate (scipy.stats; weak duality).
-    inst, desc = family.draw(1619, max_products=3000)
-    r = solve(inst, "pnlp", "lagrangian")
-    assert r.termination is Termination.OPTIMAL, (desc, r.message)
-    assert "as linear program" in r.message and "by the interior-point method" in r.message, r.message
-    primal, dual, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
+    # own restart point and failed). Family draw 194 (mixed demand, 60 products) handed to
+    # the master phase at three times its optimal bid prices: every smooth product closed at
+    # first. (Family draw 1619 reached this path from the Newton phase until its smoothing
+    # levels stopped ending on a negative decrement; no draw of 0-12,000 does now.)
+    # Reference: the independent certificate (scipy.stats; weak duality).
+    import time
+
+    from decomp.lagrangian import loop
+    from decomp.lagrangian.hessian import LegSystem
+    from decomp.lagrangian.network import Network
+    from decomp.lagrangian.prices import FLOOR, price_closed_legs
+
+    inst, desc = family.draw(194, max_products=3000)
+    optimum = solve(inst, "pnlp", "lagrangian")
+    net = Network(inst)
+    fare_max = float(inst.fare.max())
+    state = loop.LoopState(net, LegSystem(net), 1e-9, 300, None, time.perf_counter(), FLOOR * fare_max)
+    word = loop.master_phase(state, np.maximum(3.0 * optimum.bid_price_array[net.legs], FLOOR * fare_max))
+    assert word == "optimal", (desc, word)
+    assert state.lp_masters >= 1 and state.master_rounds - state.lp_masters - state.empty_masters >= 1
+    x, pi = net.full_allocation(state.bounds.x), net.full_prices(state.bounds.pi)
+    price_closed_legs(inst, net, pi)
+    primal, dual, viol = family.independent_certificate(inst, x, pi)
     assert viol <= 1e-9, desc
     assert family.relative_gap(dual, primal) <= 1e-8, desc
 
