@@ -46,7 +46,10 @@ PRICE_TOL = 1e-12
 #: low-CV normal demand.
 FLAT_SHARE = 1e-3
 #: A leg's capacity left by the fixed kinks must be at least this fraction of it (else the
-#: full kinks of its products are freed): the master needs room for its interior.
+#: full kinks of its products are freed, the last ones first: one per product, then two more,
+#: four, ...): the master needs room for its interior. (Freeing whole tables at once made the
+#: first master of a held-out network of 52,692 negative binomial products, nearly slack legs,
+#: 969,290 kinks where 16,804 were asked; HiGHS did not finish it in 10 minutes.)
 ROOM = 1e-6
 #: A smooth part's seats count in the master only up to the product's response to its
 #: bid-price sum SMOOTH_MARGIN lower in log(a) (a e^-0.5, 61 % of it) at the bid prices the
@@ -126,6 +129,7 @@ def build(net, lo, hi, share=None, caps=None) -> Master:
     and at ``caps`` (per product, its whole allocation; None: none)."""
     k = net.products.kinks
     lo = lo.copy()
+    drop = 1
     while True:
         fixed_x = np.zeros(net.n_products)
         if len(k.owner):
@@ -138,7 +142,8 @@ def build(net, lo, hi, share=None, caps=None) -> Master:
         grow = on_tight[k.owner] & (lo > 0)
         if not np.any(grow):
             break                            # the fixed seats are not what fills it
-        lo[grow] = 0
+        lo[grow] = np.maximum(lo[grow] - drop, 0)
+        drop *= 2
     size = hi - lo
     row = np.repeat(np.arange(k.n_owners), size)
     kink = np.arange(int(size.sum())) - np.repeat(np.cumsum(size) - size, size) + np.repeat(k.ptr[:-1] + lo, size)
