@@ -130,6 +130,7 @@ class LoopState:
     lp_masters: int = 0            # masters solved as linear programs by HiGHS (lpmaster)
     empty_masters: int = 0         # masters without variables (every kink fixed)
     simplex_iterations: int = 0
+    barrier_iterations: int = 0    # HiGHS's interior-point iterations on linear-program masters
 
     def out_of_time(self) -> bool:
         return self.deadline is not None and time.perf_counter() > self.deadline
@@ -341,6 +342,7 @@ def master_phase(state, pi, max_growth=None):
         if isinstance(cur, lpmaster.Vertex):
             state.lp_masters += 1
             state.simplex_iterations += cur.simplex_iterations
+            state.barrier_iterations += cur.barrier_iterations
         elif not m.size:
             state.empty_masters += 1
         warm = getattr(cur, "snapshot", None)
@@ -387,7 +389,8 @@ def _outcome(state, word) -> Outcome:
     msg = f"{meaning} after {state.iterations} iterations"
     if state.master_rounds:
         rounds, lp, empty = state.master_rounds, state.lp_masters, state.empty_masters
-        kinds = [(lp, f"as linear programs by HiGHS's dual simplex ({state.simplex_iterations} simplex iterations)"),
+        barrier = f"{state.barrier_iterations} interior-point and " if state.barrier_iterations else ""
+        kinds = [(lp, f"as linear programs by HiGHS ({barrier}{state.simplex_iterations} simplex iterations)"),
                  (rounds - lp - empty, "by the interior-point method"),
                  (empty, "without variables (every kink fixed)")]
         kinds = [(n, how) for n, how in kinds if n]
