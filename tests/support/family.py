@@ -235,6 +235,13 @@ def _sales(fam, m, s, x):
         return m * stats.gamma.cdf(x, k + 1, scale=theta) + x * stats.gamma.sf(x, k, scale=theta)
     n = np.floor(x).astype(np.int64)
     whole = np.zeros(len(x))
+    # (the sum stops where P(D > k) < 1e-16 (scipy's Poisson isf returns nan below about
+    # 1e-17): beyond it the tails fall geometrically, by a factor below m / (k + 1) per unit
+    # for the Poisson and towards 1 - p for the negative binomial, so the terms left out add
+    # some 1e-16 / p seats per product, far below the certificate's tolerances; a product
+    # priced at 0 would otherwise sum up to its bound u, some two million terms)
+    end = _frozen(fam, m, s).isf(1e-16)
+    n = np.where(np.isfinite(end), np.minimum(n, np.ceil(np.nan_to_num(end)).astype(np.int64) + 1), n)
     ends = np.cumsum(n)
     start = 0
     while start < len(x):                  # chunks of at most about 2 million terms
@@ -245,7 +252,8 @@ def _sales(fam, m, s, x):
         whole[start:stop] = np.bincount(owner - start, weights=_frozen(fam, m[owner], s[owner]).sf(k),
                                         minlength=stop - start)
         start = stop
-    return whole + (x - n) * _frozen(fam, m, s).sf(n)
+    whole_units = np.floor(x)
+    return whole + (x - whole_units) * _frozen(fam, m, s).sf(whole_units)
 
 
 def _known(fam, m, s):
