@@ -117,10 +117,11 @@ def flat_share(net, tol, revenue):
     """The share of its most sales S(inf) a smooth part's expected spill may keep in the
     master: FLAT_SHARE tol, times ``revenue`` (a feasible allocation's) over the smooth
     products' worth sum f S(inf) where that is larger, so that the seats left out are worth
-    at most FLAT_SHARE tol of the revenue."""
+    at most FLAT_SHARE tol of the revenue. None (no bound) where that revenue is 0: no share
+    of the worth is that small (a share of 0 put the bound at log(0))."""
     worth = net.products.smooth_worth()
     scale = min(1.0, max(revenue, 0.0) / worth) if worth > 0 else 1.0
-    return FLAT_SHARE * tol * scale
+    return FLAT_SHARE * tol * scale if scale > 0 else None
 
 
 def build(net, lo, hi, share=None, caps=None) -> Master:

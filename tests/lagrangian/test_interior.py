@@ -316,3 +316,16 @@ def test_the_settled_iterate_is_the_one_reported(monkeypatch):
     primal, upper, viol = family.independent_certificate(inst, r.allocation, r.bid_price_array)
     assert viol <= 1e-9
     assert family.relative_gap(upper, primal) <= 1e-9
+
+
+def test_a_flat_share_needs_a_revenue_to_be_a_share_of():
+    # The smooth parts' flat bound keeps at most FLAT_SHARE tol of a feasible allocation's
+    # revenue out of the master. With no revenue (bid prices above every fare close every
+    # product) no share is that small: no bound, rather than a share of 0 and log(0).
+    inst = generate(300, seed=3)
+    net = Network(inst)
+    assert master.flat_share(net, 1e-9, 0.0) is None
+    share = master.flat_share(net, 1e-9, 1e12)
+    assert share == pytest.approx(master.FLAT_SHARE * 1e-9)
+    with np.errstate(all="raise"):
+        net.products.flat_from(share)
