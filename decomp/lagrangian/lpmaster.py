@@ -90,28 +90,27 @@ class Model:
         self.h.addRows(n, np.full(n, -highspy.kHighsInf), np.zeros(n), 0, np.zeros(0, dtype=np.int32),
                        np.zeros(0, dtype=np.int32), np.zeros(0))
         self.kink = np.zeros(0, dtype=np.int64)      # the columns' kinks, in column order
-        self.fits = False                             # see take()
         self.owner = np.zeros(0, dtype=np.int64)
 
     def holds(self, master) -> bool:
         """Whether every column of this model is a free kink of ``master``."""
         return bool(np.all(np.isin(self.kink, master.kink, assume_unique=True)))
 
-    def take(self, master) -> int:
-        """Add the master's free kinks this model lacks as columns (how many: returned); its
-        capacities as row bounds. After a solve, each new column starts at the bound its
+    def take(self, master) -> tuple[int, bool]:
+        """Add the master's free kinks this model lacks as columns; its capacities as row
+        bounds. Returns (how many columns are new, whether they fit). After a solve, each new column starts at the bound its
         reduced cost at the last duals favours (its upper bound where the kink is profitable,
         as pricing found it), so that the kept basis stays dual feasible and the dual simplex
         goes on from it. (HiGHS puts a new column at 0 and repairs the dual infeasibility
         itself, which took 32 s for the 184,724 columns of one pricing round, 0 simplex
         iterations, on a 38,661-product negative binomial network; 0.03 s this way.)
-        ``fits`` says whether that basis is also primal feasible (the seats of the new columns
-        at their upper bounds fit into the rows' slack), hence optimal."""
+        They fit where that basis is also primal feasible (the seats of the new columns at their
+        upper bounds fit into the rows' slack), hence optimal."""
         net, highspy = self.net, self.highspy
         k = net.products.kinks
         new = ~np.isin(master.kink, self.kink, assume_unique=True)
         kink, owner = master.kink[new], master.kink_owner[new]
-        self.fits = False
+        fits = False
         if len(kink):
             basis = self.h.getBasis()
             solved = basis.valid
@@ -134,10 +133,10 @@ class Model:
                 more = cols @ np.where(profitable, width, 0.0)
                 slack = np.array([st == highspy.HighsBasisStatus.kBasic for st in basis.row_status])
                 room = np.where(slack, master.capacity - load, 0.0)
-                self.fits = bool(np.all(more <= room + FEASIBILITY * (1.0 + np.abs(master.capacity))))
+                fits = bool(np.all(more <= room + FEASIBILITY * (1.0 + np.abs(master.capacity))))
         rows = np.arange(net.n, dtype=np.int32)
         self.h.changeRowsBounds(net.n, rows, np.full(net.n, -highspy.kHighsInf), np.maximum(master.capacity, 0.0))
-        return len(kink)
+        return len(kink), fits
 
 
 def available() -> bool:
@@ -160,14 +159,14 @@ def solve_master(net, system, master, pi0, tol, limit, deadline, t0, bounds, his
     fmax = float(net.fare.max(initial=1.0))
     warm = warm if isinstance(warm, Model) and warm.holds(master) else None
     model = warm or Model(net, fmax)
-    new = model.take(master)
+    new, fits = model.take(master)
     h = model.h
     # Pricing added more columns than the model had, and they do not fit at their bounds: the
     # dual simplex would repair that one bound flip at a time (50,474 iterations, 85 s, on a
     # 15,888-product negative binomial network whose master grew from 7,281 to 420,583
     # columns), so HiGHS's interior-point method with crossover solves it afresh (3 s there),
     # the dual simplex where that ends without an optimum.
-    barrier = warm is not None and new > len(model.kink) - new and not model.fits
+    barrier = warm is not None and new > len(model.kink) - new and not fits
     for solver in ("ipm", "simplex") if barrier else ("simplex",):
         h.setOptionValue("solver", solver)
         if deadline is not None:

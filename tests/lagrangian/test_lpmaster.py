@@ -211,8 +211,9 @@ def test_past_the_deadline_a_master_highs_did_not_finish_stops_as_time_limit(mon
     take = lpmaster.Model.take
 
     def slow_take(self, master):
-        take(self, master)
+        taken = take(self, master)
         _time.sleep(0.6)                     # the deadline passes while the master is set up
+        return taken
 
     monkeypatch.setattr(lpmaster.Model, "take", slow_take)
     fallback = []
